@@ -1,0 +1,93 @@
+// Command ternkit turns float safetensors checkpoints into verified ternary
+// artifacts: pack, verify, inspect, and a self-contained demo.
+package main
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"os"
+
+	"github.com/spf13/cobra"
+)
+
+// version is recorded in every manifest this build writes.
+const version = "0.1.0"
+
+// Exit codes (README, "Exit codes").
+const (
+	exitOK     = 0
+	exitFailed = 1 // verification failed
+	exitInput  = 2 // usage or input error
+)
+
+// caution is printed wherever ternkit reports a result a release could rely on.
+const caution = "caution: ternarizing a model that was not trained for ternary weights loses much accuracy; " +
+	"a passing verify proves bytes and bounds, not task quality: evaluate the model before deployment and follow your organisation's release practice"
+
+// errVerifyFailed marks a run whose checks failed (exit 1); the report has
+// already been printed.
+var errVerifyFailed = errors.New("verification failed")
+
+// usageError marks a problem with the command line (exit 2).
+type usageError struct{ err error }
+
+func (e usageError) Error() string { return e.err.Error() }
+func (e usageError) Unwrap() error { return e.err }
+
+func usagef(format string, args ...any) error {
+	return usageError{fmt.Errorf(format, args...)}
+}
+
+func main() {
+	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
+}
+
+// run executes the command line and returns the exit code.
+func run(args []string, stdout, stderr io.Writer) int {
+	root := newRootCmd(stdout, stderr)
+	root.SetArgs(args)
+	err := root.Execute()
+	switch {
+	case err == nil:
+		return exitOK
+	case errors.Is(err, errVerifyFailed):
+		return exitFailed
+	default:
+		fmt.Fprintf(stderr, "ternkit: %v\n", err)
+		return exitInput
+	}
+}
+
+func newRootCmd(stdout, stderr io.Writer) *cobra.Command {
+	root := &cobra.Command{
+		Use:   "ternkit",
+		Short: "Turn float safetensors checkpoints into verified ternary artifacts",
+		Long: `ternkit converts a float safetensors checkpoint into a compact ternary
+artifact (weights in {-1, 0, +1} times a per-tensor scale, absmean method),
+verifies it byte for byte and against its source, and shows what is inside.
+
+` + caution + `.`,
+		Version:       version,
+		SilenceUsage:  true,
+		SilenceErrors: true,
+	}
+	root.SetOut(stdout)
+	root.SetErr(stderr)
+	root.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usageError{err} })
+	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd())
+	for _, c := range root.Commands() {
+		c.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usageError{err} })
+	}
+	return root
+}
+
+// exactArgs is cobra.ExactArgs with a message that names the command's usage.
+func exactArgs(n int) cobra.PositionalArgs {
+	return func(cmd *cobra.Command, args []string) error {
+		if len(args) != n {
+			return usagef("%s takes %d argument(s), got %d (usage: %s)", cmd.Name(), n, len(args), cmd.UseLine())
+		}
+		return nil
+	}
+}

@@ -1,0 +1,211 @@
+package pack
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"os"
+
+	"github.com/zeebo/blake3"
+
+	"ternkit/convert"
+	"ternkit/manifest"
+)
+
+// Artifact is an opened artifact. Opening checks the preamble, the trailer,
+// the manifest hash, the manifest's rules and the section layout; section
+// hashes and payloads are checked by the verify package or on decode.
+type Artifact struct {
+	file         string
+	r            io.ReaderAt
+	closer       io.Closer
+	size         int64
+	m            *manifest.Manifest
+	manifestHash [32]byte
+	manifestOff  int64
+	index        map[string]int
+}
+
+// Open opens the artifact at path.
+func Open(path string) (*Artifact, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, err
+	}
+	st, err := f.Stat()
+	if err != nil {
+		f.Close()
+		return nil, err
+	}
+	a, err := newArtifact(path, f, st.Size())
+	if err != nil {
+		f.Close()
+		return nil, err
+	}
+	a.closer = f
+	return a, nil
+}
+
+// NewReader reads an artifact of the given size from r.
+func NewReader(r io.ReaderAt, size int64) (*Artifact, error) {
+	return newArtifact("", r, size)
+}
+
+func newArtifact(file string, r io.ReaderAt, size int64) (*Artifact, error) {
+	fail := func(where string, off int64, err error) error {
+		return &FormatError{File: file, Where: where, Offset: off, Err: err}
+	}
+	if size < PreambleLen+TrailerLen {
+		return nil, fail("file", size, fmt.Errorf("%w: %d bytes is shorter than preamble and trailer (%d)", ErrStructure, size, PreambleLen+TrailerLen))
+	}
+	pre := make([]byte, PreambleLen)
+	if _, err := r.ReadAt(pre, 0); err != nil {
+		return nil, fail("preamble", 0, err)
+	}
+	if off, err := checkPreamble(pre); err != nil {
+		return nil, fail("preamble", off, err)
+	}
+	tr := make([]byte, TrailerLen)
+	if _, err := r.ReadAt(tr, size-TrailerLen); err != nil {
+		return nil, fail("trailer", size-TrailerLen, err)
+	}
+	t, off, err := decodeTrailer(tr, size, DefaultMaxManifest)
+	if err != nil {
+		return nil, fail("trailer", size-TrailerLen+off, err)
+	}
+	body := make([]byte, t.manifestLen)
+	if _, err := r.ReadAt(body, t.manifestOffset); err != nil {
+		return nil, fail("manifest", t.manifestOffset, err)
+	}
+	if got := blake3.Sum256(body); got != t.manifestHash {
+		return nil, fail("manifest", t.manifestOffset, fmt.Errorf("%w: BLAKE3 %x, trailer records %x", ErrHash, got, t.manifestHash))
+	}
+	m, err := manifest.Decode(body)
+	if err != nil {
+		return nil, fail("manifest", t.manifestOffset, err)
+	}
+	a := &Artifact{file: file, r: r, size: size, m: m, manifestHash: t.manifestHash, manifestOff: t.manifestOffset, index: make(map[string]int, len(m.Tensors))}
+	next := int64(PreambleLen)
+	for i, e := range m.Tensors {
+		a.index[e.Name] = i
+		if e.Section.Offset != next {
+			return nil, fail(fmt.Sprintf("manifest: tensor %q", e.Name), t.manifestOffset,
+				fmt.Errorf("%w: section offset %d (layout puts it at %d)", ErrStructure, e.Section.Offset, next))
+		}
+		if e.Section.Length > t.manifestOffset-next {
+			return nil, fail(fmt.Sprintf("manifest: tensor %q", e.Name), t.manifestOffset,
+				fmt.Errorf("%w: section of %d bytes at %d runs past the manifest at %d", ErrStructure, e.Section.Length, next, t.manifestOffset))
+		}
+		next = alignUp(e.Section.Offset + e.Section.Length)
+	}
+	if next != t.manifestOffset {
+		return nil, fail("trailer", size-TrailerLen,
+			fmt.Errorf("%w: manifest offset %d (layout puts it at %d)", ErrStructure, t.manifestOffset, next))
+	}
+	return a, nil
+}
+
+// Close releases the file opened by Open.
+func (a *Artifact) Close() error {
+	if a.closer == nil {
+		return nil
+	}
+	return a.closer.Close()
+}
+
+// Manifest returns the decoded manifest. Callers must not modify it.
+func (a *Artifact) Manifest() *manifest.Manifest { return a.m }
+
+// ManifestHash is the BLAKE3 of the manifest bytes, as the trailer records.
+func (a *Artifact) ManifestHash() [32]byte { return a.manifestHash }
+
+// ManifestOffset is where the manifest starts, after the last section.
+func (a *Artifact) ManifestOffset() int64 { return a.manifestOff }
+
+// Size is the artifact's size in bytes.
+func (a *Artifact) Size() int64 { return a.size }
+
+// ReaderAt gives raw access to the artifact bytes.
+func (a *Artifact) ReaderAt() io.ReaderAt { return a.r }
+
+// Tensors lists the tensor entries in file order.
+func (a *Artifact) Tensors() []manifest.Tensor { return a.m.Tensors }
+
+// Tensor returns the named tensor.
+func (a *Artifact) Tensor(name string) (*Tensor, error) {
+	i, ok := a.index[name]
+	if !ok {
+		return nil, fmt.Errorf("%w %q", ErrNoTensor, name)
+	}
+	return &Tensor{a: a, Entry: a.m.Tensors[i]}, nil
+}
+
+// Tensor is one tensor of an artifact.
+type Tensor struct {
+	a     *Artifact
+	Entry manifest.Tensor
+}
+
+// Len is the element count.
+func (t *Tensor) Len() int { return int(manifest.NumElements(t.Entry.Shape)) }
+
+// Payload reads the section bytes, without checking their hash.
+func (t *Tensor) Payload() ([]byte, error) {
+	p := make([]byte, t.Entry.Section.Length)
+	if _, err := t.a.r.ReadAt(p, t.Entry.Section.Offset); err != nil {
+		return nil, t.fail(t.Entry.Section.Offset, err)
+	}
+	return p, nil
+}
+
+func (t *Tensor) fail(off int64, err error) error {
+	return &FormatError{File: t.a.file, Where: fmt.Sprintf("section %q", t.Entry.Name), Offset: off, Err: err}
+}
+
+// ErrKind reports a decode the tensor's kind does not allow.
+var ErrKind = errors.New("wrong tensor kind")
+
+// DecodeTrits fills dst (length Len()) with the trits of a ternary tensor.
+func (t *Tensor) DecodeTrits(dst []int8) error {
+	if t.Entry.Kind != manifest.KindTernary {
+		return fmt.Errorf("%w: tensor %q is %s, not ternary", ErrKind, t.Entry.Name, t.Entry.Kind)
+	}
+	if len(dst) != t.Len() {
+		return fmt.Errorf("decode tensor %q: dst holds %d trits, tensor has %d", t.Entry.Name, len(dst), t.Len())
+	}
+	p, err := t.Payload()
+	if err != nil {
+		return err
+	}
+	if err := Codec(t.Entry.Codec).Decode(dst, p); err != nil {
+		return t.fail(t.Entry.Section.Offset, err)
+	}
+	return nil
+}
+
+// DecodeFloat32 fills dst (length Len()) with scale × trit for a ternary
+// tensor, or the decoded values of a kept float tensor.
+func (t *Tensor) DecodeFloat32(dst []float32) error {
+	if len(dst) != t.Len() {
+		return fmt.Errorf("decode tensor %q: dst holds %d values, tensor has %d", t.Entry.Name, len(dst), t.Len())
+	}
+	if t.Entry.Kind == manifest.KindKept {
+		p, err := t.Payload()
+		if err != nil {
+			return err
+		}
+		if err := convert.DecodeFloat32(t.Entry.SourceDType, p, dst); err != nil {
+			return fmt.Errorf("decode tensor %q: %w", t.Entry.Name, err)
+		}
+		return nil
+	}
+	trits := make([]int8, len(dst))
+	if err := t.DecodeTrits(trits); err != nil {
+		return err
+	}
+	s := t.Entry.Scale
+	for i, v := range trits {
+		dst[i] = s * float32(v)
+	}
+	return nil
+}
