@@ -83,6 +83,9 @@ func checkPreamble(p []byte) (int64, error) {
 	if v := binary.LittleEndian.Uint16(p[8:]); v != majorVersion {
 		return 8, fmt.Errorf("%w: major version %d (this reader knows %d)", ErrVersion, v, majorVersion)
 	}
+	if v := binary.LittleEndian.Uint16(p[10:]); v > minorVersion {
+		return 10, fmt.Errorf("%w: minor version %d (this reader knows up to %d)", ErrVersion, v, minorVersion)
+	}
 	if f := binary.LittleEndian.Uint32(p[12:]); f != 0 {
 		return 12, fmt.Errorf("%w: flags 0x%08x (none defined)", ErrStructure, f)
 	}

@@ -1,0 +1,268 @@
+package main
+
+import (
+	"bytes"
+	"encoding/binary"
+	"encoding/json"
+	"math"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strconv"
+	"strings"
+	"testing"
+
+	"github.com/nlpodyssey/safetensors"
+	"github.com/stretchr/testify/require"
+)
+
+// ternkit runs the command line in-process and returns exit code, stdout
+// and stderr.
+func ternkit(args ...string) (int, string, string) {
+	var out, errOut bytes.Buffer
+	code := run(args, &out, &errOut)
+	return code, out.String(), errOut.String()
+}
+
+// demoArtifact runs the demo once into dir and returns the paths.
+func demoArtifact(t *testing.T, dir string, extra ...string) (src, art string) {
+	t.Helper()
+	code, out, errOut := ternkit(append([]string{"demo", "--dir", dir}, extra...)...)
+	require.Equal(t, exitOK, code, "stdout:\n%s\nstderr:\n%s", out, errOut)
+	return filepath.Join(dir, demoModel+".safetensors"), filepath.Join(dir, demoModel+".tkart")
+}
+
+func TestDemo(t *testing.T) {
+	dir := t.TempDir()
+	code, out, errOut := ternkit("demo", "--dir", dir)
+	require.Equal(t, exitOK, code, errOut)
+	require.Contains(t, out, "verify: ok")
+	require.Contains(t, out, "bits/weight")
+	require.Contains(t, errOut, "caution:")
+	src, art := filepath.Join(dir, demoModel+".safetensors"), filepath.Join(dir, demoModel+".tkart")
+	ss, err := os.Stat(src)
+	require.NoError(t, err)
+	as, err := os.Stat(art)
+	require.NoError(t, err)
+	require.Less(t, as.Size(), ss.Size()/2)
+
+	code, out, _ = ternkit("verify", art, "--against", src)
+	require.Equal(t, exitOK, code, out)
+	code, out, _ = ternkit("inspect", art)
+	require.Equal(t, exitOK, code)
+	require.Contains(t, out, "blocks.0.attn.q.weight")
+	require.Contains(t, out, "file BLAKE3")
+}
+
+func TestInspectJSON(t *testing.T) {
+	_, art := demoArtifact(t, t.TempDir(), "--codec", "bits2")
+	code, out, errOut := ternkit("inspect", art, "--json")
+	require.Equal(t, exitOK, code, errOut)
+	var rep struct {
+		FileBLAKE3 string `json:"file_blake3"`
+		Tensors    []struct {
+			Name          string  `json:"name"`
+			Shape         []int64 `json:"shape"`
+			Kind          string  `json:"kind"`
+			Codec         string  `json:"codec"`
+			Bytes         int64   `json:"bytes"`
+			BitsPerWeight float64 `json:"bits_per_weight"`
+			ZeroFraction  float64 `json:"zero_fraction"`
+		} `json:"tensors"`
+	}
+	require.NoError(t, json.Unmarshal([]byte(out), &rep))
+	require.Len(t, rep.FileBLAKE3, 64)
+	ternary := 0
+	for _, tn := range rep.Tensors {
+		if tn.Kind == "ternary" {
+			ternary++
+			require.Equal(t, "bits2", tn.Codec)
+			require.InDelta(t, 2.0, tn.BitsPerWeight, 1e-9, tn.Name)
+			// Gaussian latent weights: p(0) = 0.310 (normal table), per tensor of ≥ 65,536
+			require.InDelta(t, 0.310, tn.ZeroFraction, 0.01, tn.Name)
+		} else {
+			require.Equal(t, "raw", tn.Codec)
+			require.InDelta(t, 16.0, tn.BitsPerWeight, 1e-9, tn.Name) // BF16
+		}
+	}
+	require.Equal(t, 7*demoLayers, ternary)
+
+	// b3sum (Debian package b3sum, the BLAKE3 team's command-line tool) over
+	// the whole artifact gives the same hash.
+	b3sum := requireTool(t, "b3sum")
+	sum, err := exec.Command(b3sum, "--no-names", art).Output()
+	require.NoError(t, err)
+	require.Equal(t, strings.TrimSpace(string(sum)), rep.FileBLAKE3)
+}
+
+// requireTool finds an outside tool; it skips when absent, but fails under
+// CI, which must install it.
+func requireTool(t *testing.T, name string) string {
+	t.Helper()
+	p, err := exec.LookPath(name)
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatalf("%s not found: CI must install it (.ci/run)", name)
+		}
+		t.Skipf("%s not found; install it to run this check (apt-get install %s)", name, name)
+	}
+	return p
+}
+
+// A checkpoint written by an independent safetensors implementation
+// (github.com/nlpodyssey/safetensors) packs and verifies against itself.
+func TestPackIndependentFixture(t *testing.T) {
+	dir := t.TempDir()
+	f32 := make([]byte, 4*24)
+	for i := 0; i < 24; i++ {
+		binary.LittleEndian.PutUint32(f32[4*i:], math.Float32bits(float32(i%7)-3.1))
+	}
+	f16 := []byte{0x00, 0x3c, 0x00, 0xc0, 0xff, 0x7b, 0x00, 0x04} // IEEE 754 binary16: 1, -2, 65504, 2^-14
+	views := map[string]safetensors.TensorView{}
+	add := func(name string, dt safetensors.DType, shape []uint64, data []byte) {
+		v, err := safetensors.NewTensorView(dt, shape, data)
+		require.NoError(t, err)
+		views[name] = v
+	}
+	add("layer.proj.weight", safetensors.F32, []uint64{4, 6}, f32)
+	add("layer.norm.weight", safetensors.F16, []uint64{4}, f16)
+	add("layer.gate.weight", safetensors.F16, []uint64{2, 2}, f16)
+	buf, err := safetensors.Serialize(views, map[string]string{"writer": "independent"})
+	require.NoError(t, err)
+	src := filepath.Join(dir, "indep.safetensors")
+	require.NoError(t, os.WriteFile(src, buf, 0o644))
+
+	art := filepath.Join(dir, "indep.tkart")
+	code, out, errOut := ternkit("pack", src, "-o", art)
+	require.Equal(t, exitOK, code, errOut)
+	require.Contains(t, out, "2 ternary, 1 kept")
+	code, out, errOut = ternkit("verify", art, "--against", src)
+	require.Equal(t, exitOK, code, out+errOut)
+	code, out, _ = ternkit("verify", art, "--json")
+	require.Equal(t, exitOK, code)
+	var rep struct {
+		OK     bool `json:"ok"`
+		Failed int  `json:"failed"`
+	}
+	require.NoError(t, json.Unmarshal([]byte(out), &rep))
+	require.True(t, rep.OK)
+}
+
+// rawSafetensors builds a file from a header text and data bytes, the
+// layout of the published format description: 8-byte little-endian header
+// length, the JSON header, the data section.
+func rawSafetensors(header string, data []byte) []byte {
+	b := make([]byte, 8, 8+len(header)+len(data))
+	binary.LittleEndian.PutUint64(b, uint64(len(header)))
+	b = append(b, header...)
+	return append(b, data...)
+}
+
+func TestPackBadInput(t *testing.T) {
+	nan := make([]byte, 16)
+	binary.LittleEndian.PutUint32(nan[8:], math.Float32bits(float32(math.NaN())))
+	inf := make([]byte, 8)
+	binary.LittleEndian.PutUint16(inf[2:], 0x7c00) // F16 +Inf (IEEE 754 binary16)
+	good := `{"w":{"dtype":"F32","shape":[2,2],"data_offsets":[0,16]}}`
+	cases := []struct {
+		name   string
+		file   []byte
+		tensor string // named in the message, "" when the problem is the header
+		want   string
+	}{
+		{"empty file", nil, "", "byte"},
+		{"truncated data", rawSafetensors(good, make([]byte, 12)), "w", "truncated"},
+		{"header length past end", func() []byte {
+			b := rawSafetensors(good, make([]byte, 16))
+			binary.LittleEndian.PutUint64(b, 1<<20)
+			return b
+		}(), "", "header"},
+		{"invalid json", rawSafetensors(`{"w":{"dtype":"F32",`, nil), "", "header"},
+		{"offsets hole", rawSafetensors(`{"a":{"dtype":"F32","shape":[1],"data_offsets":[0,4]},"b":{"dtype":"F32","shape":[1],"data_offsets":[8,12]}}`, make([]byte, 12)), "b", "offsets"},
+		{"offsets overlap", rawSafetensors(`{"a":{"dtype":"F32","shape":[2],"data_offsets":[0,8]},"b":{"dtype":"F32","shape":[2],"data_offsets":[4,12]}}`, make([]byte, 12)), "b", "offsets"},
+		{"size not shape x dtype", rawSafetensors(`{"w":{"dtype":"F32","shape":[2,2],"data_offsets":[0,12]}}`, make([]byte, 12)), "w", "offsets"},
+		{"unknown dtype", rawSafetensors(`{"w":{"dtype":"F12","shape":[2],"data_offsets":[0,4]}}`, make([]byte, 4)), "w", "F12"},
+		{"nan in ternary tensor", rawSafetensors(good, nan), "w", "element 2"},
+		{"inf in ternary tensor", rawSafetensors(`{"w":{"dtype":"F16","shape":[2,2],"data_offsets":[0,8]}}`, inf), "w", "element 1"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			dir := t.TempDir()
+			src := filepath.Join(dir, "bad.safetensors")
+			require.NoError(t, os.WriteFile(src, c.file, 0o644))
+			dst := filepath.Join(dir, "out.tkart")
+			code, out, errOut := ternkit("pack", src, "-o", dst)
+			require.Equal(t, exitInput, code, "stdout: %s", out)
+			require.Contains(t, errOut, src)
+			require.Contains(t, errOut, "byte ")
+			require.Contains(t, errOut, c.want)
+			if c.tensor != "" {
+				require.Contains(t, errOut, `tensor "`+c.tensor+`"`)
+			}
+			entries, err := os.ReadDir(dir)
+			require.NoError(t, err)
+			require.Len(t, entries, 1, "nothing written beside the source")
+		})
+	}
+}
+
+// The element offset of a NaN is reported exactly: data section start +
+// 4 bytes × element index.
+func TestPackNaNOffset(t *testing.T) {
+	dir := t.TempDir()
+	header := `{"w":{"dtype":"F32","shape":[2,2],"data_offsets":[0,16]}}`
+	nan := make([]byte, 16)
+	binary.LittleEndian.PutUint32(nan[12:], math.Float32bits(float32(math.NaN())))
+	src := filepath.Join(dir, "nan.safetensors")
+	require.NoError(t, os.WriteFile(src, rawSafetensors(header, nan), 0o644))
+	code, _, errOut := ternkit("pack", src, "-o", filepath.Join(dir, "o.tkart"))
+	require.Equal(t, exitInput, code)
+	want := 8 + len(header) + 12
+	require.Contains(t, errOut, "byte "+strconv.Itoa(want)+":")
+}
+
+func TestVerifyCorruptExitsOne(t *testing.T) {
+	dir := t.TempDir()
+	src, art := demoArtifact(t, dir)
+	b, err := os.ReadFile(art)
+	require.NoError(t, err)
+	for _, off := range []int{0, 70, len(b) / 2, len(b) - 100, len(b) - 1} {
+		c := append([]byte(nil), b...)
+		c[off] ^= 0x04
+		bad := filepath.Join(dir, "bad.tkart")
+		require.NoError(t, os.WriteFile(bad, c, 0o644))
+		code, out, _ := ternkit("verify", bad)
+		require.Equal(t, exitFailed, code, "flip at %d: %s", off, out)
+		require.Contains(t, out, "FAIL")
+		code, _, _ = ternkit("verify", bad, "--against", src)
+		require.Equal(t, exitFailed, code, "flip at %d with --against", off)
+	}
+}
+
+func TestUsageErrors(t *testing.T) {
+	dir := t.TempDir()
+	cases := []struct {
+		args []string
+		want string
+	}{
+		{[]string{"pack", "x.safetensors", "-o", "y.tkart", "--codec", "base4"}, "valid: bits2, base3"},
+		{[]string{"pack", "x.safetensors"}, "needs -o"},
+		{[]string{"pack", "x.safetensors", "-o", dir}, "is a directory"},
+		{[]string{"pack", "x.safetensors", "-o", "y", "--scale-rule", "cube"}, `"cube"`},
+		{[]string{"pack", "x.safetensors", "-o", "y", "--tie", "up"}, `"up"`},
+		{[]string{"pack", "a", "b", "-o", "y"}, "takes 1 argument"},
+		{[]string{"verify"}, "takes 1 argument"},
+		{[]string{"verify", filepath.Join(dir, "missing.tkart")}, "missing.tkart"},
+		{[]string{"inspect", filepath.Join(dir, "missing.tkart")}, "missing.tkart"},
+		{[]string{"pack", filepath.Join(dir, "missing.safetensors"), "-o", filepath.Join(dir, "o")}, "missing.safetensors"},
+		{[]string{"verify", "--bogus"}, "--bogus"},
+	}
+	for _, c := range cases {
+		code, _, errOut := ternkit(c.args...)
+		require.Equal(t, exitInput, code, "%v: %s", c.args, errOut)
+		require.Contains(t, errOut, c.want, "%v", c.args)
+	}
+	entries, err := os.ReadDir(dir)
+	require.NoError(t, err)
+	require.Empty(t, entries)
+}

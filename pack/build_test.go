@@ -1,0 +1,254 @@
+package pack
+
+import (
+	"bytes"
+	"encoding/binary"
+	"errors"
+	"math"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/convert"
+	"ternkit/manifest"
+)
+
+func f32Bytes(v []float32) []byte {
+	b := make([]byte, 4*len(v))
+	for i, f := range v {
+		binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(f))
+	}
+	return b
+}
+
+func gaussian(rng *rand.Rand, n int) []float32 {
+	v := make([]float32, n)
+	for i := range v {
+		v[i] = float32(rng.NormFloat64())
+	}
+	return v
+}
+
+// testSource writes a small mixed checkpoint and returns its path and the
+// float values of its ternary tensors.
+func testSource(t *testing.T, dir string) (string, map[string][]float32) {
+	t.Helper()
+	rng := rand.New(rand.NewPCG(11, 12))
+	q := gaussian(rng, 8*16)
+	up := gaussian(rng, 5*7)
+	tensors := []convert.WriteTensor{
+		{Name: "embed.tokens.weight", DType: "F32", Shape: []int64{10, 4}, Data: f32Bytes(gaussian(rng, 40))},
+		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: f32Bytes(q)},
+		{Name: "blocks.0.norm.weight", DType: "BF16", Shape: []int64{16}, Data: make([]byte, 32)},
+		{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: f32Bytes(up)},
+		{Name: "step", DType: "I64", Shape: []int64{}, Data: []byte{7, 0, 0, 0, 0, 0, 0, 0}},
+		{Name: "empty", DType: "F32", Shape: []int64{0, 3}, Data: nil},
+	}
+	path := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(path, tensors, map[string]string{"purpose": "pack test"}))
+	return path, map[string][]float32{"blocks.0.attn.q.weight": q, "blocks.0.mlp.up.weight": up, "empty": {}}
+}
+
+func buildArtifact(t *testing.T, src, dst string, codec Codec) *manifest.Manifest {
+	t.Helper()
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	m, err := Build(s, dst, Options{Codec: codec, Recipe: convert.DefaultRecipe(), Tool: "ternkit test"})
+	require.NoError(t, err)
+	return m
+}
+
+func TestBuildAndRead(t *testing.T) {
+	for _, codec := range Codecs {
+		t.Run(string(codec), func(t *testing.T) {
+			dir := t.TempDir()
+			src, floats := testSource(t, dir)
+			dst := filepath.Join(dir, "out"+Extension)
+			m := buildArtifact(t, src, dst, codec)
+			require.Equal(t, 6, m.Totals.Tensors)
+			require.Equal(t, 3, m.Totals.TernaryTensors, "the 2-D float tensors but the embedding")
+
+			a, err := Open(dst)
+			require.NoError(t, err)
+			defer a.Close()
+			st, err := os.Stat(dst)
+			require.NoError(t, err)
+			require.Equal(t, st.Size(), a.Size())
+			require.Zero(t, a.Size()%Align)
+			require.Equal(t, "pack test", a.Manifest().Source.Metadata["purpose"])
+
+			for _, e := range a.Tensors() {
+				require.Zero(t, e.Section.Offset%Align, e.Name)
+				tn, err := a.Tensor(e.Name)
+				require.NoError(t, err)
+				w, ok := floats[e.Name]
+				if !ok {
+					require.NotEqual(t, manifest.KindTernary, e.Kind, e.Name)
+					err := tn.DecodeTrits(make([]int8, tn.Len()))
+					require.ErrorIs(t, err, ErrKind)
+					continue
+				}
+				want := make([]int8, len(w))
+				q, err := convert.Ternarize(w, convert.DefaultRecipe(), want)
+				require.NoError(t, err)
+				require.Equal(t, q.Scale, e.Scale)
+				got := make([]int8, tn.Len())
+				require.NoError(t, tn.DecodeTrits(got))
+				require.Equal(t, want, got)
+				deq := make([]float32, tn.Len())
+				require.NoError(t, tn.DecodeFloat32(deq))
+				for i := range deq {
+					require.Equal(t, q.Scale*float32(want[i]), deq[i])
+				}
+			}
+			_, err = a.Tensor("missing")
+			require.ErrorIs(t, err, ErrNoTensor)
+		})
+	}
+}
+
+// Kept tensors come back byte for byte.
+func TestBuildKeepsBytes(t *testing.T) {
+	dir := t.TempDir()
+	src, _ := testSource(t, dir)
+	dst := filepath.Join(dir, "out"+Extension)
+	buildArtifact(t, src, dst, Base3)
+	a, err := Open(dst)
+	require.NoError(t, err)
+	defer a.Close()
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	require.NoError(t, s.Walk(func(st *convert.Tensor, raw []byte, _ [32]byte) error {
+		tn, err := a.Tensor(st.Name)
+		require.NoError(t, err)
+		if tn.Entry.Kind == manifest.KindKept {
+			p, err := tn.Payload()
+			require.NoError(t, err)
+			require.Equal(t, raw, p, st.Name)
+		}
+		return nil
+	}))
+}
+
+// Same source and options give the same bytes.
+func TestBuildDeterministic(t *testing.T) {
+	dir := t.TempDir()
+	src, _ := testSource(t, dir)
+	a, b := filepath.Join(dir, "a"+Extension), filepath.Join(dir, "b"+Extension)
+	buildArtifact(t, src, a, Base3)
+	buildArtifact(t, src, b, Base3)
+	ab, err := os.ReadFile(a)
+	require.NoError(t, err)
+	bb, err := os.ReadFile(b)
+	require.NoError(t, err)
+	require.Equal(t, ab, bb)
+}
+
+func TestBuildNonFiniteLeavesNothing(t *testing.T) {
+	dir := t.TempDir()
+	w := []float32{1, 2, float32(math.NaN()), 4}
+	src := filepath.Join(dir, "nan.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "blocks.0.w", DType: "F32", Shape: []int64{2, 2}, Data: f32Bytes(w)},
+	}, nil))
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	dst := filepath.Join(dir, "out"+Extension)
+	_, err = Build(s, dst, Options{Codec: Bits2, Recipe: convert.DefaultRecipe()})
+	require.ErrorIs(t, err, convert.ErrNonFinite)
+	var ie *convert.InputError
+	require.True(t, errors.As(err, &ie))
+	require.Equal(t, "blocks.0.w", ie.Tensor)
+	require.Equal(t, s.Tensors[0].Offset+2*4, ie.Offset, "offset of element 2")
+	require.Contains(t, err.Error(), src)
+	entries, err := os.ReadDir(dir)
+	require.NoError(t, err)
+	require.Len(t, entries, 1, "only the source remains: no artifact, no temp file")
+}
+
+func TestOpenRejects(t *testing.T) {
+	dir := t.TempDir()
+	src, _ := testSource(t, dir)
+	dst := filepath.Join(dir, "out"+Extension)
+	buildArtifact(t, src, dst, Bits2)
+	good, err := os.ReadFile(dst)
+	require.NoError(t, err)
+	size := len(good)
+	tr := size - TrailerLen
+	cases := []struct {
+		name string
+		edit func(b []byte) []byte
+		want error
+	}{
+		{"magic", func(b []byte) []byte { b[0] = 'X'; return b }, ErrNotArtifact},
+		{"major version", func(b []byte) []byte { b[8] = 2; return b }, ErrVersion},
+		{"flags", func(b []byte) []byte { b[12] = 1; return b }, ErrStructure},
+		{"reserved preamble", func(b []byte) []byte { b[40] = 1; return b }, ErrStructure},
+		{"trailer magic", func(b []byte) []byte { b[size-1] ^= 1; return b }, ErrStructure},
+		{"trailer reserved", func(b []byte) []byte { b[tr+50] = 1; return b }, ErrStructure},
+		{"manifest offset", func(b []byte) []byte { b[tr] += 64; return b }, ErrStructure},
+		{"manifest length", func(b []byte) []byte { b[tr+8]++; return b }, ErrStructure},
+		{"manifest hash", func(b []byte) []byte { b[tr+16] ^= 0x80; return b }, ErrHash},
+		{"manifest byte", func(b []byte) []byte { b[tr-2] ^= 0x20; return b }, ErrHash},
+		{"truncated", func(b []byte) []byte { return b[:size-1] }, ErrStructure},
+		{"too short", func(b []byte) []byte { return b[:100] }, ErrStructure},
+		{"appended", func(b []byte) []byte { return append(b, 0) }, ErrStructure},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			b := c.edit(bytes.Clone(good))
+			_, err := NewReader(bytes.NewReader(b), int64(len(b)))
+			require.ErrorIs(t, err, c.want)
+			var fe *FormatError
+			require.True(t, errors.As(err, &fe))
+			require.Contains(t, err.Error(), "byte ")
+		})
+	}
+}
+
+func FuzzOpen(f *testing.F) {
+	dir := f.TempDir()
+	rng := rand.New(rand.NewPCG(1, 1))
+	src := filepath.Join(dir, "src.safetensors")
+	if err := convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "w", DType: "F32", Shape: []int64{3, 5}, Data: f32Bytes(gaussian(rng, 15))},
+		{Name: "b", DType: "F16", Shape: []int64{2}, Data: []byte{0, 0x3c, 0, 0xc0}},
+	}, nil); err != nil {
+		f.Fatal(err)
+	}
+	s, err := convert.Open(src)
+	if err != nil {
+		f.Fatal(err)
+	}
+	dst := filepath.Join(dir, "a"+Extension)
+	if _, err := Build(s, dst, Options{Codec: Base3, Recipe: convert.DefaultRecipe()}); err != nil {
+		f.Fatal(err)
+	}
+	s.Close()
+	good, err := os.ReadFile(dst)
+	if err != nil {
+		f.Fatal(err)
+	}
+	f.Add(good)
+	f.Add(good[:len(good)-1])
+	f.Add(make([]byte, 128))
+	f.Fuzz(func(t *testing.T, b []byte) {
+		a, err := NewReader(bytes.NewReader(b), int64(len(b)))
+		if err != nil {
+			return
+		}
+		for _, e := range a.Tensors() {
+			tn, err := a.Tensor(e.Name)
+			if err != nil {
+				t.Fatal(err)
+			}
+			_ = tn.DecodeFloat32(make([]float32, tn.Len()))
+		}
+	})
+}

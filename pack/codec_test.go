@@ -1,0 +1,142 @@
+package pack
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+func randomTrits(rng *rand.Rand, n int) []int8 {
+	t := make([]int8, n)
+	for i := range t {
+		t[i] = int8(rng.IntN(3)) - 1
+	}
+	return t
+}
+
+func TestCodecRoundTrip(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 7))
+	for _, c := range Codecs {
+		for n := 0; n <= 64; n++ {
+			trits := randomTrits(rng, n)
+			p := c.Encode(nil, trits)
+			require.Len(t, p, c.EncodedLen(n), "%s n=%d", c, n)
+			got := make([]int8, n)
+			require.NoError(t, c.Decode(got, p), "%s n=%d", c, n)
+			require.Equal(t, trits, got, "%s n=%d", c, n)
+		}
+	}
+}
+
+// Worked bytes from pack/FORMAT.md: codes 0→0, +1→1, −1→2, trit i at the
+// least significant digit first.
+func TestCodecWorkedBytes(t *testing.T) {
+	trits := []int8{1, -1, 0, 1, -1}
+	// bits2: 1 | 2<<2 | 0<<4 | 1<<6 = 0x49; then 2 = 0x02
+	require.Equal(t, []byte{0x49, 0x02}, Bits2.Encode(nil, trits))
+	// base3: 1 + 2·3 + 0·9 + 1·27 + 2·81 = 196
+	require.Equal(t, []byte{196}, Base3.Encode(nil, trits))
+}
+
+// Exhaustive over single bytes: a byte decodes iff an encoder could have
+// written it, and re-encoding gives the byte back.
+func TestCodecEveryByte(t *testing.T) {
+	for b := 0; b < 256; b++ {
+		p := []byte{byte(b)}
+		four := make([]int8, 4)
+		err := Bits2.Decode(four, p)
+		hasCode3 := false
+		for k := 0; k < 4; k++ {
+			hasCode3 = hasCode3 || (b>>(2*k))&3 == 3
+		}
+		if hasCode3 {
+			require.ErrorIs(t, err, ErrInvalidCode, "bits2 0x%02x", b)
+		} else {
+			require.NoError(t, err, "bits2 0x%02x", b)
+			require.Equal(t, p, Bits2.Encode(nil, four))
+		}
+		five := make([]int8, 5)
+		err = Base3.Decode(five, p)
+		if b >= 243 { // 3^5 = 243 ≤ 256: values 243..255 are unused
+			require.ErrorIs(t, err, ErrInvalidCode, "base3 %d", b)
+		} else {
+			require.NoError(t, err, "base3 %d", b)
+			require.Equal(t, p, Base3.Encode(nil, five))
+		}
+	}
+}
+
+func TestCodecRejectsPaddingAndLength(t *testing.T) {
+	cases := []struct {
+		name    string
+		codec   Codec
+		n       int
+		payload []byte
+	}{
+		{"bits2 padding pair", Bits2, 3, []byte{0x40}},
+		{"bits2 short", Bits2, 5, []byte{0}},
+		{"bits2 long", Bits2, 4, []byte{0, 0}},
+		{"base3 padding digit", Base3, 2, []byte{9}}, // 2 trits: value must be < 9
+		{"base3 short", Base3, 6, []byte{0}},
+		{"base3 long", Base3, 5, []byte{0, 0}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			err := c.codec.Decode(make([]int8, c.n), c.payload)
+			require.ErrorIs(t, err, ErrInvalidCode)
+		})
+	}
+}
+
+// Size bounds from facts of the trade: log2(3) = 1.585 bits is the least a
+// uniform trit can take; 5 trits in a byte (3^5 = 243 ≤ 256) is 1.6 bits.
+func TestCodecBitsPerTrit(t *testing.T) {
+	const n = 1 << 20
+	cases := []struct {
+		codec Codec
+		bits  float64
+	}{{Bits2, 2}, {Base3, 1.6}}
+	for _, c := range cases {
+		bpt := 8 * float64(c.codec.EncodedLen(n)) / n
+		require.InDelta(t, c.bits, bpt, 1e-5, string(c.codec))
+		require.GreaterOrEqual(t, bpt, math.Log2(3))
+	}
+	require.LessOrEqual(t, 8*float64(Base3.EncodedLen(n))/n, 1.601)
+}
+
+func TestParseCodec(t *testing.T) {
+	c, err := ParseCodec("base3")
+	require.NoError(t, err)
+	require.Equal(t, Base3, c)
+	_, err = ParseCodec("base4")
+	require.ErrorIs(t, err, ErrCodec)
+	require.Contains(t, err.Error(), `"base4"`)
+	require.Contains(t, err.Error(), "bits2, base3")
+}
+
+func FuzzCodecDecode(f *testing.F) {
+	f.Add([]byte{0x49, 0x02}, uint16(5), false)
+	f.Add([]byte{196}, uint16(5), true)
+	f.Add([]byte{0xff, 0xff}, uint16(8), false)
+	f.Add([]byte{243}, uint16(5), true)
+	f.Fuzz(func(t *testing.T, payload []byte, n uint16, base3 bool) {
+		c := Bits2
+		if base3 {
+			c = Base3
+		}
+		dst := make([]int8, n)
+		if err := c.Decode(dst, payload); err != nil {
+			return
+		}
+		for _, v := range dst {
+			if v < -1 || v > 1 {
+				t.Fatalf("decoded trit %d", v)
+			}
+		}
+		if got := c.Encode(nil, dst); string(got) != string(payload) {
+			t.Fatalf("re-encode gives % x, payload % x", got, payload)
+		}
+	})
+}

@@ -1,0 +1,159 @@
+package verify
+
+import (
+	"encoding/binary"
+	"math"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/convert"
+	"ternkit/pack"
+)
+
+// fixture writes a small checkpoint (two ternary tensors, one kept) and
+// its artifact, returning both paths.
+func fixture(t testing.TB, dir string, codec pack.Codec, edit func(name string, v []float32)) (src, art string) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	shapes := []struct {
+		name  string
+		shape []int64
+	}{
+		{"blocks.0.attn.q.weight", []int64{6, 10}},
+		{"blocks.0.norm.weight", []int64{10}},
+		{"blocks.0.mlp.down.weight", []int64{10, 7}},
+	}
+	var tensors []convert.WriteTensor
+	for _, s := range shapes {
+		v := make([]float32, s.shape[0]*(func() int64 {
+			if len(s.shape) > 1 {
+				return s.shape[1]
+			}
+			return 1
+		}()))
+		for i := range v {
+			v[i] = float32(rng.NormFloat64())
+		}
+		if edit != nil {
+			edit(s.name, v)
+		}
+		b := make([]byte, 4*len(v))
+		for i, f := range v {
+			binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(f))
+		}
+		tensors = append(tensors, convert.WriteTensor{Name: s.name, DType: "F32", Shape: s.shape, Data: b})
+	}
+	src = filepath.Join(dir, "src.safetensors")
+	if err := convert.WriteFile(src, tensors, nil); err != nil {
+		t.Fatal(err)
+	}
+	art = filepath.Join(dir, "a.tkart")
+	s, err := convert.Open(src)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer s.Close()
+	if _, err := pack.Build(s, art, pack.Options{Codec: codec, Recipe: convert.DefaultRecipe()}); err != nil {
+		t.Fatal(err)
+	}
+	return src, art
+}
+
+func runAgainst(t *testing.T, art, src string) *Report {
+	t.Helper()
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	rep, err := Run(art, Options{Source: s})
+	require.NoError(t, err)
+	return rep
+}
+
+func TestVerifyPasses(t *testing.T) {
+	for _, codec := range pack.Codecs {
+		t.Run(string(codec), func(t *testing.T) {
+			src, art := fixture(t, t.TempDir(), codec, nil)
+			rep, err := Run(art, Options{})
+			require.NoError(t, err)
+			require.True(t, rep.OK(), "%+v", rep.Failures())
+			rep = runAgainst(t, art, src)
+			require.True(t, rep.OK(), "%+v", rep.Failures())
+			names := map[string]bool{}
+			for _, c := range rep.Checks {
+				names[c.Name] = true
+			}
+			for _, want := range []string{CheckStructure, CheckSection, CheckPadding, CheckDecode,
+				CheckSourceHash, CheckRequantize, CheckKept, CheckSourceFile} {
+				require.True(t, names[want], "check %s ran", want)
+			}
+		})
+	}
+}
+
+// Every byte of the artifact is covered by a hash or a structural rule: a
+// changed byte anywhere fails verification (two different flips per byte).
+func TestVerifyCatchesEveryByte(t *testing.T) {
+	dir := t.TempDir()
+	_, art := fixture(t, dir, pack.Bits2, nil)
+	good, err := os.ReadFile(art)
+	require.NoError(t, err)
+	bad := filepath.Join(dir, "bad.tkart")
+	for i := range good {
+		for _, mask := range []byte{0x01, 0x80} {
+			b := append([]byte(nil), good...)
+			b[i] ^= mask
+			require.NoError(t, os.WriteFile(bad, b, 0o644))
+			rep, err := Run(bad, Options{})
+			require.NoError(t, err)
+			require.False(t, rep.OK(), "byte %d ^ 0x%02x passed", i, mask)
+			require.NotEmpty(t, rep.Failures()[0].Detail)
+		}
+	}
+}
+
+func TestVerifyTruncated(t *testing.T) {
+	dir := t.TempDir()
+	_, art := fixture(t, dir, pack.Base3, nil)
+	good, err := os.ReadFile(art)
+	require.NoError(t, err)
+	bad := filepath.Join(dir, "bad.tkart")
+	for n := 0; n < len(good); n += 7 {
+		require.NoError(t, os.WriteFile(bad, good[:n], 0o644))
+		rep, err := Run(bad, Options{})
+		require.NoError(t, err)
+		require.False(t, rep.OK(), "truncated to %d passed", n)
+	}
+}
+
+// A source with one element changed is reported as a different source for
+// that tensor, by name.
+func TestVerifyAgainstChangedSource(t *testing.T) {
+	dir := t.TempDir()
+	_, art := fixture(t, dir, pack.Base3, nil)
+	other := t.TempDir()
+	src2, _ := fixture(t, other, pack.Base3, func(name string, v []float32) {
+		if name == "blocks.0.mlp.down.weight" {
+			v[3] += 0.5
+		}
+	})
+	rep := runAgainst(t, art, src2)
+	require.False(t, rep.OK())
+	var failed []string
+	for _, c := range rep.Failures() {
+		failed = append(failed, c.Name+":"+c.Tensor)
+	}
+	require.Contains(t, failed, CheckSourceHash+":blocks.0.mlp.down.weight")
+	require.Contains(t, failed, CheckSourceFile+":")
+	for _, f := range failed {
+		require.False(t, strings.Contains(f, "attn.q"), "unchanged tensor reported: %s", f)
+	}
+}
+
+func TestVerifyMissingArtifact(t *testing.T) {
+	_, err := Run(filepath.Join(t.TempDir(), "none.tkart"), Options{})
+	require.ErrorIs(t, err, os.ErrNotExist)
+}
