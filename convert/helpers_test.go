@@ -1,0 +1,58 @@
+package convert
+
+import (
+	"encoding/binary"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// stFile lays out a safetensors file as the published format description
+// gives it: an 8-byte little-endian header length N, N bytes of JSON header
+// (padded with spaces to a multiple of 8, as writers commonly do), then the
+// data section.
+func stFile(header string, data []byte) []byte {
+	if pad := len(header) % 8; pad != 0 {
+		header += strings.Repeat(" ", 8-pad)
+	}
+	return rawFile(uint64(len(header)), header, data)
+}
+
+// rawFile lays out a file with an arbitrary length field.
+func rawFile(n uint64, header string, data []byte) []byte {
+	b := binary.LittleEndian.AppendUint64(nil, n)
+	b = append(b, header...)
+	return append(b, data...)
+}
+
+// paddedLen is the header length stFile writes for header.
+func paddedLen(header string) int64 {
+	return int64((len(header) + 7) / 8 * 8)
+}
+
+// writeTemp writes b to a new file in a test directory and returns its path.
+func writeTemp(t testing.TB, name string, b []byte) string {
+	t.Helper()
+	path := filepath.Join(t.TempDir(), name)
+	if err := os.WriteFile(path, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	return path
+}
+
+// walkAll collects every tensor's bytes and sum by name.
+func walkAll(t testing.TB, s *Source) (map[string][]byte, map[string][32]byte) {
+	t.Helper()
+	data := map[string][]byte{}
+	sums := map[string][32]byte{}
+	err := s.Walk(func(tn *Tensor, raw []byte, sum [32]byte) error {
+		data[tn.Name] = append([]byte{}, raw...)
+		sums[tn.Name] = sum
+		return nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return data, sums
+}

@@ -1,0 +1,431 @@
+package convert
+
+import (
+	"bytes"
+	"cmp"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"math/bits"
+	"slices"
+	"strconv"
+	"unicode/utf8"
+)
+
+// safetensors layout: an 8-byte little-endian header length N, N bytes of
+// UTF-8 JSON, then the data section. Tensor offsets are relative to the data
+// section.
+const (
+	headerStart  = 8           // byte offset of the JSON header
+	maxHeaderLen = 100_000_000 // cap on N, checked before allocating
+	metadataKey  = "__metadata__"
+)
+
+// headerEntry is one tensor as the header describes it.
+type headerEntry struct {
+	name       string
+	dtype      string
+	shape      []int64
+	begin, end int64 // relative to the data section
+	nbytes     int64 // product(shape) × dtype size
+	at         int64 // absolute offset of the entry's '{'
+}
+
+// header is a parsed and field-validated JSON header.
+type header struct {
+	metadata map[string]string
+	entries  []headerEntry
+}
+
+// headerParser walks the JSON header token by token, so that every problem
+// can be located at an absolute byte offset and duplicate keys are seen.
+type headerParser struct {
+	file string
+	h    []byte
+	dec  *json.Decoder
+}
+
+// parseHeader decodes and validates h, the JSON header of file. It checks
+// UTF-8, JSON syntax, the shape of every entry, dtypes, and that each shape's
+// byte size fits in int64; data offsets are checked by layoutTensors.
+func parseHeader(file string, h []byte) (*header, error) {
+	if !utf8.Valid(h) {
+		i := 0
+		for i < len(h) {
+			r, n := utf8.DecodeRune(h[i:])
+			if r == utf8.RuneError && n <= 1 {
+				break
+			}
+			i += n
+		}
+		return nil, inputError(file, "", headerStart+int64(i), ErrHeader, "header is not valid UTF-8 (byte 0x%02x)", h[i])
+	}
+	dec := json.NewDecoder(bytes.NewReader(h))
+	dec.UseNumber()
+	p := &headerParser{file: file, h: h, dec: dec}
+	return p.parse()
+}
+
+func (p *headerParser) fail(tensor string, at int64, sentinel error, format string, args ...any) error {
+	return inputError(p.file, tensor, at, sentinel, format, args...)
+}
+
+// next returns the next token and the absolute offset where it starts.
+func (p *headerParser) next(tensor string) (json.Token, int64, error) {
+	pos := p.dec.InputOffset()
+	for pos < int64(len(p.h)) {
+		switch p.h[pos] {
+		case ' ', '\t', '\n', '\r', ':', ',':
+			pos++
+			continue
+		}
+		break
+	}
+	at := headerStart + pos
+	tok, err := p.dec.Token()
+	if err == nil {
+		return tok, at, nil
+	}
+	off, detail := p.syntaxError(at)
+	return nil, at, p.fail(tensor, off, ErrHeader, "malformed JSON: %s", detail)
+}
+
+// syntaxError locates the first JSON syntax error in the header with a full
+// validating scan (the token stream does not report offsets reliably) and
+// returns its absolute offset and description. at is the fallback offset.
+func (p *headerParser) syntaxError(at int64) (int64, string) {
+	err := json.Unmarshal(p.h, new(json.RawMessage))
+	var se *json.SyntaxError
+	if !errors.As(err, &se) {
+		return at, "unexpected end of header"
+	}
+	// Offset counts the bytes scanned, the offending one included; at the
+	// end of input it is the input length.
+	off := se.Offset
+	if off > int64(len(p.h)) {
+		off = int64(len(p.h))
+	}
+	if off > 0 && !(off == int64(len(p.h)) && se.Error() == "unexpected end of JSON input") {
+		off--
+	}
+	return headerStart + off, se.Error()
+}
+
+// describe names a token for error messages.
+func describe(tok json.Token) string {
+	switch v := tok.(type) {
+	case json.Delim:
+		switch v {
+		case '{':
+			return "an object"
+		case '[':
+			return "an array"
+		}
+		return fmt.Sprintf("%q", string(v))
+	case string:
+		return fmt.Sprintf("string %q", v)
+	case json.Number:
+		return "number " + v.String()
+	case bool:
+		return fmt.Sprintf("boolean %v", v)
+	case nil:
+		return "null"
+	}
+	return fmt.Sprintf("%v", tok)
+}
+
+// expectDelim reads the next token and requires it to be d.
+func (p *headerParser) expectDelim(tensor string, d json.Delim, what string) (int64, error) {
+	tok, at, err := p.next(tensor)
+	if err != nil {
+		return at, err
+	}
+	if got, ok := tok.(json.Delim); !ok || got != d {
+		return at, p.fail(tensor, at, ErrHeader, "%s must be %s, found %s", what, describe(d), describe(tok))
+	}
+	return at, nil
+}
+
+func (p *headerParser) parse() (*header, error) {
+	tok, at, err := p.next("")
+	if err != nil {
+		return nil, err
+	}
+	if d, ok := tok.(json.Delim); !ok || d != '{' {
+		return nil, p.fail("", at, ErrHeader, "header must be a JSON object, found %s", describe(tok))
+	}
+	hdr := &header{}
+	seen := make(map[string]bool)
+	for p.dec.More() {
+		tok, at, err := p.next("")
+		if err != nil {
+			return nil, err
+		}
+		key, _ := tok.(string) // object keys are always strings
+		tensor := key
+		if key == metadataKey {
+			tensor = ""
+		}
+		if seen[key] {
+			return nil, p.fail(tensor, at, ErrHeader, "duplicate key %q", key)
+		}
+		seen[key] = true
+		if key == metadataKey {
+			if hdr.metadata, err = p.parseMetadata(); err != nil {
+				return nil, err
+			}
+			continue
+		}
+		e, err := p.parseEntry(key)
+		if err != nil {
+			return nil, err
+		}
+		hdr.entries = append(hdr.entries, e)
+	}
+	if _, err := p.expectDelim("", '}', "header"); err != nil {
+		return nil, err
+	}
+	pos := p.dec.InputOffset()
+	if tok, err := p.dec.Token(); !errors.Is(err, io.EOF) {
+		for pos < int64(len(p.h)) && (p.h[pos] == ' ' || p.h[pos] == '\t' || p.h[pos] == '\n' || p.h[pos] == '\r') {
+			pos++
+		}
+		if err != nil {
+			return nil, p.fail("", headerStart+pos, ErrHeader, "unexpected data after the header object: %v", err)
+		}
+		return nil, p.fail("", headerStart+pos, ErrHeader, "unexpected %s after the header object", describe(tok))
+	}
+	return hdr, nil
+}
+
+// parseMetadata reads the "__metadata__" object: a string → string map.
+func (p *headerParser) parseMetadata() (map[string]string, error) {
+	if _, err := p.expectDelim("", '{', `"__metadata__"`); err != nil {
+		return nil, err
+	}
+	md := make(map[string]string)
+	for p.dec.More() {
+		tok, at, err := p.next("")
+		if err != nil {
+			return nil, err
+		}
+		key, _ := tok.(string)
+		if _, dup := md[key]; dup {
+			return nil, p.fail("", at, ErrHeader, "duplicate %q key %q", metadataKey, key)
+		}
+		tok, at, err = p.next("")
+		if err != nil {
+			return nil, err
+		}
+		val, ok := tok.(string)
+		if !ok {
+			return nil, p.fail("", at, ErrHeader, "%q value for key %q must be a string, found %s", metadataKey, key, describe(tok))
+		}
+		md[key] = val
+	}
+	if _, err := p.expectDelim("", '}', `"__metadata__"`); err != nil {
+		return nil, err
+	}
+	return md, nil
+}
+
+// parseEntry reads one tensor entry: exactly "dtype", "shape" and
+// "data_offsets".
+func (p *headerParser) parseEntry(name string) (headerEntry, error) {
+	e := headerEntry{name: name}
+	at, err := p.expectDelim(name, '{', "tensor entry")
+	if err != nil {
+		return e, err
+	}
+	e.at = at
+	var haveDType, haveShape, haveOffsets bool
+	var shapeAt int64
+	for p.dec.More() {
+		tok, at, err := p.next(name)
+		if err != nil {
+			return e, err
+		}
+		key, _ := tok.(string)
+		var dup bool
+		switch key {
+		case "dtype":
+			dup, haveDType = haveDType, true
+		case "shape":
+			dup, haveShape = haveShape, true
+		case "data_offsets":
+			dup, haveOffsets = haveOffsets, true
+		default:
+			return e, p.fail(name, at, ErrHeader, "unexpected field %q (want only \"dtype\", \"shape\", \"data_offsets\")", key)
+		}
+		if dup {
+			return e, p.fail(name, at, ErrHeader, "duplicate field %q", key)
+		}
+		switch key {
+		case "dtype":
+			tok, at, err := p.next(name)
+			if err != nil {
+				return e, err
+			}
+			s, ok := tok.(string)
+			if !ok {
+				return e, p.fail(name, at, ErrHeader, "dtype must be a string, found %s", describe(tok))
+			}
+			if _, known := dtypeSizes[s]; !known {
+				return e, p.fail(name, at, ErrDType, "dtype %q", s)
+			}
+			e.dtype = s
+		case "shape":
+			if shapeAt, err = p.expectDelim(name, '[', "shape"); err != nil {
+				return e, err
+			}
+			e.shape = []int64{}
+			for p.dec.More() {
+				d, err := p.nonNegative(name, "shape dimension")
+				if err != nil {
+					return e, err
+				}
+				e.shape = append(e.shape, d)
+			}
+			if _, err := p.expectDelim(name, ']', "shape"); err != nil {
+				return e, err
+			}
+		case "data_offsets":
+			offAt, err := p.expectDelim(name, '[', "data_offsets")
+			if err != nil {
+				return e, err
+			}
+			var offs []int64
+			for p.dec.More() && len(offs) < 2 {
+				v, err := p.nonNegative(name, "data offset")
+				if err != nil {
+					return e, err
+				}
+				offs = append(offs, v)
+			}
+			if len(offs) != 2 || p.dec.More() {
+				return e, p.fail(name, offAt, ErrHeader, "data_offsets must hold exactly 2 integers")
+			}
+			if _, err := p.expectDelim(name, ']', "data_offsets"); err != nil {
+				return e, err
+			}
+			e.begin, e.end = offs[0], offs[1]
+		}
+	}
+	if _, err := p.expectDelim(name, '}', "tensor entry"); err != nil {
+		return e, err
+	}
+	for _, f := range []struct {
+		have bool
+		name string
+	}{{haveDType, "dtype"}, {haveShape, "shape"}, {haveOffsets, "data_offsets"}} {
+		if !f.have {
+			return e, p.fail(name, e.at, ErrHeader, "missing field %q", f.name)
+		}
+	}
+	n, ok := shapeBytes(e.shape, int64(dtypeSizes[e.dtype]))
+	if !ok {
+		return e, p.fail(name, shapeAt, ErrHeader, "shape %v × %s overflows 64-bit size", e.shape, e.dtype)
+	}
+	e.nbytes = n
+	return e, nil
+}
+
+// nonNegative reads a JSON integer in [0, MaxInt64].
+func (p *headerParser) nonNegative(tensor, what string) (int64, error) {
+	tok, at, err := p.next(tensor)
+	if err != nil {
+		return 0, err
+	}
+	num, ok := tok.(json.Number)
+	if !ok {
+		return 0, p.fail(tensor, at, ErrHeader, "%s must be a non-negative integer, found %s", what, describe(tok))
+	}
+	s := num.String()
+	if len(s) > 0 && s[0] == '-' {
+		return 0, p.fail(tensor, at, ErrHeader, "%s %s is negative", what, s)
+	}
+	for i := 0; i < len(s); i++ {
+		if s[i] < '0' || s[i] > '9' {
+			return 0, p.fail(tensor, at, ErrHeader, "%s %s is not an integer", what, s)
+		}
+	}
+	v, err := strconv.ParseInt(s, 10, 64)
+	if err != nil {
+		return 0, p.fail(tensor, at, ErrHeader, "%s %s is out of range", what, s)
+	}
+	return v, nil
+}
+
+// shapeBytes returns product(shape) × size, or false if it exceeds MaxInt64.
+func shapeBytes(shape []int64, size int64) (int64, bool) {
+	n := uint64(size)
+	for _, d := range shape {
+		hi, lo := bits.Mul64(n, uint64(d))
+		if hi != 0 || lo > math.MaxInt64 {
+			return 0, false
+		}
+		n = lo
+	}
+	return int64(n), true
+}
+
+// absolute returns dataStart+rel, saturating at MaxInt64.
+func absolute(dataStart, rel int64) int64 {
+	if rel > math.MaxInt64-dataStart {
+		return math.MaxInt64
+	}
+	return dataStart + rel
+}
+
+// layoutTensors checks the data offsets of entries against a data section of
+// dataLen bytes starting at dataStart in file, and returns the tensors in
+// data-offset order: sorted, contiguous from 0, no holes, overlaps or
+// reversal, each span equal to shape × dtype size, the last ending exactly at
+// the end of the file.
+func layoutTensors(file string, entries []headerEntry, dataStart, dataLen int64) ([]*Tensor, error) {
+	for _, e := range entries {
+		if e.end < e.begin {
+			return nil, inputError(file, e.name, absolute(dataStart, e.begin), ErrOffsets,
+				"data_offsets [%d, %d] are reversed", e.begin, e.end)
+		}
+	}
+	slices.SortFunc(entries, func(a, b headerEntry) int {
+		return cmp.Or(cmp.Compare(a.begin, b.begin), cmp.Compare(a.end, b.end), cmp.Compare(a.name, b.name))
+	})
+	tensors := make([]*Tensor, 0, len(entries))
+	var pos int64
+	prev := ""
+	for _, e := range entries {
+		at := absolute(dataStart, e.begin)
+		switch {
+		case e.begin > pos:
+			return nil, inputError(file, e.name, at, ErrOffsets,
+				"data_offsets [%d, %d] leave a hole of %d bytes after byte %d of the data section", e.begin, e.end, e.begin-pos, pos)
+		case e.begin < pos:
+			return nil, inputError(file, e.name, at, ErrOffsets,
+				"data_offsets [%d, %d] overlap tensor %q, which ends at %d", e.begin, e.end, prev, pos)
+		case e.end-e.begin != e.nbytes:
+			return nil, inputError(file, e.name, at, ErrOffsets,
+				"data_offsets [%d, %d] span %d bytes, shape %v × %s needs %d", e.begin, e.end, e.end-e.begin, e.shape, e.dtype, e.nbytes)
+		case e.end > dataLen:
+			return nil, inputError(file, e.name, at, ErrTruncated,
+				"data_offsets [%d, %d] run past the end of the %d-byte data section", e.begin, e.end, dataLen)
+		}
+		pos, prev = e.end, e.name
+		tensors = append(tensors, &Tensor{
+			Name:   e.name,
+			DType:  e.dtype,
+			Shape:  e.shape,
+			File:   file,
+			Offset: at,
+			Length: e.nbytes,
+		})
+	}
+	if pos < dataLen {
+		return nil, inputError(file, "", absolute(dataStart, pos), ErrOffsets,
+			"%d trailing bytes after the last tensor", dataLen-pos)
+	}
+	return tensors, nil
+}

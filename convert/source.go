@@ -1,0 +1,191 @@
+package convert
+
+import (
+	"encoding/binary"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+
+	"github.com/zeebo/blake3"
+)
+
+// Tensor describes one tensor of a source (no data).
+type Tensor struct {
+	Name   string
+	DType  string  // exactly as in the header, e.g. "BF16"
+	Shape  []int64 // empty for a scalar
+	File   string  // path of the file holding it
+	Offset int64   // absolute byte offset of its first data byte in File
+	Length int64   // data bytes
+}
+
+// NumElements returns the product of the shape (1 for a scalar).
+func (t *Tensor) NumElements() int64 {
+	n := int64(1)
+	for _, d := range t.Shape {
+		n *= d
+	}
+	return n
+}
+
+// IsFloat reports whether the tensor holds F64, F32, F16 or BF16 values.
+func (t *Tensor) IsFloat() bool { return isFloatDType(t.DType) }
+
+// SourceFile is one file of a source; BLAKE3 is filled in by Walk.
+type SourceFile struct {
+	Path   string
+	Size   int64
+	BLAKE3 [32]byte
+}
+
+// Source is an opened checkpoint.
+type Source struct {
+	Path     string
+	Files    []SourceFile
+	Metadata map[string]string // "__metadata__", may be nil
+	Tensors  []*Tensor         // file order, then data-offset order
+
+	open []*openFile // parallel to Files; nil once closed
+}
+
+// openFile is the reading state of one file of a source.
+type openFile struct {
+	f         *os.File
+	prefix    *blake3.Hasher // state after hashing the length field and header
+	dataStart int64
+	dataLen   int64
+	tensors   []*Tensor
+}
+
+// Open parses and validates the header of the safetensors file at path; it
+// reads no tensor data. Every error is an *InputError.
+func Open(path string) (*Source, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		var pe *os.PathError
+		if errors.As(err, &pe) {
+			err = pe.Err
+		}
+		return nil, &InputError{File: path, Offset: -1, Err: fmt.Errorf("open: %w", err)}
+	}
+	of, size, md, err := readHeader(path, f)
+	if err != nil {
+		f.Close()
+		return nil, err
+	}
+	return &Source{
+		Path:     path,
+		Files:    []SourceFile{{Path: path, Size: size}},
+		Metadata: md,
+		Tensors:  of.tensors,
+		open:     []*openFile{of},
+	}, nil
+}
+
+// readHeader reads and validates the length field and header of f, leaving
+// the file open.
+func readHeader(path string, f *os.File) (*openFile, int64, map[string]string, error) {
+	fi, err := f.Stat()
+	if err != nil {
+		return nil, 0, nil, &InputError{File: path, Offset: -1, Err: fmt.Errorf("stat: %w", err)}
+	}
+	if fi.IsDir() {
+		return nil, 0, nil, inputError(path, "", -1, ErrHeader, "is a directory")
+	}
+	size := fi.Size()
+	if size < headerStart {
+		return nil, 0, nil, inputError(path, "", 0, ErrTruncated,
+			"file is %d bytes, shorter than the %d-byte header length", size, headerStart)
+	}
+	var lenField [headerStart]byte
+	if _, err := io.ReadFull(f, lenField[:]); err != nil {
+		return nil, 0, nil, inputError(path, "", 0, ErrTruncated, "reading header length: %v", err)
+	}
+	n := binary.LittleEndian.Uint64(lenField[:])
+	if n > maxHeaderLen {
+		return nil, 0, nil, inputError(path, "", 0, ErrHeader,
+			"header length %d exceeds the cap of %d bytes", n, maxHeaderLen)
+	}
+	if n > uint64(size-headerStart) {
+		return nil, 0, nil, inputError(path, "", 0, ErrTruncated,
+			"header length %d exceeds the %d bytes after the length field", n, size-headerStart)
+	}
+	h := make([]byte, n) // n ≤ min(cap, size)
+	if got, err := io.ReadFull(f, h); err != nil {
+		return nil, 0, nil, inputError(path, "", headerStart+int64(got), ErrTruncated,
+			"read %d of %d header bytes: %v", got, n, err)
+	}
+	hdr, err := parseHeader(path, h)
+	if err != nil {
+		return nil, 0, nil, err
+	}
+	dataStart := headerStart + int64(n)
+	dataLen := size - dataStart
+	tensors, err := layoutTensors(path, hdr.entries, dataStart, dataLen)
+	if err != nil {
+		return nil, 0, nil, err
+	}
+	prefix := blake3.New()
+	prefix.Write(lenField[:])
+	prefix.Write(h)
+	return &openFile{f: f, prefix: prefix, dataStart: dataStart, dataLen: dataLen, tensors: tensors}, size, hdr.metadata, nil
+}
+
+// Close closes the files of the source. Closing twice is harmless.
+func (s *Source) Close() error {
+	var first error
+	for _, of := range s.open {
+		if err := of.f.Close(); err != nil && first == nil {
+			first = err
+		}
+	}
+	s.open = nil
+	return first
+}
+
+// errClosed reports a Walk after Close.
+var errClosed = errors.New("source is closed")
+
+// Walk reads every tensor's bytes once, in Tensors order, with one reusable
+// buffer as large as the largest tensor, and calls fn with the bytes and
+// their BLAKE3 sum. raw is valid only during the call. The same read feeds a
+// per-file hasher, so after Walk each Files[i].BLAKE3 is the BLAKE3 of the
+// whole file. A short read gives an *InputError wrapping ErrTruncated; an
+// error from fn is returned unchanged.
+func (s *Source) Walk(fn func(t *Tensor, raw []byte, sum [32]byte) error) error {
+	if s.open == nil {
+		return &InputError{File: s.Path, Offset: -1, Err: errClosed}
+	}
+	var largest int64
+	for _, t := range s.Tensors {
+		largest = max(largest, t.Length)
+	}
+	buf := make([]byte, largest)
+	for i, of := range s.open {
+		path := s.Files[i].Path
+		fileHash := of.prefix.Clone()
+		for _, t := range of.tensors {
+			raw := buf[:t.Length]
+			got, err := of.f.ReadAt(raw, t.Offset)
+			if got < len(raw) {
+				if err == nil || errors.Is(err, io.EOF) {
+					err = io.ErrUnexpectedEOF
+				}
+				return &InputError{File: path, Tensor: t.Name, Offset: t.Offset + int64(got),
+					Err: fmt.Errorf("%w: read %d of %d bytes: %w", ErrTruncated, got, len(raw), err)}
+			}
+			fileHash.Write(raw)
+			if err := fn(t, raw, blake3.Sum256(raw)); err != nil {
+				return err
+			}
+		}
+		end := of.dataStart + of.dataLen
+		var probe [1]byte
+		if got, _ := of.f.ReadAt(probe[:], end); got > 0 {
+			return inputError(path, "", end, ErrOffsets, "trailing bytes after the last tensor (the file grew after it was opened)")
+		}
+		copy(s.Files[i].BLAKE3[:], fileHash.Sum(nil))
+	}
+	return nil
+}
