@@ -37,25 +37,23 @@ const (
 // gamma (quotient form).
 const DefaultEpsilon = 1e-5
 
-// Recipe is everything that decides the trits and the scale of a tensor.
-// It is recorded in the manifest so that a verifier can redo the work.
+// Recipe is everything besides the granularity that decides the trits and
+// scales of a tensor. It is recorded in the manifest so that a verifier can
+// redo the work.
 type Recipe struct {
-	Method      string    `json:"method"`
-	ScaleRule   ScaleRule `json:"scale_rule"`
-	Epsilon     float64   `json:"epsilon"`
-	Tie         TieRule   `json:"tie"`
-	Granularity string    `json:"granularity"`
+	Method    string    `json:"method"`
+	ScaleRule ScaleRule `json:"scale_rule"`
+	Epsilon   float64   `json:"epsilon"`
+	Tie       TieRule   `json:"tie"`
 }
 
-// DefaultRecipe is absmean per tensor, training-code form, eps 1e-5,
-// ties to even.
+// DefaultRecipe is absmean, training-code form, eps 1e-5, ties to even.
 func DefaultRecipe() Recipe {
 	return Recipe{
-		Method:      "absmean",
-		ScaleRule:   ScaleReciprocal,
-		Epsilon:     DefaultEpsilon,
-		Tie:         TieHalfEven,
-		Granularity: "tensor",
+		Method:    "absmean",
+		ScaleRule: ScaleReciprocal,
+		Epsilon:   DefaultEpsilon,
+		Tie:       TieHalfEven,
 	}
 }
 
@@ -71,8 +69,6 @@ func (r Recipe) Validate() error {
 		return fmt.Errorf("%w: scale rule %q (want %q or %q)", ErrRecipe, r.ScaleRule, ScaleReciprocal, ScaleQuotient)
 	case r.Tie != TieHalfEven && r.Tie != TieHalfAway:
 		return fmt.Errorf("%w: tie rule %q (want %q or %q)", ErrRecipe, r.Tie, TieHalfEven, TieHalfAway)
-	case r.Granularity != "tensor":
-		return fmt.Errorf("%w: granularity %q (want \"tensor\")", ErrRecipe, r.Granularity)
 	case !(r.Epsilon > 0) || math.IsInf(r.Epsilon, 0) || float32(r.Epsilon) == 0:
 		return fmt.Errorf("%w: epsilon %v (want a positive float32-representable number)", ErrRecipe, r.Epsilon)
 	}
@@ -89,15 +85,33 @@ type TritCounts struct {
 // Total is the number of trits counted.
 func (c TritCounts) Total() int64 { return c.Neg + c.Zero + c.Pos }
 
-// Ternary is the outcome of ternarizing one tensor, besides its trits.
-type Ternary struct {
-	Scale     float32    // dequantized weight = Scale × trit
-	Counts    TritCounts // trits by value
-	RelRMSE   float64    // sqrt(Σ(w−Scale·t)² / Σw²), 0 when Σw² = 0
-	MaxAbsErr float64    // max |w − Scale·t|
+// Count adds trits to c.
+func (c *TritCounts) Count(trits []int8) {
+	for _, v := range trits {
+		switch v {
+		case 1:
+			c.Pos++
+		case -1:
+			c.Neg++
+		default:
+			c.Zero++
+		}
+	}
 }
 
-// NonFiniteError reports the first NaN or Inf in a tensor to be ternarized.
+// Ternary is the outcome of ternarizing one tensor, besides its trits.
+type Ternary struct {
+	// Scales holds one dequantization scale per group, in C order:
+	// dequantized weight = Scales[i / GroupSize] × trit[i].
+	Scales []float32
+	// Exact is set when every group already was scale × {-1, 0, +1}: the
+	// scales are those exact values and the reconstruction is lossless.
+	Exact  bool
+	Counts TritCounts
+	Stats  Stats
+}
+
+// NonFiniteError reports the first NaN or Inf in a tensor to be quantized.
 type NonFiniteError struct {
 	Index int
 	Value float32
@@ -109,6 +123,16 @@ func (e *NonFiniteError) Error() string {
 
 func (e *NonFiniteError) Unwrap() error { return ErrNonFinite }
 
+// firstNonFinite returns a *NonFiniteError for the first NaN or ±Inf in w.
+func firstNonFinite(w []float32, base int) error {
+	for i, v := range w {
+		if f := float64(v); math.IsNaN(f) || math.IsInf(f, 0) {
+			return &NonFiniteError{Index: base + i, Value: v}
+		}
+	}
+	return nil
+}
+
 // Absmean returns gamma = mean |w|, accumulated in float64 in index order.
 // It returns a *NonFiniteError for the first NaN or ±Inf element.
 func Absmean(w []float32) (float64, error) {
@@ -117,10 +141,8 @@ func Absmean(w []float32) (float64, error) {
 		sum += math.Abs(float64(v))
 	}
 	if math.IsNaN(sum) || math.IsInf(sum, 0) {
-		for i, v := range w {
-			if f := float64(v); math.IsNaN(f) || math.IsInf(f, 0) {
-				return 0, &NonFiniteError{Index: i, Value: v}
-			}
+		if err := firstNonFinite(w, 0); err != nil {
+			return 0, err
 		}
 	}
 	if len(w) == 0 {
@@ -131,7 +153,7 @@ func Absmean(w []float32) (float64, error) {
 
 // quantizer holds the float32 constants of a recipe applied to one gamma.
 type quantizer struct {
-	mul, div   float32 // exactly one is used: mul for reciprocal, div for quotient
+	mul, div   float32 // mul for the reciprocal form, div for the quotient form
 	reciprocal bool
 	halfAway   bool
 	scale      float32
@@ -154,17 +176,23 @@ func newQuantizer(r Recipe, gamma float64) quantizer {
 	return q
 }
 
-// trit applies RoundClip(x, -1, 1) to the float32 product or quotient.
-// Rounding then clipping to [-1, 1] leaves only one decision: whether |x|
-// reaches the rounding threshold 0.5 (exclusive for ties to even, inclusive
-// for ties away from zero).
-func (q quantizer) trit(w float32) int8 {
-	var x float32
+// exactQuantizer maps ±c to ±1 and 0 to 0 for a group already ternary.
+func exactQuantizer(c float32) quantizer {
+	return quantizer{reciprocal: true, mul: 1 / c, scale: c}
+}
+
+// scaled is the float32 product (or quotient) that RoundClip rounds.
+func (q quantizer) scaled(w float32) float32 {
 	if q.reciprocal {
-		x = w * q.mul
-	} else {
-		x = w / q.div
+		return w * q.mul
 	}
+	return w / q.div
+}
+
+// trit applies RoundClip(x, -1, 1). Rounding then clipping to [-1, 1]
+// leaves only one decision: whether |x| reaches 0.5 (exclusive for ties to
+// even, inclusive for ties away from zero).
+func (q quantizer) trit(x float32) int8 {
 	switch {
 	case x > 0.5 || (q.halfAway && x == 0.5):
 		return 1
@@ -174,43 +202,94 @@ func (q quantizer) trit(w float32) int8 {
 	return 0
 }
 
-// Ternarize quantizes w with recipe r into trits (len(trits) must equal
-// len(w)) and returns the scale and statistics. The recipe must be valid.
-func Ternarize(w []float32, r Recipe, trits []int8) (Ternary, error) {
+// exactScale returns c when every element of w is 0 or ±c for one c > 0,
+// and whether it is so. An all-zero group has no exact scale.
+func exactScale(w []float32) (float32, bool) {
+	var c float32
+	for _, v := range w {
+		if v == 0 {
+			continue
+		}
+		a := float32(math.Abs(float64(v)))
+		if c == 0 {
+			c = a
+		} else if a != c {
+			return 0, false
+		}
+	}
+	return c, c != 0 && !math.IsInf(float64(c), 0) && !math.IsNaN(float64(c))
+}
+
+// Ternarize quantizes w, a tensor of cols columns, group by group as g says,
+// with recipe r. trits must have len(w) elements. The recipe and
+// granularity must be valid for the tensor (see Granularity.GroupSize).
+//
+// When every group is already exactly c_g × {-1, 0, +1} (all-zero groups
+// included), the result is Exact: the scales are the c_g (the recipe's
+// scale for an all-zero group) and the reconstruction error is 0.
+func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Ternary, error) {
 	if len(trits) != len(w) {
 		return Ternary{}, fmt.Errorf("ternarize: %d trits for %d weights", len(trits), len(w))
 	}
 	if err := r.Validate(); err != nil {
 		return Ternary{}, err
 	}
-	gamma, err := Absmean(w)
+	size, err := g.GroupSize(len(w), cols)
 	if err != nil {
 		return Ternary{}, err
 	}
-	q := newQuantizer(r, gamma)
-	var res Ternary
-	res.Scale = q.scale
-	var errSq, sigSq float64
-	for i, v := range w {
-		t := q.trit(v)
-		trits[i] = t
-		switch t {
-		case 1:
-			res.Counts.Pos++
-		case -1:
-			res.Counts.Neg++
-		default:
-			res.Counts.Zero++
+	groups := 0
+	if size > 0 {
+		groups = len(w) / size
+	}
+	if g.Kind == GranTensor {
+		groups, size = 1, len(w) // one scale, even for an empty tensor
+	}
+	quants := make([]quantizer, groups)
+	exact := true
+	for k := range quants {
+		part := w[k*size : (k+1)*size]
+		gamma, err := Absmean(part)
+		if err != nil {
+			var nf *NonFiniteError
+			if errors.As(err, &nf) {
+				nf.Index += k * size
+			}
+			return Ternary{}, err
 		}
-		d := math.Abs(float64(v) - float64(q.scale*float32(t)))
-		errSq += d * d
-		sigSq += float64(v) * float64(v)
-		if d > res.MaxAbsErr {
-			res.MaxAbsErr = d
+		quants[k] = newQuantizer(r, gamma)
+		if exact {
+			c, ok := exactScale(part)
+			exact = ok || gamma == 0
+			if ok {
+				quants[k] = exactQuantizer(c)
+			}
 		}
 	}
-	if sigSq > 0 {
-		res.RelRMSE = math.Sqrt(errSq / sigSq)
+	if !exact {
+		// The exact scales apply only when the whole tensor is exact.
+		for k := range quants {
+			quants[k] = newQuantizer(r, mustAbsmean(w[k*size:(k+1)*size]))
+		}
 	}
+	res := Ternary{Scales: make([]float32, groups), Exact: exact}
+	var acc statsAccumulator
+	for k, q := range quants {
+		res.Scales[k] = q.scale
+		for i := k * size; i < (k+1)*size; i++ {
+			x := q.scaled(w[i])
+			t := q.trit(x)
+			trits[i] = t
+			acc.add(w[i], q.scale*float32(t), x >= 1.5 || x <= -1.5)
+		}
+	}
+	res.Counts.Count(trits)
+	res.Stats = acc.stats(res.Counts.Zero)
 	return res, nil
+}
+
+// mustAbsmean is Absmean on values already checked to be finite.
+func mustAbsmean(w []float32) float64 {
+	g, _ := Absmean(w)
+	return g
 }

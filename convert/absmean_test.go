@@ -4,6 +4,7 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -27,14 +28,19 @@ func TestTernarizePaperExample(t *testing.T) {
 	for _, rule := range []ScaleRule{ScaleReciprocal, ScaleQuotient} {
 		t.Run(string(rule), func(t *testing.T) {
 			trits := make([]int8, 4)
-			q, err := Ternarize(w, recipeWith(rule, TieHalfEven), trits)
+			q, err := Ternarize(w, 2, PerTensor, recipeWith(rule, TieHalfEven), trits)
 			require.NoError(t, err)
 			require.Equal(t, []int8{1, 0, 0, -1}, trits)
 			// the dequantization scale is gamma (quotient form: gamma + 1e-5)
-			require.InDelta(t, 0.7, q.Scale, 2e-5)
+			require.Equal(t, []float32{q.Scales[0]}, q.Scales)
+			require.InDelta(t, 0.7, q.Scales[0], 2e-5)
 			require.Equal(t, TritCounts{Neg: 1, Zero: 2, Pos: 1}, q.Counts)
 			// reconstruction 0.7·[1, 0, 0, -1]: largest error |-1.6 - (-0.7)| = 0.9
-			require.InDelta(t, 0.9, q.MaxAbsErr, 2e-5)
+			require.InDelta(t, 0.9, q.Stats.MaxAbsErr, 2e-5)
+			// one of four rounds beyond ±1 (-2.286) and is clipped
+			require.Equal(t, 0.25, q.Stats.ClippedFraction)
+			require.Equal(t, 0.5, q.Stats.ZeroFraction)
+			require.False(t, q.Exact)
 		})
 	}
 }
@@ -58,7 +64,7 @@ func TestTernarizeTies(t *testing.T) {
 	for _, c := range cases {
 		t.Run(string(c.rule)+"/"+string(c.tie), func(t *testing.T) {
 			trits := make([]int8, len(w))
-			_, err := Ternarize(w, recipeWith(c.rule, c.tie), trits)
+			_, err := Ternarize(w, 4, PerTensor, recipeWith(c.rule, c.tie), trits)
 			require.NoError(t, err)
 			require.Equal(t, c.want, trits)
 		})
@@ -75,7 +81,7 @@ func TestTernarizeGaussianZeroFraction(t *testing.T) {
 		w[i] = float32(rng.NormFloat64() * 0.02)
 	}
 	trits := make([]int8, len(w))
-	q, err := Ternarize(w, DefaultRecipe(), trits)
+	q, err := Ternarize(w, len(w), PerTensor, DefaultRecipe(), trits)
 	require.NoError(t, err)
 	zero := float64(q.Counts.Zero) / float64(len(w))
 	require.InDelta(t, 0.310, zero, 0.003)
@@ -93,9 +99,9 @@ func TestTernarizeElementBound(t *testing.T) {
 	}
 	trits := make([]int8, len(w))
 	for _, rule := range []ScaleRule{ScaleReciprocal, ScaleQuotient} {
-		q, err := Ternarize(w, recipeWith(rule, TieHalfEven), trits)
+		q, err := Ternarize(w, 2, PerTensor, recipeWith(rule, TieHalfEven), trits)
 		require.NoError(t, err)
-		s := float64(q.Scale)
+		s := float64(q.Scales[0])
 		slack := 1e-6 * s // float32 rounding of the product
 		for i, v := range w {
 			a := math.Abs(float64(v))
@@ -106,13 +112,21 @@ func TestTernarizeElementBound(t *testing.T) {
 				require.InDelta(t, a-s, d, slack, "element %d = %v", i, v)
 			}
 		}
+		excess, _ := TernaryBoundExcess(w, trits, q.Scales, len(w))
+		require.LessOrEqual(t, excess, TernaryBoundTolerance)
+		// a wrong trit breaks the bound by far more than the tolerance
+		i := slices.Index(trits, 0)
+		trits[i] = 1
+		excess, at := TernaryBoundExcess(w, trits, q.Scales, len(w))
+		require.Greater(t, excess, 0.4)
+		require.Equal(t, i, at)
 	}
 }
 
 func TestTernarizeNonFinite(t *testing.T) {
 	for _, bad := range []float32{float32(math.NaN()), float32(math.Inf(1)), float32(math.Inf(-1))} {
 		w := []float32{1, 2, 3, bad, 5}
-		_, err := Ternarize(w, DefaultRecipe(), make([]int8, len(w)))
+		_, err := Ternarize(w, len(w), PerTensor, DefaultRecipe(), make([]int8, len(w)))
 		require.ErrorIs(t, err, ErrNonFinite)
 		var nf *NonFiniteError
 		require.True(t, errors.As(err, &nf))
@@ -125,12 +139,14 @@ func TestTernarizeNonFinite(t *testing.T) {
 func TestTernarizeZeros(t *testing.T) {
 	w := make([]float32, 10)
 	trits := make([]int8, 10)
-	q, err := Ternarize(w, DefaultRecipe(), trits)
+	q, err := Ternarize(w, len(w), PerTensor, DefaultRecipe(), trits)
 	require.NoError(t, err)
 	require.Equal(t, TritCounts{Zero: 10}, q.Counts)
-	require.InDelta(t, DefaultEpsilon, q.Scale, 1e-10)
-	require.Zero(t, q.RelRMSE)
-	require.Zero(t, q.MaxAbsErr)
+	require.InDelta(t, DefaultEpsilon, q.Scales[0], 1e-10)
+	require.Zero(t, q.Stats.RelRMSE)
+	require.Zero(t, q.Stats.MaxAbsErr)
+	require.Equal(t, 1.0, q.Stats.Cosine)
+	require.True(t, q.Exact, "all zeros is already ternary")
 }
 
 func TestRecipeValidate(t *testing.T) {
@@ -142,7 +158,6 @@ func TestRecipeValidate(t *testing.T) {
 		{"method", func(r *Recipe) { r.Method = "absmax" }, `"absmax"`},
 		{"rule", func(r *Recipe) { r.ScaleRule = "sqrt" }, `"sqrt"`},
 		{"tie", func(r *Recipe) { r.Tie = "up" }, `"up"`},
-		{"granularity", func(r *Recipe) { r.Granularity = "block" }, `"block"`},
 		{"epsilon zero", func(r *Recipe) { r.Epsilon = 0 }, "epsilon 0"},
 		{"epsilon tiny", func(r *Recipe) { r.Epsilon = 1e-60 }, "epsilon 1e-60"},
 	}
@@ -158,23 +173,147 @@ func TestRecipeValidate(t *testing.T) {
 	}
 }
 
-func TestDefaultPolicy(t *testing.T) {
+// Hand-worked examples of the absmean formula (Ma et al. 2024, eq. 1-3)
+// applied per tensor, per row and per group of 2, on
+// W = [[0.8, -0.1, 0.3, -1.6], [0.02, 0.04, -0.03, 0.012]]:
+//   - tensor: gamma = 2.902/8 = 0.36275; row 0 / gamma = [2.21, -0.28, 0.83, -4.41]
+//     → [1, 0, 1, -1]; row 1 is below gamma/2 everywhere → 0.
+//   - row: gamma = 0.7 and 0.0255; row 1 / 0.0255 = [0.78, 1.57, -1.18, 0.47]
+//     → [1, 1, -1, 0] (1.57 rounds to 2, clipped).
+//   - group:2: gammas 0.45, 0.95, 0.03, 0.021; [1.78, -0.22 | 0.32, -1.68 |
+//     0.67, 1.33 | -1.43, 0.57] → [1, 0 | 0, -1 | 1, 1 | -1, 1].
+func TestTernarizeGranularityExamples(t *testing.T) {
+	w := []float32{0.8, -0.1, 0.3, -1.6, 0.02, 0.04, -0.03, 0.012}
 	cases := []struct {
-		name  string
-		dtype string
-		shape []int64
-		want  Action
+		gran   string
+		trits  []int8
+		scales []float64
 	}{
-		{"blocks.0.attn.q.weight", "BF16", []int64{4, 4}, ActionTernary},
-		{"blocks.0.mlp.up.weight", "F32", []int64{8, 4}, ActionTernary},
-		{"embed.tokens.weight", "BF16", []int64{16, 4}, ActionKeep},
-		{"lm_head.weight", "F16", []int64{16, 4}, ActionKeep},
-		{"blocks.0.attn_norm.weight", "BF16", []int64{4}, ActionKeep},
-		{"blocks.0.conv.weight", "F32", []int64{4, 4, 3}, ActionKeep},
-		{"blocks.0.qmap", "I8", []int64{4, 4}, ActionKeep},
+		{"tensor", []int8{1, 0, 1, -1, 0, 0, 0, 0}, []float64{0.36275}},
+		{"row", []int8{1, 0, 0, -1, 1, 1, -1, 0}, []float64{0.7, 0.0255}},
+		{"group:2", []int8{1, 0, 0, -1, 1, 1, -1, 1}, []float64{0.45, 0.95, 0.03, 0.021}},
 	}
 	for _, c := range cases {
-		got := DefaultPolicy(&Tensor{Name: c.name, DType: c.dtype, Shape: c.shape})
-		require.Equal(t, c.want, got, c.name)
+		t.Run(c.gran, func(t *testing.T) {
+			g, err := ParseGranularity(c.gran)
+			require.NoError(t, err)
+			trits := make([]int8, len(w))
+			q, err := Ternarize(w, 4, g, DefaultRecipe(), trits)
+			require.NoError(t, err)
+			require.Equal(t, c.trits, trits)
+			require.Len(t, q.Scales, len(c.scales))
+			for i := range c.scales {
+				require.InDelta(t, c.scales[i], q.Scales[i], 1e-6, "scale %d", i)
+			}
+		})
 	}
+}
+
+// Zero fraction 0.310 for Gaussian weights (normal table, see above) holds
+// at every granularity: each group is itself a Gaussian sample.
+func TestTernarizeGaussianEveryGranularity(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 9))
+	const rows, cols = 512, 1024
+	w := make([]float32, rows*cols)
+	for i := range w {
+		w[i] = float32(rng.NormFloat64() * 0.02)
+	}
+	trits := make([]int8, len(w))
+	for _, gs := range []string{"tensor", "row", "group:128", "group:64"} {
+		g, err := ParseGranularity(gs)
+		require.NoError(t, err)
+		q, err := Ternarize(w, cols, g, DefaultRecipe(), trits)
+		require.NoError(t, err)
+		require.InDelta(t, 0.310, q.Stats.ZeroFraction, 0.003, gs)
+		require.Len(t, q.Scales, g.NumScales(len(w), cols), gs)
+		excess, _ := TernaryBoundExcess(w, trits, q.Scales, len(w)/len(q.Scales))
+		require.LessOrEqual(t, excess, TernaryBoundTolerance, gs)
+	}
+}
+
+// A tensor already c_g × {-1, 0, +1} per group is found exact, keeps its
+// exact scales and reconstructs with error 0, at every granularity.
+func TestTernarizeExact(t *testing.T) {
+	rng := rand.New(rand.NewPCG(10, 11))
+	const rows, cols = 8, 16
+	for _, gs := range []string{"tensor", "row", "group:4"} {
+		g, err := ParseGranularity(gs)
+		require.NoError(t, err)
+		size, err := g.GroupSize(rows*cols, cols)
+		require.NoError(t, err)
+		w := make([]float32, rows*cols)
+		want := make([]float32, len(w)/size)
+		for k := range want {
+			want[k] = float32(0.01 * float64(k+1) * (1 + rng.Float64()))
+			for i := k * size; i < (k+1)*size; i++ {
+				w[i] = want[k] * float32(rng.IntN(3)-1)
+			}
+			w[k*size] = want[k] // at least one nonzero per group
+		}
+		trits := make([]int8, len(w))
+		q, err := Ternarize(w, cols, g, DefaultRecipe(), trits)
+		require.NoError(t, err)
+		require.True(t, q.Exact, gs)
+		require.Equal(t, want, q.Scales, gs)
+		require.Zero(t, q.Stats.MaxAbsErr, gs)
+		require.Zero(t, q.Stats.RelRMSE, gs)
+		for i := range w {
+			require.Equal(t, w[i], q.Scales[i/size]*float32(trits[i]))
+		}
+		// two magnitudes in one group: no longer exact, absmean scales
+		w[1] = w[0] / 2
+		q, err = Ternarize(w, cols, g, DefaultRecipe(), trits)
+		require.NoError(t, err)
+		require.False(t, q.Exact, gs)
+	}
+}
+
+// int8 absmax per row: the round-trip error is at most absmax/254 per
+// element (common practice: half a quantization step of absmax/127).
+func TestQuantizeInt8Rows(t *testing.T) {
+	rng := rand.New(rand.NewPCG(12, 13))
+	const rows, cols = 64, 96
+	w := make([]float32, rows*cols)
+	for i := range w {
+		w[i] = float32(rng.NormFloat64() * (1 + float64(i/cols)))
+	}
+	copy(w[5*cols:6*cols], make([]float32, cols)) // an all-zero row
+	q := make([]int8, len(w))
+	scales, stats, err := QuantizeInt8Rows(w, cols, q)
+	require.NoError(t, err)
+	require.Len(t, scales, rows)
+	require.Zero(t, scales[5])
+	for r := 0; r < rows; r++ {
+		var absmax float64
+		for _, v := range w[r*cols : (r+1)*cols] {
+			absmax = math.Max(absmax, math.Abs(float64(v)))
+		}
+		for i := r * cols; i < (r+1)*cols; i++ {
+			d := math.Abs(float64(w[i]) - float64(scales[r]*float32(q[i])))
+			require.LessOrEqual(t, d, absmax/254*(1+Int8BoundTolerance), "element %d", i)
+			require.LessOrEqual(t, int(q[i]), 127)
+			require.GreaterOrEqual(t, int(q[i]), -127)
+		}
+	}
+	excess, _ := Int8BoundExcess(w, q, scales, cols)
+	require.LessOrEqual(t, excess, Int8BoundTolerance)
+	require.Greater(t, stats.Cosine, 0.9999)
+	require.Zero(t, stats.ClippedFraction)
+}
+
+func TestParseGranularity(t *testing.T) {
+	for _, s := range []string{"tensor", "row", "group:1", "group:128"} {
+		g, err := ParseGranularity(s)
+		require.NoError(t, err)
+		require.Equal(t, s, g.String())
+	}
+	for _, s := range []string{"", "rows", "group", "group:0", "group:-4", "group:x", "group:1.5"} {
+		_, err := ParseGranularity(s)
+		require.ErrorIs(t, err, ErrGranularity, s)
+		require.Contains(t, err.Error(), `"`+s+`"`)
+	}
+	g, _ := ParseGranularity("group:64")
+	_, err := g.GroupSize(100*96, 96)
+	require.ErrorIs(t, err, ErrGranularity)
+	require.Contains(t, err.Error(), "96")
 }

@@ -23,8 +23,9 @@ const (
 
 // Tensor kinds.
 const (
-	KindTernary = "ternary"
-	KindKept    = "kept"
+	KindTernary = "ternary" // packed trits and scales
+	KindKept    = "kept"    // stored bytes of a float, integer or other dtype
+	KindInt8    = "int8"    // per-row absmax int8 codes and scales
 )
 
 // Codec names.
@@ -70,28 +71,74 @@ type Section struct {
 
 // Tensor is one tensor's entry.
 type Tensor struct {
-	Name         string              `json:"name"`
-	Shape        []int64             `json:"shape"`
-	SourceDType  string              `json:"source_dtype"`
-	Kind         string              `json:"kind"`
-	Codec        string              `json:"codec"`
-	Scale        float32             `json:"scale,omitempty"`
+	Name        string  `json:"name"`
+	Shape       []int64 `json:"shape"`
+	SourceDType string  `json:"source_dtype"`
+	Kind        string  `json:"kind"`
+	// DType is the stored dtype of a kept tensor: the source dtype, or the
+	// one a keep:f16/keep:bf16/keep:f32 action converted it to.
+	DType string `json:"dtype,omitempty"`
+	Codec string `json:"codec"`
+	// Granularity of a ternary tensor's scales; "row" for int8.
+	Granularity *convert.Granularity `json:"granularity,omitempty"`
+	// Scale is the one scale of a ternary tensor at tensor granularity.
+	Scale float32 `json:"scale,omitempty"`
+	// Scales locates the float32 scales of a ternary tensor at row or group
+	// granularity, or of an int8 tensor.
+	Scales *Section `json:"scales,omitempty"`
+	// Exact marks a ternary tensor whose source already was scale × trit:
+	// its reconstruction is lossless.
+	Exact        bool                `json:"exact,omitempty"`
 	Section      Section             `json:"section"`
 	SourceBLAKE3 string              `json:"source_blake3"`
 	Trits        *convert.TritCounts `json:"trits,omitempty"`
-	RelRMSE      *float64            `json:"rel_rmse,omitempty"`
-	MaxAbsErr    *float64            `json:"max_abs_err,omitempty"`
+	// Stats compares the source with the reconstruction, for every lossy
+	// tensor (ternary, int8, converted kept).
+	Stats *convert.Stats `json:"stats,omitempty"`
 }
 
-// Totals sums the tensors.
+// NumScales is the number of float32 values in the scales section.
+func (e *Tensor) NumScales() int {
+	if e.Granularity == nil {
+		return 0
+	}
+	n := NumElements(e.Shape)
+	if n < 0 || n > math.MaxInt {
+		return 0
+	}
+	return e.Granularity.NumScales(int(n), convert.Columns(e.Shape))
+}
+
+// Sections lists the tensor's sections in file order: the payload, then
+// the scales if any.
+func (e *Tensor) Sections() []Section {
+	if e.Scales == nil {
+		return []Section{e.Section}
+	}
+	return []Section{e.Section, *e.Scales}
+}
+
+// StoredBytes is the size of the tensor's sections.
+func (e *Tensor) StoredBytes() int64 {
+	n := e.Section.Length
+	if e.Scales != nil {
+		n += e.Scales.Length
+	}
+	return n
+}
+
+// Totals sums the tensors. Section bytes include scales sections.
 type Totals struct {
 	Tensors              int     `json:"tensors"`
 	TernaryTensors       int     `json:"ternary_tensors"`
+	Int8Tensors          int     `json:"int8_tensors"`
 	KeptTensors          int     `json:"kept_tensors"`
 	TernaryParams        int64   `json:"ternary_params"`
+	Int8Params           int64   `json:"int8_params"`
 	KeptParams           int64   `json:"kept_params"`
 	SourceBytes          int64   `json:"source_bytes"`
 	TernarySectionBytes  int64   `json:"ternary_section_bytes"`
+	Int8SectionBytes     int64   `json:"int8_section_bytes"`
 	KeptSectionBytes     int64   `json:"kept_section_bytes"`
 	BitsPerTernaryWeight float64 `json:"bits_per_ternary_weight"`
 }
@@ -123,14 +170,19 @@ func (m *Manifest) ComputeTotals() {
 		e := &m.Tensors[i]
 		t.Tensors++
 		n := NumElements(e.Shape)
-		if e.Kind == KindTernary {
+		switch e.Kind {
+		case KindTernary:
 			t.TernaryTensors++
 			t.TernaryParams += n
-			t.TernarySectionBytes += e.Section.Length
-		} else {
+			t.TernarySectionBytes += e.StoredBytes()
+		case KindInt8:
+			t.Int8Tensors++
+			t.Int8Params += n
+			t.Int8SectionBytes += e.StoredBytes()
+		default:
 			t.KeptTensors++
 			t.KeptParams += n
-			t.KeptSectionBytes += e.Section.Length
+			t.KeptSectionBytes += e.StoredBytes()
 		}
 	}
 	if t.TernaryParams > 0 {
@@ -216,51 +268,138 @@ func (e *Tensor) validate() error {
 	if n < 0 {
 		return fmt.Errorf("shape %v is negative or overflows", e.Shape)
 	}
-	if err := checkHash(e.Section.BLAKE3); err != nil {
+	if err := checkSection(e.Section); err != nil {
 		return fmt.Errorf("section: %v", err)
 	}
 	if err := checkHash(e.SourceBLAKE3); err != nil {
 		return fmt.Errorf("source_blake3: %v", err)
 	}
-	if e.Section.Offset < 0 || e.Section.Length < 0 {
-		return fmt.Errorf("section offset %d length %d", e.Section.Offset, e.Section.Length)
+	if _, ok := convert.DTypeSize(e.SourceDType); !ok && e.Kind != KindKept {
+		return fmt.Errorf("unknown source dtype %q", e.SourceDType)
 	}
 	switch e.Kind {
 	case KindTernary:
-		want, ok := TritPayloadLen(e.Codec, n)
-		if !ok {
-			return fmt.Errorf("codec %q is not a trit codec", e.Codec)
-		}
-		if e.Section.Length != want {
-			return fmt.Errorf("section length %d, codec %s needs %d for %d trits", e.Section.Length, e.Codec, want, n)
+		return e.validateTernary(n)
+	case KindInt8:
+		return e.validateInt8(n)
+	case KindKept:
+		return e.validateKept(n)
+	}
+	return fmt.Errorf("kind %q (want %q, %q or %q)", e.Kind, KindTernary, KindInt8, KindKept)
+}
+
+func (e *Tensor) validateTernary(n int64) error {
+	want, ok := TritPayloadLen(e.Codec, n)
+	switch {
+	case !ok:
+		return fmt.Errorf("codec %q is not a trit codec", e.Codec)
+	case e.Section.Length != want:
+		return fmt.Errorf("section length %d, codec %s needs %d for %d trits", e.Section.Length, e.Codec, want, n)
+	case e.DType != "":
+		return fmt.Errorf("ternary tensor with dtype %q", e.DType)
+	case e.Trits == nil || e.Trits.Neg < 0 || e.Trits.Zero < 0 || e.Trits.Pos < 0 || e.Trits.Total() != n:
+		return fmt.Errorf("trit counts %+v do not sum to %d", e.Trits, n)
+	case e.Stats == nil:
+		return errors.New("missing stats")
+	}
+	if err := e.validateGranularity(); err != nil {
+		return err
+	}
+	if e.Granularity.Kind == convert.GranTensor {
+		if e.Scales != nil {
+			return errors.New("tensor granularity with a scales section")
 		}
 		if !(e.Scale > 0) || math.IsInf(float64(e.Scale), 0) {
 			return fmt.Errorf("scale %v is not a positive finite number", e.Scale)
 		}
-		if e.Trits == nil || e.Trits.Neg < 0 || e.Trits.Zero < 0 || e.Trits.Pos < 0 || e.Trits.Total() != n {
-			return fmt.Errorf("trit counts %+v do not sum to %d", e.Trits, n)
-		}
-		if e.RelRMSE == nil || e.MaxAbsErr == nil {
-			return errors.New("missing rel_rmse or max_abs_err")
-		}
-	case KindKept:
-		if e.Codec != CodecRaw {
-			return fmt.Errorf("kept tensor with codec %q (want %q)", e.Codec, CodecRaw)
-		}
-		size, ok := convert.DTypeSize(e.SourceDType)
-		if !ok {
-			return fmt.Errorf("unknown source dtype %q", e.SourceDType)
-		}
-		if hi, lo := bits.Mul64(uint64(n), uint64(size)); hi != 0 || lo != uint64(e.Section.Length) {
-			return fmt.Errorf("section length %d, %d %s elements need %d", e.Section.Length, n, e.SourceDType, n*int64(size))
-		}
-		if e.Scale != 0 || e.Trits != nil || e.RelRMSE != nil || e.MaxAbsErr != nil {
-			return errors.New("kept tensor carries ternary fields")
-		}
-	default:
-		return fmt.Errorf("kind %q (want %q or %q)", e.Kind, KindTernary, KindKept)
+		return nil
+	}
+	if e.Scale != 0 {
+		return fmt.Errorf("granularity %s with a single scale %v", e.Granularity, e.Scale)
+	}
+	return e.validateScales()
+}
+
+func (e *Tensor) validateInt8(n int64) error {
+	switch {
+	case e.Codec != CodecRaw:
+		return fmt.Errorf("int8 tensor with codec %q (want %q)", e.Codec, CodecRaw)
+	case e.Section.Length != n:
+		return fmt.Errorf("section length %d, %d int8 codes need %d", e.Section.Length, n, n)
+	case e.Granularity == nil || e.Granularity.Kind != convert.GranRow:
+		return fmt.Errorf("int8 tensor with granularity %v (want row)", e.Granularity)
+	case e.DType != "" || e.Scale != 0 || e.Trits != nil || e.Exact:
+		return errors.New("int8 tensor carries kept or ternary fields")
+	case e.Stats == nil:
+		return errors.New("missing stats")
+	}
+	if err := e.validateGranularity(); err != nil {
+		return err
+	}
+	return e.validateScales()
+}
+
+func (e *Tensor) validateKept(n int64) error {
+	if e.Codec != CodecRaw {
+		return fmt.Errorf("kept tensor with codec %q (want %q)", e.Codec, CodecRaw)
+	}
+	if e.DType == "" {
+		return errors.New("kept tensor without dtype")
+	}
+	if e.Scale != 0 || e.Trits != nil || e.Granularity != nil || e.Scales != nil || e.Exact {
+		return errors.New("kept tensor carries ternary fields")
+	}
+	size, ok := convert.DTypeSize(e.DType)
+	if !ok && e.DType != e.SourceDType {
+		return fmt.Errorf("unknown dtype %q", e.DType)
+	}
+	if (e.Stats != nil) != (e.DType != e.SourceDType) {
+		return fmt.Errorf("kept tensor stored as %s from %s: stats are required exactly when the dtype changes", e.DType, e.SourceDType)
+	}
+	if !ok {
+		return nil // an unknown dtype kept byte for byte: its length is the source's
+	}
+	if hi, lo := bits.Mul64(uint64(n), uint64(size)); hi != 0 || lo != uint64(e.Section.Length) {
+		return fmt.Errorf("section length %d, %d %s elements need %d", e.Section.Length, n, e.DType, n*int64(size))
 	}
 	return nil
+}
+
+func (e *Tensor) validateGranularity() error {
+	if e.Granularity == nil {
+		return errors.New("missing granularity")
+	}
+	if len(e.Shape) < 2 {
+		return fmt.Errorf("%s tensor of shape %v needs 2 or more dimensions", e.Kind, e.Shape)
+	}
+	n := NumElements(e.Shape)
+	if n > math.MaxInt {
+		return fmt.Errorf("shape %v too large", e.Shape)
+	}
+	if _, err := e.Granularity.GroupSize(int(n), convert.Columns(e.Shape)); err != nil {
+		return err
+	}
+	return nil
+}
+
+func (e *Tensor) validateScales() error {
+	if e.Scales == nil {
+		return fmt.Errorf("granularity %s without a scales section", e.Granularity)
+	}
+	if err := checkSection(*e.Scales); err != nil {
+		return fmt.Errorf("scales: %v", err)
+	}
+	if want := 4 * int64(e.NumScales()); e.Scales.Length != want {
+		return fmt.Errorf("scales length %d, %d float32 scales need %d", e.Scales.Length, e.NumScales(), want)
+	}
+	return nil
+}
+
+func checkSection(s Section) error {
+	if s.Offset < 0 || s.Length < 0 {
+		return fmt.Errorf("offset %d length %d", s.Offset, s.Length)
+	}
+	return checkHash(s.BLAKE3)
 }
 
 // TritPayloadLen is the payload length of n trits in a trit codec.

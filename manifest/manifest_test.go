@@ -11,16 +11,24 @@ import (
 
 func validManifest() *Manifest {
 	h := strings.Repeat("ab", 32)
-	rel, maxErr := 0.5, 0.25
+	tensor, row := convert.PerTensor, convert.Granularity{Kind: convert.GranRow}
 	m := &Manifest{
 		Format: FormatName, Version: Version, Tool: "ternkit test", Recipe: convert.DefaultRecipe(),
 		Source: Source{Files: []SourceFile{{Name: "m.safetensors", Bytes: 100, BLAKE3: h}}},
 		Tensors: []Tensor{
 			{Name: "w", Shape: []int64{3, 4}, SourceDType: "F32", Kind: KindTernary, Codec: CodecBase3, Scale: 0.5,
 				Section: Section{Offset: 64, Length: 3, BLAKE3: h}, SourceBLAKE3: h,
-				Trits: &convert.TritCounts{Neg: 4, Zero: 4, Pos: 4}, RelRMSE: &rel, MaxAbsErr: &maxErr},
-			{Name: "b", Shape: []int64{4}, SourceDType: "BF16", Kind: KindKept, Codec: CodecRaw,
+				Granularity: &tensor, Trits: &convert.TritCounts{Neg: 4, Zero: 4, Pos: 4}, Stats: &convert.Stats{RelRMSE: 0.5}},
+			{Name: "b", Shape: []int64{4}, SourceDType: "BF16", Kind: KindKept, DType: "BF16", Codec: CodecRaw,
 				Section: Section{Offset: 128, Length: 8, BLAKE3: h}, SourceBLAKE3: h},
+			{Name: "r", Shape: []int64{2, 6}, SourceDType: "F32", Kind: KindTernary, Codec: CodecBits2,
+				Section: Section{Offset: 192, Length: 3, BLAKE3: h}, Scales: &Section{Offset: 256, Length: 8, BLAKE3: h},
+				SourceBLAKE3: h, Granularity: &row, Trits: &convert.TritCounts{Zero: 12}, Stats: &convert.Stats{}},
+			{Name: "e", Shape: []int64{3, 2}, SourceDType: "F16", Kind: KindInt8, Codec: CodecRaw,
+				Section: Section{Offset: 320, Length: 6, BLAKE3: h}, Scales: &Section{Offset: 384, Length: 12, BLAKE3: h},
+				SourceBLAKE3: h, Granularity: &row, Stats: &convert.Stats{}},
+			{Name: "n", Shape: []int64{4}, SourceDType: "F32", Kind: KindKept, DType: "F16", Codec: CodecRaw,
+				Section: Section{Offset: 448, Length: 8, BLAKE3: h}, SourceBLAKE3: h, Stats: &convert.Stats{}},
 		},
 	}
 	m.ComputeTotals()
@@ -37,7 +45,10 @@ func TestRoundTrip(t *testing.T) {
 	again, err := Encode(got)
 	require.NoError(t, err)
 	require.Equal(t, b, again)
-	require.Equal(t, 8*3/12.0, got.Totals.BitsPerTernaryWeight) // 3 bytes for 12 trits
+	// 3 + 3 payload bytes and 8 scale bytes for 24 trits
+	require.Equal(t, 8*14/24.0, got.Totals.BitsPerTernaryWeight)
+	require.Equal(t, 1, got.Totals.Int8Tensors)
+	require.Equal(t, int64(18), got.Totals.Int8SectionBytes)
 }
 
 func TestDecodeRejects(t *testing.T) {
@@ -61,7 +72,21 @@ func TestDecodeRejects(t *testing.T) {
 		{"negative shape", func(m *Manifest) { m.Tensors[1].Shape = []int64{-4} }, "[-4]"},
 		{"overflowing shape", func(m *Manifest) { m.Tensors[1].Shape = []int64{1 << 40, 1 << 40} }, "overflows"},
 		{"kept with scale", func(m *Manifest) { m.Tensors[1].Scale = 1 }, "ternary fields"},
-		{"dtype", func(m *Manifest) { m.Tensors[1].SourceDType = "F12" }, `"F12"`},
+		{"dtype", func(m *Manifest) { m.Tensors[1].DType = "F12" }, `"F12"`},
+		{"kept without dtype", func(m *Manifest) { m.Tensors[1].DType = "" }, "without dtype"},
+		{"converted without stats", func(m *Manifest) { m.Tensors[4].Stats = nil }, "stats are required"},
+		{"raw with stats", func(m *Manifest) { m.Tensors[1].Stats = &convert.Stats{} }, "stats are required"},
+		{"no granularity", func(m *Manifest) { m.Tensors[0].Granularity = nil }, "missing granularity"},
+		{"row with one scale", func(m *Manifest) { m.Tensors[2].Scale = 1 }, "single scale"},
+		{"row without scales", func(m *Manifest) { m.Tensors[2].Scales = nil }, "without a scales section"},
+		{"scales length", func(m *Manifest) { m.Tensors[2].Scales.Length = 4 }, "scales length 4"},
+		{"tensor with scales", func(m *Manifest) { m.Tensors[0].Scales = &Section{Offset: 0, Length: 4, BLAKE3: m.Tensors[0].Section.BLAKE3} }, "scales section"},
+		{"group not dividing", func(m *Manifest) { m.Tensors[2].Granularity = &convert.Granularity{Kind: convert.GranGroup, Group: 4} }, "multiple of 4"},
+		{"int8 codec", func(m *Manifest) { m.Tensors[3].Codec = CodecBase3 }, `int8 tensor with codec "base3"`},
+		{"int8 length", func(m *Manifest) { m.Tensors[3].Section.Length = 5 }, "section length 5"},
+		{"int8 trits", func(m *Manifest) { m.Tensors[3].Trits = &convert.TritCounts{Zero: 6} }, "carries"},
+		{"1-D ternary", func(m *Manifest) { m.Tensors[2].Shape = []int64{12} }, "2 or more dimensions"},
+		{"missing stats", func(m *Manifest) { m.Tensors[0].Stats = nil }, "missing stats"},
 		{"totals", func(m *Manifest) { m.Totals.TernaryParams++ }, "totals"},
 	}
 	for _, c := range cases {

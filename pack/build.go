@@ -2,8 +2,10 @@ package pack
 
 import (
 	"bufio"
+	"encoding/binary"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 
@@ -15,19 +17,18 @@ import (
 
 // Options control Build.
 type Options struct {
-	Codec  Codec                                  // trit codec for ternary tensors
-	Recipe convert.Recipe                         // ternarization recipe
-	Policy func(t *convert.Tensor) convert.Action // nil means convert.DefaultPolicy
-	Tool   string                                 // recorded as the manifest's "tool"
+	Codec  Codec           // trit codec for ternary tensors
+	Recipe convert.Recipe  // ternarization recipe
+	Policy *convert.Policy // nil means convert.DefaultPolicy()
+	Tool   string          // recorded as the manifest's "tool"
 }
 
-// ErrPolicy reports a policy decision the tensor cannot take.
-var ErrPolicy = errors.New("policy cannot apply")
-
-// Build reads every tensor of src once, ternarizes or keeps it, and writes
-// the artifact to dst atomically: a temporary file in dst's directory,
-// fsync, rename. On error nothing is left at dst. Input problems are
-// *convert.InputError values naming file, tensor and byte offset.
+// Build reads every tensor of src once, quantizes or keeps it as the
+// policy says, and writes the artifact to dst atomically: a temporary file
+// in dst's directory, fsync, rename. On error nothing is left at dst. The
+// policy is applied to every tensor before anything is written, so a rule a
+// tensor cannot take fails first. Input problems are *convert.InputError
+// values naming file, tensor and byte offset.
 func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, error) {
 	if _, err := ParseCodec(string(opts.Codec)); err != nil {
 		return nil, err
@@ -37,7 +38,15 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	}
 	policy := opts.Policy
 	if policy == nil {
-		policy = convert.DefaultPolicy
+		policy = convert.DefaultPolicy()
+	}
+	actions := make(map[*convert.Tensor]convert.Action, len(src.Tensors))
+	for _, t := range src.Tensors {
+		a, _, err := policy.Decide(t)
+		if err != nil {
+			return nil, &convert.InputError{File: t.File, Tensor: t.Name, Offset: t.Offset, Err: err}
+		}
+		actions[t] = a
 	}
 	w, err := createAtomic(dst)
 	if err != nil {
@@ -56,11 +65,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if err := w.write(encodePreamble()); err != nil {
 		return nil, err
 	}
-	var (
-		floats  []float32
-		trits   []int8
-		payload []byte
-	)
+	var q quantizeBuffers
 	err = src.Walk(func(t *convert.Tensor, raw []byte, sum [32]byte) error {
 		e := manifest.Tensor{
 			Name:         t.Name,
@@ -68,44 +73,20 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 			SourceDType:  t.DType,
 			SourceBLAKE3: manifest.HexHash(sum),
 		}
-		section := raw
-		switch action := policy(t); action {
-		case convert.ActionKeep:
-			e.Kind, e.Codec = manifest.KindKept, manifest.CodecRaw
-		case convert.ActionTernary:
-			if !t.IsFloat() {
-				return &convert.InputError{File: t.File, Tensor: t.Name, Offset: t.Offset,
-					Err: fmt.Errorf("%w: ternary needs a float tensor, dtype is %q", ErrPolicy, t.DType)}
-			}
-			n := int(t.NumElements())
-			floats = grow(floats, n)
-			trits = grow(trits, n)
-			if err := convert.DecodeFloat32(t.DType, raw, floats); err != nil {
-				return &convert.InputError{File: t.File, Tensor: t.Name, Offset: t.Offset, Err: err}
-			}
-			q, err := convert.Ternarize(floats, opts.Recipe, trits)
-			if err != nil {
-				off := t.Offset
-				var nf *convert.NonFiniteError
-				if errors.As(err, &nf) {
-					size, _ := convert.DTypeSize(t.DType)
-					off += int64(nf.Index) * int64(size)
-				}
-				return &convert.InputError{File: t.File, Tensor: t.Name, Offset: off, Err: err}
-			}
-			payload = opts.Codec.Encode(payload[:0], trits)
-			section = payload
-			e.Kind, e.Codec, e.Scale = manifest.KindTernary, string(opts.Codec), q.Scale
-			counts, rel, maxErr := q.Counts, q.RelRMSE, q.MaxAbsErr
-			e.Trits, e.RelRMSE, e.MaxAbsErr = &counts, &rel, &maxErr
-		default:
-			return fmt.Errorf("tensor %q: %w: unknown action %q", t.Name, ErrPolicy, action)
-		}
-		s, err := w.section(section)
+		out, err := q.apply(&e, t, raw, actions[t], opts)
 		if err != nil {
 			return err
 		}
-		e.Section = s
+		if e.Section, err = w.section(out.payload); err != nil {
+			return err
+		}
+		if out.scales != nil {
+			s, err := w.section(out.scales)
+			if err != nil {
+				return err
+			}
+			e.Scales = &s
+		}
 		m.Tensors = append(m.Tensors, e)
 		return nil
 	})
@@ -123,6 +104,97 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	}
 	return m, nil
 }
+
+// quantizeBuffers are reused from tensor to tensor.
+type quantizeBuffers struct {
+	floats  []float32
+	codes   []int8
+	payload []byte
+	scales  []byte
+}
+
+// sections is what one tensor writes: its payload and, for row, group and
+// int8 tensors, its scales.
+type sections struct {
+	payload []byte
+	scales  []byte
+}
+
+// apply carries out action a on tensor t, filling the entry's kind, codec,
+// granularity, scales and statistics.
+func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byte, a convert.Action, opts Options) (sections, error) {
+	fail := func(err error) error {
+		off := t.Offset
+		var nf *convert.NonFiniteError
+		if errors.As(err, &nf) {
+			size, _ := convert.DTypeSize(t.DType)
+			off += int64(nf.Index) * int64(size)
+		}
+		return &convert.InputError{File: t.File, Tensor: t.Name, Offset: off, Err: err}
+	}
+	target := a.KeptDType(t.DType)
+	if a.Kind == convert.ActKeep || (a.Kind != convert.ActTernary && a.Kind != convert.ActInt8 && target == t.DType) {
+		e.Kind, e.Codec, e.DType = manifest.KindKept, manifest.CodecRaw, t.DType
+		return sections{payload: raw}, nil
+	}
+	n := int(t.NumElements())
+	q.floats = grow(q.floats, n)
+	if err := convert.DecodeFloat32(t.DType, raw, q.floats); err != nil {
+		return sections{}, fail(err)
+	}
+	cols := convert.Columns(t.Shape)
+	switch a.Kind {
+	case convert.ActTernary:
+		q.codes = grow(q.codes, n)
+		res, err := convert.Ternarize(q.floats, cols, a.Granularity, opts.Recipe, q.codes)
+		if err != nil {
+			return sections{}, fail(err)
+		}
+		g := a.Granularity
+		e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(opts.Codec), &g, res.Exact
+		e.Trits, e.Stats = &res.Counts, &res.Stats
+		q.payload = opts.Codec.Encode(q.payload[:0], q.codes)
+		if g.Kind == convert.GranTensor {
+			e.Scale = res.Scales[0]
+			return sections{payload: q.payload}, nil
+		}
+		q.scales = appendFloat32s(q.scales[:0], res.Scales)
+		return sections{payload: q.payload, scales: q.scales}, nil
+	case convert.ActInt8:
+		q.codes = grow(q.codes, n)
+		scales, stats, err := convert.QuantizeInt8Rows(q.floats, cols, q.codes)
+		if err != nil {
+			return sections{}, fail(err)
+		}
+		row := convert.Granularity{Kind: convert.GranRow}
+		e.Kind, e.Codec, e.Granularity, e.Stats = manifest.KindInt8, manifest.CodecRaw, &row, &stats
+		q.payload = append(q.payload[:0], int8Bytes(q.codes)...)
+		q.scales = appendFloat32s(q.scales[:0], scales)
+		return sections{payload: q.payload, scales: q.scales}, nil
+	}
+	// keep:f16, keep:bf16, keep:f32 with a dtype change
+	out, err := convert.EncodeFloat32(q.payload[:0], target, q.floats)
+	if err != nil {
+		return sections{}, fail(err)
+	}
+	q.payload = out
+	back := make([]float32, n)
+	if err := convert.DecodeFloat32(target, out, back); err != nil {
+		return sections{}, fail(err)
+	}
+	stats := convert.CompareFloat32(q.floats, back)
+	e.Kind, e.Codec, e.DType, e.Stats = manifest.KindKept, manifest.CodecRaw, target, &stats
+	return sections{payload: q.payload}, nil
+}
+
+func appendFloat32s(dst []byte, v []float32) []byte {
+	for _, f := range v {
+		dst = binary.LittleEndian.AppendUint32(dst, math.Float32bits(f))
+	}
+	return dst
+}
+
+func int8Bytes(s []int8) []byte { return unsafeInt8Bytes(s) }
 
 func grow[T any](s []T, n int) []T {
 	if cap(s) < n {

@@ -1,9 +1,11 @@
 package pack
 
 import (
+	"encoding/binary"
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"os"
 
 	"github.com/zeebo/blake3"
@@ -88,15 +90,18 @@ func newArtifact(file string, r io.ReaderAt, size int64) (*Artifact, error) {
 	next := int64(PreambleLen)
 	for i, e := range m.Tensors {
 		a.index[e.Name] = i
-		if e.Section.Offset != next {
-			return nil, fail(fmt.Sprintf("manifest: tensor %q", e.Name), t.manifestOffset,
-				fmt.Errorf("%w: section offset %d (layout puts it at %d)", ErrStructure, e.Section.Offset, next))
+		where := fmt.Sprintf("manifest: tensor %q", e.Name)
+		for _, s := range e.Sections() {
+			if s.Offset != next {
+				return nil, fail(where, t.manifestOffset,
+					fmt.Errorf("%w: section offset %d (layout puts it at %d)", ErrStructure, s.Offset, next))
+			}
+			if s.Length > t.manifestOffset-next {
+				return nil, fail(where, t.manifestOffset,
+					fmt.Errorf("%w: section of %d bytes at %d runs past the manifest at %d", ErrStructure, s.Length, next, t.manifestOffset))
+			}
+			next = alignUp(s.Offset + s.Length)
 		}
-		if e.Section.Length > t.manifestOffset-next {
-			return nil, fail(fmt.Sprintf("manifest: tensor %q", e.Name), t.manifestOffset,
-				fmt.Errorf("%w: section of %d bytes at %d runs past the manifest at %d", ErrStructure, e.Section.Length, next, t.manifestOffset))
-		}
-		next = alignUp(e.Section.Offset + e.Section.Length)
 	}
 	if next != t.manifestOffset {
 		return nil, fail("trailer", size-TrailerLen,
@@ -183,29 +188,75 @@ func (t *Tensor) DecodeTrits(dst []int8) error {
 	return nil
 }
 
-// DecodeFloat32 fills dst (length Len()) with scale × trit for a ternary
-// tensor, or the decoded values of a kept float tensor.
-func (t *Tensor) DecodeFloat32(dst []float32) error {
-	if len(dst) != t.Len() {
-		return fmt.Errorf("decode tensor %q: dst holds %d values, tensor has %d", t.Entry.Name, len(dst), t.Len())
+// Scales reads the float32 scales of a ternary tensor at row or group
+// granularity, or of an int8 tensor; for a ternary tensor at tensor
+// granularity it returns its one scale.
+func (t *Tensor) Scales() ([]float32, error) {
+	e := t.Entry
+	if e.Scales == nil {
+		if e.Kind != manifest.KindTernary {
+			return nil, fmt.Errorf("%w: tensor %q is %s and has no scales", ErrKind, e.Name, e.Kind)
+		}
+		return []float32{e.Scale}, nil
 	}
-	if t.Entry.Kind == manifest.KindKept {
+	p := make([]byte, e.Scales.Length)
+	if _, err := t.a.r.ReadAt(p, e.Scales.Offset); err != nil {
+		return nil, t.fail(e.Scales.Offset, err)
+	}
+	s := make([]float32, len(p)/4)
+	for i := range s {
+		s[i] = math.Float32frombits(binary.LittleEndian.Uint32(p[4*i:]))
+	}
+	return s, nil
+}
+
+// GroupSize is the number of consecutive elements that share one scale.
+func (t *Tensor) GroupSize() int {
+	g := t.Entry.Granularity
+	if g == nil {
+		return t.Len()
+	}
+	size, _ := g.GroupSize(t.Len(), convert.Columns(t.Entry.Shape))
+	return size
+}
+
+// DecodeFloat32 fills dst (length Len()) with the reconstructed weights:
+// scale × trit for a ternary tensor, scale × code for an int8 tensor, the
+// stored values of a kept float tensor.
+func (t *Tensor) DecodeFloat32(dst []float32) error {
+	e := t.Entry
+	if len(dst) != t.Len() {
+		return fmt.Errorf("decode tensor %q: dst holds %d values, tensor has %d", e.Name, len(dst), t.Len())
+	}
+	if e.Kind == manifest.KindKept {
 		p, err := t.Payload()
 		if err != nil {
 			return err
 		}
-		if err := convert.DecodeFloat32(t.Entry.SourceDType, p, dst); err != nil {
-			return fmt.Errorf("decode tensor %q: %w", t.Entry.Name, err)
+		if err := convert.DecodeFloat32(e.DType, p, dst); err != nil {
+			return fmt.Errorf("decode tensor %q: %w", e.Name, err)
 		}
 		return nil
 	}
-	trits := make([]int8, len(dst))
-	if err := t.DecodeTrits(trits); err != nil {
+	codes := make([]int8, len(dst))
+	if e.Kind == manifest.KindTernary {
+		if err := t.DecodeTrits(codes); err != nil {
+			return err
+		}
+	} else {
+		p, err := t.Payload()
+		if err != nil {
+			return err
+		}
+		copy(unsafeInt8Bytes(codes), p)
+	}
+	scales, err := t.Scales()
+	if err != nil {
 		return err
 	}
-	s := t.Entry.Scale
-	for i, v := range trits {
-		dst[i] = s * float32(v)
+	size := t.GroupSize()
+	for i, v := range codes {
+		dst[i] = scales[i/size] * float32(v)
 	}
 	return nil
 }

@@ -1,7 +1,8 @@
 // Package verify checks a ternkit artifact: its structure and every hash,
-// every trit payload, and, given the source checkpoint, that re-quantizing
-// the source with the recorded recipe gives the same trits and scales and
-// that kept tensors hold the source bytes.
+// every trit payload and scale, and, given the source checkpoint, that
+// redoing each tensor's recorded action with the recorded recipe gives the
+// same bytes, scales and statistics, and that the per-element error bound
+// holds.
 //
 // A passing verification proves bytes and bounds, not task quality.
 package verify
@@ -25,12 +26,13 @@ const (
 	CheckStructure  = "structure"    // preamble, trailer, manifest hash and rules, layout
 	CheckSection    = "section_hash" // a section's BLAKE3
 	CheckPadding    = "padding"      // zero bytes between sections
-	CheckDecode     = "decode"       // trit payload decodes and matches its counts
+	CheckDecode     = "decode"       // payload decodes, counts match, scales are valid
 	CheckSourceFile = "source_file"  // source files match the provenance
 	CheckSourceSet  = "source_set"   // source and artifact hold the same tensors
 	CheckSourceHash = "source_hash"  // a source tensor's bytes match the recorded hash
-	CheckRequantize = "requantize"   // trits, scale and statistics match a fresh run
-	CheckKept       = "kept_bytes"   // a kept tensor equals its source bytes
+	CheckRequantize = "requantize"   // codes, scales and statistics match a fresh run
+	CheckKept       = "kept_bytes"   // a kept tensor equals its (converted) source bytes
+	CheckBound      = "bound"        // the per-element error bound, worst tensor named
 )
 
 // Check is one verification step's outcome.
@@ -62,6 +64,16 @@ func (r *Report) Failures() []Check {
 		}
 	}
 	return out
+}
+
+// Find returns the first check with the given name and tensor.
+func (r *Report) Find(name, tensor string) (Check, bool) {
+	for _, c := range r.Checks {
+		if c.Name == name && c.Tensor == tensor {
+			return c, true
+		}
+	}
+	return Check{}, false
 }
 
 func (r *Report) add(name, tensor string, ok bool, format string, args ...any) {
@@ -114,73 +126,85 @@ func Run(path string, opts Options) (*Report, error) {
 }
 
 // checkSections hashes every section, checks the padding after it, and
-// decodes every trit payload against its recorded counts.
+// decodes every payload against its recorded counts and scales.
 func checkSections(rep *Report, a *pack.Artifact) {
 	ra := a.ReaderAt()
 	m := a.Manifest()
+	var all []manifest.Section
+	var owner []string
+	for _, e := range m.Tensors {
+		for _, s := range e.Sections() {
+			all = append(all, s)
+			owner = append(owner, e.Name)
+		}
+	}
 	padFail := 0
-	for i, e := range m.Tensors {
-		t, _ := a.Tensor(e.Name)
-		p, err := t.Payload()
-		if err != nil {
-			rep.add(CheckSection, e.Name, false, "%v", err)
+	for i, s := range all {
+		p := make([]byte, s.Length)
+		if _, err := ra.ReadAt(p, s.Offset); err != nil {
+			rep.add(CheckSection, owner[i], false, "read section at byte %d: %v", s.Offset, err)
 			continue
 		}
-		if got := manifest.HexHash(blake3.Sum256(p)); got != e.Section.BLAKE3 {
-			rep.add(CheckSection, e.Name, false, "section at byte %d (%d bytes): BLAKE3 %s, manifest records %s",
-				e.Section.Offset, e.Section.Length, got, e.Section.BLAKE3)
+		if got := manifest.HexHash(blake3.Sum256(p)); got != s.BLAKE3 {
+			rep.add(CheckSection, owner[i], false, "section at byte %d (%d bytes): BLAKE3 %s, manifest records %s",
+				s.Offset, s.Length, got, s.BLAKE3)
 		} else {
-			rep.add(CheckSection, e.Name, true, "")
+			rep.add(CheckSection, owner[i], true, "")
 		}
-		end := e.Section.Offset + e.Section.Length
-		next := a.ManifestOffset()
-		if i+1 < len(m.Tensors) {
-			next = m.Tensors[i+1].Section.Offset
+		end, next := s.Offset+s.Length, a.ManifestOffset()
+		if i+1 < len(all) {
+			next = all[i+1].Offset
 		}
 		if gap := next - end; gap > 0 {
 			pad := make([]byte, gap)
 			if _, err := ra.ReadAt(pad, end); err != nil || !allZero(pad) {
-				rep.add(CheckPadding, e.Name, false, "padding after section at byte %d..%d is not zero", end, next)
+				rep.add(CheckPadding, owner[i], false, "padding at byte %d..%d is not zero", end, next)
 				padFail++
 			}
-		}
-		if e.Kind == manifest.KindTernary {
-			checkDecode(rep, t, p)
 		}
 	}
 	if padFail == 0 {
 		rep.add(CheckPadding, "", true, "")
 	}
-}
-
-func checkDecode(rep *Report, t *pack.Tensor, payload []byte) {
-	e := t.Entry
-	trits := make([]int8, t.Len())
-	if err := pack.Codec(e.Codec).Decode(trits, payload); err != nil {
-		rep.add(CheckDecode, e.Name, false, "section at byte %d: %v", e.Section.Offset, err)
-		return
-	}
-	got := countTrits(trits)
-	if got != *e.Trits {
-		rep.add(CheckDecode, e.Name, false, "trit counts %+v, manifest records %+v", got, *e.Trits)
-		return
-	}
-	rep.add(CheckDecode, e.Name, true, "")
-}
-
-func countTrits(trits []int8) convert.TritCounts {
-	var c convert.TritCounts
-	for _, v := range trits {
-		switch v {
-		case 1:
-			c.Pos++
-		case -1:
-			c.Neg++
-		default:
-			c.Zero++
+	for _, e := range m.Tensors {
+		if e.Kind == manifest.KindKept {
+			continue
+		}
+		t, _ := a.Tensor(e.Name)
+		if detail := decodeDetail(t); detail != "" {
+			rep.add(CheckDecode, e.Name, false, "%s", detail)
+		} else {
+			rep.add(CheckDecode, e.Name, true, "")
 		}
 	}
-	return c
+}
+
+// decodeDetail decodes a ternary or int8 tensor and says what is wrong
+// with its codes or scales, or "".
+func decodeDetail(t *pack.Tensor) string {
+	e := t.Entry
+	if e.Kind == manifest.KindTernary {
+		trits := make([]int8, t.Len())
+		if err := t.DecodeTrits(trits); err != nil {
+			return err.Error()
+		}
+		var got convert.TritCounts
+		got.Count(trits)
+		if got != *e.Trits {
+			return fmt.Sprintf("trit counts %+v, manifest records %+v", got, *e.Trits)
+		}
+	}
+	scales, err := t.Scales()
+	if err != nil {
+		return err.Error()
+	}
+	for i, s := range scales {
+		f := float64(s)
+		if math.IsNaN(f) || math.IsInf(f, 0) || s < 0 || (s == 0 && e.Kind == manifest.KindTernary) {
+			return fmt.Sprintf("scale %d is %v", i, s)
+		}
+	}
+	return ""
 }
 
 func allZero(p []byte) bool {
@@ -192,16 +216,27 @@ func allZero(p []byte) bool {
 	return true
 }
 
-// checkAgainst re-reads the source, re-quantizes it with the recorded
-// recipe and compares.
+// worstBound tracks the tensor that comes closest to breaking its bound:
+// the largest excess over the bound beyond the kind's tolerance.
+type worstBound struct {
+	tensor            string
+	index             int
+	excess, tolerance float64
+	seen              bool
+}
+
+func (w *worstBound) note(tensor string, excess, tolerance float64, index int) {
+	if index >= 0 && (!w.seen || excess-tolerance > w.excess-w.tolerance) {
+		*w = worstBound{tensor: tensor, index: index, excess: excess, tolerance: tolerance, seen: true}
+	}
+}
+
+// checkAgainst re-reads the source, redoes each tensor's recorded action
+// with the recorded recipe and compares.
 func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source) error {
 	m := a.Manifest()
 	seen := make(map[string]bool, len(m.Tensors))
-	var (
-		floats []float32
-		fresh  []int8
-		packed []int8
-	)
+	var worst worstBound
 	err := src.Walk(func(st *convert.Tensor, raw []byte, sum [32]byte) error {
 		t, err := a.Tensor(st.Name)
 		if err != nil {
@@ -216,35 +251,12 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source) error {
 			return nil
 		}
 		rep.add(CheckSourceHash, e.Name, true, "")
+		name := CheckRequantize
 		if e.Kind == manifest.KindKept {
-			p, err := t.Payload()
-			if err != nil || !bytes.Equal(p, raw) {
-				rep.add(CheckKept, e.Name, false, "kept bytes at artifact byte %d differ from the source", e.Section.Offset)
-			} else {
-				rep.add(CheckKept, e.Name, true, "")
-			}
-			return nil
+			name = CheckKept
 		}
-		n := t.Len()
-		floats, fresh, packed = grow(floats, n), grow(fresh, n), grow(packed, n)
-		if err := convert.DecodeFloat32(st.DType, raw, floats); err != nil {
-			rep.add(CheckRequantize, e.Name, false, "decode source: %v", err)
-			return nil
-		}
-		q, err := convert.Ternarize(floats, m.Recipe, fresh)
-		if err != nil {
-			rep.add(CheckRequantize, e.Name, false, "re-quantize: %v", err)
-			return nil
-		}
-		if err := t.DecodeTrits(packed); err != nil {
-			rep.add(CheckRequantize, e.Name, false, "decode artifact: %v", err)
-			return nil
-		}
-		if detail := compareTernary(e, q, fresh, packed); detail != "" {
-			rep.add(CheckRequantize, e.Name, false, "%s", detail)
-		} else {
-			rep.add(CheckRequantize, e.Name, true, "")
-		}
+		detail := redo(t, m.Recipe, raw, &worst)
+		rep.add(name, e.Name, detail == "", "%s", detail)
 		return nil
 	})
 	if err != nil {
@@ -255,10 +267,142 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source) error {
 			rep.add(CheckSourceSet, e.Name, false, "artifact tensor %q is not in the source", e.Name)
 		}
 	}
+	if worst.seen {
+		ok := worst.excess <= worst.tolerance
+		verdict := "holds"
+		if !ok {
+			verdict = "broken"
+		}
+		rep.add(CheckBound, "", ok, "per-element bound %s; worst tensor %q element %d: %.3g of its scale beyond the bound (tolerance %g)",
+			verdict, worst.tensor, worst.index, worst.excess, worst.tolerance)
+	}
+	checkSourceFiles(rep, m, src)
+	return nil
+}
+
+// redo repeats the tensor's action on the source bytes and returns what
+// differs, or "". It records the tensor's bound excess in worst.
+func redo(t *pack.Tensor, r convert.Recipe, raw []byte, worst *worstBound) string {
+	e := t.Entry
+	if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
+		p, err := t.Payload()
+		if err != nil {
+			return err.Error()
+		}
+		if !bytes.Equal(p, raw) {
+			return fmt.Sprintf("kept bytes at artifact byte %d differ from the source", e.Section.Offset)
+		}
+		return ""
+	}
+	n := t.Len()
+	w := make([]float32, n)
+	if err := convert.DecodeFloat32(e.SourceDType, raw, w); err != nil {
+		return fmt.Sprintf("decode source: %v", err)
+	}
+	cols := convert.Columns(e.Shape)
+	payload, err := t.Payload()
+	if err != nil {
+		return err.Error()
+	}
+	switch e.Kind {
+	case manifest.KindTernary:
+		fresh := make([]int8, n)
+		q, err := convert.Ternarize(w, cols, *e.Granularity, r, fresh)
+		if err != nil {
+			return fmt.Sprintf("re-quantize: %v", err)
+		}
+		packed := make([]int8, n)
+		if err := t.DecodeTrits(packed); err != nil {
+			return err.Error()
+		}
+		scales, err := t.Scales()
+		if err != nil {
+			return err.Error()
+		}
+		excess, at := convert.TernaryBoundExcess(w, packed, scales, t.GroupSize())
+		worst.note(e.Name, excess, convert.TernaryBoundTolerance, at)
+		if d := diffScales(scales, q.Scales); d != "" {
+			return d
+		}
+		if d := diffCodes("trit", packed, fresh); d != "" {
+			return d
+		}
+		if q.Exact != e.Exact {
+			return fmt.Sprintf("exact is %v, re-quantizing the source gives %v", e.Exact, q.Exact)
+		}
+		return diffStats(*e.Stats, q.Stats)
+	case manifest.KindInt8:
+		fresh := make([]int8, n)
+		scales, stats, err := convert.QuantizeInt8Rows(w, cols, fresh)
+		if err != nil {
+			return fmt.Sprintf("re-quantize: %v", err)
+		}
+		packed := make([]int8, n)
+		for i, b := range payload {
+			packed[i] = int8(b)
+		}
+		stored, err := t.Scales()
+		if err != nil {
+			return err.Error()
+		}
+		excess, at := convert.Int8BoundExcess(w, packed, stored, cols)
+		worst.note(e.Name, excess, convert.Int8BoundTolerance, at)
+		if d := diffScales(stored, scales); d != "" {
+			return d
+		}
+		if d := diffCodes("int8 code", packed, fresh); d != "" {
+			return d
+		}
+		return diffStats(*e.Stats, stats)
+	}
+	// kept, converted to another float dtype
+	want, err := convert.EncodeFloat32(nil, e.DType, w)
+	if err != nil {
+		return err.Error()
+	}
+	if !bytes.Equal(payload, want) {
+		return fmt.Sprintf("%s bytes at artifact byte %d differ from the converted source", e.DType, e.Section.Offset)
+	}
+	back := make([]float32, n)
+	if err := convert.DecodeFloat32(e.DType, want, back); err != nil {
+		return err.Error()
+	}
+	return diffStats(*e.Stats, convert.CompareFloat32(w, back))
+}
+
+func diffScales(stored, fresh []float32) string {
+	if len(stored) != len(fresh) {
+		return fmt.Sprintf("%d scales, re-quantizing the source gives %d", len(stored), len(fresh))
+	}
+	for i := range stored {
+		if math.Float32bits(stored[i]) != math.Float32bits(fresh[i]) {
+			return fmt.Sprintf("scale %d is %v, re-quantizing the source gives %v", i, stored[i], fresh[i])
+		}
+	}
+	return ""
+}
+
+func diffCodes(what string, stored, fresh []int8) string {
+	for i := range stored {
+		if stored[i] != fresh[i] {
+			return fmt.Sprintf("%s %d is %d, re-quantizing the source gives %d", what, i, stored[i], fresh[i])
+		}
+	}
+	return ""
+}
+
+func diffStats(stored, fresh convert.Stats) string {
+	if stored != fresh {
+		return fmt.Sprintf("statistics %+v, re-quantizing the source gives %+v", stored, fresh)
+	}
+	return ""
+}
+
+func checkSourceFiles(rep *Report, m *manifest.Manifest, src *convert.Source) {
 	files := m.Source.Files
 	if len(files) != len(src.Files) {
 		rep.add(CheckSourceFile, "", false, "source has %d files, manifest records %d", len(src.Files), len(files))
-		return nil
+		return
 	}
 	for i, f := range src.Files {
 		if got := manifest.HexHash(f.BLAKE3); got != files[i].BLAKE3 || f.Size != files[i].Bytes {
@@ -268,33 +412,4 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source) error {
 			rep.add(CheckSourceFile, "", true, "")
 		}
 	}
-	return nil
-}
-
-// compareTernary returns what differs between a packed tensor and a fresh
-// quantization of its source, or "".
-func compareTernary(e manifest.Tensor, q convert.Ternary, fresh, packed []int8) string {
-	switch {
-	case math.Float32bits(q.Scale) != math.Float32bits(e.Scale):
-		return fmt.Sprintf("scale %v, re-quantizing the source gives %v", e.Scale, q.Scale)
-	case q.Counts != *e.Trits:
-		return fmt.Sprintf("trit counts %+v, re-quantizing the source gives %+v", *e.Trits, q.Counts)
-	}
-	for i := range fresh {
-		if fresh[i] != packed[i] {
-			return fmt.Sprintf("trit %d is %d, re-quantizing the source gives %d", i, packed[i], fresh[i])
-		}
-	}
-	if q.RelRMSE != *e.RelRMSE || q.MaxAbsErr != *e.MaxAbsErr {
-		return fmt.Sprintf("statistics rel_rmse %v max_abs_err %v, re-quantizing the source gives %v %v",
-			*e.RelRMSE, *e.MaxAbsErr, q.RelRMSE, q.MaxAbsErr)
-	}
-	return ""
-}
-
-func grow[T any](s []T, n int) []T {
-	if cap(s) < n {
-		return make([]T, n)
-	}
-	return s[:n]
 }

@@ -19,12 +19,13 @@ import (
 // The checkpoint is generated here, from a fixed seed: Gaussian latent
 // weights for the projections, near-one norm weights, BF16 throughout.
 const (
-	demoModel  = "fernmoss-scout-mini"
-	demoVocab  = 2048
-	demoWidth  = 256
-	demoFFN    = 688
-	demoLayers = 4
-	demoSeed   = 20261202
+	demoModel   = "fernmoss-scout-mini"
+	demoVocab   = 2048
+	demoWidth   = 256
+	demoFFN     = 768
+	demoLayers  = 4
+	demoAdapter = 64
+	demoSeed    = 20261202
 )
 
 func newDemoCmd() *cobra.Command {
@@ -64,9 +65,19 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 			}
 			fmt.Fprintf(out, "generated %s (%s, Fernmoss Seed Vault scanner assistant, fictional) in %s\n",
 				src, demoModel, time.Since(start).Round(time.Millisecond))
+			if !rf.customPolicy() {
+				policyPath := filepath.Join(dir, demoModel+".policy.toml")
+				if err := os.WriteFile(policyPath, []byte(demoPolicy), 0o644); err != nil {
+					return err
+				}
+				if opts.Policy, err = convert.ParsePolicy(policyPath, []byte(demoPolicy)); err != nil {
+					return err
+				}
+				fmt.Fprintf(out, "policy %s: one rule per action\n", policyPath)
+			}
 
 			start = time.Now()
-			m, err := packFile(src, art, opts)
+			m, err := packFile(src, art, opts, true, errOut)
 			if err != nil {
 				return err
 			}
@@ -100,7 +111,57 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 	return cmd
 }
 
-// writeDemoCheckpoint writes the scenario's checkpoint to path.
+// demoPolicy is the scenario's release policy: one rule per action.
+const demoPolicy = `# Fernmoss Scout release policy (ternkit demo): the first matching rule wins.
+# The token table ships as per-row int8 (scanners look up a few rows at a time).
+[[rule]]
+match = "embed.tokens.weight"
+action = "int8"
+
+# The output head stays in 16-bit floats for the scanners' F16 runtime.
+[[rule]]
+match = "lm_head.weight"
+action = "keep:f16"
+
+# Norm weights were trained in F32; the runtime reads them as BF16 or F16.
+[[rule]]
+match = "blocks.*.attn_norm.weight"
+action = "keep:bf16"
+
+[[rule]]
+match = "blocks.*.mlp_norm.weight"
+action = "keep:f16"
+
+[[rule]]
+match = "final_norm.weight"
+action = "keep:f32"
+
+# Attention projections: one scale per output row.
+[[rule]]
+match = "blocks.*.attn.*.weight"
+action = "ternary:row"
+
+# MLP projections: one scale per 128 inputs of a row.
+[[rule]]
+match = "blocks.*.mlp.*.weight"
+action = "ternary:group:128"
+
+# The barcode adapter was trained ternary already: packed losslessly.
+[[rule]]
+match = "adapter.*"
+dims = 2
+action = "ternary"
+
+# Everything else (the step counter) as it is.
+[[rule]]
+match = "*"
+action = "keep"
+`
+
+// writeDemoCheckpoint writes the scenario's checkpoint to path: BF16
+// projections with Gaussian latent weights, F32 norm weights near one, an
+// adapter trained ternary already (values exactly c × {-1, 0, +1}) and an
+// integer step counter.
 func writeDemoCheckpoint(path string) error {
 	rng := rand.New(rand.NewPCG(demoSeed, 0x5eed))
 	gauss := func(n int, std float64) []float32 {
@@ -118,35 +179,40 @@ func writeDemoCheckpoint(path string) error {
 		return v
 	}
 	var tensors []convert.WriteTensor
-	add := func(name string, shape []int64, v []float32) {
-		tensors = append(tensors, convert.WriteTensor{Name: name, DType: "BF16", Shape: shape, Data: bf16Bytes(v)})
+	add := func(name, dtype string, shape []int64, v []float32) {
+		data, err := convert.EncodeFloat32(nil, dtype, v)
+		if err != nil {
+			panic(err) // dtypes here are constants
+		}
+		tensors = append(tensors, convert.WriteTensor{Name: name, DType: dtype, Shape: shape, Data: data})
 	}
-	add("embed.tokens.weight", []int64{demoVocab, demoWidth}, gauss(demoVocab*demoWidth, 1))
+	add("embed.tokens.weight", "BF16", []int64{demoVocab, demoWidth}, gauss(demoVocab*demoWidth, 1))
 	for i := 0; i < demoLayers; i++ {
 		p := fmt.Sprintf("blocks.%d.", i)
-		add(p+"attn_norm.weight", []int64{demoWidth}, norm(demoWidth))
+		add(p+"attn_norm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
 		for _, proj := range []string{"q", "k", "v", "o"} {
-			add(p+"attn."+proj+".weight", []int64{demoWidth, demoWidth}, gauss(demoWidth*demoWidth, 0.02))
+			add(p+"attn."+proj+".weight", "BF16", []int64{demoWidth, demoWidth}, gauss(demoWidth*demoWidth, 0.02))
 		}
-		add(p+"mlp_norm.weight", []int64{demoWidth}, norm(demoWidth))
-		add(p+"mlp.gate.weight", []int64{demoFFN, demoWidth}, gauss(demoFFN*demoWidth, 0.02))
-		add(p+"mlp.up.weight", []int64{demoFFN, demoWidth}, gauss(demoFFN*demoWidth, 0.02))
-		add(p+"mlp.down.weight", []int64{demoWidth, demoFFN}, gauss(demoFFN*demoWidth, 0.02))
+		add(p+"mlp_norm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
+		add(p+"mlp.gate.weight", "BF16", []int64{demoFFN, demoWidth}, gauss(demoFFN*demoWidth, 0.02))
+		add(p+"mlp.up.weight", "BF16", []int64{demoFFN, demoWidth}, gauss(demoFFN*demoWidth, 0.02))
+		add(p+"mlp.down.weight", "BF16", []int64{demoWidth, demoFFN}, gauss(demoFFN*demoWidth, 0.02))
 	}
-	add("final_norm.weight", []int64{demoWidth}, norm(demoWidth))
-	add("lm_head.weight", []int64{demoVocab, demoWidth}, gauss(demoVocab*demoWidth, 0.02))
+	add("final_norm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
+	add("lm_head.weight", "BF16", []int64{demoVocab, demoWidth}, gauss(demoVocab*demoWidth, 0.02))
+	// c is a BF16 value, so c × {-1, 0, +1} is stored exactly.
+	c := convert.BF16ToFloat32(convert.Float32ToBF16(0.0125))
+	adapter := make([]float32, demoAdapter*demoWidth)
+	for i := range adapter {
+		adapter[i] = c * float32(rng.IntN(3)-1)
+	}
+	add("adapter.barcode.weight", "BF16", []int64{demoAdapter, demoWidth}, adapter)
+	tensors = append(tensors, convert.WriteTensor{Name: "train.step", DType: "I64", Shape: []int64{},
+		Data: binary.LittleEndian.AppendUint64(nil, 48000)})
 	meta := map[string]string{
 		"model":     demoModel,
 		"scenario":  "Fernmoss Seed Vault handheld scanner assistant (fictional demo data)",
 		"generator": "ternkit demo " + version,
 	}
 	return convert.WriteFile(path, tensors, meta)
-}
-
-func bf16Bytes(v []float32) []byte {
-	b := make([]byte, 2*len(v))
-	for i, f := range v {
-		binary.LittleEndian.PutUint16(b[2*i:], convert.Float32ToBF16(f))
-	}
-	return b
 }

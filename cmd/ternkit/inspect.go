@@ -23,11 +23,15 @@ type inspectTensor struct {
 	Kind          string  `json:"kind"`
 	Codec         string  `json:"codec"`
 	SourceDType   string  `json:"source_dtype"`
+	DType         string  `json:"dtype,omitempty"`
 	Bytes         int64   `json:"bytes"`
 	BitsPerWeight float64 `json:"bits_per_weight"`
 	ZeroFraction  float64 `json:"zero_fraction"`
+	Granularity   string  `json:"granularity,omitempty"`
 	Scale         float32 `json:"scale,omitempty"`
-	RelRMSE       float64 `json:"rel_rmse,omitempty"`
+	Exact         bool    `json:"exact,omitempty"`
+	RelRMSE       float64 `json:"rel_rmse"`
+	Cosine        float64 `json:"cosine,omitempty"`
 }
 
 // inspectReport is the whole of `inspect --json`.
@@ -89,16 +93,18 @@ func inspectArtifact(path string) (*inspectReport, error) {
 	}
 	for _, e := range m.Tensors {
 		n := manifest.NumElements(e.Shape)
-		row := inspectTensor{Name: e.Name, Shape: e.Shape, Kind: e.Kind, Codec: e.Codec, SourceDType: e.SourceDType,
-			Bytes: e.Section.Length, Scale: e.Scale}
+		row := inspectTensor{Name: e.Name, Shape: e.Shape, Kind: e.Kind, Codec: e.Codec, SourceDType: e.SourceDType, DType: e.DType,
+			Bytes: e.StoredBytes(), Scale: e.Scale, Exact: e.Exact}
+		if e.Granularity != nil {
+			row.Granularity = e.Granularity.String()
+		}
 		if n > 0 {
-			row.BitsPerWeight = 8 * float64(e.Section.Length) / float64(n)
+			row.BitsPerWeight = 8 * float64(e.StoredBytes()) / float64(n)
 		}
-		if e.Trits != nil && n > 0 {
-			row.ZeroFraction = float64(e.Trits.Zero) / float64(n)
-		}
-		if e.RelRMSE != nil {
-			row.RelRMSE = *e.RelRMSE
+		if e.Stats != nil {
+			row.ZeroFraction = e.Stats.ZeroFraction
+			row.RelRMSE = e.Stats.RelRMSE
+			row.Cosine = e.Stats.Cosine
 		}
 		rep.Tensors = append(rep.Tensors, row)
 	}
@@ -122,21 +128,31 @@ func fileBLAKE3(path string) (string, error) {
 
 func printInspect(w io.Writer, rep *inspectReport) {
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
-	fmt.Fprintln(tw, "TENSOR\tSHAPE\tKIND\tCODEC\tBITS/W\tZERO%\tREL.ERR\tBYTES")
+	fmt.Fprintln(tw, "TENSOR\tSHAPE\tKIND\tCODEC\tGRAN\tBITS/W\tZERO%\tREL.ERR\tBYTES")
 	for _, t := range rep.Tensors {
-		zero, rel := "-", "-"
-		if t.Kind == manifest.KindTernary {
+		kind, gran, zero, rel := t.Kind, "-", "-", "-"
+		if t.Kind == manifest.KindKept && t.DType != t.SourceDType {
+			kind = "kept:" + strings.ToLower(t.DType)
+		}
+		if t.Granularity != "" {
+			gran = t.Granularity
+		}
+		if t.Kind != manifest.KindKept {
 			zero = fmt.Sprintf("%.1f", 100*t.ZeroFraction)
+		}
+		if t.Exact {
+			rel = "exact"
+		} else if t.Kind != manifest.KindKept || t.DType != t.SourceDType {
 			rel = fmt.Sprintf("%.4f", t.RelRMSE)
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%.3f\t%s\t%s\t%d\n", t.Name, shapeString(t.Shape), t.Kind, t.Codec,
-			t.BitsPerWeight, zero, rel, t.Bytes)
+		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%.3f\t%s\t%s\t%d\n", t.Name, shapeString(t.Shape), kind, t.Codec,
+			gran, t.BitsPerWeight, zero, rel, t.Bytes)
 	}
 	tw.Flush()
 	tot := rep.Totals
-	fmt.Fprintf(w, "\n%d tensors (%d ternary, %d kept); source %s, artifact %s (%.2fx smaller)\n",
-		tot.Tensors, tot.TernaryTensors, tot.KeptTensors, humanBytes(tot.SourceBytes), humanBytes(rep.Bytes), ratio(tot.SourceBytes, rep.Bytes))
-	fmt.Fprintf(w, "ternary weights: %d at %.3f bits/weight; recipe %s/%s eps=%g ties %s\n",
+	fmt.Fprintf(w, "\n%d tensors (%d ternary, %d int8, %d kept); source %s, artifact %s (%.2fx smaller)\n",
+		tot.Tensors, tot.TernaryTensors, tot.Int8Tensors, tot.KeptTensors, humanBytes(tot.SourceBytes), humanBytes(rep.Bytes), ratio(tot.SourceBytes, rep.Bytes))
+	fmt.Fprintf(w, "ternary weights: %d at %.3f bits/weight (scales included); recipe %s/%s eps=%g ties %s\n",
 		tot.TernaryParams, tot.BitsPerTernaryWeight, rep.Recipe.Method, rep.Recipe.ScaleRule, rep.Recipe.Epsilon, rep.Recipe.Tie)
 	fmt.Fprintf(w, "file BLAKE3 %s\n", rep.FileBLAKE3)
 }

@@ -65,6 +65,9 @@ func TestInspectJSON(t *testing.T) {
 			Shape         []int64 `json:"shape"`
 			Kind          string  `json:"kind"`
 			Codec         string  `json:"codec"`
+			DType         string  `json:"dtype"`
+			Granularity   string  `json:"granularity"`
+			Exact         bool    `json:"exact"`
 			Bytes         int64   `json:"bytes"`
 			BitsPerWeight float64 `json:"bits_per_weight"`
 			ZeroFraction  float64 `json:"zero_fraction"`
@@ -72,20 +75,34 @@ func TestInspectJSON(t *testing.T) {
 	}
 	require.NoError(t, json.Unmarshal([]byte(out), &rep))
 	require.Len(t, rep.FileBLAKE3, 64)
-	ternary := 0
+	kinds := map[string]int{}
 	for _, tn := range rep.Tensors {
-		if tn.Kind == "ternary" {
-			ternary++
+		kinds[tn.Kind]++
+		switch {
+		case tn.Kind == "ternary":
 			require.Equal(t, "bits2", tn.Codec)
-			require.InDelta(t, 2.0, tn.BitsPerWeight, 1e-9, tn.Name)
-			// Gaussian latent weights: p(0) = 0.310 (normal table), per tensor of ≥ 65,536
-			require.InDelta(t, 0.310, tn.ZeroFraction, 0.01, tn.Name)
-		} else {
+			// 2 bits per trit plus a float32 scale per group
+			perScale := map[string]float64{"tensor": 0, "row": 32.0 / demoWidth, "group:128": 32.0 / 128}
+			require.InDelta(t, 2+perScale[tn.Granularity], tn.BitsPerWeight, 1e-3, tn.Name)
+			if tn.Exact {
+				// the adapter's trits were drawn uniformly: p(0) = 1/3
+				require.InDelta(t, 1.0/3, tn.ZeroFraction, 0.02, tn.Name)
+			} else {
+				// Gaussian latent weights: p(0) = 0.310 (normal table), per tensor of ≥ 65,536
+				require.InDelta(t, 0.310, tn.ZeroFraction, 0.01, tn.Name)
+			}
+		case tn.Kind == "int8":
+			require.InDelta(t, 8+32.0/demoWidth, tn.BitsPerWeight, 1e-9, tn.Name)
+		case tn.DType == "I64":
+			require.InDelta(t, 64.0, tn.BitsPerWeight, 1e-9, tn.Name)
+		default:
 			require.Equal(t, "raw", tn.Codec)
-			require.InDelta(t, 16.0, tn.BitsPerWeight, 1e-9, tn.Name) // BF16
+			bits := map[string]float64{"F32": 32, "F16": 16, "BF16": 16}[tn.DType]
+			require.InDelta(t, bits, tn.BitsPerWeight, 1e-9, tn.Name)
 		}
 	}
-	require.Equal(t, 7*demoLayers, ternary)
+	require.Equal(t, 7*demoLayers+1, kinds["ternary"])
+	require.Equal(t, 1, kinds["int8"])
 
 	// b3sum (Debian package b3sum, the BLAKE3 team's command-line tool) over
 	// the whole artifact gives the same hash.
@@ -135,7 +152,7 @@ func TestPackIndependentFixture(t *testing.T) {
 	art := filepath.Join(dir, "indep.tkart")
 	code, out, errOut := ternkit("pack", src, "-o", art)
 	require.Equal(t, exitOK, code, errOut)
-	require.Contains(t, out, "2 ternary, 1 kept")
+	require.Contains(t, out, "2 ternary, 0 int8, 1 kept")
 	code, out, errOut = ternkit("verify", art, "--against", src)
 	require.Equal(t, exitOK, code, out+errOut)
 	code, out, _ = ternkit("verify", art, "--json")

@@ -14,12 +14,14 @@ import (
 	"ternkit/pack"
 )
 
-// recipeFlags are the ternarization options shared by pack and demo.
+// recipeFlags are the quantization options shared by pack and demo.
 type recipeFlags struct {
-	codec     string
-	scaleRule string
-	epsilon   float64
-	tie       string
+	codec      string
+	scaleRule  string
+	epsilon    float64
+	tie        string
+	policyFile string
+	rules      []string
 }
 
 func (f *recipeFlags) register(cmd *cobra.Command) {
@@ -28,9 +30,11 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	cmd.Flags().StringVar(&f.scaleRule, "scale-rule", string(d.ScaleRule), "reciprocal (w × 1/max(gamma, eps), training-code form) or quotient (w / (gamma + eps), paper form)")
 	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule")
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
+	cmd.Flags().StringVar(&f.policyFile, "policy", "", "policy file (TOML [[rule]] tables) replacing the default policy")
+	cmd.Flags().StringArrayVar(&f.rules, "rule", nil, "rule GLOB=ACTION placed before the policy's rules (repeatable); actions: ternary, ternary:row, ternary:group:N, keep, keep:f16, keep:bf16, keep:f32, int8")
 }
 
-// options checks the flags before any I/O.
+// options checks the flags; it reads the policy file, if any.
 func (f *recipeFlags) options() (pack.Options, error) {
 	codec, err := pack.ParseCodec(f.codec)
 	if err != nil {
@@ -41,30 +45,76 @@ func (f *recipeFlags) options() (pack.Options, error) {
 	if err := r.Validate(); err != nil {
 		return pack.Options{}, usageError{err}
 	}
-	return pack.Options{Codec: codec, Recipe: r, Tool: "ternkit " + version}, nil
+	p, err := f.policy()
+	if err != nil {
+		return pack.Options{}, err
+	}
+	return pack.Options{Codec: codec, Recipe: r, Policy: p, Tool: "ternkit " + version}, nil
 }
+
+// policy assembles the --rule flags and the --policy file (or the default).
+func (f *recipeFlags) policy() (*convert.Policy, error) {
+	var rules []convert.Rule
+	for _, s := range f.rules {
+		r, err := convert.ParseRule(s)
+		if err != nil {
+			return nil, usageError{fmt.Errorf("--rule: %w", err)}
+		}
+		rules = append(rules, r)
+	}
+	base := convert.DefaultPolicy()
+	if f.policyFile != "" {
+		data, err := os.ReadFile(f.policyFile)
+		if err != nil {
+			return nil, err
+		}
+		if base, err = convert.ParsePolicy(f.policyFile, data); err != nil {
+			return nil, err
+		}
+	}
+	return &convert.Policy{Rules: append(rules, base.Rules...)}, nil
+}
+
+// customPolicy reports whether the user gave rules of their own.
+func (f *recipeFlags) customPolicy() bool { return f.policyFile != "" || len(f.rules) > 0 }
 
 func newPackCmd() *cobra.Command {
 	var (
-		rf     recipeFlags
-		out    string
-		asJSON bool
+		rf          recipeFlags
+		out         string
+		asJSON      bool
+		printPolicy bool
 	)
 	cmd := &cobra.Command{
 		Use:   "pack SRC -o OUT",
 		Short: "Ternarize a safetensors checkpoint into an artifact",
-		Long: `pack reads SRC (a .safetensors file), ternarizes every 2-D float tensor
-except embeddings and the output head (names containing "embed" or
-"lm_head") with the absmean method, keeps the rest byte for byte, and writes
-the artifact to OUT atomically: on any error nothing is written at OUT.
+		Long: `pack reads SRC (a .safetensors file) and applies the policy to every tensor:
+by default every 2-D float tensor except embeddings and the output head
+(names containing "embed" or "lm_head") is ternarized per tensor with the
+absmean method, and the rest is kept byte for byte. --policy FILE and
+--rule GLOB=ACTION choose other actions (ternary at tensor, row or group
+granularity, keep, keep:f16/bf16/f32, int8); --print-policy shows the policy
+in effect. The artifact is written to OUT atomically: on any error nothing
+is written at OUT.
 
 ` + caution + `.`,
 		Example: `  ternkit pack model.safetensors -o model.tkart
-  ternkit pack model.safetensors -o model.tkart --codec bits2 --scale-rule quotient`,
-		Args: exactArgs(1),
+  ternkit pack model.safetensors -o model.tkart --rule '*.mlp.*=ternary:group:128' --rule '*embed*=int8'
+  ternkit pack --print-policy > policy.toml
+  ternkit pack model.safetensors -o model.tkart --policy policy.toml --codec bits2`,
+		Args: func(cmd *cobra.Command, args []string) error {
+			if printPolicy {
+				return exactArgs(0)(cmd, args)
+			}
+			return exactArgs(1)(cmd, args)
+		},
 		RunE: func(cmd *cobra.Command, args []string) error {
-			opts, err := rf.options()
-			if err != nil {
+			if printPolicy {
+				p, err := rf.policy()
+				if err != nil {
+					return err
+				}
+				_, err = io.WriteString(cmd.OutOrStdout(), p.TOML())
 				return err
 			}
 			if out == "" {
@@ -73,8 +123,12 @@ the artifact to OUT atomically: on any error nothing is written at OUT.
 			if st, err := os.Stat(out); err == nil && st.IsDir() {
 				return usagef("-o %q is a directory; give the artifact's file name", out)
 			}
+			opts, err := rf.options()
+			if err != nil {
+				return err
+			}
 			start := time.Now()
-			m, err := packFile(args[0], out, opts)
+			m, err := packFile(args[0], out, opts, rf.customPolicy(), cmd.ErrOrStderr())
 			if err != nil {
 				return err
 			}
@@ -84,21 +138,31 @@ the artifact to OUT atomically: on any error nothing is written at OUT.
 	rf.register(cmd)
 	cmd.Flags().StringVarP(&out, "output", "o", "", "artifact to write (conventionally *"+pack.Extension+")")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print the result as JSON")
+	cmd.Flags().BoolVar(&printPolicy, "print-policy", false, "print the policy in effect (TOML) and exit")
 	return cmd
 }
 
-// packFile opens src and builds the artifact at out.
-func packFile(src, out string, opts pack.Options) (*manifest.Manifest, error) {
+// packFile opens src and builds the artifact at out. With warnUnmatched it
+// warns on stderr about rules that match no tensor of the source.
+func packFile(src, out string, opts pack.Options, warnUnmatched bool, stderr io.Writer) (*manifest.Manifest, error) {
 	s, err := convert.Open(src)
 	if err != nil {
 		return nil, err
 	}
 	defer s.Close()
+	if warnUnmatched && opts.Policy != nil {
+		for _, r := range opts.Policy.Unmatched(s.Tensors) {
+			fmt.Fprintf(stderr, "warning: rule %q matches no tensor of %s\n", r.String(), src)
+		}
+	}
 	return pack.Build(s, out, opts)
 }
 
 func printPackResult(stdout, stderr io.Writer, out string, m *manifest.Manifest, took time.Duration, asJSON bool) error {
 	t := m.Totals
+	if needsCaution(m) {
+		defer fmt.Fprintln(stderr, caution)
+	}
 	if asJSON {
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
@@ -112,15 +176,29 @@ func printPackResult(stdout, stderr io.Writer, out string, m *manifest.Manifest,
 	if st, err := os.Stat(out); err == nil {
 		size = st.Size()
 	}
-	fmt.Fprintf(stdout, "packed %s: %d tensors (%d ternary, %d kept), %s -> %s (%.2fx smaller) in %s\n",
-		out, t.Tensors, t.TernaryTensors, t.KeptTensors, humanBytes(t.SourceBytes), humanBytes(size),
+	fmt.Fprintf(stdout, "packed %s: %d tensors (%d ternary, %d int8, %d kept), %s -> %s (%.2fx smaller) in %s\n",
+		out, t.Tensors, t.TernaryTensors, t.Int8Tensors, t.KeptTensors, humanBytes(t.SourceBytes), humanBytes(size),
 		ratio(t.SourceBytes, size), took.Round(time.Millisecond))
 	if t.TernaryTensors > 0 {
-		fmt.Fprintf(stdout, "ternary: %d weights at %.3f bits/weight, %.1f%% zeros\n",
-			t.TernaryParams, t.BitsPerTernaryWeight, 100*zeroFraction(m))
-		fmt.Fprintln(stderr, caution)
+		fmt.Fprintf(stdout, "ternary: %d weights at %.3f bits/weight (scales included), %.1f%% zeros, %d of %d tensors exact\n",
+			t.TernaryParams, t.BitsPerTernaryWeight, 100*zeroFraction(m), exactCount(m), t.TernaryTensors)
 	}
 	return nil
+}
+
+// needsCaution reports whether any ternary tensor lost information.
+func needsCaution(m *manifest.Manifest) bool {
+	return exactCount(m) < m.Totals.TernaryTensors
+}
+
+func exactCount(m *manifest.Manifest) int {
+	n := 0
+	for _, e := range m.Tensors {
+		if e.Kind == manifest.KindTernary && e.Exact {
+			n++
+		}
+	}
+	return n
 }
 
 // zeroFraction is the fraction of zero trits over all ternary tensors.

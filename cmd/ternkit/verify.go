@@ -67,6 +67,9 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 			OK bool `json:"ok"`
 		}{rep, rep.OK()})
 	}
+	if c, ok := rep.Find(verify.CheckBound, ""); ok && c.OK {
+		fmt.Fprintf(w, "bound: %s\n", c.Detail)
+	}
 	for _, c := range rep.Failures() {
 		if c.Tensor != "" {
 			fmt.Fprintf(w, "FAIL %s %q: %s\n", c.Name, c.Tensor, c.Detail)

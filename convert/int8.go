@@ -1,0 +1,125 @@
+package convert
+
+import (
+	"errors"
+	"fmt"
+	"math"
+)
+
+// QuantizeInt8Rows quantizes w, a tensor of cols columns, row by row with
+// absmax scaling: s = max|row| / 127 in float32, q = clamp(round(w/s),
+// −127, 127) with the quotient rounded to float32 and ties to even. An
+// all-zero row has scale 0 and codes 0. It fills q (len(w) elements) and
+// returns one scale per row.
+func QuantizeInt8Rows(w []float32, cols int, q []int8) ([]float32, Stats, error) {
+	if len(q) != len(w) {
+		return nil, Stats{}, fmt.Errorf("int8: %d codes for %d weights", len(q), len(w))
+	}
+	size, err := Granularity{Kind: GranRow}.GroupSize(len(w), cols)
+	if err != nil {
+		return nil, Stats{}, err
+	}
+	if err := nonFiniteIn(w); err != nil {
+		return nil, Stats{}, err
+	}
+	rows := 0
+	if size > 0 {
+		rows = len(w) / size
+	}
+	scales := make([]float32, rows)
+	var acc statsAccumulator
+	var zeros int64
+	for r := range scales {
+		row := w[r*size : (r+1)*size]
+		var absmax float32
+		for _, v := range row {
+			absmax = max(absmax, float32(math.Abs(float64(v))))
+		}
+		s := absmax / 127
+		scales[r] = s
+		for i, v := range row {
+			var c float64
+			if s > 0 {
+				c = math.RoundToEven(float64(v / s))
+			}
+			clipped := c > 127 || c < -127
+			c = max(-127, min(127, c))
+			q[r*size+i] = int8(c)
+			if c == 0 {
+				zeros++
+			}
+			acc.add(v, s*float32(c), clipped)
+		}
+	}
+	return scales, acc.stats(zeros), nil
+}
+
+// nonFiniteIn returns a *NonFiniteError for the first NaN or ±Inf in w.
+func nonFiniteIn(w []float32) error {
+	_, err := Absmean(w)
+	var nf *NonFiniteError
+	if errors.As(err, &nf) {
+		return err
+	}
+	return nil
+}
+
+// Tolerances of the per-element bounds, relative to the scale: the float32
+// roundings of the scaled value and of the reconstruction. For ternary
+// values near the thresholds 0.5 and 1.5 they are a few 2^-24; int8 codes
+// reach 127, whose float32 spacing is 2^-17, for each of the two roundings.
+const (
+	TernaryBoundTolerance = 1e-6
+	Int8BoundTolerance    = 1.0 / (1 << 16)
+)
+
+// TernaryBoundExcess checks the per-element bound of RoundClip against the
+// dequantization scale s of each element's group: for |w| ≤ 1.5·s,
+// |w − s·t| ≤ s/2; beyond it, |w − s·t| = |w| − s. It returns the largest
+// amount, relative to s, by which an element breaks the bound (≤ 0 when
+// none does) and that element's index (−1 for an empty tensor).
+func TernaryBoundExcess(w []float32, trits []int8, scales []float32, groupSize int) (float64, int) {
+	worst, at := math.Inf(-1), -1
+	for i, v := range w {
+		s := float64(scales[i/groupSize])
+		a := math.Abs(float64(v))
+		d := math.Abs(float64(v) - float64(scales[i/groupSize]*float32(trits[i])))
+		var excess float64
+		if a <= 1.5*s {
+			excess = d - s/2
+		} else {
+			excess = math.Abs(d - (a - s))
+		}
+		if s > 0 {
+			excess /= s
+		}
+		if excess > worst {
+			worst, at = excess, i
+		}
+	}
+	if at < 0 {
+		return 0, -1
+	}
+	return worst, at
+}
+
+// Int8BoundExcess checks |w − s·q| ≤ s/2 (absmax/254) for per-row int8
+// codes, returning the largest excess relative to s and its index.
+func Int8BoundExcess(w []float32, q []int8, scales []float32, cols int) (float64, int) {
+	worst, at := math.Inf(-1), -1
+	for i, v := range w {
+		s := float64(scales[i/cols])
+		d := math.Abs(float64(v) - float64(scales[i/cols]*float32(q[i])))
+		excess := d - s/2
+		if s > 0 {
+			excess /= s
+		}
+		if excess > worst {
+			worst, at = excess, i
+		}
+	}
+	if at < 0 {
+		return 0, -1
+	}
+	return worst, at
+}
