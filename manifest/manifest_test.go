@@ -80,7 +80,9 @@ func TestDecodeRejects(t *testing.T) {
 		{"row with one scale", func(m *Manifest) { m.Tensors[2].Scale = 1 }, "single scale"},
 		{"row without scales", func(m *Manifest) { m.Tensors[2].Scales = nil }, "without a scales section"},
 		{"scales length", func(m *Manifest) { m.Tensors[2].Scales.Length = 4 }, "scales length 4"},
-		{"tensor with scales", func(m *Manifest) { m.Tensors[0].Scales = &Section{Offset: 0, Length: 4, BLAKE3: m.Tensors[0].Section.BLAKE3} }, "scales section"},
+		{"tensor with scales", func(m *Manifest) {
+			m.Tensors[0].Scales = &Section{Offset: 0, Length: 4, BLAKE3: m.Tensors[0].Section.BLAKE3}
+		}, "scales section"},
 		{"group not dividing", func(m *Manifest) { m.Tensors[2].Granularity = &convert.Granularity{Kind: convert.GranGroup, Group: 4} }, "multiple of 4"},
 		{"int8 codec", func(m *Manifest) { m.Tensors[3].Codec = CodecBase3 }, `int8 tensor with codec "base3"`},
 		{"int8 length", func(m *Manifest) { m.Tensors[3].Section.Length = 5 }, "section length 5"},
