@@ -251,3 +251,130 @@ func FuzzOpen(f *testing.F) {
 		}
 	})
 }
+
+func mustPolicy(t *testing.T, rules ...string) *convert.Policy {
+	t.Helper()
+	p := &convert.Policy{}
+	for _, s := range rules {
+		r, err := convert.ParseRule(s)
+		require.NoError(t, err)
+		p.Rules = append(p.Rules, r)
+	}
+	return p
+}
+
+// An already-ternary checkpoint (each group exactly c × {-1, 0, +1})
+// round-trips with error exactly 0 at every granularity; the other actions
+// come back within their own bounds.
+func TestBuildActionsRoundTrip(t *testing.T) {
+	rng := rand.New(rand.NewPCG(31, 32))
+	const rows, cols = 12, 32
+	ternaryLike := func(groupSize int) []float32 {
+		w := make([]float32, rows*cols)
+		for k := 0; k < len(w)/groupSize; k++ {
+			c := float32(0.01 + 0.01*rng.Float64())
+			for i := k * groupSize; i < (k+1)*groupSize; i++ {
+				w[i] = c * float32(rng.IntN(3)-1)
+			}
+			w[k*groupSize] = -c
+		}
+		return w
+	}
+	exact := map[string][]float32{
+		"exact.tensor": ternaryLike(rows * cols),
+		"exact.row":    ternaryLike(cols),
+		"exact.group":  ternaryLike(8),
+	}
+	embed := gaussian(rng, rows*cols)
+	norm := gaussian(rng, cols)
+	f64 := make([]byte, 8*cols)
+	f64vals := make([]float64, cols)
+	for i := range f64vals {
+		f64vals[i] = rng.NormFloat64()
+		binary.LittleEndian.PutUint64(f64[8*i:], math.Float64bits(f64vals[i]))
+	}
+	dir := t.TempDir()
+	src := filepath.Join(dir, "src.safetensors")
+	shape := []int64{rows, cols}
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "exact.tensor", DType: "F32", Shape: shape, Data: f32Bytes(exact["exact.tensor"])},
+		{Name: "exact.row", DType: "F32", Shape: shape, Data: f32Bytes(exact["exact.row"])},
+		{Name: "exact.group", DType: "F32", Shape: shape, Data: f32Bytes(exact["exact.group"])},
+		{Name: "embed", DType: "F32", Shape: shape, Data: f32Bytes(embed)},
+		{Name: "norm", DType: "F32", Shape: []int64{cols}, Data: f32Bytes(norm)},
+		{Name: "wide", DType: "F64", Shape: []int64{cols}, Data: f64},
+		{Name: "step", DType: "I64", Shape: []int64{}, Data: make([]byte, 8)},
+	}, nil))
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	dst := filepath.Join(dir, "out"+Extension)
+	policy := mustPolicy(t, "exact.tensor=ternary", "exact.row=ternary:row", "exact.group=ternary:group:8",
+		"embed=int8", "norm=keep:f16", "wide=keep:f32", "*=ternary")
+	m, err := Build(s, dst, Options{Codec: Base3, Recipe: convert.DefaultRecipe(), Policy: policy})
+	require.NoError(t, err)
+	require.Equal(t, 3, m.Totals.TernaryTensors)
+	require.Equal(t, 1, m.Totals.Int8Tensors)
+
+	a, err := Open(dst)
+	require.NoError(t, err)
+	defer a.Close()
+	get := func(name string) (*Tensor, []float32) {
+		tn, err := a.Tensor(name)
+		require.NoError(t, err)
+		v := make([]float32, tn.Len())
+		require.NoError(t, tn.DecodeFloat32(v))
+		return tn, v
+	}
+	for name, w := range exact {
+		tn, got := get(name)
+		require.True(t, tn.Entry.Exact, name)
+		require.Zero(t, tn.Entry.Stats.MaxAbsErr, name)
+		require.Equal(t, w, got, name)
+	}
+	tn, got := get("embed")
+	require.Equal(t, manifest.KindInt8, tn.Entry.Kind)
+	for r := 0; r < rows; r++ {
+		var absmax float64
+		for _, v := range embed[r*cols : (r+1)*cols] {
+			absmax = math.Max(absmax, math.Abs(float64(v)))
+		}
+		for i := r * cols; i < (r+1)*cols; i++ {
+			// absmax int8: half a step, absmax/254 (common practice)
+			require.LessOrEqual(t, math.Abs(float64(embed[i]-got[i])), absmax/254*(1+convert.Int8BoundTolerance))
+		}
+	}
+	tn, got = get("norm")
+	require.Equal(t, "F16", tn.Entry.DType)
+	for i, v := range norm {
+		require.Equal(t, convert.F16ToFloat32(convert.Float32ToF16(v)), got[i])
+	}
+	tn, got = get("wide")
+	require.Equal(t, "F32", tn.Entry.DType)
+	for i, v := range f64vals {
+		require.Equal(t, float32(v), got[i]) // Go's conversion rounds to nearest even
+	}
+	tn, err = a.Tensor("step")
+	require.NoError(t, err)
+	require.Equal(t, manifest.KindKept, tn.Entry.Kind, "integers are kept whatever the rules say")
+	require.ErrorIs(t, tn.DecodeFloat32(make([]float32, 1)), convert.ErrDType)
+}
+
+// A rule a tensor cannot take fails before anything is written.
+func TestBuildPolicyErrorLeavesNothing(t *testing.T) {
+	dir := t.TempDir()
+	src, _ := testSource(t, dir)
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	dst := filepath.Join(dir, "out"+Extension)
+	_, err = Build(s, dst, Options{Codec: Base3, Recipe: convert.DefaultRecipe(), Policy: mustPolicy(t, "*norm*=ternary")})
+	require.ErrorIs(t, err, convert.ErrPolicy)
+	require.Contains(t, err.Error(), `"blocks.0.norm.weight"`)
+	require.Contains(t, err.Error(), "*norm* = ternary")
+	_, err = os.Stat(dst)
+	require.ErrorIs(t, err, os.ErrNotExist)
+	entries, err := os.ReadDir(dir)
+	require.NoError(t, err)
+	require.Len(t, entries, 1)
+}

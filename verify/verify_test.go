@@ -18,6 +18,24 @@ import (
 // fixture writes a small checkpoint (two ternary tensors, one kept) and
 // its artifact, returning both paths.
 func fixture(t testing.TB, dir string, codec pack.Codec, edit func(name string, v []float32)) (src, art string) {
+	return fixtureWith(t, dir, codec, nil, edit)
+}
+
+// mixedPolicy exercises every kind of section: trits with one scale, trits
+// with a scales section, int8 codes with scales, a converted kept tensor.
+func mixedPolicy(t testing.TB) *convert.Policy {
+	p := &convert.Policy{}
+	for _, s := range []string{"*.q.weight=ternary:row", "*.down.weight=int8", "*norm*=keep:f16"} {
+		r, err := convert.ParseRule(s)
+		if err != nil {
+			t.Fatal(err)
+		}
+		p.Rules = append(p.Rules, r)
+	}
+	return p
+}
+
+func fixtureWith(t testing.TB, dir string, codec pack.Codec, policy *convert.Policy, edit func(name string, v []float32)) (src, art string) {
 	rng := rand.New(rand.NewPCG(5, 6))
 	shapes := []struct {
 		name  string
@@ -57,7 +75,7 @@ func fixture(t testing.TB, dir string, codec pack.Codec, edit func(name string, 
 		t.Fatal(err)
 	}
 	defer s.Close()
-	if _, err := pack.Build(s, art, pack.Options{Codec: codec, Recipe: convert.DefaultRecipe()}); err != nil {
+	if _, err := pack.Build(s, art, pack.Options{Codec: codec, Recipe: convert.DefaultRecipe(), Policy: policy}); err != nil {
 		t.Fatal(err)
 	}
 	return src, art
@@ -87,18 +105,36 @@ func TestVerifyPasses(t *testing.T) {
 				names[c.Name] = true
 			}
 			for _, want := range []string{CheckStructure, CheckSection, CheckPadding, CheckDecode,
-				CheckSourceHash, CheckRequantize, CheckKept, CheckSourceFile} {
+				CheckSourceHash, CheckRequantize, CheckKept, CheckSourceFile, CheckBound} {
 				require.True(t, names[want], "check %s ran", want)
 			}
 		})
 	}
 }
 
+func TestVerifyPassesMixedPolicy(t *testing.T) {
+	src, art := fixtureWith(t, t.TempDir(), pack.Base3, mixedPolicy(t), nil)
+	rep := runAgainst(t, art, src)
+	require.True(t, rep.OK(), "%+v", rep.Failures())
+	c, ok := rep.Find(CheckBound, "")
+	require.True(t, ok)
+	require.Contains(t, c.Detail, "holds")
+	require.Contains(t, c.Detail, "worst tensor")
+	for _, name := range []string{"blocks.0.attn.q.weight", "blocks.0.mlp.down.weight"} {
+		c, ok := rep.Find(CheckRequantize, name)
+		require.True(t, ok, name)
+		require.True(t, c.OK, name)
+	}
+	c, ok = rep.Find(CheckKept, "blocks.0.norm.weight")
+	require.True(t, ok)
+	require.True(t, c.OK)
+}
+
 // Every byte of the artifact is covered by a hash or a structural rule: a
 // changed byte anywhere fails verification (two different flips per byte).
 func TestVerifyCatchesEveryByte(t *testing.T) {
 	dir := t.TempDir()
-	_, art := fixture(t, dir, pack.Bits2, nil)
+	_, art := fixtureWith(t, dir, pack.Bits2, mixedPolicy(t), nil)
 	good, err := os.ReadFile(art)
 	require.NoError(t, err)
 	bad := filepath.Join(dir, "bad.tkart")

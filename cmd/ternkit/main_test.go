@@ -14,6 +14,8 @@ import (
 
 	"github.com/nlpodyssey/safetensors"
 	"github.com/stretchr/testify/require"
+
+	"ternkit/convert"
 )
 
 // ternkit runs the command line in-process and returns exit code, stdout
@@ -38,6 +40,9 @@ func TestDemo(t *testing.T) {
 	require.Equal(t, exitOK, code, errOut)
 	require.Contains(t, out, "verify: ok")
 	require.Contains(t, out, "bits/weight")
+	require.Contains(t, out, "bound: per-element bound holds")
+	require.Contains(t, out, "1 of 29 tensors exact", "the demo's adapter is already ternary")
+	require.FileExists(t, filepath.Join(dir, demoModel+".policy.toml"))
 	require.Contains(t, errOut, "caution:")
 	src, art := filepath.Join(dir, demoModel+".safetensors"), filepath.Join(dir, demoModel+".tkart")
 	ss, err := os.Stat(src)
@@ -282,4 +287,117 @@ func TestUsageErrors(t *testing.T) {
 	entries, err := os.ReadDir(dir)
 	require.NoError(t, err)
 	require.Empty(t, entries)
+}
+
+func TestPrintPolicy(t *testing.T) {
+	code, out, errOut := ternkit("pack", "--print-policy")
+	require.Equal(t, exitOK, code, errOut)
+	p, err := convert.ParsePolicy("printed", []byte(out))
+	require.NoError(t, err)
+	require.Equal(t, convert.DefaultPolicy(), p)
+
+	code, out, _ = ternkit("pack", "--print-policy", "--rule", "*.mlp.*=ternary:group:64")
+	require.Equal(t, exitOK, code)
+	p, err = convert.ParsePolicy("printed", []byte(out))
+	require.NoError(t, err)
+	require.Equal(t, "*.mlp.*", p.Rules[0].Match)
+	require.Len(t, p.Rules, len(convert.DefaultPolicy().Rules)+1)
+
+	code, _, errOut = ternkit("pack", "--print-policy", "model.safetensors")
+	require.Equal(t, exitInput, code)
+	require.Contains(t, errOut, "takes 0 argument")
+}
+
+// writeFixture writes a checkpoint with the independent safetensors
+// library and returns its path.
+func writeFixture(t *testing.T, dir string, tensors map[string][]float32, shapes map[string][]uint64) string {
+	t.Helper()
+	views := map[string]safetensors.TensorView{}
+	for name, v := range tensors {
+		b := make([]byte, 4*len(v))
+		for i, f := range v {
+			binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(f))
+		}
+		tv, err := safetensors.NewTensorView(safetensors.F32, shapes[name], b)
+		require.NoError(t, err)
+		views[name] = tv
+	}
+	buf, err := safetensors.Serialize(views, nil)
+	require.NoError(t, err)
+	src := filepath.Join(dir, "fixture.safetensors")
+	require.NoError(t, os.WriteFile(src, buf, 0o644))
+	return src
+}
+
+func TestPackPolicy(t *testing.T) {
+	dir := t.TempDir()
+	w := make([]float32, 8*16)
+	for i := range w {
+		w[i] = float32(i%5) - 2.2
+	}
+	src := writeFixture(t, dir, map[string][]float32{"layer.proj.weight": w, "layer.norm.weight": w[:16]},
+		map[string][]uint64{"layer.proj.weight": {8, 16}, "layer.norm.weight": {16}})
+	art := filepath.Join(dir, "a.tkart")
+
+	// rules from flags come first; a rule matching nothing is a warning
+	code, out, errOut := ternkit("pack", src, "-o", art, "--rule", "*.proj.*=ternary:group:8", "--rule", "missing.*=int8")
+	require.Equal(t, exitOK, code, errOut)
+	require.Contains(t, errOut, `warning: rule "missing.* = int8" matches no tensor`)
+	require.Contains(t, out, "1 ternary")
+	code, out, _ = ternkit("verify", art, "--against", src)
+	require.Equal(t, exitOK, code, out)
+	require.Contains(t, out, "bound: per-element bound holds")
+	code, out, _ = ternkit("inspect", art, "--json")
+	require.Equal(t, exitOK, code)
+	require.Contains(t, out, `"granularity": "group:8"`)
+
+	// a policy file
+	pol := filepath.Join(dir, "p.toml")
+	require.NoError(t, os.WriteFile(pol, []byte("[[rule]]\nmatch = \"*\"\ndims = 2\naction = \"int8\"\n"), 0o644))
+	code, out, errOut = ternkit("pack", src, "-o", art, "--policy", pol)
+	require.Equal(t, exitOK, code, errOut)
+	require.Contains(t, out, "0 ternary, 1 int8, 1 kept")
+	require.NotContains(t, errOut, "caution", "no ternary tensor, no caution")
+
+	// an action the tensor cannot take: exit 2 naming rule and tensor, nothing written
+	bad := filepath.Join(dir, "b.tkart")
+	code, _, errOut = ternkit("pack", src, "-o", bad, "--rule", "*norm*=ternary")
+	require.Equal(t, exitInput, code)
+	require.Contains(t, errOut, `"layer.norm.weight"`)
+	require.Contains(t, errOut, "*norm* = ternary")
+	require.Contains(t, errOut, src)
+	_, err := os.Stat(bad)
+	require.ErrorIs(t, err, os.ErrNotExist)
+
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--rule", "*=ternery"}, `"ternery"`},
+		{[]string{"--rule", "nothing"}, `"nothing"`},
+		{[]string{"--policy", filepath.Join(dir, "none.toml")}, "none.toml"},
+		{[]string{"--policy", src}, src},
+	} {
+		code, _, errOut := ternkit(append([]string{"pack", src, "-o", bad}, c.args...)...)
+		require.Equal(t, exitInput, code, c.args)
+		require.Contains(t, errOut, c.want, c.args)
+	}
+}
+
+// An already-ternary checkpoint packs exact, losslessly, with no caution.
+func TestPackExactNoCaution(t *testing.T) {
+	dir := t.TempDir()
+	w := make([]float32, 4*8)
+	for i := range w {
+		w[i] = 0.25 * float32(i%3-1)
+	}
+	src := writeFixture(t, dir, map[string][]float32{"block.proj.weight": w}, map[string][]uint64{"block.proj.weight": {4, 8}})
+	art := filepath.Join(dir, "a.tkart")
+	code, out, errOut := ternkit("pack", src, "-o", art)
+	require.Equal(t, exitOK, code, errOut)
+	require.Contains(t, out, "1 of 1 tensors exact")
+	require.NotContains(t, errOut, "caution")
+	code, out, _ = ternkit("inspect", art)
+	require.Equal(t, exitOK, code)
+	require.Contains(t, out, "exact")
 }
