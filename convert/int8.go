@@ -79,43 +79,38 @@ const (
 // amount, relative to s, by which an element breaks the bound (≤ 0 when
 // none does) and that element's index (−1 for an empty tensor).
 func TernaryBoundExcess(w []float32, trits []int8, scales []float32, groupSize int) (float64, int) {
-	worst, at := math.Inf(-1), -1
-	for i, v := range w {
+	return worstExcess(len(w), func(i int) (float64, float64) {
 		s := float64(scales[i/groupSize])
-		a := math.Abs(float64(v))
-		d := math.Abs(float64(v) - float64(scales[i/groupSize]*float32(trits[i])))
-		var excess float64
+		a := math.Abs(float64(w[i]))
+		d := math.Abs(float64(w[i]) - float64(scales[i/groupSize]*float32(trits[i])))
 		if a <= 1.5*s {
-			excess = d - s/2
-		} else {
-			excess = math.Abs(d - (a - s))
+			return d - s/2, s
 		}
-		if s > 0 {
-			excess /= s
-		}
-		if excess > worst {
-			worst, at = excess, i
-		}
-	}
-	if at < 0 {
-		return 0, -1
-	}
-	return worst, at
+		return math.Abs(d - (a - s)), s
+	})
 }
 
 // Int8BoundExcess checks |w − s·q| ≤ s/2 (absmax/254) for per-row int8
 // codes, returning the largest excess relative to s and its index.
 func Int8BoundExcess(w []float32, q []int8, scales []float32, cols int) (float64, int) {
-	worst, at := math.Inf(-1), -1
-	for i, v := range w {
+	return worstExcess(len(w), func(i int) (float64, float64) {
 		s := float64(scales[i/cols])
-		d := math.Abs(float64(v) - float64(scales[i/cols]*float32(q[i])))
-		excess := d - s/2
+		d := math.Abs(float64(w[i]) - float64(scales[i/cols]*float32(q[i])))
+		return d - s/2, s
+	})
+}
+
+// worstExcess returns the largest excess/scale over n elements (the raw
+// excess where the scale is 0) and its index, or (0, −1) when n is 0.
+func worstExcess(n int, excessAt func(i int) (excess, scale float64)) (float64, int) {
+	worst, at := math.Inf(-1), -1
+	for i := 0; i < n; i++ {
+		e, s := excessAt(i)
 		if s > 0 {
-			excess /= s
+			e /= s
 		}
-		if excess > worst {
-			worst, at = excess, i
+		if e > worst {
+			worst, at = e, i
 		}
 	}
 	if at < 0 {
