@@ -62,11 +62,27 @@ type SourceFile struct {
 	BLAKE3 string `json:"blake3"`
 }
 
-// Section locates a tensor's payload in the artifact.
+// ChunkSize is the size of the pieces a large section is hashed in, so
+// that a verifier streams it with bounded memory and names the first bad
+// piece.
+const ChunkSize = 1 << 22
+
+// Section locates a payload or scales in the artifact.
 type Section struct {
 	Offset int64  `json:"offset"`
 	Length int64  `json:"length"`
 	BLAKE3 string `json:"blake3"`
+	// Chunks holds the BLAKE3 of each ChunkSize piece (the last may be
+	// shorter) of a section longer than ChunkSize, and is empty otherwise.
+	Chunks []string `json:"chunks,omitempty"`
+}
+
+// NumChunks is how many chunk hashes a section of length n has.
+func NumChunks(n int64) int {
+	if n <= ChunkSize {
+		return 0
+	}
+	return int((n + ChunkSize - 1) / ChunkSize)
 }
 
 // Tensor is one tensor's entry.
@@ -398,6 +414,14 @@ func (e *Tensor) validateScales() error {
 func checkSection(s Section) error {
 	if s.Offset < 0 || s.Length < 0 {
 		return fmt.Errorf("offset %d length %d", s.Offset, s.Length)
+	}
+	if want := NumChunks(s.Length); len(s.Chunks) != want {
+		return fmt.Errorf("%d chunk hashes for %d bytes (want %d)", len(s.Chunks), s.Length, want)
+	}
+	for _, h := range s.Chunks {
+		if err := checkHash(h); err != nil {
+			return fmt.Errorf("chunk: %v", err)
+		}
 	}
 	return checkHash(s.BLAKE3)
 }

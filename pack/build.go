@@ -243,6 +243,11 @@ func (w *atomicWriter) section(p []byte) (manifest.Section, error) {
 		return manifest.Section{}, err
 	}
 	s := manifest.Section{Offset: w.off, Length: int64(len(p)), BLAKE3: manifest.HexHash(blake3.Sum256(p))}
+	if manifest.NumChunks(s.Length) > 0 {
+		for c := 0; c < len(p); c += manifest.ChunkSize {
+			s.Chunks = append(s.Chunks, manifest.HexHash(blake3.Sum256(p[c:min(c+manifest.ChunkSize, len(p))])))
+		}
+	}
 	return s, w.write(p)
 }
 

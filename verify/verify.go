@@ -8,16 +8,12 @@
 package verify
 
 import (
-	"bytes"
 	"errors"
 	"fmt"
+	"io"
 	"io/fs"
-	"math"
-
-	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
-	"ternkit/manifest"
 	"ternkit/pack"
 )
 
@@ -33,6 +29,7 @@ const (
 	CheckRequantize = "requantize"   // codes, scales and statistics match a fresh run
 	CheckKept       = "kept_bytes"   // a kept tensor equals its (converted) source bytes
 	CheckBound      = "bound"        // the per-element error bound, worst tensor named
+	CheckBudget     = "budget"       // a tensor's statistics within the budget's limits
 )
 
 // Check is one verification step's outcome.
@@ -45,11 +42,12 @@ type Check struct {
 
 // Report is the outcome of a verification.
 type Report struct {
-	Artifact string  `json:"artifact"`
-	Source   string  `json:"source,omitempty"`
-	Checks   []Check `json:"checks"`
-	Passed   int     `json:"passed"`
-	Failed   int     `json:"failed"`
+	Artifact string   `json:"artifact"`
+	Source   string   `json:"source,omitempty"`
+	Checks   []Check  `json:"checks"`
+	Warnings []string `json:"warnings,omitempty"`
+	Passed   int      `json:"passed"`
+	Failed   int      `json:"failed"`
 }
 
 // OK reports whether every check passed.
@@ -93,6 +91,8 @@ func (r *Report) add(name, tensor string, ok bool, format string, args ...any) {
 type Options struct {
 	// Source, when set, is the checkpoint the artifact claims to come from.
 	Source *convert.Source
+	// Budget, when set, limits the tensors' error statistics.
+	Budget *Budget
 }
 
 // Run verifies the artifact at path. It returns an error only when the
@@ -100,18 +100,29 @@ type Options struct {
 // malformed source); everything wrong inside the artifact is a failed
 // check in the report.
 func Run(path string, opts Options) (*Report, error) {
-	rep := &Report{Artifact: path}
 	a, err := pack.Open(path)
-	if err != nil {
+	return run(path, a, err, opts)
+}
+
+// RunReaderAt verifies an artifact of the given size read from r (a file
+// already open, a memory map, a buffer); name is used in the report.
+func RunReaderAt(name string, r io.ReaderAt, size int64, opts Options) (*Report, error) {
+	a, err := pack.NewReader(r, size)
+	return run(name, a, err, opts)
+}
+
+func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, error) {
+	rep := &Report{Artifact: name}
+	if openErr != nil {
 		var fe *pack.FormatError
-		if errors.As(err, &fe) {
-			rep.add(CheckStructure, "", false, "%v", err)
+		if errors.As(openErr, &fe) {
+			rep.add(CheckStructure, "", false, "%v", openErr)
 			return rep, nil
 		}
-		if errors.Is(err, fs.ErrNotExist) || errors.Is(err, fs.ErrPermission) {
-			return nil, err
+		if errors.Is(openErr, fs.ErrNotExist) || errors.Is(openErr, fs.ErrPermission) {
+			return nil, openErr
 		}
-		return nil, fmt.Errorf("open %s: %w", path, err)
+		return nil, fmt.Errorf("open %s: %w", name, openErr)
 	}
 	defer a.Close()
 	rep.add(CheckStructure, "", true, "")
@@ -122,294 +133,8 @@ func Run(path string, opts Options) (*Report, error) {
 			return nil, err
 		}
 	}
+	if opts.Budget != nil {
+		checkBudget(rep, a.Manifest(), opts.Budget)
+	}
 	return rep, nil
-}
-
-// checkSections hashes every section, checks the padding after it, and
-// decodes every payload against its recorded counts and scales.
-func checkSections(rep *Report, a *pack.Artifact) {
-	ra := a.ReaderAt()
-	m := a.Manifest()
-	var all []manifest.Section
-	var owner []string
-	for _, e := range m.Tensors {
-		for _, s := range e.Sections() {
-			all = append(all, s)
-			owner = append(owner, e.Name)
-		}
-	}
-	padFail := 0
-	for i, s := range all {
-		p := make([]byte, s.Length)
-		if _, err := ra.ReadAt(p, s.Offset); err != nil {
-			rep.add(CheckSection, owner[i], false, "read section at byte %d: %v", s.Offset, err)
-			continue
-		}
-		if got := manifest.HexHash(blake3.Sum256(p)); got != s.BLAKE3 {
-			rep.add(CheckSection, owner[i], false, "section at byte %d (%d bytes): BLAKE3 %s, manifest records %s",
-				s.Offset, s.Length, got, s.BLAKE3)
-		} else {
-			rep.add(CheckSection, owner[i], true, "")
-		}
-		end, next := s.Offset+s.Length, a.ManifestOffset()
-		if i+1 < len(all) {
-			next = all[i+1].Offset
-		}
-		if gap := next - end; gap > 0 {
-			pad := make([]byte, gap)
-			if _, err := ra.ReadAt(pad, end); err != nil || !allZero(pad) {
-				rep.add(CheckPadding, owner[i], false, "padding at byte %d..%d is not zero", end, next)
-				padFail++
-			}
-		}
-	}
-	if padFail == 0 {
-		rep.add(CheckPadding, "", true, "")
-	}
-	for _, e := range m.Tensors {
-		if e.Kind == manifest.KindKept {
-			continue
-		}
-		t, _ := a.Tensor(e.Name)
-		if detail := decodeDetail(t); detail != "" {
-			rep.add(CheckDecode, e.Name, false, "%s", detail)
-		} else {
-			rep.add(CheckDecode, e.Name, true, "")
-		}
-	}
-}
-
-// decodeDetail decodes a ternary or int8 tensor and says what is wrong
-// with its codes or scales, or "".
-func decodeDetail(t *pack.Tensor) string {
-	e := t.Entry
-	if e.Kind == manifest.KindTernary {
-		trits := make([]int8, t.Len())
-		if err := t.DecodeTrits(trits); err != nil {
-			return err.Error()
-		}
-		var got convert.TritCounts
-		got.Count(trits)
-		if got != *e.Trits {
-			return fmt.Sprintf("trit counts %+v, manifest records %+v", got, *e.Trits)
-		}
-	}
-	scales, err := t.Scales()
-	if err != nil {
-		return err.Error()
-	}
-	for i, s := range scales {
-		f := float64(s)
-		if math.IsNaN(f) || math.IsInf(f, 0) || s < 0 || (s == 0 && e.Kind == manifest.KindTernary) {
-			return fmt.Sprintf("scale %d is %v", i, s)
-		}
-	}
-	return ""
-}
-
-func allZero(p []byte) bool {
-	for _, b := range p {
-		if b != 0 {
-			return false
-		}
-	}
-	return true
-}
-
-// worstBound tracks the tensor that comes closest to breaking its bound:
-// the largest excess over the bound beyond the kind's tolerance.
-type worstBound struct {
-	tensor            string
-	index             int
-	excess, tolerance float64
-	seen              bool
-}
-
-func (w *worstBound) note(tensor string, excess, tolerance float64, index int) {
-	if index >= 0 && (!w.seen || excess-tolerance > w.excess-w.tolerance) {
-		*w = worstBound{tensor: tensor, index: index, excess: excess, tolerance: tolerance, seen: true}
-	}
-}
-
-// checkAgainst re-reads the source, redoes each tensor's recorded action
-// with the recorded recipe and compares.
-func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source) error {
-	m := a.Manifest()
-	seen := make(map[string]bool, len(m.Tensors))
-	var worst worstBound
-	err := src.Walk(func(st *convert.Tensor, raw []byte, sum [32]byte) error {
-		t, err := a.Tensor(st.Name)
-		if err != nil {
-			rep.add(CheckSourceSet, st.Name, false, "source tensor %q (%s) is not in the artifact", st.Name, st.File)
-			return nil
-		}
-		seen[st.Name] = true
-		e := t.Entry
-		if got := manifest.HexHash(sum); got != e.SourceBLAKE3 {
-			rep.add(CheckSourceHash, e.Name, false, "source bytes at %s byte %d differ from those packed (BLAKE3 %s, manifest records %s)",
-				st.File, st.Offset, got, e.SourceBLAKE3)
-			return nil
-		}
-		rep.add(CheckSourceHash, e.Name, true, "")
-		name := CheckRequantize
-		if e.Kind == manifest.KindKept {
-			name = CheckKept
-		}
-		detail := redo(t, m.Recipe, raw, &worst)
-		rep.add(name, e.Name, detail == "", "%s", detail)
-		return nil
-	})
-	if err != nil {
-		return err
-	}
-	for _, e := range m.Tensors {
-		if !seen[e.Name] {
-			rep.add(CheckSourceSet, e.Name, false, "artifact tensor %q is not in the source", e.Name)
-		}
-	}
-	if worst.seen {
-		ok := worst.excess <= worst.tolerance
-		verdict := "holds"
-		if !ok {
-			verdict = "broken"
-		}
-		rep.add(CheckBound, "", ok, "per-element bound %s; worst tensor %q element %d: %.3g of its scale beyond the bound (tolerance %g)",
-			verdict, worst.tensor, worst.index, worst.excess, worst.tolerance)
-	}
-	checkSourceFiles(rep, m, src)
-	return nil
-}
-
-// redo repeats the tensor's action on the source bytes and returns what
-// differs, or "". It records the tensor's bound excess in worst.
-func redo(t *pack.Tensor, r convert.Recipe, raw []byte, worst *worstBound) string {
-	e := t.Entry
-	if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
-		p, err := t.Payload()
-		if err != nil {
-			return err.Error()
-		}
-		if !bytes.Equal(p, raw) {
-			return fmt.Sprintf("kept bytes at artifact byte %d differ from the source", e.Section.Offset)
-		}
-		return ""
-	}
-	n := t.Len()
-	w := make([]float32, n)
-	if err := convert.DecodeFloat32(e.SourceDType, raw, w); err != nil {
-		return fmt.Sprintf("decode source: %v", err)
-	}
-	cols := convert.Columns(e.Shape)
-	payload, err := t.Payload()
-	if err != nil {
-		return err.Error()
-	}
-	switch e.Kind {
-	case manifest.KindTernary:
-		fresh := make([]int8, n)
-		q, err := convert.Ternarize(w, cols, *e.Granularity, r, fresh)
-		if err != nil {
-			return fmt.Sprintf("re-quantize: %v", err)
-		}
-		packed := make([]int8, n)
-		if err := t.DecodeTrits(packed); err != nil {
-			return err.Error()
-		}
-		scales, err := t.Scales()
-		if err != nil {
-			return err.Error()
-		}
-		excess, at := convert.TernaryBoundExcess(w, packed, scales, t.GroupSize())
-		worst.note(e.Name, excess, convert.TernaryBoundTolerance, at)
-		if d := diffScales(scales, q.Scales); d != "" {
-			return d
-		}
-		if d := diffCodes("trit", packed, fresh); d != "" {
-			return d
-		}
-		if q.Exact != e.Exact {
-			return fmt.Sprintf("exact is %v, re-quantizing the source gives %v", e.Exact, q.Exact)
-		}
-		return diffStats(*e.Stats, q.Stats)
-	case manifest.KindInt8:
-		fresh := make([]int8, n)
-		scales, stats, err := convert.QuantizeInt8Rows(w, cols, fresh)
-		if err != nil {
-			return fmt.Sprintf("re-quantize: %v", err)
-		}
-		packed := make([]int8, n)
-		for i, b := range payload {
-			packed[i] = int8(b)
-		}
-		stored, err := t.Scales()
-		if err != nil {
-			return err.Error()
-		}
-		excess, at := convert.Int8BoundExcess(w, packed, stored, cols)
-		worst.note(e.Name, excess, convert.Int8BoundTolerance, at)
-		if d := diffScales(stored, scales); d != "" {
-			return d
-		}
-		if d := diffCodes("int8 code", packed, fresh); d != "" {
-			return d
-		}
-		return diffStats(*e.Stats, stats)
-	}
-	// kept, converted to another float dtype
-	want, err := convert.EncodeFloat32(nil, e.DType, w)
-	if err != nil {
-		return err.Error()
-	}
-	if !bytes.Equal(payload, want) {
-		return fmt.Sprintf("%s bytes at artifact byte %d differ from the converted source", e.DType, e.Section.Offset)
-	}
-	back := make([]float32, n)
-	if err := convert.DecodeFloat32(e.DType, want, back); err != nil {
-		return err.Error()
-	}
-	return diffStats(*e.Stats, convert.CompareFloat32(w, back))
-}
-
-func diffScales(stored, fresh []float32) string {
-	if len(stored) != len(fresh) {
-		return fmt.Sprintf("%d scales, re-quantizing the source gives %d", len(stored), len(fresh))
-	}
-	for i := range stored {
-		if math.Float32bits(stored[i]) != math.Float32bits(fresh[i]) {
-			return fmt.Sprintf("scale %d is %v, re-quantizing the source gives %v", i, stored[i], fresh[i])
-		}
-	}
-	return ""
-}
-
-func diffCodes(what string, stored, fresh []int8) string {
-	for i := range stored {
-		if stored[i] != fresh[i] {
-			return fmt.Sprintf("%s %d is %d, re-quantizing the source gives %d", what, i, stored[i], fresh[i])
-		}
-	}
-	return ""
-}
-
-func diffStats(stored, fresh convert.Stats) string {
-	if stored != fresh {
-		return fmt.Sprintf("statistics %+v, re-quantizing the source gives %+v", stored, fresh)
-	}
-	return ""
-}
-
-func checkSourceFiles(rep *Report, m *manifest.Manifest, src *convert.Source) {
-	files := m.Source.Files
-	if len(files) != len(src.Files) {
-		rep.add(CheckSourceFile, "", false, "source has %d files, manifest records %d", len(src.Files), len(files))
-		return
-	}
-	for i, f := range src.Files {
-		if got := manifest.HexHash(f.BLAKE3); got != files[i].BLAKE3 || f.Size != files[i].Bytes {
-			rep.add(CheckSourceFile, "", false, "%s: %d bytes BLAKE3 %s, manifest records %s: %d bytes BLAKE3 %s",
-				f.Path, f.Size, got, files[i].Name, files[i].Bytes, files[i].BLAKE3)
-		} else {
-			rep.add(CheckSourceFile, "", true, "")
-		}
-	}
 }

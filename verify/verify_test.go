@@ -1,6 +1,7 @@
 package verify
 
 import (
+	"bytes"
 	"encoding/binary"
 	"math"
 	"math/rand/v2"
@@ -130,36 +131,37 @@ func TestVerifyPassesMixedPolicy(t *testing.T) {
 	require.True(t, c.OK)
 }
 
-// Every byte of the artifact is covered by a hash or a structural rule: a
-// changed byte anywhere fails verification (two different flips per byte).
-func TestVerifyCatchesEveryByte(t *testing.T) {
+// Every byte of the artifact is covered by a hash or a structural rule:
+// flipping any bit of any byte fails verification, and the failure names
+// the structure or section at fault, with a byte offset.
+func TestVerifyCatchesEveryBit(t *testing.T) {
 	dir := t.TempDir()
 	_, art := fixtureWith(t, dir, pack.Bits2, mixedPolicy(t), nil)
 	good, err := os.ReadFile(art)
 	require.NoError(t, err)
-	bad := filepath.Join(dir, "bad.tkart")
+	b := append([]byte(nil), good...)
 	for i := range good {
-		for _, mask := range []byte{0x01, 0x80} {
-			b := append([]byte(nil), good...)
-			b[i] ^= mask
-			require.NoError(t, os.WriteFile(bad, b, 0o644))
-			rep, err := Run(bad, Options{})
+		for bit := 0; bit < 8; bit++ {
+			b[i] ^= 1 << bit
+			rep, err := RunReaderAt("bad.tkart", bytes.NewReader(b), int64(len(b)), Options{})
+			b[i] ^= 1 << bit
 			require.NoError(t, err)
-			require.False(t, rep.OK(), "byte %d ^ 0x%02x passed", i, mask)
-			require.NotEmpty(t, rep.Failures()[0].Detail)
+			require.False(t, rep.OK(), "byte %d bit %d passed", i, bit)
+			f := rep.Failures()[0]
+			require.Contains(t, []string{CheckStructure, CheckSection, CheckPadding}, f.Name, "byte %d bit %d", i, bit)
+			require.Contains(t, f.Detail, "byte ", "byte %d bit %d: %s", i, bit, f.Detail)
 		}
 	}
 }
 
-func TestVerifyTruncated(t *testing.T) {
+// Truncated anywhere, an artifact never passes and never panics.
+func TestVerifyTruncatedEverywhere(t *testing.T) {
 	dir := t.TempDir()
-	_, art := fixture(t, dir, pack.Base3, nil)
+	_, art := fixtureWith(t, dir, pack.Base3, mixedPolicy(t), nil)
 	good, err := os.ReadFile(art)
 	require.NoError(t, err)
-	bad := filepath.Join(dir, "bad.tkart")
-	for n := 0; n < len(good); n += 7 {
-		require.NoError(t, os.WriteFile(bad, good[:n], 0o644))
-		rep, err := Run(bad, Options{})
+	for n := 0; n < len(good); n++ {
+		rep, err := RunReaderAt("bad.tkart", bytes.NewReader(good[:n]), int64(n), Options{})
 		require.NoError(t, err)
 		require.False(t, rep.OK(), "truncated to %d passed", n)
 	}

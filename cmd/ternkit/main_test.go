@@ -401,3 +401,54 @@ func TestPackExactNoCaution(t *testing.T) {
 	require.Equal(t, exitOK, code)
 	require.Contains(t, out, "exact")
 }
+
+func TestVerifyBudget(t *testing.T) {
+	dir := t.TempDir()
+	_, art := demoArtifact(t, dir)
+	// Gaussian latent weights ternarized: relative RMS error about 0.51
+	code, out, _ := ternkit("verify", art, "--max-rel-rmse", "0.6", "--min-cosine", "blocks.*=0.8")
+	require.Equal(t, exitOK, code, out)
+	code, out, _ = ternkit("verify", art, "--max-rel-rmse", "blocks.0.attn.q.weight=0.3")
+	require.Equal(t, exitFailed, code, out)
+	require.Contains(t, out, `FAIL budget "blocks.0.attn.q.weight": max_rel_rmse 0.51`)
+	require.Contains(t, out, "beyond the limit 0.3")
+	require.Contains(t, out, "1 of")
+
+	budget := filepath.Join(dir, "budget.toml")
+	require.NoError(t, os.WriteFile(budget, []byte("[[budget]]\nmatch = \"*.mlp.*\"\nmax_clipped = 0.01\n\n[[budget]]\nmatch = \"missing.*\"\nmin_cosine = 0.5\n"), 0o644))
+	code, out, _ = ternkit("verify", art, "--budget", budget, "--json")
+	require.Equal(t, exitFailed, code)
+	var rep struct {
+		OK       bool     `json:"ok"`
+		Warnings []string `json:"warnings"`
+		Checks   []struct {
+			Check  string `json:"check"`
+			Tensor string `json:"tensor"`
+			OK     bool   `json:"ok"`
+		} `json:"checks"`
+	}
+	require.NoError(t, json.Unmarshal([]byte(out), &rep))
+	require.False(t, rep.OK)
+	require.Len(t, rep.Warnings, 1)
+	failed := 0
+	for _, c := range rep.Checks {
+		if c.Check == "budget" && !c.OK {
+			require.Contains(t, c.Tensor, ".mlp.")
+			failed++
+		}
+	}
+	require.Equal(t, 3*demoLayers, failed)
+
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--max-clipped", "lots"}, `"lots"`},
+		{[]string{"--budget", filepath.Join(dir, "none.toml")}, "none.toml"},
+		{[]string{"--budget", art}, art},
+	} {
+		code, _, errOut := ternkit(append([]string{"verify", art}, c.args...)...)
+		require.Equal(t, exitInput, code, c.args)
+		require.Contains(t, errOut, c.want, c.args)
+	}
+}

@@ -4,6 +4,8 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"os"
+	"strings"
 
 	"github.com/spf13/cobra"
 
@@ -13,8 +15,10 @@ import (
 
 func newVerifyCmd() *cobra.Command {
 	var (
-		against string
-		asJSON  bool
+		against    string
+		asJSON     bool
+		budgetFile string
+		limits     = map[string]*[]string{}
 	)
 	cmd := &cobra.Command{
 		Use:   "verify ARTIFACT [--against SRC]",
@@ -22,16 +26,27 @@ func newVerifyCmd() *cobra.Command {
 		Long: `verify checks the artifact's structure, the manifest hash, every section
 hash, the zero padding, and decodes every ternary tensor against its trit
 counts. With --against SRC it also re-reads the source checkpoint,
-re-quantizes it with the recipe the manifest records, and requires the same
-trits and scales, and the same bytes for kept tensors.
+redoes each tensor's recorded action with the recorded recipe, and requires
+the same trits, codes, scales and statistics, the same bytes for kept
+tensors, and the per-element error bound. A budget (--budget FILE, or the
+--max-rel-rmse, --min-cosine, --max-clipped and --max-abs-err flags) fails
+every tensor whose statistics go beyond a limit, naming tensor, metric,
+value and limit.
 
 Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable input.
 A passing verify proves bytes and bounds, not task quality.`,
 		Example: `  ternkit verify model.tkart
-  ternkit verify model.tkart --against model.safetensors --json`,
+  ternkit verify model.tkart --against model.safetensors --json
+  ternkit verify model.tkart --max-rel-rmse 0.6 --min-cosine 'blocks.*=0.85'
+  ternkit verify model.tkart --budget release-budget.toml`,
 		Args: exactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			var opts verify.Options
+			budget, err := readBudget(budgetFile, limits)
+			if err != nil {
+				return err
+			}
+			opts.Budget = budget
 			if against != "" {
 				src, err := convert.Open(against)
 				if err != nil {
@@ -55,7 +70,48 @@ A passing verify proves bytes and bounds, not task quality.`,
 	}
 	cmd.Flags().StringVar(&against, "against", "", "source checkpoint to re-quantize and compare")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON")
+	cmd.Flags().StringVar(&budgetFile, "budget", "", "budget file (TOML [[budget]] tables: match and limits)")
+	for _, metric := range verify.Metrics {
+		v := new([]string)
+		limits[metric] = v
+		flag := strings.ReplaceAll(metric, "_", "-")
+		cmd.Flags().StringArrayVar(v, flag, nil, metricHelp[metric]+" of any tensor with statistics: VALUE for all, or GLOB=VALUE (repeatable)")
+	}
 	return cmd
+}
+
+var metricHelp = map[string]string{
+	verify.MaxRelRMSE:  "largest relative RMS error",
+	verify.MinCosine:   "smallest cosine similarity",
+	verify.MaxClipped:  "largest clipped fraction",
+	verify.MaxAbsError: "largest absolute error",
+}
+
+// readBudget assembles the budget file and the limit flags; nil when none.
+func readBudget(file string, limits map[string]*[]string) (*verify.Budget, error) {
+	b := &verify.Budget{}
+	if file != "" {
+		data, err := os.ReadFile(file)
+		if err != nil {
+			return nil, err
+		}
+		if b, err = verify.ParseBudget(file, data); err != nil {
+			return nil, err
+		}
+	}
+	for _, metric := range verify.Metrics {
+		for _, s := range *limits[metric] {
+			l, err := verify.ParseLimit(metric, s)
+			if err != nil {
+				return nil, usageError{err}
+			}
+			b.Limits = append(b.Limits, l)
+		}
+	}
+	if len(b.Limits) == 0 {
+		return nil, nil
+	}
+	return b, nil
 }
 
 func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
@@ -66,6 +122,9 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 			*verify.Report
 			OK bool `json:"ok"`
 		}{rep, rep.OK()})
+	}
+	for _, warning := range rep.Warnings {
+		fmt.Fprintf(w, "warning: %s\n", warning)
 	}
 	if c, ok := rep.Find(verify.CheckBound, ""); ok && c.OK {
 		fmt.Fprintf(w, "bound: %s\n", c.Detail)
