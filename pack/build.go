@@ -19,6 +19,10 @@ type Options struct {
 	Recipe convert.Recipe                         // ternarization recipe
 	Policy func(t *convert.Tensor) convert.Action // nil means convert.DefaultPolicy
 	Tool   string                                 // recorded as the manifest's "tool"
+	// Progress, when set, is called with the source tensor bytes read so
+	// far and their total: once before the first tensor and after each one.
+	// It runs on Build's goroutine and must return quickly.
+	Progress func(done, total int64)
 }
 
 // ErrPolicy reports a policy decision the tensor cannot take.
@@ -61,6 +65,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		trits   []int8
 		payload []byte
 	)
+	advance := progressFunc(opts.Progress, src.Tensors)
 	err = src.Walk(func(t *convert.Tensor, raw []byte, sum [32]byte) error {
 		e := manifest.Tensor{
 			Name:         t.Name,
@@ -107,6 +112,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		}
 		e.Section = s
 		m.Tensors = append(m.Tensors, e)
+		advance(t.Length)
 		return nil
 	})
 	if err != nil {
@@ -122,6 +128,23 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		return nil, err
 	}
 	return m, nil
+}
+
+// progressFunc returns the function Build calls after each tensor of n
+// source bytes.
+func progressFunc(fn func(done, total int64), tensors []*convert.Tensor) func(n int64) {
+	if fn == nil {
+		return func(int64) {}
+	}
+	var done, total int64
+	for _, t := range tensors {
+		total += t.Length
+	}
+	fn(0, total)
+	return func(n int64) {
+		done += n
+		fn(done, total)
+	}
 }
 
 func grow[T any](s []T, n int) []T {

@@ -81,6 +81,33 @@ func (r *Report) add(name, tensor string, ok bool, format string, args ...any) {
 type Options struct {
 	// Source, when set, is the checkpoint the artifact claims to come from.
 	Source *convert.Source
+	// Progress, when set, is called with the bytes read so far and their
+	// total (every section, plus every source tensor when Source is set):
+	// once before the first read and after each section and source tensor.
+	// It runs on Run's goroutine and must return quickly.
+	Progress func(done, total int64)
+}
+
+// progressFunc returns the function Run calls after reading n bytes.
+func progressFunc(opts Options, a *pack.Artifact) func(n int64) {
+	if opts.Progress == nil {
+		return func(int64) {}
+	}
+	var done, total int64
+	for _, e := range a.Tensors() {
+		total += e.Section.Length
+	}
+	if opts.Source != nil {
+		for _, t := range opts.Source.Tensors {
+			total += t.Length
+		}
+	}
+	advance := func(n int64) {
+		done += n
+		opts.Progress(done, total)
+	}
+	advance(0)
+	return advance
 }
 
 // Run verifies the artifact at path. It returns an error only when the
@@ -103,10 +130,11 @@ func Run(path string, opts Options) (*Report, error) {
 	}
 	defer a.Close()
 	rep.add(CheckStructure, "", true, "")
-	checkSections(rep, a)
+	advance := progressFunc(opts, a)
+	checkSections(rep, a, advance)
 	if opts.Source != nil {
 		rep.Source = opts.Source.Path
-		if err := checkAgainst(rep, a, opts.Source); err != nil {
+		if err := checkAgainst(rep, a, opts.Source, advance); err != nil {
 			return nil, err
 		}
 	}
@@ -115,13 +143,14 @@ func Run(path string, opts Options) (*Report, error) {
 
 // checkSections hashes every section, checks the padding after it, and
 // decodes every trit payload against its recorded counts.
-func checkSections(rep *Report, a *pack.Artifact) {
+func checkSections(rep *Report, a *pack.Artifact, advance func(n int64)) {
 	ra := a.ReaderAt()
 	m := a.Manifest()
 	padFail := 0
 	for i, e := range m.Tensors {
 		t, _ := a.Tensor(e.Name)
 		p, err := t.Payload()
+		advance(e.Section.Length)
 		if err != nil {
 			rep.add(CheckSection, e.Name, false, "%v", err)
 			continue
@@ -194,7 +223,7 @@ func allZero(p []byte) bool {
 
 // checkAgainst re-reads the source, re-quantizes it with the recorded
 // recipe and compares.
-func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source) error {
+func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, advance func(n int64)) error {
 	m := a.Manifest()
 	seen := make(map[string]bool, len(m.Tensors))
 	var (
@@ -203,6 +232,7 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source) error {
 		packed []int8
 	)
 	err := src.Walk(func(st *convert.Tensor, raw []byte, sum [32]byte) error {
+		defer advance(st.Length)
 		t, err := a.Tensor(st.Name)
 		if err != nil {
 			rep.add(CheckSourceSet, st.Name, false, "source tensor %q (%s) is not in the artifact", st.Name, st.File)
