@@ -66,7 +66,10 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 				src, demoModel, time.Since(start).Round(time.Millisecond))
 
 			start = time.Now()
+			bar := newProgressBar(cmd, "pack")
+			opts.Progress = bar.callback()
 			m, err := packFile(src, art, opts)
+			bar.finish()
 			if err != nil {
 				return err
 			}
@@ -80,7 +83,9 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 				return err
 			}
 			defer s.Close()
-			rep, err := verify.Run(art, verify.Options{Source: s})
+			bar = newProgressBar(cmd, "verify")
+			rep, err := verify.Run(art, verify.Options{Source: s, Progress: bar.callback()})
+			bar.finish()
 			if err != nil {
 				return err
 			}

@@ -74,7 +74,10 @@ the artifact to OUT atomically: on any error nothing is written at OUT.
 				return usagef("-o %q is a directory; give the artifact's file name", out)
 			}
 			start := time.Now()
+			bar := newProgressBar(cmd, "pack")
+			opts.Progress = bar.callback()
 			m, err := packFile(args[0], out, opts)
+			bar.finish()
 			if err != nil {
 				return err
 			}

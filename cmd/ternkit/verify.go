@@ -31,7 +31,8 @@ A passing verify proves bytes and bounds, not task quality.`,
   ternkit verify model.tkart --against model.safetensors --json`,
 		Args: exactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			var opts verify.Options
+			bar := newProgressBar(cmd, "verify")
+			opts := verify.Options{Progress: bar.callback()}
 			if against != "" {
 				src, err := convert.Open(against)
 				if err != nil {
@@ -41,6 +42,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 				opts.Source = src
 			}
 			rep, err := verify.Run(args[0], opts)
+			bar.finish()
 			if err != nil {
 				return err
 			}
