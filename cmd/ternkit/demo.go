@@ -96,6 +96,9 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 			if !rep.OK() {
 				return errVerifyFailed
 			}
+			if err := writeReport(out, art, filepath.Join(dir, demoModel+".html")); err != nil {
+				return err
+			}
 			fmt.Fprintf(out, "next: ternkit inspect %s\n", art)
 			return nil
 		},

@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"slices"
+	"strings"
 	"time"
 
 	"github.com/spf13/cobra"
@@ -12,6 +14,7 @@ import (
 	"ternkit/convert"
 	"ternkit/manifest"
 	"ternkit/pack"
+	"ternkit/report"
 )
 
 // recipeFlags are the ternarization options shared by pack and demo.
@@ -28,18 +31,41 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	cmd.Flags().StringVar(&f.scaleRule, "scale-rule", string(d.ScaleRule), "reciprocal (w × 1/max(gamma, eps), training-code form) or quotient (w / (gamma + eps), paper form)")
 	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule")
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
+	_ = cmd.RegisterFlagCompletionFunc("codec", fixedCompletions(codecNames()...))
+	_ = cmd.RegisterFlagCompletionFunc("scale-rule", fixedCompletions(scaleRules...))
+	_ = cmd.RegisterFlagCompletionFunc("tie", fixedCompletions(tieRules...))
+}
+
+var (
+	scaleRules = []string{string(convert.ScaleReciprocal), string(convert.ScaleQuotient)}
+	tieRules   = []string{string(convert.TieHalfEven), string(convert.TieHalfAway)}
+)
+
+func codecNames() []string {
+	names := make([]string, len(pack.Codecs))
+	for i, c := range pack.Codecs {
+		names[i] = string(c)
+	}
+	return names
 }
 
 // options checks the flags before any I/O.
 func (f *recipeFlags) options() (pack.Options, error) {
 	codec, err := pack.ParseCodec(f.codec)
 	if err != nil {
-		return pack.Options{}, usageError{err}
+		return pack.Options{}, usagef("--codec: %w%s", err, didYouMean(f.codec, codecNames()))
 	}
 	r := convert.DefaultRecipe()
 	r.ScaleRule, r.Epsilon, r.Tie = convert.ScaleRule(f.scaleRule), f.epsilon, convert.TieRule(f.tie)
 	if err := r.Validate(); err != nil {
-		return pack.Options{}, usageError{err}
+		hint := ""
+		switch {
+		case !slices.Contains(scaleRules, f.scaleRule):
+			hint = didYouMean(f.scaleRule, scaleRules)
+		case !slices.Contains(tieRules, f.tie):
+			hint = didYouMean(f.tie, tieRules)
+		}
+		return pack.Options{}, usagef("%w%s", err, hint)
 	}
 	return pack.Options{Codec: codec, Recipe: r, Tool: "ternkit " + version}, nil
 }
@@ -60,8 +86,10 @@ the artifact to OUT atomically: on any error nothing is written at OUT.
 
 ` + caution + `.`,
 		Example: `  ternkit pack model.safetensors -o model.tkart
-  ternkit pack model.safetensors -o model.tkart --codec bits2 --scale-rule quotient`,
-		Args: exactArgs(1),
+  ternkit pack model.safetensors -o model.tkart --codec bits2 --scale-rule quotient
+  ternkit pack model.safetensors -o model.tkart --json --quiet   # in a pipeline`,
+		Args:              exactArgs(1),
+		ValidArgsFunction: checkpointCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts, err := rf.options()
 			if err != nil {
@@ -79,13 +107,14 @@ the artifact to OUT atomically: on any error nothing is written at OUT.
 			m, err := packFile(args[0], out, opts)
 			bar.finish()
 			if err != nil {
-				return err
+				return checkpointHint(err, args[0])
 			}
 			return printPackResult(cmd.OutOrStdout(), cmd.ErrOrStderr(), out, m, time.Since(start), asJSON)
 		},
 	}
 	rf.register(cmd)
 	cmd.Flags().StringVarP(&out, "output", "o", "", "artifact to write (conventionally *"+pack.Extension+")")
+	_ = cmd.MarkFlagFilename("output", strings.TrimPrefix(pack.Extension, "."))
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print the result as JSON")
 	return cmd
 }
@@ -102,18 +131,19 @@ func packFile(src, out string, opts pack.Options) (*manifest.Manifest, error) {
 
 func printPackResult(stdout, stderr io.Writer, out string, m *manifest.Manifest, took time.Duration, asJSON bool) error {
 	t := m.Totals
+	var size int64
+	if st, err := os.Stat(out); err == nil {
+		size = st.Size()
+	}
 	if asJSON {
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
 		return enc.Encode(struct {
 			Artifact string          `json:"artifact"`
+			Bytes    int64           `json:"bytes"`
 			Seconds  float64         `json:"seconds"`
 			Totals   manifest.Totals `json:"totals"`
-		}{out, took.Seconds(), t})
-	}
-	var size int64
-	if st, err := os.Stat(out); err == nil {
-		size = st.Size()
+		}{out, size, took.Seconds(), t})
 	}
 	fmt.Fprintf(stdout, "packed %s: %d tensors (%d ternary, %d kept), %s -> %s (%.2fx smaller) in %s\n",
 		out, t.Tensors, t.TernaryTensors, t.KeptTensors, humanBytes(t.SourceBytes), humanBytes(size),
@@ -148,15 +178,4 @@ func ratio(a, b int64) float64 {
 	return float64(a) / float64(b)
 }
 
-func humanBytes(n int64) string {
-	const unit = 1024
-	if n < unit {
-		return fmt.Sprintf("%d B", n)
-	}
-	div, exp := int64(unit), 0
-	for m := n / unit; m >= unit; m /= unit {
-		div *= unit
-		exp++
-	}
-	return fmt.Sprintf("%.1f %ciB", float64(n)/float64(div), "KMGTPE"[exp])
-}
+func humanBytes(n int64) string { return report.FormatBytes(n) }

@@ -8,6 +8,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/convert"
+	"ternkit/pack"
 	"ternkit/verify"
 )
 
@@ -29,14 +30,15 @@ Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable input
 A passing verify proves bytes and bounds, not task quality.`,
 		Example: `  ternkit verify model.tkart
   ternkit verify model.tkart --against model.safetensors --json`,
-		Args: exactArgs(1),
+		Args:              exactArgs(1),
+		ValidArgsFunction: artifactCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			bar := newProgressBar(cmd, "verify")
 			opts := verify.Options{Progress: bar.callback()}
 			if against != "" {
 				src, err := convert.Open(against)
 				if err != nil {
-					return err
+					return checkpointHint(err, against)
 				}
 				defer src.Close()
 				opts.Source = src
@@ -50,12 +52,17 @@ A passing verify proves bytes and bounds, not task quality.`,
 				return err
 			}
 			if !rep.OK() {
+				if !isArtifact(args[0]) && isCheckpoint(args[0]) {
+					fmt.Fprintf(cmd.ErrOrStderr(), "hint: %s is a safetensors checkpoint; pack it first (ternkit pack %s -o OUT%s), or verify the artifact --against it\n",
+						args[0], args[0], pack.Extension)
+				}
 				return errVerifyFailed
 			}
 			return nil
 		},
 	}
 	cmd.Flags().StringVar(&against, "against", "", "source checkpoint to re-quantize and compare")
+	_ = cmd.MarkFlagFilename("against", "safetensors")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON")
 	return cmd
 }
