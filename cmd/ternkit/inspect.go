@@ -72,7 +72,7 @@ func (v *inspectView) check() (func(a, b *report.Tensor) int, error) {
 // apply filters and orders the summary's tensors; it is an input error
 // when patterns match no tensor.
 func (v *inspectView) apply(s *report.Summary, order func(a, b *report.Tensor) int) error {
-	all := len(s.Tensors)
+	all, example := len(s.Tensors), exampleName(s)
 	if len(v.patterns) > 0 {
 		s.Tensors = slices.DeleteFunc(s.Tensors, func(t report.Tensor) bool {
 			for _, p := range v.patterns {
@@ -84,7 +84,7 @@ func (v *inspectView) apply(s *report.Summary, order func(a, b *report.Tensor) i
 		})
 		if len(s.Tensors) == 0 {
 			return usagef("--tensor %s matches none of the %d tensors in %s (names look like %q; use inspect without --tensor to list them)",
-				quoteAll(v.patterns), all, s.Artifact, exampleName(s))
+				quoteAll(v.patterns), all, s.Artifact, example)
 		}
 	}
 	slices.SortStableFunc(s.Tensors, func(a, b report.Tensor) int { return order(&a, &b) })
