@@ -27,8 +27,8 @@ type Tensor struct {
 	Bytes         int64   `json:"bytes"`
 	BitsPerWeight float64 `json:"bits_per_weight"`
 	ZeroFraction  float64 `json:"zero_fraction"`
-	Scale         float32 `json:"scale,omitempty"`
-	RelRMSE       float64 `json:"rel_rmse,omitempty"`
+	Scale         float32 `json:"scale"`    // 0 for a kept tensor
+	RelRMSE       float64 `json:"rel_rmse"` // 0 for a kept tensor
 	params        int64
 	zero          int64
 }
