@@ -100,6 +100,7 @@ func TestEveryCommandHasExamples(t *testing.T) {
 			walk(sub)
 		}
 	}
+	require.Contains(t, root.Example, "ternkit ")
 	walk(root)
 	require.GreaterOrEqual(t, seen, 11, "pack verify inspect report demo help completion and its 4 shells")
 

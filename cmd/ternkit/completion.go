@@ -37,6 +37,11 @@ var (
 // finishCommands adds the help and completion commands with examples, so
 // that every command shows how it is used.
 func finishCommands(root *cobra.Command) {
+	root.Example = `  ternkit demo --dir /tmp/scout
+  ternkit pack model.safetensors -o model.tkart
+  ternkit verify model.tkart --against model.safetensors
+  ternkit inspect model.tkart --sort error
+  ternkit report model.tkart -o model.html`
 	root.InitDefaultHelpCmd()
 	root.InitDefaultCompletionCmd()
 	for _, c := range root.Commands() {

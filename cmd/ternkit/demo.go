@@ -34,11 +34,12 @@ func newDemoCmd() *cobra.Command {
 	)
 	cmd := &cobra.Command{
 		Use:   "demo [--dir DIR]",
-		Short: "Generate a small checkpoint, pack it, verify it, print a summary",
+		Short: "Generate a small checkpoint, pack it, verify it, write its report",
 		Long: `demo writes a small transformer-shaped BF16 checkpoint of its own (` + demoModel + `,
 the inventory assistant of the fictional Fernmoss Seed Vault), packs it into
-an artifact, verifies the artifact against the checkpoint and prints sizes,
-bits per weight, zero fraction and timings. Nothing is downloaded.`,
+an artifact, verifies the artifact against the checkpoint, prints sizes,
+bits per weight, zero fraction and timings, and writes the artifact's HTML
+report beside it. Nothing is downloaded.`,
 		Example: `  ternkit demo
   ternkit demo --dir /tmp/scout --codec bits2`,
 		Args: exactArgs(0),

@@ -48,9 +48,9 @@ type inspectView struct {
 }
 
 func (v *inspectView) register(cmd *cobra.Command) {
-	cmd.Flags().StringVar(&v.sort, "sort", "file", "order of the rows: "+strings.Join(sortKeyNames(), ", ")+
+	cmd.Flags().StringVar(&v.sort, "sort", "file", "order the rows by `KEY`: "+strings.Join(sortKeyNames(), ", ")+
 		" (text columns A to Z, numeric columns largest first)")
-	cmd.Flags().StringArrayVar(&v.patterns, "tensor", nil, "show only tensors whose name matches this glob (* ? [...]); repeat to show several")
+	cmd.Flags().StringArrayVar(&v.patterns, "tensor", nil, "show only tensors whose name matches `GLOB` (* ? [...]); repeat to show several")
 	_ = cmd.RegisterFlagCompletionFunc("sort", fixedCompletions(sortKeyNames()...))
 }
 

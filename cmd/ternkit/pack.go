@@ -113,9 +113,9 @@ the artifact to OUT atomically: on any error nothing is written at OUT.
 		},
 	}
 	rf.register(cmd)
-	cmd.Flags().StringVarP(&out, "output", "o", "", "artifact to write (conventionally *"+pack.Extension+")")
+	cmd.Flags().StringVarP(&out, "output", "o", "", "artifact `FILE` to write (conventionally *"+pack.Extension+")")
 	_ = cmd.MarkFlagFilename("output", strings.TrimPrefix(pack.Extension, "."))
-	cmd.Flags().BoolVar(&asJSON, "json", false, "print the result as JSON")
+	cmd.Flags().BoolVar(&asJSON, "json", false, "print the result as JSON (keys in README, \"JSON output\")")
 	return cmd
 }
 

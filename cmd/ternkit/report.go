@@ -41,7 +41,7 @@ verify for that. The page describes the packing, not task quality.`,
 			return writeReport(cmd.OutOrStdout(), args[0], out)
 		},
 	}
-	cmd.Flags().StringVarP(&out, "output", "o", "", "HTML page to write")
+	cmd.Flags().StringVarP(&out, "output", "o", "", "HTML page `FILE` to write")
 	_ = cmd.MarkFlagFilename("output", "html")
 	return cmd
 }

@@ -61,9 +61,9 @@ A passing verify proves bytes and bounds, not task quality.`,
 			return nil
 		},
 	}
-	cmd.Flags().StringVar(&against, "against", "", "source checkpoint to re-quantize and compare")
+	cmd.Flags().StringVar(&against, "against", "", "source checkpoint `SRC` to re-quantize and compare")
 	_ = cmd.MarkFlagFilename("against", "safetensors")
-	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON")
+	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON (keys in README, \"JSON output\")")
 	return cmd
 }
 
