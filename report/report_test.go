@@ -3,6 +3,7 @@ package report
 import (
 	"bytes"
 	"encoding/binary"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -14,6 +15,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/manifest"
 	"ternkit/pack"
 )
 
@@ -242,4 +244,31 @@ func TestWriteHTML(t *testing.T) {
 	}
 	require.Contains(t, page, s.FileBLAKE3)
 	require.Contains(t, page, "report-test", "source metadata")
+}
+
+// BenchmarkWriteHTML renders the page of a 32-layer model's manifest
+// (7 ternary projections and 2 norms per layer), the size of a release.
+func BenchmarkWriteHTML(b *testing.B) {
+	s := &Summary{Artifact: "bench.tkart", Source: manifest.Source{Metadata: map[string]string{"model": "bench"}}}
+	rng := rand.New(rand.NewPCG(7, 8))
+	for l := range 32 {
+		for _, p := range []string{"q", "k", "v", "o", "gate", "up", "down"} {
+			s.Tensors = append(s.Tensors, Tensor{Name: fmt.Sprintf("model.layers.%d.%s.weight", l, p), Shape: []int64{4096, 4096},
+				Kind: manifest.KindTernary, Codec: manifest.CodecBase3, Bytes: 4096 * 4096 / 5, BitsPerWeight: 1.6,
+				ZeroFraction: 0.3 + 0.02*rng.Float64(), RelRMSE: 0.5 + 0.03*rng.Float64(), params: 4096 * 4096})
+		}
+		for _, n := range []string{"in_norm", "post_norm"} {
+			s.Tensors = append(s.Tensors, Tensor{Name: fmt.Sprintf("model.layers.%d.%s.weight", l, n), Shape: []int64{4096},
+				Kind: manifest.KindKept, Codec: manifest.CodecRaw, Bytes: 8192, BitsPerWeight: 16, params: 4096})
+		}
+	}
+	var out bytes.Buffer
+	b.ReportAllocs()
+	for b.Loop() {
+		out.Reset()
+		if err := WriteHTML(&out, s); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(out.Len()), "page-bytes")
 }
