@@ -21,6 +21,10 @@ type Options struct {
 	Recipe convert.Recipe  // ternarization recipe
 	Policy *convert.Policy // nil means convert.DefaultPolicy()
 	Tool   string          // recorded as the manifest's "tool"
+	// Progress, when set, is called with the source tensor bytes read so
+	// far and their total: once before the first tensor and after each one.
+	// It runs on Build's goroutine and must return quickly.
+	Progress func(done, total int64)
 }
 
 // Build reads every tensor of src once, quantizes or keeps it as the
@@ -66,6 +70,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		return nil, err
 	}
 	var q quantizeBuffers
+	advance := progressFunc(opts.Progress, src.Tensors)
 	err = src.Walk(func(t *convert.Tensor, raw []byte, sum [32]byte) error {
 		e := manifest.Tensor{
 			Name:         t.Name,
@@ -88,6 +93,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 			e.Scales = &s
 		}
 		m.Tensors = append(m.Tensors, e)
+		advance(t.Length)
 		return nil
 	})
 	if err != nil {
@@ -195,6 +201,23 @@ func appendFloat32s(dst []byte, v []float32) []byte {
 }
 
 func int8Bytes(s []int8) []byte { return unsafeInt8Bytes(s) }
+
+// progressFunc returns the function Build calls after each tensor of n
+// source bytes.
+func progressFunc(fn func(done, total int64), tensors []*convert.Tensor) func(n int64) {
+	if fn == nil {
+		return func(int64) {}
+	}
+	var done, total int64
+	for _, t := range tensors {
+		total += t.Length
+	}
+	fn(0, total)
+	return func(n int64) {
+		done += n
+		fn(done, total)
+	}
+}
 
 func grow[T any](s []T, n int) []T {
 	if cap(s) < n {

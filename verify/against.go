@@ -27,11 +27,12 @@ func (w *worstBound) note(tensor string, excess, tolerance float64, index int) {
 
 // checkAgainst re-reads the source, redoes each tensor's recorded action
 // with the recorded recipe and compares.
-func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source) error {
+func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, advance func(n int64)) error {
 	m := a.Manifest()
 	seen := make(map[string]bool, len(m.Tensors))
 	var worst worstBound
 	err := src.Walk(func(st *convert.Tensor, raw []byte, sum [32]byte) error {
+		defer advance(st.Length)
 		t, err := a.Tensor(st.Name)
 		if err != nil {
 			rep.add(CheckSourceSet, st.Name, false, "source tensor %q (%s) is not in the artifact", st.Name, st.File)

@@ -16,7 +16,7 @@ import (
 // hashes it whole and piece by piece, checks the zero padding after it,
 // and checks trit payloads (codes, padding, counts), int8 codes and scales.
 // Memory stays at one piece, whatever the artifact's size.
-func checkSections(rep *Report, a *pack.Artifact) {
+func checkSections(rep *Report, a *pack.Artifact, advance func(n int64)) {
 	ra := a.ReaderAt()
 	m := a.Manifest()
 	type placed struct {
@@ -50,6 +50,7 @@ func checkSections(rep *Report, a *pack.Artifact) {
 			sink = &int8Checker{bad: -1}
 		}
 		hashOK, detail := streamSection(ra, p.s, buf, sink)
+		advance(p.s.Length)
 		rep.add(CheckSection, e.Name, hashOK, "%s", detail)
 
 		end, next := p.s.Offset+p.s.Length, a.ManifestOffset()

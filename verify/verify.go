@@ -93,6 +93,33 @@ type Options struct {
 	Source *convert.Source
 	// Budget, when set, limits the tensors' error statistics.
 	Budget *Budget
+	// Progress, when set, is called with the bytes read so far and their
+	// total (every section, plus every source tensor when Source is set):
+	// once before the first read and after each section and source tensor.
+	// It runs on Run's goroutine and must return quickly.
+	Progress func(done, total int64)
+}
+
+// progressFunc returns the function Run calls after reading n bytes.
+func progressFunc(opts Options, a *pack.Artifact) func(n int64) {
+	if opts.Progress == nil {
+		return func(int64) {}
+	}
+	var done, total int64
+	for _, e := range a.Tensors() {
+		total += e.StoredBytes()
+	}
+	if opts.Source != nil {
+		for _, t := range opts.Source.Tensors {
+			total += t.Length
+		}
+	}
+	advance := func(n int64) {
+		done += n
+		opts.Progress(done, total)
+	}
+	advance(0)
+	return advance
 }
 
 // Run verifies the artifact at path. It returns an error only when the
@@ -126,10 +153,11 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	}
 	defer a.Close()
 	rep.add(CheckStructure, "", true, "")
-	checkSections(rep, a)
+	advance := progressFunc(opts, a)
+	checkSections(rep, a, advance)
 	if opts.Source != nil {
 		rep.Source = opts.Source.Path
-		if err := checkAgainst(rep, a, opts.Source); err != nil {
+		if err := checkAgainst(rep, a, opts.Source, advance); err != nil {
 			return nil, err
 		}
 	}

@@ -35,11 +35,12 @@ func newDemoCmd() *cobra.Command {
 	)
 	cmd := &cobra.Command{
 		Use:   "demo [--dir DIR]",
-		Short: "Generate a small checkpoint, pack it, verify it, print a summary",
+		Short: "Generate a small checkpoint, pack it, verify it, write its report",
 		Long: `demo writes a small transformer-shaped BF16 checkpoint of its own (` + demoModel + `,
 the inventory assistant of the fictional Fernmoss Seed Vault), packs it into
-an artifact, verifies the artifact against the checkpoint and prints sizes,
-bits per weight, zero fraction and timings. Nothing is downloaded.`,
+an artifact, verifies the artifact against the checkpoint, prints sizes,
+bits per weight, zero fraction and timings, and writes the artifact's HTML
+report beside it. Nothing is downloaded.`,
 		Example: `  ternkit demo
   ternkit demo --dir /tmp/scout --codec bits2`,
 		Args: exactArgs(0),
@@ -77,7 +78,10 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 			}
 
 			start = time.Now()
+			bar := newProgressBar(cmd, "pack")
+			opts.Progress = bar.callback()
 			m, err := packFile(src, art, opts, true, errOut)
+			bar.finish()
 			if err != nil {
 				return err
 			}
@@ -91,7 +95,9 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 				return err
 			}
 			defer s.Close()
-			rep, err := verify.Run(art, verify.Options{Source: s})
+			bar = newProgressBar(cmd, "verify")
+			rep, err := verify.Run(art, verify.Options{Source: s, Progress: bar.callback()})
+			bar.finish()
 			if err != nil {
 				return err
 			}
@@ -101,6 +107,9 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 			}
 			if !rep.OK() {
 				return errVerifyFailed
+			}
+			if err := writeReport(out, art, filepath.Join(dir, demoModel+".html")); err != nil {
+				return err
 			}
 			fmt.Fprintf(out, "next: ternkit inspect %s\n", art)
 			return nil

@@ -1,135 +1,171 @@
 package main
 
 import (
+	"cmp"
 	"encoding/json"
 	"fmt"
 	"io"
-	"os"
+	"path"
+	"slices"
 	"strings"
 	"text/tabwriter"
 
 	"github.com/spf13/cobra"
-	"github.com/zeebo/blake3"
 
-	"ternkit/convert"
 	"ternkit/manifest"
-	"ternkit/pack"
+	"ternkit/report"
 )
 
-// inspectTensor is one row of `inspect --json`.
-type inspectTensor struct {
-	Name          string  `json:"name"`
-	Shape         []int64 `json:"shape"`
-	Kind          string  `json:"kind"`
-	Codec         string  `json:"codec"`
-	SourceDType   string  `json:"source_dtype"`
-	DType         string  `json:"dtype,omitempty"`
-	Bytes         int64   `json:"bytes"`
-	BitsPerWeight float64 `json:"bits_per_weight"`
-	ZeroFraction  float64 `json:"zero_fraction"`
-	Granularity   string  `json:"granularity,omitempty"`
-	Scale         float32 `json:"scale,omitempty"`
-	Exact         bool    `json:"exact,omitempty"`
-	RelRMSE       float64 `json:"rel_rmse"`
-	Cosine        float64 `json:"cosine,omitempty"`
+// inspectSortKeys are the values of inspect --sort, each with its order:
+// text columns ascending, numeric columns largest first; ties keep the
+// artifact's order.
+var inspectSortKeys = []struct {
+	key  string
+	less func(a, b *report.Tensor) int
+}{
+	{"file", func(a, b *report.Tensor) int { return 0 }},
+	{"name", func(a, b *report.Tensor) int { return strings.Compare(a.Name, b.Name) }},
+	{"kind", func(a, b *report.Tensor) int { return strings.Compare(a.Kind, b.Kind) }},
+	{"codec", func(a, b *report.Tensor) int { return strings.Compare(a.Codec, b.Codec) }},
+	{"bits", func(a, b *report.Tensor) int { return cmp.Compare(b.BitsPerWeight, a.BitsPerWeight) }},
+	{"zero", func(a, b *report.Tensor) int { return cmp.Compare(b.ZeroFraction, a.ZeroFraction) }},
+	{"error", func(a, b *report.Tensor) int { return cmp.Compare(b.RelRMSE, a.RelRMSE) }},
+	{"bytes", func(a, b *report.Tensor) int { return cmp.Compare(b.Bytes, a.Bytes) }},
 }
 
-// inspectReport is the whole of `inspect --json`.
-type inspectReport struct {
-	Artifact       string          `json:"artifact"`
-	Bytes          int64           `json:"bytes"`
-	FileBLAKE3     string          `json:"file_blake3"`
-	ManifestBLAKE3 string          `json:"manifest_blake3"`
-	Tool           string          `json:"tool"`
-	Recipe         convert.Recipe  `json:"recipe"`
-	Totals         manifest.Totals `json:"totals"`
-	Tensors        []inspectTensor `json:"tensors"`
+func sortKeyNames() []string {
+	names := make([]string, len(inspectSortKeys))
+	for i, k := range inspectSortKeys {
+		names[i] = k.key
+	}
+	return names
+}
+
+// inspectView is how inspect shows the tensors: the order and the name
+// patterns. Its flags are checked before any I/O.
+type inspectView struct {
+	sort     string
+	patterns []string
+}
+
+func (v *inspectView) register(cmd *cobra.Command) {
+	cmd.Flags().StringVar(&v.sort, "sort", "file", "order the rows by `KEY`: "+strings.Join(sortKeyNames(), ", ")+
+		" (text columns A to Z, numeric columns largest first)")
+	cmd.Flags().StringArrayVar(&v.patterns, "tensor", nil, "show only tensors whose name matches `GLOB` (* ? [...]); repeat to show several")
+	_ = cmd.RegisterFlagCompletionFunc("sort", fixedCompletions(sortKeyNames()...))
+}
+
+// check validates the flags and returns the sort order.
+func (v *inspectView) check() (func(a, b *report.Tensor) int, error) {
+	for _, p := range v.patterns {
+		if _, err := path.Match(p, ""); err != nil {
+			return nil, usagef("--tensor %q is not a valid glob: %v", p, err)
+		}
+	}
+	for _, k := range inspectSortKeys {
+		if k.key == v.sort {
+			return k.less, nil
+		}
+	}
+	return nil, usagef("--sort %q is not a column%s (valid: %s)", v.sort, didYouMean(v.sort, sortKeyNames()), strings.Join(sortKeyNames(), ", "))
+}
+
+// apply filters and orders the summary's tensors; it is an input error
+// when patterns match no tensor.
+func (v *inspectView) apply(s *report.Summary, order func(a, b *report.Tensor) int) error {
+	all, example := len(s.Tensors), exampleName(s)
+	if len(v.patterns) > 0 {
+		s.Tensors = slices.DeleteFunc(s.Tensors, func(t report.Tensor) bool {
+			for _, p := range v.patterns {
+				if ok, _ := path.Match(p, t.Name); ok {
+					return false
+				}
+			}
+			return true
+		})
+		if len(s.Tensors) == 0 {
+			return usagef("--tensor %s matches none of the %d tensors in %s (names look like %q; use inspect without --tensor to list them)",
+				quoteAll(v.patterns), all, s.Artifact, example)
+		}
+	}
+	slices.SortStableFunc(s.Tensors, func(a, b report.Tensor) int { return order(&a, &b) })
+	return nil
+}
+
+func quoteAll(ss []string) string {
+	q := make([]string, len(ss))
+	for i, s := range ss {
+		q[i] = fmt.Sprintf("%q", s)
+	}
+	return strings.Join(q, ", ")
+}
+
+// exampleName is a ternary tensor's name, else the first one, to show what
+// names look like.
+func exampleName(s *report.Summary) string {
+	for _, t := range s.Tensors {
+		if t.Ternary() {
+			return t.Name
+		}
+	}
+	if len(s.Tensors) > 0 {
+		return s.Tensors[0].Name
+	}
+	return ""
 }
 
 func newInspectCmd() *cobra.Command {
-	var asJSON bool
+	var (
+		asJSON bool
+		view   inspectView
+	)
 	cmd := &cobra.Command{
 		Use:   "inspect ARTIFACT",
 		Short: "Show what an artifact holds",
 		Long: `inspect reads an artifact's manifest and prints one row per tensor (shape,
 kind, codec, bits per weight, zero fraction, relative error, bytes) and the
-totals. It checks the manifest hash but not the sections: use verify for that.`,
+totals: source and artifact size, ratio, ternary parameters, bits per
+ternary weight and the projected weight memory in ternary form against the
+same weights at F16. It checks the manifest hash but not the sections: use
+verify for that. --tensor and --sort change the rows, never the totals.`,
 		Example: `  ternkit inspect model.tkart
+  ternkit inspect model.tkart --sort error
+  ternkit inspect model.tkart --tensor 'blocks.0.*' --tensor '*.mlp.*'
   ternkit inspect model.tkart --json`,
-		Args: exactArgs(1),
+		Args:              exactArgs(1),
+		ValidArgsFunction: artifactCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			rep, err := inspectArtifact(args[0])
+			order, err := view.check()
 			if err != nil {
+				return err
+			}
+			s, err := report.Summarize(args[0])
+			if err != nil {
+				return withHint(err, args[0])
+			}
+			all := len(s.Tensors)
+			if err := view.apply(s, order); err != nil {
 				return err
 			}
 			if asJSON {
 				enc := json.NewEncoder(cmd.OutOrStdout())
 				enc.SetIndent("", "  ")
-				return enc.Encode(rep)
+				return enc.Encode(s)
 			}
-			printInspect(cmd.OutOrStdout(), rep)
+			printInspect(cmd.OutOrStdout(), s, all)
 			return nil
 		},
 	}
-	cmd.Flags().BoolVar(&asJSON, "json", false, "print as JSON")
+	cmd.Flags().BoolVar(&asJSON, "json", false, "print as JSON (keys in README, \"JSON output\")")
+	view.register(cmd)
 	return cmd
 }
 
-func inspectArtifact(path string) (*inspectReport, error) {
-	a, err := pack.Open(path)
-	if err != nil {
-		return nil, err
-	}
-	defer a.Close()
-	sum, err := fileBLAKE3(path)
-	if err != nil {
-		return nil, err
-	}
-	m := a.Manifest()
-	mh := a.ManifestHash()
-	rep := &inspectReport{
-		Artifact: path, Bytes: a.Size(), FileBLAKE3: sum, ManifestBLAKE3: manifest.HexHash(mh),
-		Tool: m.Tool, Recipe: m.Recipe, Totals: m.Totals, Tensors: make([]inspectTensor, 0, len(m.Tensors)),
-	}
-	for _, e := range m.Tensors {
-		n := manifest.NumElements(e.Shape)
-		row := inspectTensor{Name: e.Name, Shape: e.Shape, Kind: e.Kind, Codec: e.Codec, SourceDType: e.SourceDType, DType: e.DType,
-			Bytes: e.StoredBytes(), Scale: e.Scale, Exact: e.Exact}
-		if e.Granularity != nil {
-			row.Granularity = e.Granularity.String()
-		}
-		if n > 0 {
-			row.BitsPerWeight = 8 * float64(e.StoredBytes()) / float64(n)
-		}
-		if e.Stats != nil {
-			row.ZeroFraction = e.Stats.ZeroFraction
-			row.RelRMSE = e.Stats.RelRMSE
-			row.Cosine = e.Stats.Cosine
-		}
-		rep.Tensors = append(rep.Tensors, row)
-	}
-	return rep, nil
-}
-
-func fileBLAKE3(path string) (string, error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return "", err
-	}
-	defer f.Close()
-	h := blake3.New()
-	if _, err := io.Copy(h, f); err != nil {
-		return "", fmt.Errorf("read %s: %w", path, err)
-	}
-	var sum [32]byte
-	h.Sum(sum[:0])
-	return manifest.HexHash(sum), nil
-}
-
-func printInspect(w io.Writer, rep *inspectReport) {
-	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
-	fmt.Fprintln(tw, "TENSOR\tSHAPE\tKIND\tCODEC\tGRAN\tBITS/W\tZERO%\tREL.ERR\tBYTES")
-	for _, t := range rep.Tensors {
+// printInspect writes the table and the totals; all is the artifact's
+// tensor count before filtering. Numeric columns are right-aligned.
+func printInspect(w io.Writer, s *report.Summary, all int) {
+	rows := [][]string{{"TENSOR", "SHAPE", "KIND", "CODEC", "GRAN", "BITS/W", "ZERO%", "REL.ERR", "BYTES"}}
+	for _, t := range s.Tensors {
 		kind, gran, zero, rel := t.Kind, "-", "-", "-"
 		if t.Kind == manifest.KindKept && t.DType != t.SourceDType {
 			kind = "kept:" + strings.ToLower(t.DType)
@@ -140,27 +176,42 @@ func printInspect(w io.Writer, rep *inspectReport) {
 		if t.Kind != manifest.KindKept {
 			zero = fmt.Sprintf("%.1f", 100*t.ZeroFraction)
 		}
-		if t.Exact {
+		switch {
+		case t.Exact:
 			rel = "exact"
-		} else if t.Kind != manifest.KindKept || t.DType != t.SourceDType {
+		case t.Lossy():
 			rel = fmt.Sprintf("%.4f", t.RelRMSE)
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%.3f\t%s\t%s\t%d\n", t.Name, shapeString(t.Shape), kind, t.Codec,
-			gran, t.BitsPerWeight, zero, rel, t.Bytes)
+		rows = append(rows, []string{t.Name, report.FormatShape(t.Shape), kind, t.Codec, gran,
+			fmt.Sprintf("%.3f", t.BitsPerWeight), zero, rel, fmt.Sprint(t.Bytes)})
+	}
+	const firstNumeric = 5
+	width := make([]int, len(rows[0]))
+	for _, r := range rows {
+		for i, c := range r {
+			width[i] = max(width[i], len(c))
+		}
+	}
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
+	for _, r := range rows {
+		for i := firstNumeric; i < len(r); i++ {
+			r[i] = fmt.Sprintf("%*s", width[i], r[i])
+		}
+		fmt.Fprintln(tw, strings.Join(r, "\t"))
 	}
 	tw.Flush()
-	tot := rep.Totals
-	fmt.Fprintf(w, "\n%d tensors (%d ternary, %d int8, %d kept); source %s, artifact %s (%.2fx smaller)\n",
-		tot.Tensors, tot.TernaryTensors, tot.Int8Tensors, tot.KeptTensors, humanBytes(tot.SourceBytes), humanBytes(rep.Bytes), ratio(tot.SourceBytes, rep.Bytes))
-	fmt.Fprintf(w, "ternary weights: %d at %.3f bits/weight (scales included); recipe %s/%s eps=%g ties %s\n",
-		tot.TernaryParams, tot.BitsPerTernaryWeight, rep.Recipe.Method, rep.Recipe.ScaleRule, rep.Recipe.Epsilon, rep.Recipe.Tie)
-	fmt.Fprintf(w, "file BLAKE3 %s\n", rep.FileBLAKE3)
-}
-
-func shapeString(shape []int64) string {
-	parts := make([]string, len(shape))
-	for i, d := range shape {
-		parts[i] = fmt.Sprint(d)
+	tot := s.Totals
+	fmt.Fprintln(w)
+	if len(s.Tensors) < all {
+		fmt.Fprintf(w, "showing %d of %d tensors; totals are for the whole artifact\n", len(s.Tensors), all)
 	}
-	return "[" + strings.Join(parts, "x") + "]"
+	fmt.Fprintf(w, "tensors          %d (%d ternary, %d int8, %d kept)\n", tot.Tensors, tot.TernaryTensors, tot.Int8Tensors, tot.KeptTensors)
+	fmt.Fprintf(w, "size             source %s, artifact %s: %s\n",
+		report.FormatBytes(tot.SourceBytes), report.FormatBytes(s.Bytes), report.FormatSizeChange(s.Ratio))
+	fmt.Fprintf(w, "ternary weights  %s at %.3f bits/weight (scales included), %.1f%% zero\n",
+		report.FormatCount(tot.TernaryParams), tot.BitsPerTernaryWeight, 100*s.ZeroFraction)
+	fmt.Fprintf(w, "weight memory    %s in ternary form vs %s at F16 (int8 and kept tensors as stored in both)\n",
+		report.FormatBytes(s.WeightMemory.TernaryForm), report.FormatBytes(s.WeightMemory.F16Form))
+	fmt.Fprintf(w, "recipe           %s/%s eps=%g ties %s\n", s.Recipe.Method, s.Recipe.ScaleRule, s.Recipe.Epsilon, s.Recipe.Tie)
+	fmt.Fprintf(w, "file BLAKE3      %s\n", s.FileBLAKE3)
 }

@@ -74,10 +74,12 @@ verifies it byte for byte and against its source, and shows what is inside.
 	}
 	root.SetOut(stdout)
 	root.SetErr(stderr)
-	root.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usageError{err} })
-	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd())
+	root.SetFlagErrorFunc(flagError)
+	root.PersistentFlags().BoolP(quietFlag, "q", false, "draw no progress bars (they appear only when stderr is a terminal)")
+	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd(), newReportCmd())
+	finishCommands(root)
 	for _, c := range root.Commands() {
-		c.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usageError{err} })
+		c.SetFlagErrorFunc(flagError)
 	}
 	return root
 }

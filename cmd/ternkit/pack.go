@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"slices"
+	"strings"
 	"time"
 
 	"github.com/spf13/cobra"
@@ -12,6 +14,7 @@ import (
 	"ternkit/convert"
 	"ternkit/manifest"
 	"ternkit/pack"
+	"ternkit/report"
 )
 
 // recipeFlags are the quantization options shared by pack and demo.
@@ -32,18 +35,41 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
 	cmd.Flags().StringVar(&f.policyFile, "policy", "", "policy file (TOML [[rule]] tables) replacing the default policy")
 	cmd.Flags().StringArrayVar(&f.rules, "rule", nil, "rule GLOB=ACTION placed before the policy's rules (repeatable); actions: ternary, ternary:row, ternary:group:N, keep, keep:f16, keep:bf16, keep:f32, int8")
+	_ = cmd.RegisterFlagCompletionFunc("codec", fixedCompletions(codecNames()...))
+	_ = cmd.RegisterFlagCompletionFunc("scale-rule", fixedCompletions(scaleRules...))
+	_ = cmd.RegisterFlagCompletionFunc("tie", fixedCompletions(tieRules...))
+}
+
+var (
+	scaleRules = []string{string(convert.ScaleReciprocal), string(convert.ScaleQuotient)}
+	tieRules   = []string{string(convert.TieHalfEven), string(convert.TieHalfAway)}
+)
+
+func codecNames() []string {
+	names := make([]string, len(pack.Codecs))
+	for i, c := range pack.Codecs {
+		names[i] = string(c)
+	}
+	return names
 }
 
 // options checks the flags; it reads the policy file, if any.
 func (f *recipeFlags) options() (pack.Options, error) {
 	codec, err := pack.ParseCodec(f.codec)
 	if err != nil {
-		return pack.Options{}, usageError{err}
+		return pack.Options{}, usagef("--codec: %w%s", err, didYouMean(f.codec, codecNames()))
 	}
 	r := convert.DefaultRecipe()
 	r.ScaleRule, r.Epsilon, r.Tie = convert.ScaleRule(f.scaleRule), f.epsilon, convert.TieRule(f.tie)
 	if err := r.Validate(); err != nil {
-		return pack.Options{}, usageError{err}
+		hint := ""
+		switch {
+		case !slices.Contains(scaleRules, f.scaleRule):
+			hint = didYouMean(f.scaleRule, scaleRules)
+		case !slices.Contains(tieRules, f.tie):
+			hint = didYouMean(f.tie, tieRules)
+		}
+		return pack.Options{}, usagef("%w%s", err, hint)
 	}
 	p, err := f.policy()
 	if err != nil {
@@ -101,13 +127,15 @@ is written at OUT.
 		Example: `  ternkit pack model.safetensors -o model.tkart
   ternkit pack model.safetensors -o model.tkart --rule '*.mlp.*=ternary:group:128' --rule '*embed*=int8'
   ternkit pack --print-policy > policy.toml
-  ternkit pack model.safetensors -o model.tkart --policy policy.toml --codec bits2`,
+  ternkit pack model.safetensors -o model.tkart --policy policy.toml --codec bits2
+  ternkit pack model.safetensors -o model.tkart --json --quiet   # in a pipeline`,
 		Args: func(cmd *cobra.Command, args []string) error {
 			if printPolicy {
 				return exactArgs(0)(cmd, args)
 			}
 			return exactArgs(1)(cmd, args)
 		},
+		ValidArgsFunction: checkpointCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if printPolicy {
 				p, err := rf.policy()
@@ -128,16 +156,20 @@ is written at OUT.
 				return err
 			}
 			start := time.Now()
+			bar := newProgressBar(cmd, "pack")
+			opts.Progress = bar.callback()
 			m, err := packFile(args[0], out, opts, rf.customPolicy(), cmd.ErrOrStderr())
+			bar.finish()
 			if err != nil {
-				return err
+				return checkpointHint(err, args[0])
 			}
 			return printPackResult(cmd.OutOrStdout(), cmd.ErrOrStderr(), out, m, time.Since(start), asJSON)
 		},
 	}
 	rf.register(cmd)
-	cmd.Flags().StringVarP(&out, "output", "o", "", "artifact to write (conventionally *"+pack.Extension+")")
-	cmd.Flags().BoolVar(&asJSON, "json", false, "print the result as JSON")
+	cmd.Flags().StringVarP(&out, "output", "o", "", "artifact `FILE` to write (conventionally *"+pack.Extension+")")
+	_ = cmd.MarkFlagFilename("output", strings.TrimPrefix(pack.Extension, "."))
+	cmd.Flags().BoolVar(&asJSON, "json", false, "print the result as JSON (keys in README, \"JSON output\")")
 	cmd.Flags().BoolVar(&printPolicy, "print-policy", false, "print the policy in effect (TOML) and exit")
 	return cmd
 }
@@ -163,18 +195,19 @@ func printPackResult(stdout, stderr io.Writer, out string, m *manifest.Manifest,
 	if needsCaution(m) {
 		defer fmt.Fprintln(stderr, caution)
 	}
+	var size int64
+	if st, err := os.Stat(out); err == nil {
+		size = st.Size()
+	}
 	if asJSON {
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
 		return enc.Encode(struct {
 			Artifact string          `json:"artifact"`
+			Bytes    int64           `json:"bytes"`
 			Seconds  float64         `json:"seconds"`
 			Totals   manifest.Totals `json:"totals"`
-		}{out, took.Seconds(), t})
-	}
-	var size int64
-	if st, err := os.Stat(out); err == nil {
-		size = st.Size()
+		}{out, size, took.Seconds(), t})
 	}
 	fmt.Fprintf(stdout, "packed %s: %d tensors (%d ternary, %d int8, %d kept), %s -> %s (%.2fx smaller) in %s\n",
 		out, t.Tensors, t.TernaryTensors, t.Int8Tensors, t.KeptTensors, humanBytes(t.SourceBytes), humanBytes(size),
@@ -223,15 +256,4 @@ func ratio(a, b int64) float64 {
 	return float64(a) / float64(b)
 }
 
-func humanBytes(n int64) string {
-	const unit = 1024
-	if n < unit {
-		return fmt.Sprintf("%d B", n)
-	}
-	div, exp := int64(unit), 0
-	for m := n / unit; m >= unit; m /= unit {
-		div *= unit
-		exp++
-	}
-	return fmt.Sprintf("%.1f %ciB", float64(n)/float64(div), "KMGTPE"[exp])
-}
+func humanBytes(n int64) string { return report.FormatBytes(n) }

@@ -10,6 +10,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/convert"
+	"ternkit/pack"
 	"ternkit/verify"
 )
 
@@ -39,23 +40,25 @@ A passing verify proves bytes and bounds, not task quality.`,
   ternkit verify model.tkart --against model.safetensors --json
   ternkit verify model.tkart --max-rel-rmse 0.6 --min-cosine 'blocks.*=0.85'
   ternkit verify model.tkart --budget release-budget.toml`,
-		Args: exactArgs(1),
+		Args:              exactArgs(1),
+		ValidArgsFunction: artifactCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			var opts verify.Options
 			budget, err := readBudget(budgetFile, limits)
 			if err != nil {
 				return err
 			}
-			opts.Budget = budget
+			bar := newProgressBar(cmd, "verify")
+			opts := verify.Options{Progress: bar.callback(), Budget: budget}
 			if against != "" {
 				src, err := convert.Open(against)
 				if err != nil {
-					return err
+					return checkpointHint(err, against)
 				}
 				defer src.Close()
 				opts.Source = src
 			}
 			rep, err := verify.Run(args[0], opts)
+			bar.finish()
 			if err != nil {
 				return err
 			}
@@ -63,14 +66,20 @@ A passing verify proves bytes and bounds, not task quality.`,
 				return err
 			}
 			if !rep.OK() {
+				if !isArtifact(args[0]) && isCheckpoint(args[0]) {
+					fmt.Fprintf(cmd.ErrOrStderr(), "hint: %s is a safetensors checkpoint; pack it first (ternkit pack %s -o OUT%s), or verify the artifact --against it\n",
+						args[0], args[0], pack.Extension)
+				}
 				return errVerifyFailed
 			}
 			return nil
 		},
 	}
-	cmd.Flags().StringVar(&against, "against", "", "source checkpoint to re-quantize and compare")
-	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON")
-	cmd.Flags().StringVar(&budgetFile, "budget", "", "budget file (TOML [[budget]] tables: match and limits)")
+	cmd.Flags().StringVar(&against, "against", "", "source checkpoint `SRC` to re-quantize and compare")
+	_ = cmd.MarkFlagFilename("against", "safetensors")
+	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON (keys in README, \"JSON output\")")
+	cmd.Flags().StringVar(&budgetFile, "budget", "", "budget `FILE` (TOML [[budget]] tables: match and limits)")
+	_ = cmd.MarkFlagFilename("budget", "toml")
 	for _, metric := range verify.Metrics {
 		v := new([]string)
 		limits[metric] = v
