@@ -6,6 +6,8 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
+	"slices"
+	"time"
 
 	"github.com/zeebo/blake3"
 
@@ -19,6 +21,12 @@ type Options struct {
 	Recipe convert.Recipe                         // ternarization recipe
 	Policy func(t *convert.Tensor) convert.Action // nil means convert.DefaultPolicy
 	Tool   string                                 // recorded as the manifest's "tool"
+	// PolicyRules describes Policy in words, recorded as the manifest's
+	// "policy"; nil records none.
+	PolicyRules []string
+	// Created is recorded as the manifest's "created"; the zero time
+	// records none, so that the same inputs give the same bytes.
+	Created time.Time
 }
 
 // ErrPolicy reports a policy decision the tensor cannot take.
@@ -35,6 +43,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if err := opts.Recipe.Validate(); err != nil {
 		return nil, err
 	}
+	if i := slices.Index(opts.PolicyRules, ""); i >= 0 {
+		return nil, fmt.Errorf("%w: policy rule %d is empty", ErrPolicy, i)
+	}
 	policy := opts.Policy
 	if policy == nil {
 		policy = convert.DefaultPolicy
@@ -50,10 +61,17 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		Version: manifest.Version,
 		Tool:    opts.Tool,
 		Recipe:  opts.Recipe,
+		Policy:  slices.Clip(opts.PolicyRules),
 		Source:  manifest.Source{Metadata: src.Metadata},
 		Tensors: make([]manifest.Tensor, 0, len(src.Tensors)),
 	}
-	if err := w.write(encodePreamble()); err != nil {
+	if len(m.Policy) == 0 {
+		m.Policy = nil
+	}
+	if !opts.Created.IsZero() {
+		m.Created = manifest.CreatedAt(opts.Created)
+	}
+	if err := w.write(encodePreamble(minorFor(m))); err != nil {
 		return nil, err
 	}
 	var (

@@ -41,7 +41,11 @@ func (f *recipeFlags) options() (pack.Options, error) {
 	if err := r.Validate(); err != nil {
 		return pack.Options{}, usageError{err}
 	}
-	return pack.Options{Codec: codec, Recipe: r, Tool: "ternkit " + version}, nil
+	created, err := sourceDateEpoch()
+	if err != nil {
+		return pack.Options{}, usageError{err}
+	}
+	return pack.Options{Codec: codec, Recipe: r, Tool: "ternkit " + version, PolicyRules: defaultPolicyRules, Created: created}, nil
 }
 
 func newPackCmd() *cobra.Command {
