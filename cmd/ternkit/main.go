@@ -75,7 +75,8 @@ verifies it byte for byte and against its source, and shows what is inside.
 	root.SetOut(stdout)
 	root.SetErr(stderr)
 	root.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usageError{err} })
-	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd())
+	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd(),
+		newKeygenCmd(), newSignCmd())
 	for _, c := range root.Commands() {
 		c.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usageError{err} })
 	}
