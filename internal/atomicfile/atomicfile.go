@@ -33,7 +33,11 @@ func Create(path string, perm fs.FileMode) (*File, error) {
 	}
 	tmp, err := os.CreateTemp(dir, "."+base+".tmp-*")
 	if err != nil {
-		return nil, fmt.Errorf("write %s: %w", path, err)
+		var pe *fs.PathError
+		if errors.As(err, &pe) {
+			err = pe.Err // the temporary name means nothing to the caller
+		}
+		return nil, fmt.Errorf("write %s: create a file in %s: %w", path, dir, err)
 	}
 	return &File{path: path, perm: perm, tmp: tmp, bw: bufio.NewWriterSize(tmp, 1<<20)}, nil
 }
