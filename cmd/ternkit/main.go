@@ -76,7 +76,7 @@ verifies it byte for byte and against its source, and shows what is inside.
 	root.SetErr(stderr)
 	root.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usageError{err} })
 	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd(),
-		newKeygenCmd(), newSignCmd(), newUnpackCmd())
+		newKeygenCmd(), newSignCmd(), newDiffCmd(), newUnpackCmd())
 	for _, c := range root.Commands() {
 		c.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return usageError{err} })
 	}
