@@ -37,7 +37,9 @@ type inspectReport struct {
 	FileBLAKE3     string          `json:"file_blake3"`
 	ManifestBLAKE3 string          `json:"manifest_blake3"`
 	Tool           string          `json:"tool"`
+	Created        string          `json:"created,omitempty"`
 	Recipe         convert.Recipe  `json:"recipe"`
+	Policy         []string        `json:"policy,omitempty"`
 	Totals         manifest.Totals `json:"totals"`
 	Tensors        []inspectTensor `json:"tensors"`
 }
@@ -85,7 +87,7 @@ func inspectArtifact(path string) (*inspectReport, error) {
 	mh := a.ManifestHash()
 	rep := &inspectReport{
 		Artifact: path, Bytes: a.Size(), FileBLAKE3: sum, ManifestBLAKE3: manifest.HexHash(mh),
-		Tool: m.Tool, Recipe: m.Recipe, Totals: m.Totals, Tensors: make([]inspectTensor, 0, len(m.Tensors)),
+		Tool: m.Tool, Created: m.Created, Recipe: m.Recipe, Policy: m.Policy, Totals: m.Totals, Tensors: make([]inspectTensor, 0, len(m.Tensors)),
 	}
 	for _, e := range m.Tensors {
 		n := manifest.NumElements(e.Shape)
@@ -138,6 +140,12 @@ func printInspect(w io.Writer, rep *inspectReport) {
 		tot.Tensors, tot.TernaryTensors, tot.KeptTensors, humanBytes(tot.SourceBytes), humanBytes(rep.Bytes), ratio(tot.SourceBytes, rep.Bytes))
 	fmt.Fprintf(w, "ternary weights: %d at %.3f bits/weight; recipe %s/%s eps=%g ties %s\n",
 		tot.TernaryParams, tot.BitsPerTernaryWeight, rep.Recipe.Method, rep.Recipe.ScaleRule, rep.Recipe.Epsilon, rep.Recipe.Tie)
+	if len(rep.Policy) > 0 {
+		fmt.Fprintf(w, "policy: %s\n", strings.Join(rep.Policy, "; "))
+	}
+	if rep.Created != "" {
+		fmt.Fprintf(w, "created %s by %s\n", rep.Created, rep.Tool)
+	}
 	fmt.Fprintf(w, "file BLAKE3 %s\n", rep.FileBLAKE3)
 }
 

@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -43,6 +44,10 @@ func TestPackReproducible(t *testing.T) {
 				require.Equal(t, "2023-11-14T22:13:20Z", m.Created)
 			}
 			a.Close()
+			code, shown, _ := ternkit("inspect", out)
+			require.Equal(t, exitOK, code)
+			require.Contains(t, shown, "policy: "+defaultPolicyRules[0])
+			require.Equal(t, epoch != "", strings.Contains(shown, "created 2023-11-14T22:13:20Z"), shown)
 		}
 		require.True(t, bytes.Equal(arts[0], arts[1]), "SOURCE_DATE_EPOCH=%q: two packs differ", epoch)
 	}

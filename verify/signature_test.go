@@ -1,0 +1,80 @@
+package verify
+
+import (
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/pack"
+	"ternkit/sign"
+)
+
+func signatureCheck(t *testing.T, rep *Report) Check {
+	t.Helper()
+	for _, c := range rep.Checks {
+		if c.Name == CheckSignature {
+			return c
+		}
+	}
+	t.Fatalf("no %s check in %+v", CheckSignature, rep.Checks)
+	return Check{}
+}
+
+func TestSignatureCheck(t *testing.T) {
+	dir := t.TempDir()
+	_, art := fixture(t, dir, pack.Base3, nil)
+	key, err := sign.GenerateKey(nil)
+	require.NoError(t, err)
+	other, err := sign.GenerateKey(nil)
+	require.NoError(t, err)
+	sigPath := sign.SignaturePath(art)
+	run := func(k *sign.PublicKey) *Report {
+		rep, err := Run(art, Options{Key: k, SignatureFile: sigPath})
+		require.NoError(t, err)
+		return rep
+	}
+
+	c := signatureCheck(t, run(key.Public()))
+	require.False(t, c.OK)
+	require.Contains(t, c.Detail, "no signature file "+sigPath)
+
+	rep, err := Run(art, Options{})
+	require.NoError(t, err)
+	require.Len(t, rep.ManifestBLAKE3, 64)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	hash := a.ManifestHash()
+	a.Close()
+	require.NoError(t, sign.WriteSignatureFile(sigPath, key.Sign(hash)))
+	rep = run(key.Public())
+	require.True(t, rep.OK(), "%+v", rep.Failures())
+	require.Contains(t, signatureCheck(t, rep).Detail, key.Public().ID())
+
+	c = signatureCheck(t, run(other.Public()))
+	require.False(t, c.OK)
+	require.Contains(t, c.Detail, "another key")
+
+	// Signed over a different manifest.
+	hash[0] ^= 1
+	require.NoError(t, sign.WriteSignatureFile(sigPath, key.Sign(hash)))
+	c = signatureCheck(t, run(key.Public()))
+	require.False(t, c.OK)
+	require.Contains(t, c.Detail, "manifest changed since signing")
+
+	// No key: no signature check, whatever lies beside the artifact.
+	rep, err = Run(art, Options{})
+	require.NoError(t, err)
+	require.True(t, rep.OK())
+	for _, c := range rep.Checks {
+		require.NotEqual(t, CheckSignature, c.Name)
+	}
+
+	// An unreadable artifact reports the signature as not checked.
+	bad := filepath.Join(dir, "bad.tkart")
+	require.NoError(t, os.WriteFile(bad, []byte("not an artifact"), 0o644))
+	rep, err = Run(bad, Options{Key: key.Public(), SignatureFile: sigPath})
+	require.NoError(t, err)
+	require.Contains(t, signatureCheck(t, rep).Detail, "not checked")
+}
