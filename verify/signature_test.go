@@ -1,11 +1,13 @@
 package verify
 
 import (
+	"bytes"
 	"os"
 	"path/filepath"
 	"testing"
 
 	"github.com/stretchr/testify/require"
+	"github.com/zeebo/blake3"
 
 	"ternkit/pack"
 	"ternkit/sign"
@@ -77,4 +79,34 @@ func TestSignatureCheck(t *testing.T) {
 	rep, err = Run(bad, Options{Key: key.Public(), SignatureFile: sigPath})
 	require.NoError(t, err)
 	require.Contains(t, signatureCheck(t, rep).Detail, "not checked")
+}
+
+// Any changed manifest byte, even with the trailer's hash updated to match
+// (so that the artifact is self-consistent again), fails the signature
+// check.
+func TestSignatureCoversEveryManifestByte(t *testing.T) {
+	dir := t.TempDir()
+	_, art := fixture(t, dir, pack.Bits2, nil)
+	key, err := sign.GenerateKey(nil)
+	require.NoError(t, err)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	start, end := a.ManifestOffset(), a.Size()-pack.TrailerLen
+	sig := key.Sign(a.ManifestHash())
+	a.Close()
+	good, err := os.ReadFile(art)
+	require.NoError(t, err)
+	bad := filepath.Join(dir, "bad.tkart")
+	require.NoError(t, sign.WriteSignatureFile(sign.SignaturePath(bad), sig))
+	for i := start; i < end; i++ {
+		b := bytes.Clone(good)
+		b[i] ^= 0x01
+		// The trailer holds the manifest's BLAKE3 at bytes 16..48 (pack/FORMAT.md).
+		sum := blake3.Sum256(b[start:end])
+		copy(b[end+16:end+48], sum[:])
+		require.NoError(t, os.WriteFile(bad, b, 0o644))
+		rep, err := Run(bad, Options{Key: key.Public(), SignatureFile: sign.SignaturePath(bad)})
+		require.NoError(t, err)
+		require.False(t, signatureCheck(t, rep).OK, "manifest byte %d", i)
+	}
 }
