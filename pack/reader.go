@@ -195,24 +195,19 @@ func (t *Tensor) DecodeFloat32(dst []float32) error {
 	if len(dst) != t.Len() {
 		return fmt.Errorf("decode tensor %q: dst holds %d values, tensor has %d", t.Entry.Name, len(dst), t.Len())
 	}
-	p, err := t.Payload()
-	if err != nil {
-		return err
-	}
-	return t.decodeFloat32(p, dst)
-}
-
-// decodeFloat32 is DecodeFloat32 on an already read payload.
-func (t *Tensor) decodeFloat32(p []byte, dst []float32) error {
 	if t.Entry.Kind == manifest.KindKept {
+		p, err := t.Payload()
+		if err != nil {
+			return err
+		}
 		if err := convert.DecodeFloat32(t.Entry.SourceDType, p, dst); err != nil {
 			return fmt.Errorf("decode tensor %q: %w", t.Entry.Name, err)
 		}
 		return nil
 	}
 	trits := make([]int8, len(dst))
-	if err := Codec(t.Entry.Codec).Decode(trits, p); err != nil {
-		return t.fail(t.Entry.Section.Offset, err)
+	if err := t.DecodeTrits(trits); err != nil {
+		return err
 	}
 	s := t.Entry.Scale
 	for i, v := range trits {

@@ -63,14 +63,11 @@ func Unpack(a *Artifact, dst, dtype string) error {
 			}
 			continue
 		}
-		n := t.Len()
-		floats = grow(floats, n)
-		if err := t.decodeFloat32(p, floats); err != nil {
+		floats = grow(floats, t.Len())
+		if err := t.DecodeFloat32(floats); err != nil {
 			return err
 		}
-		size, _ := convert.DTypeSize(dtype)
-		out = grow(out, n*size)
-		if err := convert.EncodeFloat32(dtype, floats, out); err != nil {
+		if out, err = convert.EncodeFloat32(out[:0], dtype, floats); err != nil {
 			return fmt.Errorf("unpack tensor %q: %w", e.Name, err)
 		}
 		if err := w.WriteTensor(out); err != nil {
