@@ -7,6 +7,7 @@
 package diff
 
 import (
+	"encoding/json"
 	"fmt"
 	"maps"
 	"math"
@@ -238,27 +239,50 @@ func compareProvenance(a, b *manifest.Manifest) []Change {
 	}
 	add("tool", a.Tool, b.Tool)
 	add("created", a.Created, b.Created)
-	add("recipe.method", a.Recipe.Method, b.Recipe.Method)
-	add("recipe.scale_rule", a.Recipe.ScaleRule, b.Recipe.ScaleRule)
-	add("recipe.epsilon", a.Recipe.Epsilon, b.Recipe.Epsilon)
-	add("recipe.tie", a.Recipe.Tie, b.Recipe.Tie)
-	add("recipe.granularity", a.Recipe.Granularity, b.Recipe.Granularity)
+	ra, rb := jsonFields(a.Recipe), jsonFields(b.Recipe)
+	for _, k := range unionKeys(ra, rb) {
+		add("recipe."+k, fieldString(ra, k), fieldString(rb, k))
+	}
 	add("policy", fmt.Sprintf("%q", a.Policy), fmt.Sprintf("%q", b.Policy))
 	fa, fb := a.Source.Files, b.Source.Files
 	for i := range max(len(fa), len(fb)) {
 		add(fmt.Sprintf("source.files[%d]", i), fileString(fa, i), fileString(fb, i))
 	}
-	keys := slices.Sorted(maps.Keys(a.Source.Metadata))
-	for k := range b.Source.Metadata {
-		if _, ok := a.Source.Metadata[k]; !ok {
+	ma, mb := jsonFields(a.Source.Metadata), jsonFields(b.Source.Metadata)
+	for _, k := range unionKeys(ma, mb) {
+		add("source.metadata."+k, fieldString(ma, k), fieldString(mb, k))
+	}
+	return out
+}
+
+// jsonFields is v's JSON object as key → JSON text, so that every field of
+// the recorded form is compared, whatever fields the type has.
+func jsonFields(v any) map[string]string {
+	b, err := json.Marshal(v)
+	if err != nil {
+		return map[string]string{"": fmt.Sprintf("(cannot encode: %v)", err)}
+	}
+	var raw map[string]json.RawMessage
+	if err := json.Unmarshal(b, &raw); err != nil {
+		return map[string]string{"": string(b)}
+	}
+	out := make(map[string]string, len(raw))
+	for k, r := range raw {
+		out[k] = string(r)
+	}
+	return out
+}
+
+// unionKeys lists the keys of both maps, sorted.
+func unionKeys[V any](a, b map[string]V) []string {
+	keys := slices.Collect(maps.Keys(a))
+	for k := range b {
+		if _, ok := a[k]; !ok {
 			keys = append(keys, k)
 		}
 	}
 	slices.Sort(keys)
-	for _, k := range keys {
-		add("source.metadata."+k, metaString(a.Source.Metadata, k), metaString(b.Source.Metadata, k))
-	}
-	return out
+	return keys
 }
 
 func fileString(files []manifest.SourceFile, i int) string {
@@ -269,10 +293,10 @@ func fileString(files []manifest.SourceFile, i int) string {
 	return fmt.Sprintf("%s (%d bytes, BLAKE3 %s)", f.Name, f.Bytes, f.BLAKE3)
 }
 
-func metaString(md map[string]string, k string) string {
-	v, ok := md[k]
-	if !ok {
-		return "(none)"
+// fieldString is a field's JSON text, or "(none)" when it is absent.
+func fieldString(m map[string]string, k string) string {
+	if v, ok := m[k]; ok {
+		return v
 	}
-	return fmt.Sprintf("%q", v)
+	return "(none)"
 }

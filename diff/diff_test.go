@@ -37,6 +37,7 @@ type release struct {
 	codec   pack.Codec
 	keep    string // names containing it are kept, besides the default policy
 	rules   []string
+	tie     convert.TieRule // "" for the default
 }
 
 func build(t *testing.T, dir, name string, r release) *pack.Artifact {
@@ -52,8 +53,12 @@ func build(t *testing.T, dir, name string, r release) *pack.Artifact {
 		}
 		return convert.DefaultPolicy(tn)
 	}
+	recipe := convert.DefaultRecipe()
+	if r.tie != "" {
+		recipe.Tie = r.tie
+	}
 	art := filepath.Join(dir, name+pack.Extension)
-	_, err = pack.Build(s, art, pack.Options{Codec: r.codec, Recipe: convert.DefaultRecipe(), Policy: policy,
+	_, err = pack.Build(s, art, pack.Options{Codec: r.codec, Recipe: recipe, Policy: policy,
 		PolicyRules: r.rules, Tool: "ternkit test"})
 	require.NoError(t, err)
 	a, err := pack.Open(art)
@@ -159,6 +164,11 @@ func TestCompareCodecOnly(t *testing.T) {
 	require.Zero(t, c.TritsDiffer)
 	require.Equal(t, int64(12), c.BytesA, "60 trits, 5 per byte")
 	require.Equal(t, int64(15), c.BytesB, "60 trits, 4 per byte")
+
+	c2 := build(t, t.TempDir(), "a", release{tensors: tensors, codec: pack.Base3, tie: convert.TieHalfAway})
+	r, err = Compare(a, c2)
+	require.NoError(t, err)
+	require.Equal(t, []Change{{"recipe.tie", `"half-even"`, `"half-away"`}}, r.Provenance)
 
 	same, err := Compare(a, a)
 	require.NoError(t, err)

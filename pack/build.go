@@ -44,7 +44,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		return nil, err
 	}
 	if i := slices.Index(opts.PolicyRules, ""); i >= 0 {
-		return nil, fmt.Errorf("%w: policy rule %d is empty", ErrPolicy, i)
+		return nil, fmt.Errorf("%w: policy rule %d is empty", manifest.ErrInvalid, i)
 	}
 	policy := opts.Policy
 	if policy == nil {

@@ -12,6 +12,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/manifest"
 )
 
 func buildWith(t *testing.T, src, dst string, opts Options) {
@@ -67,7 +68,7 @@ func TestBuildRecordsProvenance(t *testing.T) {
 	require.NoError(t, err)
 	defer s.Close()
 	_, err = Build(s, filepath.Join(dir, "bad"+Extension), Options{Codec: Base3, Recipe: convert.DefaultRecipe(), PolicyRules: []string{"keep *", ""}})
-	require.ErrorIs(t, err, ErrPolicy)
+	require.ErrorIs(t, err, manifest.ErrInvalid)
 	require.NoFileExists(t, filepath.Join(dir, "bad"+Extension))
 }
 
