@@ -7,7 +7,6 @@ import (
 	"strings"
 	"testing"
 
-	"github.com/spf13/cobra"
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
@@ -20,8 +19,9 @@ import (
 // projections: diff lists exactly the policy and those tensors.
 func TestDiffDemoReleases(t *testing.T) {
 	dir := t.TempDir()
-	src, first := demoArtifact(t, dir)
-	second := filepath.Join(dir, "second.tkart")
+	src, _ := demoArtifact(t, dir)
+	first, second := filepath.Join(dir, "first.tkart"), filepath.Join(dir, "second.tkart")
+	packKeepingAlso(t, src, first, "")
 	packKeepingAlso(t, src, second, "mlp.down")
 
 	code, out, errOut := ternkit("diff", first, second, "--json")
@@ -61,16 +61,19 @@ func TestDiffDemoReleases(t *testing.T) {
 }
 
 // packKeepingAlso packs src to out as pack does, with a policy that also
-// keeps the tensors whose names contain substr, and records that rule.
+// keeps the tensors whose names contain substr (unless it is ""), and
+// records that rule.
 func packKeepingAlso(t *testing.T, src, out, substr string) {
 	t.Helper()
 	s, err := convert.Open(src)
 	require.NoError(t, err)
 	defer s.Close()
-	var rf recipeFlags
-	rf.register(&cobra.Command{}) // the flags' defaults, as a plain pack has them
-	opts, err := rf.options()
-	require.NoError(t, err)
+	opts := packOptions(t)
+	if substr == "" {
+		_, err = pack.Build(s, out, opts)
+		require.NoError(t, err)
+		return
+	}
 	opts.PolicyRules = append([]string{fmt.Sprintf("keep: name contains %q", substr)}, opts.PolicyRules...)
 	opts.Policy = func(tn *convert.Tensor) convert.Action {
 		if strings.Contains(tn.Name, substr) {
