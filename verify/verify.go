@@ -18,7 +18,6 @@ import (
 	"ternkit/convert"
 	"ternkit/manifest"
 	"ternkit/pack"
-	"ternkit/sign"
 )
 
 // Check names, as they appear in reports.
@@ -49,10 +48,6 @@ type Report struct {
 	Checks   []Check `json:"checks"`
 	Passed   int     `json:"passed"`
 	Failed   int     `json:"failed"`
-
-	// ManifestBLAKE3 is the hash of the manifest that was checked, "" when
-	// the artifact could not be opened.
-	ManifestBLAKE3 string `json:"manifest_blake3,omitempty"`
 }
 
 // OK reports whether every check passed.
@@ -86,10 +81,6 @@ func (r *Report) add(name, tensor string, ok bool, format string, args ...any) {
 type Options struct {
 	// Source, when set, is the checkpoint the artifact claims to come from.
 	Source *convert.Source
-	// Key, when set, must have signed the artifact; the signature is read
-	// from SignatureFile.
-	Key           *sign.PublicKey
-	SignatureFile string
 }
 
 // Run verifies the artifact at path. It returns an error only when the
@@ -103,9 +94,6 @@ func Run(path string, opts Options) (*Report, error) {
 		var fe *pack.FormatError
 		if errors.As(err, &fe) {
 			rep.add(CheckStructure, "", false, "%v", err)
-			if opts.Key != nil {
-				rep.add(CheckSignature, "", false, "not checked: the artifact's structure is invalid")
-			}
 			return rep, nil
 		}
 		if errors.Is(err, fs.ErrNotExist) || errors.Is(err, fs.ErrPermission) {
@@ -114,12 +102,8 @@ func Run(path string, opts Options) (*Report, error) {
 		return nil, fmt.Errorf("open %s: %w", path, err)
 	}
 	defer a.Close()
-	rep.ManifestBLAKE3 = manifest.HexHash(a.ManifestHash())
 	rep.add(CheckStructure, "", true, "")
 	checkSections(rep, a)
-	if opts.Key != nil {
-		checkSignature(rep, a.ManifestHash(), opts.Key, opts.SignatureFile)
-	}
 	if opts.Source != nil {
 		rep.Source = opts.Source.Path
 		if err := checkAgainst(rep, a, opts.Source); err != nil {

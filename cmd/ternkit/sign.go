@@ -1,11 +1,11 @@
 package main
 
 import (
-	"encoding/hex"
 	"fmt"
 
 	"github.com/spf13/cobra"
 
+	"ternkit/pack"
 	"ternkit/sign"
 	"ternkit/verify"
 )
@@ -37,6 +37,7 @@ model's quality. ` + caution + `.`,
 			if err != nil {
 				return err
 			}
+			before, openErr := manifestHash(art)
 			rep, err := verify.Run(art, verify.Options{})
 			if err != nil {
 				return err
@@ -48,19 +49,64 @@ model's quality. ` + caution + `.`,
 				fmt.Fprintf(cmd.OutOrStdout(), "sign: refusing to sign %s: it fails verification\n", art)
 				return errVerifyFailed
 			}
-			var hash [32]byte
-			if _, err := hex.Decode(hash[:], []byte(rep.ManifestBLAKE3)); err != nil {
-				return fmt.Errorf("manifest hash %q of %s: %w", rep.ManifestBLAKE3, art, err)
+			if openErr != nil {
+				return openErr
 			}
-			if err := sign.WriteSignatureFile(out, k.Sign(hash)); err != nil {
+			after, err := manifestHash(art)
+			if err != nil {
 				return err
 			}
-			fmt.Fprintf(cmd.OutOrStdout(), "signed %s (manifest BLAKE3 %s) with key %s: wrote %s\n",
-				art, rep.ManifestBLAKE3, k.Public().ID(), out)
+			if after != before {
+				return fmt.Errorf("%s changed while it was verified (manifest BLAKE3 %x, then %x); not signed", art, before, after)
+			}
+			if err := sign.WriteSignatureFile(out, k.Sign(after)); err != nil {
+				return err
+			}
+			fmt.Fprintf(cmd.OutOrStdout(), "signed %s (manifest BLAKE3 %x) with key %s: wrote %s\n",
+				art, after, k.Public().ID(), out)
 			return nil
 		},
 	}
 	cmd.Flags().StringVar(&keyPath, "key", "", "private key file (from ternkit keygen)")
 	cmd.Flags().StringVarP(&out, "output", "o", "", "signature file to write (default ARTIFACT"+sign.SignatureExt+")")
 	return cmd
+}
+
+// registerKeyFlag adds verify's --key flag.
+func registerKeyFlag(cmd *cobra.Command) {
+	cmd.Flags().String("key", "", "public key file (NAME"+sign.PublicKeyExt+"): also require ARTIFACT"+sign.SignatureExt+
+		" to be its valid signature over the manifest hash")
+}
+
+// keyFlag reads the public key --key names, or returns nil without one.
+func keyFlag(cmd *cobra.Command) (*sign.PublicKey, error) {
+	path, err := cmd.Flags().GetString("key")
+	if err != nil || path == "" {
+		return nil, err
+	}
+	return sign.ReadPublicKeyFile(path)
+}
+
+// addSignatureCheck checks ARTIFACT.sig against key, when there is one,
+// and says so when the signature is valid.
+func addSignatureCheck(cmd *cobra.Command, rep *verify.Report, key *sign.PublicKey, artifact string) {
+	if key == nil {
+		return
+	}
+	sigPath := sign.SignaturePath(artifact)
+	failed := rep.Failed
+	verify.AddSignatureCheck(rep, artifact, key, sigPath)
+	if asJSON, _ := cmd.Flags().GetBool("json"); rep.Failed == failed && !asJSON {
+		fmt.Fprintf(cmd.OutOrStdout(), "signature: valid, key-id %s (%s)\n", key.ID(), sigPath)
+	}
+}
+
+// manifestHash is the manifest BLAKE3 of the artifact at path.
+func manifestHash(path string) ([32]byte, error) {
+	a, err := pack.Open(path)
+	if err != nil {
+		return [32]byte{}, err
+	}
+	defer a.Close()
+	return a.ManifestHash(), nil
 }

@@ -8,42 +8,34 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/convert"
-	"ternkit/sign"
 	"ternkit/verify"
 )
 
 func newVerifyCmd() *cobra.Command {
 	var (
 		against string
-		keyPath string
 		asJSON  bool
 	)
 	cmd := &cobra.Command{
-		Use:   "verify ARTIFACT [--against SRC] [--key NAME.pub]",
+		Use:   "verify ARTIFACT [--against SRC]",
 		Short: "Check an artifact's hashes and payloads, and optionally its source",
 		Long: `verify checks the artifact's structure, the manifest hash, every section
 hash, the zero padding, and decodes every ternary tensor against its trit
 counts. With --against SRC it also re-reads the source checkpoint,
 re-quantizes it with the recipe the manifest records, and requires the same
-trits and scales, and the same bytes for kept tensors. With --key NAME.pub
-it also requires ARTIFACT.sig to be that key's valid signature over the
-manifest hash.
+trits and scales, and the same bytes for kept tensors.
 
 Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable input.
 A passing verify proves bytes and bounds, not task quality.`,
 		Example: `  ternkit verify model.tkart
-  ternkit verify model.tkart --against model.safetensors --json
-  ternkit verify model.tkart --key fernmoss-release.pub`,
+  ternkit verify model.tkart --against model.safetensors --json`,
 		Args: exactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
-			var opts verify.Options
-			if keyPath != "" {
-				k, err := sign.ReadPublicKeyFile(keyPath)
-				if err != nil {
-					return err
-				}
-				opts.Key, opts.SignatureFile = k, sign.SignaturePath(args[0])
+			key, err := keyFlag(cmd)
+			if err != nil {
+				return err
 			}
+			var opts verify.Options
 			if against != "" {
 				src, err := convert.Open(against)
 				if err != nil {
@@ -56,20 +48,18 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
+			addSignatureCheck(cmd, rep, key, args[0])
 			if err := printReport(cmd.OutOrStdout(), rep, asJSON); err != nil {
 				return err
 			}
 			if !rep.OK() {
 				return errVerifyFailed
 			}
-			if opts.Key != nil && !asJSON {
-				fmt.Fprintf(cmd.OutOrStdout(), "signature: valid, key-id %s (%s)\n", opts.Key.ID(), opts.SignatureFile)
-			}
 			return nil
 		},
 	}
+	registerKeyFlag(cmd)
 	cmd.Flags().StringVar(&against, "against", "", "source checkpoint to re-quantize and compare")
-	cmd.Flags().StringVar(&keyPath, "key", "", "public key file: require ARTIFACT"+sign.SignatureExt+" to be its valid signature")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON")
 	return cmd
 }
