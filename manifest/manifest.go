@@ -53,10 +53,10 @@ type Manifest struct {
 	// that rebuilding gives the same bytes).
 	Created string         `json:"created,omitempty"`
 	Recipe  convert.Recipe `json:"recipe"`
+	Source  Source         `json:"source"`
 	// Policy describes which tensors became ternary and which were kept, as
 	// the caller's rule strings in order; nil when not recorded.
 	Policy  []string `json:"policy,omitempty"`
-	Source  Source   `json:"source"`
 	Tensors []Tensor `json:"tensors"`
 	Totals  Totals   `json:"totals"`
 }
