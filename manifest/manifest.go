@@ -11,6 +11,7 @@ import (
 	"fmt"
 	"math"
 	"math/bits"
+	"time"
 
 	"ternkit/convert"
 )
@@ -35,18 +36,30 @@ const (
 	CodecRaw   = "raw"
 )
 
+// CreatedLayout is the form of "created": UTC, whole seconds (RFC 3339).
+const CreatedLayout = "2006-01-02T15:04:05Z"
+
+// CreatedAt formats t as "created" records it.
+func CreatedAt(t time.Time) string { return t.UTC().Format(CreatedLayout) }
+
 // ErrInvalid reports a manifest that breaks the rules of pack/FORMAT.md.
 var ErrInvalid = errors.New("invalid manifest")
 
 // Manifest is the whole record.
 type Manifest struct {
-	Format  string         `json:"format"`
-	Version int            `json:"version"`
-	Tool    string         `json:"tool"`
+	Format  string `json:"format"`
+	Version int    `json:"version"`
+	Tool    string `json:"tool"`
+	// Created is the build time as CreatedLayout, or "" (the usual case, so
+	// that rebuilding gives the same bytes).
+	Created string         `json:"created,omitempty"`
 	Recipe  convert.Recipe `json:"recipe"`
 	Source  Source         `json:"source"`
-	Tensors []Tensor       `json:"tensors"`
-	Totals  Totals         `json:"totals"`
+	// Policy describes which tensors became ternary and which were kept, as
+	// the caller's rule strings in order; nil when not recorded.
+	Policy  []string `json:"policy,omitempty"`
+	Tensors []Tensor `json:"tensors"`
+	Totals  Totals   `json:"totals"`
 }
 
 // Source is the provenance of the artifact.
@@ -249,6 +262,19 @@ func (m *Manifest) Validate() error {
 	}
 	if err := m.Recipe.Validate(); err != nil {
 		return bad("recipe: %v", err)
+	}
+	if m.Created != "" {
+		if t, err := time.Parse(CreatedLayout, m.Created); err != nil || CreatedAt(t) != m.Created {
+			return bad("created %q is not a UTC time like %q", m.Created, CreatedLayout)
+		}
+	}
+	if m.Policy != nil && len(m.Policy) == 0 {
+		return bad("policy is an empty list (leave it out, or give the rules)")
+	}
+	for i, rule := range m.Policy {
+		if rule == "" {
+			return bad("policy rule %d is empty", i)
+		}
 	}
 	for _, f := range m.Source.Files {
 		if err := checkHash(f.BLAKE3); err != nil {

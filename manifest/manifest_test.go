@@ -3,6 +3,7 @@ package manifest
 import (
 	"strings"
 	"testing"
+	"time"
 
 	"github.com/stretchr/testify/require"
 
@@ -51,6 +52,40 @@ func TestRoundTrip(t *testing.T) {
 	require.Equal(t, int64(18), got.Totals.Int8SectionBytes)
 }
 
+// The provenance keys survive a round trip and are written in the order
+// pack/FORMAT.md gives: tool, created, recipe, source, policy, tensors.
+func TestRoundTripProvenance(t *testing.T) {
+	m := validManifest()
+	// 1,700,000,000 s after the Unix epoch is 2023-11-14 22:13:20 UTC (common practice: date -u -d @1700000000).
+	m.Created = CreatedAt(time.Unix(1_700_000_000, 0).In(time.FixedZone("east", 3600)))
+	require.Equal(t, "2023-11-14T22:13:20Z", m.Created)
+	m.Policy = []string{"keep name contains \"embed\"", "ternary 2-D float"}
+	b, err := Encode(m)
+	require.NoError(t, err)
+	got, err := Decode(b)
+	require.NoError(t, err)
+	require.Equal(t, m, got)
+	s := string(b)
+	order := []string{`"tool":`, `"created":"2023-11-14T22:13:20Z"`, `"recipe":`, `"source":`, `"policy":["keep name contains \"embed\"","ternary 2-D float"]`, `"tensors":`}
+	last := -1
+	for _, key := range order {
+		i := strings.Index(s, key)
+		require.Greater(t, i, last, "%s after the previous key in %s", key, s)
+		last = i
+	}
+
+	// An empty list is not a policy: writers leave the key out instead.
+	_, err = Decode([]byte(strings.Replace(s, order[4], `"policy":[]`, 1)))
+	require.ErrorIs(t, err, ErrInvalid)
+	require.Contains(t, err.Error(), "empty list")
+
+	// Without them, neither key appears.
+	b, err = Encode(validManifest())
+	require.NoError(t, err)
+	require.NotContains(t, string(b), `"created"`)
+	require.NotContains(t, string(b), `"policy"`)
+}
+
 func TestDecodeRejects(t *testing.T) {
 	cases := []struct {
 		name string
@@ -90,6 +125,11 @@ func TestDecodeRejects(t *testing.T) {
 		{"1-D ternary", func(m *Manifest) { m.Tensors[2].Shape = []int64{12} }, "2 or more dimensions"},
 		{"missing stats", func(m *Manifest) { m.Tensors[0].Stats = nil }, "missing stats"},
 		{"totals", func(m *Manifest) { m.Totals.TernaryParams++ }, "totals"},
+		{"created not a time", func(m *Manifest) { m.Created = "yesterday" }, `"yesterday"`},
+		{"created with offset", func(m *Manifest) { m.Created = "2026-01-02T03:04:05+01:00" }, "+01:00"},
+		{"created with fraction", func(m *Manifest) { m.Created = "2026-01-02T03:04:05.5Z" }, ".5Z"},
+		{"created out of range", func(m *Manifest) { m.Created = "2026-02-30T03:04:05Z" }, "02-30"},
+		{"policy empty rule", func(m *Manifest) { m.Policy = []string{"keep *", ""} }, "rule 1 is empty"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

@@ -8,6 +8,8 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
+	"time"
 
 	"github.com/zeebo/blake3"
 
@@ -21,6 +23,12 @@ type Options struct {
 	Recipe convert.Recipe  // ternarization recipe
 	Policy *convert.Policy // nil means convert.DefaultPolicy()
 	Tool   string          // recorded as the manifest's "tool"
+	// PolicyRules describes Policy in words, recorded as the manifest's
+	// "policy"; nil records none.
+	PolicyRules []string
+	// Created is recorded as the manifest's "created"; the zero time
+	// records none, so that the same inputs give the same bytes.
+	Created time.Time
 	// Progress, when set, is called with the source tensor bytes read so
 	// far and their total: once before the first tensor and after each one.
 	// It runs on Build's goroutine and must return quickly.
@@ -39,6 +47,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	}
 	if err := opts.Recipe.Validate(); err != nil {
 		return nil, err
+	}
+	if i := slices.Index(opts.PolicyRules, ""); i >= 0 {
+		return nil, fmt.Errorf("%w: policy rule %d is empty", manifest.ErrInvalid, i)
 	}
 	policy := opts.Policy
 	if policy == nil {
@@ -63,10 +74,17 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		Version: manifest.Version,
 		Tool:    opts.Tool,
 		Recipe:  opts.Recipe,
+		Policy:  slices.Clip(opts.PolicyRules),
 		Source:  manifest.Source{Metadata: src.Metadata},
 		Tensors: make([]manifest.Tensor, 0, len(src.Tensors)),
 	}
-	if err := w.write(encodePreamble()); err != nil {
+	if len(m.Policy) == 0 {
+		m.Policy = nil
+	}
+	if !opts.Created.IsZero() {
+		m.Created = manifest.CreatedAt(opts.Created)
+	}
+	if err := w.write(encodePreamble(minorFor(m))); err != nil {
 		return nil, err
 	}
 	var q quantizeBuffers

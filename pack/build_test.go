@@ -9,6 +9,7 @@ import (
 	"os"
 	"path/filepath"
 	"testing"
+	"time"
 
 	"github.com/stretchr/testify/require"
 
@@ -226,7 +227,8 @@ func FuzzOpen(f *testing.F) {
 		f.Fatal(err)
 	}
 	dst := filepath.Join(dir, "a"+Extension)
-	if _, err := Build(s, dst, Options{Codec: Base3, Recipe: convert.DefaultRecipe()}); err != nil {
+	if _, err := Build(s, dst, Options{Codec: Base3, Recipe: convert.DefaultRecipe(),
+		PolicyRules: []string{"ternary *"}, Created: time.Unix(1_700_000_000, 0)}); err != nil {
 		f.Fatal(err)
 	}
 	s.Close()

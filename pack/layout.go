@@ -9,6 +9,8 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
+
+	"ternkit/manifest"
 )
 
 // Layout constants (pack/FORMAT.md).
@@ -22,7 +24,7 @@ const (
 	DefaultMaxManifest = 256 << 20
 
 	majorVersion = 1
-	minorVersion = 0
+	minorVersion = 1 // the highest this package reads and writes
 )
 
 var (
@@ -67,12 +69,21 @@ func (e *FormatError) Unwrap() error { return e.Err }
 
 func alignUp(n int64) int64 { return (n + Align - 1) &^ (Align - 1) }
 
-func encodePreamble() []byte {
+func encodePreamble(minor uint16) []byte {
 	p := make([]byte, PreambleLen)
 	copy(p, magic[:])
 	binary.LittleEndian.PutUint16(p[8:], majorVersion)
-	binary.LittleEndian.PutUint16(p[10:], minorVersion)
+	binary.LittleEndian.PutUint16(p[10:], minor)
 	return p
+}
+
+// minorFor is the lowest minor version whose manifest keys m uses: 1.1
+// adds "created" and "policy".
+func minorFor(m *manifest.Manifest) uint16 {
+	if m.Created != "" || m.Policy != nil {
+		return 1
+	}
+	return 0
 }
 
 // checkPreamble returns the offset and error of the first bad preamble byte.

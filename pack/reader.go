@@ -86,6 +86,11 @@ func newArtifact(file string, r io.ReaderAt, size int64) (*Artifact, error) {
 	if err != nil {
 		return nil, fail("manifest", t.manifestOffset, err)
 	}
+	// Writers set the lowest minor version whose features the file uses,
+	// so the manifest fixes the preamble's minor version.
+	if minor, need := binary.LittleEndian.Uint16(pre[10:]), minorFor(m); minor != need {
+		return nil, fail("preamble", 10, fmt.Errorf("%w: minor version %d, the manifest's keys make it 1.%d", ErrStructure, minor, need))
+	}
 	a := &Artifact{file: file, r: r, size: size, m: m, manifestHash: t.manifestHash, manifestOff: t.manifestOffset, index: make(map[string]int, len(m.Tensors))}
 	next := int64(PreambleLen)
 	for i, e := range m.Tensors {

@@ -59,7 +59,9 @@ type Summary struct {
 	FileBLAKE3     string          `json:"file_blake3"`
 	ManifestBLAKE3 string          `json:"manifest_blake3"`
 	Tool           string          `json:"tool"`
+	Created        string          `json:"created,omitempty"` // set when the build had SOURCE_DATE_EPOCH
 	Recipe         convert.Recipe  `json:"recipe"`
+	Policy         []string        `json:"policy,omitempty"` // the rules the artifact was packed with
 	Source         manifest.Source `json:"source"`
 	Totals         manifest.Totals `json:"totals"`
 	Ratio          float64         `json:"ratio"`         // source bytes / artifact bytes
@@ -88,7 +90,7 @@ func summarize(path string, a *pack.Artifact, fileSum string) *Summary {
 	t := m.Totals
 	s := &Summary{
 		Artifact: path, Bytes: a.Size(), FileBLAKE3: fileSum, ManifestBLAKE3: manifest.HexHash(a.ManifestHash()),
-		Tool: m.Tool, Recipe: m.Recipe, Source: m.Source, Totals: t,
+		Tool: m.Tool, Created: m.Created, Recipe: m.Recipe, Policy: m.Policy, Source: m.Source, Totals: t,
 		Ratio: ratio(t.SourceBytes, a.Size()),
 		WeightMemory: WeightMemory{
 			TernaryForm: t.TernarySectionBytes + t.Int8SectionBytes + t.KeptSectionBytes,

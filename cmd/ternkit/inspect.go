@@ -213,5 +213,11 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 	fmt.Fprintf(w, "weight memory    %s in ternary form vs %s at F16 (int8 and kept tensors as stored in both)\n",
 		report.FormatBytes(s.WeightMemory.TernaryForm), report.FormatBytes(s.WeightMemory.F16Form))
 	fmt.Fprintf(w, "recipe           %s/%s eps=%g ties %s\n", s.Recipe.Method, s.Recipe.ScaleRule, s.Recipe.Epsilon, s.Recipe.Tie)
+	if len(s.Policy) > 0 {
+		fmt.Fprintf(w, "policy           %s\n", strings.Join(s.Policy, "; "))
+	}
+	if s.Created != "" {
+		fmt.Fprintf(w, "created          %s by %s\n", s.Created, s.Tool)
+	}
 	fmt.Fprintf(w, "file BLAKE3      %s\n", s.FileBLAKE3)
 }

@@ -98,11 +98,17 @@ func TestJSONKeysDocumented(t *testing.T) {
 	require.NoError(t, err)
 	b[len(b)/2] ^= 1
 	require.NoError(t, os.WriteFile(bad, b, 0o644))
+	// an artifact built with SOURCE_DATE_EPOCH records "created"
+	dated := filepath.Join(dir, "dated.tkart")
+	t.Setenv("SOURCE_DATE_EPOCH", "1700000000")
+	code, _, errOut := ternkit("pack", src, "-o", dated)
+	require.Equal(t, exitOK, code, errOut)
+	t.Setenv("SOURCE_DATE_EPOCH", "")
 	runs := map[string][][]string{
 		"pack": {{"pack", src, "-o", filepath.Join(dir, "again.tkart"), "--json"}},
 		"verify": {{"verify", art, "--json"}, {"verify", art, "--against", src, "--json"}, {"verify", bad, "--json"},
 			{"verify", art, "--json", "--min-cosine", "nothing.*=0.5"}},
-		"inspect": {{"inspect", art, "--json"}},
+		"inspect": {{"inspect", art, "--json"}, {"inspect", dated, "--json"}},
 	}
 	opaque := map[string]bool{"source.metadata": true}
 	for cmd, argsList := range runs {

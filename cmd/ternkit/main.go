@@ -76,7 +76,8 @@ verifies it byte for byte and against its source, and shows what is inside.
 	root.SetErr(stderr)
 	root.SetFlagErrorFunc(flagError)
 	root.PersistentFlags().BoolP(quietFlag, "q", false, "draw no progress bars (they appear only when stderr is a terminal)")
-	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd(), newReportCmd())
+	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd(), newReportCmd(),
+		newKeygenCmd(), newSignCmd(), newDiffCmd(), newUnpackCmd())
 	finishCommands(root)
 	for _, c := range root.Commands() {
 		c.SetFlagErrorFunc(flagError)

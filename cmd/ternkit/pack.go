@@ -75,7 +75,11 @@ func (f *recipeFlags) options() (pack.Options, error) {
 	if err != nil {
 		return pack.Options{}, err
 	}
-	return pack.Options{Codec: codec, Recipe: r, Policy: p, Tool: "ternkit " + version}, nil
+	created, err := sourceDateEpoch()
+	if err != nil {
+		return pack.Options{}, usageError{err}
+	}
+	return pack.Options{Codec: codec, Recipe: r, Policy: p, PolicyRules: p.Describe(), Tool: "ternkit " + version, Created: created}, nil
 }
 
 // policy assembles the --rule flags and the --policy file (or the default).

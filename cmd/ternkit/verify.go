@@ -47,6 +47,10 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
+			key, err := keyFlag(cmd)
+			if err != nil {
+				return err
+			}
 			bar := newProgressBar(cmd, "verify")
 			opts := verify.Options{Progress: bar.callback(), Budget: budget}
 			if against != "" {
@@ -62,6 +66,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
+			addSignatureCheck(cmd, rep, key, args[0])
 			if err := printReport(cmd.OutOrStdout(), rep, asJSON); err != nil {
 				return err
 			}
@@ -75,6 +80,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			return nil
 		},
 	}
+	registerKeyFlag(cmd)
 	cmd.Flags().StringVar(&against, "against", "", "source checkpoint `SRC` to re-quantize and compare")
 	_ = cmd.MarkFlagFilename("against", "safetensors")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON (keys in README, \"JSON output\")")

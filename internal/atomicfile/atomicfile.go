@@ -1,0 +1,139 @@
+// Package atomicfile writes files so that the destination holds either what
+// it held before or the complete new file, never a part: data goes to a
+// temporary file in the destination's directory, which is flushed, synced
+// and then renamed (or linked) into place. On any error the temporary file
+// is removed.
+package atomicfile
+
+import (
+	"bufio"
+	"errors"
+	"fmt"
+	"io/fs"
+	"os"
+	"path/filepath"
+)
+
+// File is a file being written; nothing appears at its path until Commit.
+type File struct {
+	path string
+	perm fs.FileMode
+	tmp  *os.File
+	bw   *bufio.Writer
+	n    int64
+	done bool
+}
+
+// Create starts writing path. The file gets mode perm on commit (the umask
+// does not apply). Call Abort (typically deferred) to clean up on error.
+func Create(path string, perm fs.FileMode) (*File, error) {
+	dir, base := filepath.Split(path)
+	if dir == "" {
+		dir = "."
+	}
+	tmp, err := os.CreateTemp(dir, "."+base+".tmp-*")
+	if err != nil {
+		var pe *fs.PathError
+		if errors.As(err, &pe) {
+			err = pe.Err // the temporary name means nothing to the caller
+		}
+		return nil, fmt.Errorf("write %s: create a file in %s: %w", path, dir, err)
+	}
+	return &File{path: path, perm: perm, tmp: tmp, bw: bufio.NewWriterSize(tmp, 1<<20)}, nil
+}
+
+// Write buffers p for the temporary file.
+func (f *File) Write(p []byte) (int, error) {
+	n, err := f.bw.Write(p)
+	f.n += int64(n)
+	if err != nil {
+		return n, fmt.Errorf("write %s: %w", f.path, err)
+	}
+	return n, nil
+}
+
+// Written is the number of bytes written so far.
+func (f *File) Written() int64 { return f.n }
+
+// Commit makes the file appear at its path, replacing what was there.
+func (f *File) Commit() error {
+	return f.commit(func(tmp string) error { return os.Rename(tmp, f.path) })
+}
+
+// CommitNew makes the file appear at its path only if nothing is there; an
+// existing file is left alone and the error wraps fs.ErrExist.
+func (f *File) CommitNew() error {
+	return f.commit(func(tmp string) error {
+		if err := os.Link(tmp, f.path); err != nil {
+			return err
+		}
+		return os.Remove(tmp)
+	})
+}
+
+func (f *File) commit(place func(tmp string) error) error {
+	if f.done {
+		return fmt.Errorf("write %s: %w", f.path, errors.New("already committed"))
+	}
+	err := f.bw.Flush()
+	if err == nil {
+		err = f.tmp.Chmod(f.perm)
+	}
+	if err == nil {
+		err = f.tmp.Sync()
+	}
+	if cerr := f.tmp.Close(); err == nil {
+		err = cerr
+	}
+	if err == nil {
+		err = place(f.tmp.Name())
+	}
+	if err != nil {
+		os.Remove(f.tmp.Name())
+		f.done = true
+		return fmt.Errorf("write %s: %w", f.path, err)
+	}
+	f.done = true
+	// Make the new name durable; the file is complete either way, and some
+	// filesystems refuse a directory sync.
+	if d, err := os.Open(filepath.Dir(f.path)); err == nil {
+		d.Sync()
+		d.Close()
+	}
+	return nil
+}
+
+// Abort removes the temporary file unless the file was committed. It is
+// safe to call more than once.
+func (f *File) Abort() {
+	if f.done {
+		return
+	}
+	f.done = true
+	f.tmp.Close()
+	os.Remove(f.tmp.Name())
+}
+
+// WriteFile writes data to path atomically with mode perm, replacing what
+// was there.
+func WriteFile(path string, data []byte, perm fs.FileMode) error {
+	return write(path, data, perm, (*File).Commit)
+}
+
+// WriteNewFile writes data to path atomically with mode perm, and fails
+// with an error wrapping fs.ErrExist if path exists.
+func WriteNewFile(path string, data []byte, perm fs.FileMode) error {
+	return write(path, data, perm, (*File).CommitNew)
+}
+
+func write(path string, data []byte, perm fs.FileMode, commit func(*File) error) error {
+	f, err := Create(path, perm)
+	if err != nil {
+		return err
+	}
+	defer f.Abort()
+	if _, err := f.Write(data); err != nil {
+		return err
+	}
+	return commit(f)
+}

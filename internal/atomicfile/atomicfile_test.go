@@ -1,0 +1,82 @@
+package atomicfile
+
+import (
+	"io/fs"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+// onlyEntries asserts the directory holds exactly the named entries, so no
+// temporary file is left behind.
+func onlyEntries(t *testing.T, dir string, names ...string) {
+	t.Helper()
+	entries, err := os.ReadDir(dir)
+	require.NoError(t, err)
+	var got []string
+	for _, e := range entries {
+		got = append(got, e.Name())
+	}
+	require.ElementsMatch(t, names, got)
+}
+
+func TestWriteFileModes(t *testing.T) {
+	for _, perm := range []fs.FileMode{0o600, 0o644} {
+		dir := t.TempDir()
+		path := filepath.Join(dir, "out")
+		require.NoError(t, WriteFile(path, []byte("first"), perm))
+		require.NoError(t, WriteFile(path, []byte("second"), perm), "replaces")
+		b, err := os.ReadFile(path)
+		require.NoError(t, err)
+		require.Equal(t, "second", string(b))
+		st, err := os.Stat(path)
+		require.NoError(t, err)
+		require.Equal(t, perm, st.Mode().Perm())
+		onlyEntries(t, dir, "out")
+	}
+}
+
+func TestWriteNewFileRefusesExisting(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "key")
+	require.NoError(t, WriteNewFile(path, []byte("one"), 0o600))
+	err := WriteNewFile(path, []byte("two"), 0o600)
+	require.ErrorIs(t, err, fs.ErrExist)
+	require.Contains(t, err.Error(), path)
+	b, err := os.ReadFile(path)
+	require.NoError(t, err)
+	require.Equal(t, "one", string(b))
+	onlyEntries(t, dir, "key")
+}
+
+func TestAbortLeavesNothing(t *testing.T) {
+	dir := t.TempDir()
+	f, err := Create(filepath.Join(dir, "out"), 0o644)
+	require.NoError(t, err)
+	_, err = f.Write([]byte("partial"))
+	require.NoError(t, err)
+	require.Equal(t, int64(7), f.Written())
+	f.Abort()
+	f.Abort()
+	onlyEntries(t, dir)
+	require.Error(t, f.Commit(), "no commit after abort")
+}
+
+// A failed rename (the destination is a non-empty directory) removes the
+// temporary file.
+func TestCommitFailureCleansUp(t *testing.T) {
+	dir := t.TempDir()
+	dst := filepath.Join(dir, "taken")
+	require.NoError(t, os.MkdirAll(filepath.Join(dst, "inside"), 0o755))
+	err := WriteFile(dst, []byte("x"), 0o644)
+	require.Error(t, err)
+	require.Contains(t, err.Error(), dst)
+	onlyEntries(t, dir, "taken")
+}
+
+func TestCreateInMissingDirectory(t *testing.T) {
+	_, err := Create(filepath.Join(t.TempDir(), "no", "such", "out"), 0o644)
+	require.ErrorIs(t, err, fs.ErrNotExist)
+}
