@@ -134,7 +134,7 @@ func TestCompare(t *testing.T) {
 	require.Equal(t, qc.ScaleA, qc.ScaleB)
 
 	require.Equal(t, "blocks.0.mlp.up.weight", upc.Name)
-	require.Equal(t, []string{AspectKind, AspectCodec, AspectScale, AspectBytes}, upc.Changed)
+	require.Equal(t, []string{AspectKind, AspectCodec, AspectStored, AspectGran, AspectScale, AspectBytes}, upc.Changed)
 	require.Equal(t, manifest.KindTernary, upc.KindA)
 	require.Equal(t, manifest.KindKept, upc.KindB)
 	require.Equal(t, int64(7), upc.BytesA, "35 trits in base3: ceil(35/5)")
