@@ -225,7 +225,11 @@ func TestDecodeFloat32(t *testing.T) {
 		{"F64 tie", "F64", le64(1 + math.Ldexp(1, -24)), 1, []float32{1}, nil},
 		{"empty", "F32", nil, 0, []float32{}, nil},
 		{"integer dtype", "I32", le32(1), 1, nil, ErrDType},
-		{"fp8 dtype", "F8_E4M3", []byte{1}, 1, nil, ErrDType},
+		// 8-bit floats (published 8-bit float specification, from memory):
+		// E4M3 0x01 = 2^-9, E5M2 0x01 = 2^-16.
+		{"F8_E4M3", "F8_E4M3", []byte{1}, 1, []float32{float32(math.Ldexp(1, -9))}, nil},
+		{"F8_E5M2", "F8_E5M2", []byte{1}, 1, []float32{float32(math.Ldexp(1, -16))}, nil},
+		{"bool dtype", "BOOL", []byte{1}, 1, nil, ErrDType},
 		{"unknown dtype", "F7", []byte{1}, 1, nil, ErrDType},
 	}
 	for _, tc := range tests {

@@ -1,8 +1,10 @@
 package convert
 
 import (
+	"bytes"
 	"encoding/binary"
 	"os"
+	"os/exec"
 	"path/filepath"
 	"strings"
 	"testing"
@@ -55,4 +57,29 @@ func walkAll(t testing.TB, s *Source) (map[string][]byte, map[string][32]byte) {
 		t.Fatal(err)
 	}
 	return data, sums
+}
+
+// numpyPython is the interpreter of Debian's python3-numpy.
+const numpyPython = "/usr/bin/python3"
+
+// runNumpy runs script under /usr/bin/python3 with numpy imported as np,
+// feeds it stdin and returns its standard output. It skips when numpy is
+// absent, but fails under CI, which must install python3-numpy (.ci/run).
+func runNumpy(t *testing.T, script string, stdin []byte) []byte {
+	t.Helper()
+	if err := exec.Command(numpyPython, "-c", "import numpy").Run(); err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatalf("numpy not usable through %s (%v): CI must install python3-numpy (.ci/run)", numpyPython, err)
+		}
+		t.Skipf("numpy not usable through %s (%v); install it to run this check (apt-get install python3-numpy)", numpyPython, err)
+	}
+	cmd := exec.Command(numpyPython, "-c", "import sys\nimport numpy as np\n"+script)
+	cmd.Stdin = bytes.NewReader(stdin)
+	var stderr bytes.Buffer
+	cmd.Stderr = &stderr
+	out, err := cmd.Output()
+	if err != nil {
+		t.Fatalf("numpy script failed: %v\n%s", err, stderr.String())
+	}
+	return out
 }

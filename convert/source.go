@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"os"
 
 	"github.com/zeebo/blake3"
@@ -31,6 +32,45 @@ func (t *Tensor) NumElements() int64 {
 
 // IsFloat reports whether the tensor holds F64, F32, F16 or BF16 values.
 func (t *Tensor) IsFloat() bool { return isFloatDType(t.DType) }
+
+// Ternarizable reports whether the tensor's dtype can be decoded for
+// ternarization: F64, F32, F16, BF16, F8_E4M3 or F8_E5M2. Integer and BOOL
+// tensors and tensors of a dtype this package does not know are only ever
+// kept.
+func (t *Tensor) Ternarizable() bool { return isDecodableDType(t.DType) }
+
+// DecodeWeights decodes raw, the tensor's bytes as Walk gives them, into
+// dst (one float32 per element) for ternarization. Errors are
+// *InputError values naming the file, the tensor and the byte offset:
+// ErrDType when the dtype cannot be ternarized (integer, BOOL or unknown),
+// ErrNonFinite at the first NaN or infinity, including an F64 value too
+// large for float32, which the message reports as an overflow.
+func (t *Tensor) DecodeWeights(raw []byte, dst []float32) error {
+	if !t.Ternarizable() {
+		why := "integer and BOOL tensors are always kept, never ternarized"
+		if _, known := dtypeSizes[t.DType]; !known {
+			why = "a dtype this version does not know can be kept byte for byte, never ternarized"
+		}
+		return inputError(t.File, t.Name, t.Offset, ErrDType, "dtype %q: %s", t.DType, why)
+	}
+	if err := DecodeFloat32(t.DType, raw, dst); err != nil {
+		return &InputError{File: t.File, Tensor: t.Name, Offset: t.Offset, Err: err}
+	}
+	for i, v := range dst {
+		if !math.IsNaN(float64(v)) && !math.IsInf(float64(v), 0) {
+			continue
+		}
+		size := int64(dtypeSizes[t.DType])
+		at := t.Offset + int64(i)*size
+		if t.DType == "F64" {
+			if src := math.Float64frombits(binary.LittleEndian.Uint64(raw[8*i:])); !math.IsNaN(src) && !math.IsInf(src, 0) {
+				return inputError(t.File, t.Name, at, ErrNonFinite, "element %d: F64 value %g overflows float32 to %v", i, src, v)
+			}
+		}
+		return inputError(t.File, t.Name, at, ErrNonFinite, "element %d is %v", i, v)
+	}
+	return nil
+}
 
 // SourceFile is one file of a source; BLAKE3 is filled in by Walk.
 type SourceFile struct {

@@ -73,15 +73,11 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		case convert.ActionKeep:
 			e.Kind, e.Codec = manifest.KindKept, manifest.CodecRaw
 		case convert.ActionTernary:
-			if !t.IsFloat() {
-				return &convert.InputError{File: t.File, Tensor: t.Name, Offset: t.Offset,
-					Err: fmt.Errorf("%w: ternary needs a float tensor, dtype is %q", ErrPolicy, t.DType)}
-			}
 			n := int(t.NumElements())
 			floats = grow(floats, n)
 			trits = grow(trits, n)
-			if err := convert.DecodeFloat32(t.DType, raw, floats); err != nil {
-				return &convert.InputError{File: t.File, Tensor: t.Name, Offset: t.Offset, Err: err}
+			if err := t.DecodeWeights(raw, floats); err != nil {
+				return err
 			}
 			q, err := convert.Ternarize(floats, opts.Recipe, trits)
 			if err != nil {
