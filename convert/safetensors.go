@@ -29,7 +29,8 @@ type headerEntry struct {
 	dtype      string
 	shape      []int64
 	begin, end int64 // relative to the data section
-	nbytes     int64 // product(shape) × dtype size
+	nbytes     int64 // product(shape) × dtype size, -1 for an unknown dtype
+	count      int64 // product(shape), set for an unknown dtype
 	at         int64 // absolute offset of the entry's '{'
 }
 
@@ -272,8 +273,8 @@ func (p *headerParser) parseEntry(name string) (headerEntry, error) {
 			if !ok {
 				return e, p.fail(name, at, ErrHeader, "dtype must be a string, found %s", describe(tok))
 			}
-			if _, known := dtypeSizes[s]; !known {
-				return e, p.fail(name, at, ErrDType, "dtype %q", s)
+			if _, known := dtypeSizes[s]; !known && !isDTypeName(s) {
+				return e, p.fail(name, at, ErrDType, "dtype %q is not a dtype name (want 1 to %d upper-case letters, digits or '_', starting with a letter)", s, maxDTypeName)
 			}
 			e.dtype = s
 		case "shape":
@@ -324,12 +325,42 @@ func (p *headerParser) parseEntry(name string) (headerEntry, error) {
 			return e, p.fail(name, e.at, ErrHeader, "missing field %q", f.name)
 		}
 	}
-	n, ok := shapeBytes(e.shape, int64(dtypeSizes[e.dtype]))
+	size, known := dtypeSizes[e.dtype]
+	if !known {
+		// An unknown dtype has no element size: only the element count must
+		// fit, and the byte length comes from the offsets (layoutTensors).
+		size = 1
+	}
+	n, ok := shapeBytes(e.shape, int64(size))
 	if !ok {
 		return e, p.fail(name, shapeAt, ErrHeader, "shape %v × %s overflows 64-bit size", e.shape, e.dtype)
 	}
 	e.nbytes = n
+	if !known {
+		e.nbytes = -1
+		e.count = n
+	}
 	return e, nil
+}
+
+// maxDTypeName bounds the length of a dtype string this package does not
+// know.
+const maxDTypeName = 32
+
+// isDTypeName reports whether s looks like a dtype string: an upper-case
+// letter, then upper-case letters, digits or '_', at most maxDTypeName bytes.
+// Such a dtype is accepted without being known; see layoutTensors.
+func isDTypeName(s string) bool {
+	if len(s) == 0 || len(s) > maxDTypeName || s[0] < 'A' || s[0] > 'Z' {
+		return false
+	}
+	for i := 1; i < len(s); i++ {
+		c := s[i]
+		if !('A' <= c && c <= 'Z' || '0' <= c && c <= '9' || c == '_') {
+			return false
+		}
+	}
+	return true
 }
 
 // nonNegative reads a JSON integer in [0, MaxInt64].
@@ -384,6 +415,12 @@ func absolute(dataStart, rel int64) int64 {
 // data-offset order: sorted, contiguous from 0, no holes, overlaps or
 // reversal, each span equal to shape × dtype size, the last ending exactly at
 // the end of the file.
+//
+// A dtype this package does not know has no element size, so its span is
+// taken from the offsets, which must still be contiguous with their
+// neighbours; the only size rule is that the span is empty exactly when the
+// shape holds no element. Such a tensor can be kept byte for byte but not
+// decoded (Tensor.DecodeWeights gives ErrDType).
 func layoutTensors(file string, entries []headerEntry, dataStart, dataLen int64) ([]*Tensor, error) {
 	for _, e := range entries {
 		if e.end < e.begin {
@@ -406,9 +443,13 @@ func layoutTensors(file string, entries []headerEntry, dataStart, dataLen int64)
 		case e.begin < pos:
 			return nil, inputError(file, e.name, at, ErrOffsets,
 				"data_offsets [%d, %d] overlap tensor %q, which ends at %d", e.begin, e.end, prev, pos)
-		case e.end-e.begin != e.nbytes:
+		case e.nbytes >= 0 && e.end-e.begin != e.nbytes:
 			return nil, inputError(file, e.name, at, ErrOffsets,
 				"data_offsets [%d, %d] span %d bytes, shape %v × %s needs %d", e.begin, e.end, e.end-e.begin, e.shape, e.dtype, e.nbytes)
+		case e.nbytes < 0 && (e.end == e.begin) != (e.count == 0):
+			return nil, inputError(file, e.name, at, ErrOffsets,
+				"data_offsets [%d, %d] span %d bytes for the %d elements of shape %v (dtype %q is unknown, but only an empty shape takes no bytes)",
+				e.begin, e.end, e.end-e.begin, e.count, e.shape, e.dtype)
 		case e.end > dataLen:
 			return nil, inputError(file, e.name, at, ErrTruncated,
 				"data_offsets [%d, %d] run past the end of the %d-byte data section", e.begin, e.end, dataLen)
@@ -420,7 +461,7 @@ func layoutTensors(file string, entries []headerEntry, dataStart, dataLen int64)
 			Shape:  e.shape,
 			File:   file,
 			Offset: at,
-			Length: e.nbytes,
+			Length: e.end - e.begin,
 		})
 	}
 	if pos < dataLen {

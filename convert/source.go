@@ -33,6 +33,14 @@ func (t *Tensor) NumElements() int64 {
 // IsFloat reports whether the tensor holds F64, F32, F16 or BF16 values.
 func (t *Tensor) IsFloat() bool { return isFloatDType(t.DType) }
 
+// KnownDType reports whether the tensor's dtype is one this package knows
+// the element size of. A tensor of an unknown dtype was accepted on its
+// offsets alone; it can be kept byte for byte, never ternarized.
+func (t *Tensor) KnownDType() bool {
+	_, ok := dtypeSizes[t.DType]
+	return ok
+}
+
 // Ternarizable reports whether the tensor's dtype can be decoded for
 // ternarization: F64, F32, F16, BF16, F8_E4M3 or F8_E5M2. Integer and BOOL
 // tensors and tensors of a dtype this package does not know are only ever
@@ -48,7 +56,7 @@ func (t *Tensor) Ternarizable() bool { return isDecodableDType(t.DType) }
 func (t *Tensor) DecodeWeights(raw []byte, dst []float32) error {
 	if !t.Ternarizable() {
 		why := "integer and BOOL tensors are always kept, never ternarized"
-		if _, known := dtypeSizes[t.DType]; !known {
+		if !t.KnownDType() {
 			why = "a dtype this version does not know can be kept byte for byte, never ternarized"
 		}
 		return inputError(t.File, t.Name, t.Offset, ErrDType, "dtype %q: %s", t.DType, why)

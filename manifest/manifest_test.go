@@ -61,7 +61,8 @@ func TestDecodeRejects(t *testing.T) {
 		{"negative shape", func(m *Manifest) { m.Tensors[1].Shape = []int64{-4} }, "[-4]"},
 		{"overflowing shape", func(m *Manifest) { m.Tensors[1].Shape = []int64{1 << 40, 1 << 40} }, "overflows"},
 		{"kept with scale", func(m *Manifest) { m.Tensors[1].Scale = 1 }, "ternary fields"},
-		{"dtype", func(m *Manifest) { m.Tensors[1].SourceDType = "F12" }, `"F12"`},
+		{"unknown dtype without bytes", func(m *Manifest) { m.Tensors[1].SourceDType = "F12"; m.Tensors[1].Section.Length = 0 }, `"F12"`},
+		{"empty dtype", func(m *Manifest) { m.Tensors[1].SourceDType = "" }, `source dtype ""`},
 		{"totals", func(m *Manifest) { m.Totals.TernaryParams++ }, "totals"},
 	}
 	for _, c := range cases {
@@ -75,6 +76,20 @@ func TestDecodeRejects(t *testing.T) {
 			require.Contains(t, err.Error(), c.want)
 		})
 	}
+}
+
+// A kept tensor of a source dtype without a known element size has the
+// length the source's offsets gave it.
+func TestKeptUnknownDType(t *testing.T) {
+	m := validManifest()
+	m.Tensors[1].SourceDType = "F4_PACKED"
+	m.Tensors[1].Section.Length = 2
+	m.ComputeTotals()
+	b, err := Encode(m)
+	require.NoError(t, err)
+	got, err := Decode(b)
+	require.NoError(t, err)
+	require.Equal(t, "F4_PACKED", got.Tensors[1].SourceDType)
 }
 
 func TestDecodeRejectsUnknownKeys(t *testing.T) {
