@@ -2,6 +2,7 @@ package convert
 
 import (
 	"encoding/binary"
+	"fmt"
 	"os"
 	"path/filepath"
 	"testing"
@@ -121,4 +122,90 @@ func TestWriteFileRenameFailureCleansUp(t *testing.T) {
 	require.NoError(t, err)
 	require.Len(t, entries, 1)
 	assert.Equal(t, "taken", entries[0].Name())
+}
+
+// A file streamed through Create in pieces of any size has the same bytes
+// as WriteFile gives for the same tensors.
+func TestCreateStreamsLikeWriteFile(t *testing.T) {
+	big := make([]byte, 3000)
+	for i := range big {
+		big[i] = byte(i * 13)
+	}
+	tensors := []WriteTensor{
+		{Name: "a", DType: "BF16", Shape: []int64{10, 150}, Data: big},
+		{Name: "none", DType: "F32", Shape: []int64{0}},
+		{Name: "b", DType: "U8", Shape: []int64{5}, Data: []byte{1, 2, 3, 4, 5}},
+	}
+	meta := map[string]string{"scenario": "stream"}
+	dir := t.TempDir()
+	whole := filepath.Join(dir, "whole.safetensors")
+	require.NoError(t, WriteFile(whole, tensors, meta))
+	want, err := os.ReadFile(whole)
+	require.NoError(t, err)
+
+	var specs []TensorSpec
+	var data []byte
+	for _, wt := range tensors {
+		specs = append(specs, TensorSpec{Name: wt.Name, DType: wt.DType, Shape: wt.Shape})
+		data = append(data, wt.Data...)
+	}
+	for _, piece := range []int{1, 7, 1000, len(data)} {
+		path := filepath.Join(dir, fmt.Sprintf("streamed-%d.safetensors", piece))
+		w, err := Create(path, specs, meta)
+		require.NoError(t, err)
+		for rest := data; len(rest) > 0; {
+			n := min(piece, len(rest))
+			got, err := w.Write(rest[:n])
+			require.NoError(t, err)
+			require.Equal(t, n, got)
+			rest = rest[n:]
+		}
+		_, statErr := os.Stat(path)
+		require.ErrorIs(t, statErr, os.ErrNotExist, "nothing at the destination before Close")
+		require.NoError(t, w.Close())
+		got, err := os.ReadFile(path)
+		require.NoError(t, err)
+		require.Equal(t, want, got, "piece size %d", piece)
+		require.Error(t, w.Close(), "second Close")
+	}
+}
+
+// Writing more or fewer bytes than the tensors hold fails at Write or
+// Close, and leaves nothing at the destination and no temporary file.
+func TestCreateWrongDataLength(t *testing.T) {
+	specs := []TensorSpec{{Name: "w", DType: "F32", Shape: []int64{2}}}
+	tests := []struct {
+		name     string
+		writes   [][]byte
+		sentinel error
+	}{
+		{"too few", [][]byte{make([]byte, 7)}, ErrTruncated},
+		{"none", nil, ErrTruncated},
+		{"too many", [][]byte{make([]byte, 5), make([]byte, 4)}, ErrOffsets},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			dir := t.TempDir()
+			path := filepath.Join(dir, "w.safetensors")
+			w, err := Create(path, specs, nil)
+			require.NoError(t, err)
+			var writeErr error
+			for _, p := range tc.writes {
+				if _, err := w.Write(p); err != nil {
+					writeErr = err
+				}
+			}
+			closeErr := w.Close()
+			require.ErrorIs(t, closeErr, tc.sentinel)
+			if tc.sentinel == ErrOffsets {
+				require.ErrorIs(t, writeErr, ErrOffsets)
+			}
+			assert.Contains(t, closeErr.Error(), path)
+			entries, err := os.ReadDir(dir)
+			require.NoError(t, err)
+			require.Empty(t, entries)
+		})
+	}
+	_, err := Create(filepath.Join(t.TempDir(), "x"), []TensorSpec{{Name: "w", DType: "F7", Shape: []int64{1}}}, nil)
+	require.ErrorIs(t, err, ErrDType)
 }
