@@ -40,18 +40,20 @@ type header struct {
 	entries  []headerEntry
 }
 
-// headerParser walks the JSON header token by token, so that every problem
-// can be located at an absolute byte offset and duplicate keys are seen.
+// headerParser walks a JSON document (a safetensors header or a shard
+// index) token by token, so that every problem can be located at an absolute
+// byte offset and duplicate keys are seen.
 type headerParser struct {
 	file string
 	h    []byte
 	dec  *json.Decoder
+	base int64 // absolute offset of h[0] in file
+	bad  error // sentinel for malformed JSON and wrong structure
 }
 
-// parseHeader decodes and validates h, the JSON header of file. It checks
-// UTF-8, JSON syntax, the shape of every entry, dtypes, and that each shape's
-// byte size fits in int64; data offsets are checked by layoutTensors.
-func parseHeader(file string, h []byte) (*header, error) {
+// newJSONParser checks that h, found at offset base of file, is UTF-8 and
+// returns a parser over it whose structural errors wrap bad.
+func newJSONParser(file string, h []byte, base int64, bad error, what string) (*headerParser, error) {
 	if !utf8.Valid(h) {
 		i := 0
 		for i < len(h) {
@@ -61,11 +63,21 @@ func parseHeader(file string, h []byte) (*header, error) {
 			}
 			i += n
 		}
-		return nil, inputError(file, "", headerStart+int64(i), ErrHeader, "header is not valid UTF-8 (byte 0x%02x)", h[i])
+		return nil, inputError(file, "", base+int64(i), bad, "%s is not valid UTF-8 (byte 0x%02x)", what, h[i])
 	}
 	dec := json.NewDecoder(bytes.NewReader(h))
 	dec.UseNumber()
-	p := &headerParser{file: file, h: h, dec: dec}
+	return &headerParser{file: file, h: h, dec: dec, base: base, bad: bad}, nil
+}
+
+// parseHeader decodes and validates h, the JSON header of file. It checks
+// UTF-8, JSON syntax, the shape of every entry, dtypes, and that each shape's
+// byte size fits in int64; data offsets are checked by layoutTensors.
+func parseHeader(file string, h []byte) (*header, error) {
+	p, err := newJSONParser(file, h, headerStart, ErrHeader, "header")
+	if err != nil {
+		return nil, err
+	}
 	return p.parse()
 }
 
@@ -84,16 +96,16 @@ func (p *headerParser) next(tensor string) (json.Token, int64, error) {
 		}
 		break
 	}
-	at := headerStart + pos
+	at := p.base + pos
 	tok, err := p.dec.Token()
 	if err == nil {
 		return tok, at, nil
 	}
 	off, detail := p.syntaxError(at)
-	return nil, at, p.fail(tensor, off, ErrHeader, "malformed JSON: %s", detail)
+	return nil, at, p.fail(tensor, off, p.bad, "malformed JSON: %s", detail)
 }
 
-// syntaxError locates the first JSON syntax error in the header with a full
+// syntaxError locates the first JSON syntax error in the document with a full
 // validating scan (the token stream does not report offsets reliably) and
 // returns its absolute offset and description. at is the fallback offset.
 func (p *headerParser) syntaxError(at int64) (int64, string) {
@@ -111,7 +123,7 @@ func (p *headerParser) syntaxError(at int64) (int64, string) {
 	if off > 0 && !(off == int64(len(p.h)) && se.Error() == "unexpected end of JSON input") {
 		off--
 	}
-	return headerStart + off, se.Error()
+	return p.base + off, se.Error()
 }
 
 // describe names a token for error messages.
@@ -144,7 +156,7 @@ func (p *headerParser) expectDelim(tensor string, d json.Delim, what string) (in
 		return at, err
 	}
 	if got, ok := tok.(json.Delim); !ok || got != d {
-		return at, p.fail(tensor, at, ErrHeader, "%s must be %s, found %s", what, describe(d), describe(tok))
+		return at, p.fail(tensor, at, p.bad, "%s must be %s, found %s", what, describe(d), describe(tok))
 	}
 	return at, nil
 }
@@ -185,8 +197,17 @@ func (p *headerParser) parse() (*header, error) {
 		}
 		hdr.entries = append(hdr.entries, e)
 	}
-	if _, err := p.expectDelim("", '}', "header"); err != nil {
+	if err := p.end("header"); err != nil {
 		return nil, err
+	}
+	return hdr, nil
+}
+
+// end reads the closing brace of the top-level object and requires nothing
+// but whitespace after it.
+func (p *headerParser) end(what string) error {
+	if _, err := p.expectDelim("", '}', what); err != nil {
+		return err
 	}
 	pos := p.dec.InputOffset()
 	if tok, err := p.dec.Token(); !errors.Is(err, io.EOF) {
@@ -194,11 +215,11 @@ func (p *headerParser) parse() (*header, error) {
 			pos++
 		}
 		if err != nil {
-			return nil, p.fail("", headerStart+pos, ErrHeader, "unexpected data after the header object: %v", err)
+			return p.fail("", p.base+pos, p.bad, "unexpected data after the %s object: %v", what, err)
 		}
-		return nil, p.fail("", headerStart+pos, ErrHeader, "unexpected %s after the header object", describe(tok))
+		return p.fail("", p.base+pos, p.bad, "unexpected %s after the %s object", describe(tok), what)
 	}
-	return hdr, nil
+	return nil
 }
 
 // parseMetadata reads the "__metadata__" object: a string → string map.
@@ -371,20 +392,20 @@ func (p *headerParser) nonNegative(tensor, what string) (int64, error) {
 	}
 	num, ok := tok.(json.Number)
 	if !ok {
-		return 0, p.fail(tensor, at, ErrHeader, "%s must be a non-negative integer, found %s", what, describe(tok))
+		return 0, p.fail(tensor, at, p.bad, "%s must be a non-negative integer, found %s", what, describe(tok))
 	}
 	s := num.String()
 	if len(s) > 0 && s[0] == '-' {
-		return 0, p.fail(tensor, at, ErrHeader, "%s %s is negative", what, s)
+		return 0, p.fail(tensor, at, p.bad, "%s %s is negative", what, s)
 	}
 	for i := 0; i < len(s); i++ {
 		if s[i] < '0' || s[i] > '9' {
-			return 0, p.fail(tensor, at, ErrHeader, "%s %s is not an integer", what, s)
+			return 0, p.fail(tensor, at, p.bad, "%s %s is not an integer", what, s)
 		}
 	}
 	v, err := strconv.ParseInt(s, 10, 64)
 	if err != nil {
-		return 0, p.fail(tensor, at, ErrHeader, "%s %s is out of range", what, s)
+		return 0, p.fail(tensor, at, p.bad, "%s %s is out of range", what, s)
 	}
 	return v, nil
 }
@@ -456,12 +477,13 @@ func layoutTensors(file string, entries []headerEntry, dataStart, dataLen int64)
 		}
 		pos, prev = e.end, e.name
 		tensors = append(tensors, &Tensor{
-			Name:   e.name,
-			DType:  e.dtype,
-			Shape:  e.shape,
-			File:   file,
-			Offset: at,
-			Length: e.end - e.begin,
+			Name:    e.name,
+			DType:   e.dtype,
+			Shape:   e.shape,
+			File:    file,
+			Offset:  at,
+			Length:  e.end - e.begin,
+			entryAt: e.at,
 		})
 	}
 	if pos < dataLen {

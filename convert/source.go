@@ -19,6 +19,8 @@ type Tensor struct {
 	File   string  // path of the file holding it
 	Offset int64   // absolute byte offset of its first data byte in File
 	Length int64   // data bytes
+
+	entryAt int64 // absolute offset of its header entry in File
 }
 
 // NumElements returns the product of the shape (1 for a scalar).
@@ -87,12 +89,14 @@ type SourceFile struct {
 	BLAKE3 [32]byte
 }
 
-// Source is an opened checkpoint.
+// Source is an opened checkpoint: one safetensors file, or every shard of a
+// sharded set read as one model.
 type Source struct {
-	Path     string
-	Files    []SourceFile
-	Metadata map[string]string // "__metadata__", may be nil
+	Path     string            // the file or index read (a directory resolves to one)
+	Files    []SourceFile      // the files holding tensors; shards in name order
+	Metadata map[string]string // "__metadata__" (merged over shards), may be nil
 	Tensors  []*Tensor         // file order, then data-offset order
+	Warnings []string          // problems that do not stop reading, e.g. an index total_size that disagrees
 
 	open []*openFile // parallel to Files; nil once closed
 }
@@ -106,16 +110,12 @@ type openFile struct {
 	tensors   []*Tensor
 }
 
-// Open parses and validates the header of the safetensors file at path; it
-// reads no tensor data. Every error is an *InputError.
-func Open(path string) (*Source, error) {
+// openSingle parses and validates the header of the safetensors file at
+// path.
+func openSingle(path string) (*Source, error) {
 	f, err := os.Open(path)
 	if err != nil {
-		var pe *os.PathError
-		if errors.As(err, &pe) {
-			err = pe.Err
-		}
-		return nil, &InputError{File: path, Offset: -1, Err: fmt.Errorf("open: %w", err)}
+		return nil, openError(path, err)
 	}
 	of, size, md, err := readHeader(path, f)
 	if err != nil {
@@ -129,6 +129,16 @@ func Open(path string) (*Source, error) {
 		Tensors:  of.tensors,
 		open:     []*openFile{of},
 	}, nil
+}
+
+// openError reports a file that cannot be opened, without repeating its
+// path.
+func openError(path string, err error) *InputError {
+	var pe *os.PathError
+	if errors.As(err, &pe) {
+		err = pe.Err
+	}
+	return &InputError{File: path, Offset: -1, Err: fmt.Errorf("open: %w", err)}
 }
 
 // readHeader reads and validates the length field and header of f, leaving
