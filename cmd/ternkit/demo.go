@@ -66,7 +66,7 @@ bits per weight, zero fraction and timings. Nothing is downloaded.`,
 				src, demoModel, time.Since(start).Round(time.Millisecond))
 
 			start = time.Now()
-			m, err := packFile(src, art, opts)
+			m, err := packFile(src, art, opts, errOut)
 			if err != nil {
 				return err
 			}

@@ -53,13 +53,15 @@ func newPackCmd() *cobra.Command {
 	cmd := &cobra.Command{
 		Use:   "pack SRC -o OUT",
 		Short: "Ternarize a safetensors checkpoint into an artifact",
-		Long: `pack reads SRC (a .safetensors file), ternarizes every 2-D float tensor
+		Long: `pack reads SRC (a .safetensors file, the index of a sharded set, or a
+directory holding either), ternarizes every 2-D float tensor
 except embeddings and the output head (names containing "embed" or
 "lm_head") with the absmean method, keeps the rest byte for byte, and writes
 the artifact to OUT atomically: on any error nothing is written at OUT.
 
 ` + caution + `.`,
 		Example: `  ternkit pack model.safetensors -o model.tkart
+  ternkit pack model.safetensors.index.json -o model.tkart
   ternkit pack model.safetensors -o model.tkart --codec bits2 --scale-rule quotient`,
 		Args: exactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
@@ -74,7 +76,7 @@ the artifact to OUT atomically: on any error nothing is written at OUT.
 				return usagef("-o %q is a directory; give the artifact's file name", out)
 			}
 			start := time.Now()
-			m, err := packFile(args[0], out, opts)
+			m, err := packFile(args[0], out, opts, cmd.ErrOrStderr())
 			if err != nil {
 				return err
 			}
@@ -87,9 +89,10 @@ the artifact to OUT atomically: on any error nothing is written at OUT.
 	return cmd
 }
 
-// packFile opens src and builds the artifact at out.
-func packFile(src, out string, opts pack.Options) (*manifest.Manifest, error) {
-	s, err := convert.Open(src)
+// packFile opens src and builds the artifact at out; warnings about the
+// source go to stderr.
+func packFile(src, out string, opts pack.Options, stderr io.Writer) (*manifest.Manifest, error) {
+	s, err := openSource(src, stderr)
 	if err != nil {
 		return nil, err
 	}

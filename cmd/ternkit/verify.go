@@ -7,7 +7,6 @@ import (
 
 	"github.com/spf13/cobra"
 
-	"ternkit/convert"
 	"ternkit/verify"
 )
 
@@ -33,7 +32,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			var opts verify.Options
 			if against != "" {
-				src, err := convert.Open(against)
+				src, err := openSource(against, cmd.ErrOrStderr())
 				if err != nil {
 					return err
 				}
@@ -53,7 +52,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			return nil
 		},
 	}
-	cmd.Flags().StringVar(&against, "against", "", "source checkpoint to re-quantize and compare")
+	cmd.Flags().StringVar(&against, "against", "", "source checkpoint to re-quantize and compare (file, sharded set index, or directory)")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON")
 	return cmd
 }
