@@ -80,10 +80,7 @@ func TestF64DecodeAgainstNumpy(t *testing.T) {
 		math.Nextafter(maxHalf, math.Inf(1)), -maxHalf, 1e300, -1e300, math.Inf(1), math.Inf(-1),
 		1+math.Ldexp(1, -24), 1+3*math.Ldexp(1, -24), math.SmallestNonzeroFloat32, math.SmallestNonzeroFloat32/2,
 		math.SmallestNonzeroFloat32*0.75, math.SmallestNonzeroFloat64)
-	raw := make([]byte, 0, 8*len(in))
-	for _, v := range in {
-		raw = binary.LittleEndian.AppendUint64(raw, math.Float64bits(v))
-	}
+	raw := f64LE(in...)
 	out := runNumpy(t, `
 d = np.frombuffer(sys.stdin.buffer.read(), dtype='<f8')
 with np.errstate(over='ignore', invalid='ignore'):

@@ -3,6 +3,7 @@ package convert
 import (
 	"bytes"
 	"encoding/binary"
+	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -82,4 +83,22 @@ func runNumpy(t *testing.T, script string, stdin []byte) []byte {
 		t.Fatalf("numpy script failed: %v\n%s", err, stderr.String())
 	}
 	return out
+}
+
+// f32LE encodes values as little-endian binary32, as safetensors stores F32.
+func f32LE(v ...float32) []byte {
+	var b []byte
+	for _, x := range v {
+		b = binary.LittleEndian.AppendUint32(b, math.Float32bits(x))
+	}
+	return b
+}
+
+// f64LE encodes values as little-endian binary64, as safetensors stores F64.
+func f64LE(v ...float64) []byte {
+	var b []byte
+	for _, x := range v {
+		b = binary.LittleEndian.AppendUint64(b, math.Float64bits(x))
+	}
+	return b
 }

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"io"
 	"io/fs"
+	"maps"
 	"os"
 	"path/filepath"
 	"slices"
@@ -114,34 +115,22 @@ func parseIndex(file string, b []byte) (*shardIndex, error) {
 		return nil, err
 	}
 	idx := &shardIndex{totalSize: -1}
-	seen := map[string]bool{}
 	haveMap := false
-	for p.dec.More() {
-		tok, at, err := p.next("")
-		if err != nil {
-			return nil, err
-		}
-		key, _ := tok.(string)
-		if seen[key] {
-			return nil, p.fail("", at, ErrIndex, "duplicate key %q", key)
-		}
-		seen[key] = true
+	err = p.members("the index", false, func(key string, _ int64) (err error) {
 		switch key {
 		case "weight_map":
 			haveMap = true
-			if idx.entries, err = p.parseWeightMap(); err != nil {
-				return nil, err
-			}
+			idx.entries, err = p.parseWeightMap()
 		case "metadata":
-			if idx.totalSize, err = p.parseIndexMetadata(); err != nil {
-				return nil, err
-			}
+			idx.totalSize, err = p.parseIndexMetadata()
 		default:
 			idx.ignored = append(idx.ignored, key)
-			if err := p.skipValue(); err != nil {
-				return nil, err
-			}
+			err = p.skipValue()
 		}
+		return err
+	})
+	if err != nil {
+		return nil, err
 	}
 	if err := p.end("index"); err != nil {
 		return nil, err
@@ -155,33 +144,54 @@ func parseIndex(file string, b []byte) (*shardIndex, error) {
 	return idx, nil
 }
 
+// members reads the members of a JSON object whose opening brace has been
+// read, up to its closing brace (excluded). Keys must be unique; member is
+// called with each key and its offset and must read the value. With
+// tensorKeys, errors name the key as the tensor.
+func (p *headerParser) members(what string, tensorKeys bool, member func(key string, at int64) error) error {
+	seen := map[string]bool{}
+	for p.dec.More() {
+		tok, at, err := p.next("")
+		if err != nil {
+			return err
+		}
+		key, _ := tok.(string) // object keys are always strings
+		tensor := ""
+		if tensorKeys {
+			tensor = key
+		}
+		if seen[key] {
+			return p.fail(tensor, at, p.bad, "duplicate key %q in %s", key, what)
+		}
+		seen[key] = true
+		if err := member(key, at); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
 func (p *headerParser) parseWeightMap() ([]indexEntry, error) {
 	if _, err := p.expectDelim("", '{', `"weight_map"`); err != nil {
 		return nil, err
 	}
 	var entries []indexEntry
-	seen := map[string]bool{}
-	for p.dec.More() {
-		tok, at, err := p.next("")
-		if err != nil {
-			return nil, err
-		}
-		name, _ := tok.(string)
-		if seen[name] {
-			return nil, p.fail(name, at, ErrIndex, "tensor %q is listed twice in \"weight_map\"", name)
-		}
-		seen[name] = true
+	err := p.members(`"weight_map"`, true, func(name string, at int64) error {
 		tok, vat, err := p.next(name)
 		if err != nil {
-			return nil, err
+			return err
 		}
 		shard, ok := tok.(string)
 		if !ok || shard == "" {
-			return nil, p.fail(name, vat, ErrIndex, "shard of tensor %q must be a non-empty string, found %s", name, describe(tok))
+			return p.fail(name, vat, ErrIndex, "shard of tensor %q must be a non-empty string, found %s", name, describe(tok))
 		}
 		entries = append(entries, indexEntry{tensor: name, shard: shard, at: at})
+		return nil
+	})
+	if err != nil {
+		return nil, err
 	}
-	_, err := p.expectDelim("", '}', `"weight_map"`)
+	_, err = p.expectDelim("", '}', `"weight_map"`)
 	return entries, err
 }
 
@@ -192,28 +202,17 @@ func (p *headerParser) parseIndexMetadata() (int64, error) {
 		return 0, err
 	}
 	total := int64(-1)
-	seen := map[string]bool{}
-	for p.dec.More() {
-		tok, at, err := p.next("")
-		if err != nil {
-			return 0, err
-		}
-		key, _ := tok.(string)
-		if seen[key] {
-			return 0, p.fail("", at, ErrIndex, "duplicate \"metadata\" key %q", key)
-		}
-		seen[key] = true
+	err := p.members(`"metadata"`, false, func(key string, _ int64) (err error) {
 		if key != "total_size" {
-			if err := p.skipValue(); err != nil {
-				return 0, err
-			}
-			continue
+			return p.skipValue()
 		}
-		if total, err = p.nonNegative("", "total_size"); err != nil {
-			return 0, err
-		}
+		total, err = p.nonNegative("", "total_size")
+		return err
+	})
+	if err != nil {
+		return 0, err
 	}
-	_, err := p.expectDelim("", '}', `"metadata"`)
+	_, err = p.expectDelim("", '}', `"metadata"`)
 	return total, err
 }
 
@@ -406,12 +405,7 @@ func mergeMetadata(names []string, metadata []map[string]string) (map[string]str
 	}
 	merged := map[string]string{}
 	var warnings []string
-	keys := make([]string, 0, len(values))
-	for k := range values {
-		keys = append(keys, k)
-	}
-	slices.Sort(keys)
-	for _, k := range keys {
+	for _, k := range slices.Sorted(maps.Keys(values)) {
 		shards := values[k]
 		v := metadata[shards[0]][k]
 		same := true

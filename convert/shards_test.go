@@ -204,7 +204,7 @@ func TestOpenShardsBadInput(t *testing.T) {
 				return s
 			}, sentinel: ErrIndex, file: idx, tensor: "c", marker: `"c"`, detail: `puts tensor "c" in shard "` + s3 + `", but shard "` + s2 + `" holds it`},
 		{name: "weight_map tensor listed twice", index: replace(`"d":"`+s3+`"`, `"d":"`+s3+`","d":"`+s3+`"`),
-			sentinel: ErrIndex, file: idx, tensor: "d", marker: `"d":"` + s3 + `"}`, detail: `tensor "d" is listed twice`},
+			sentinel: ErrIndex, file: idx, tensor: "d", marker: `"d":"` + s3 + `"}`, detail: `duplicate key "d" in "weight_map"`},
 		{name: "index not an object", index: `[1]`, sentinel: ErrIndex, file: idx, marker: `[1]`, detail: "index must be an object"},
 		{name: "index not UTF-8", index: "{\"weight_map\":{\"a\xff\":\"x\"}}", sentinel: ErrIndex, file: idx, marker: "\xff", detail: "not valid UTF-8"},
 		{name: "index malformed", index: `{"weight_map":{"a":}}`, sentinel: ErrIndex, file: idx, tensor: "a", marker: `}}`, detail: "malformed JSON"},
@@ -214,7 +214,7 @@ func TestOpenShardsBadInput(t *testing.T) {
 		{name: "weight_map not an object", index: `{"weight_map":["a"]}`, sentinel: ErrIndex, file: idx, marker: `["a"]`, detail: `"weight_map" must be an object`},
 		{name: "shard not a string", index: replace(`"d":"`+s3+`"`, `"d":3`), sentinel: ErrIndex, file: idx, tensor: "d", marker: `3}`, detail: "must be a non-empty string, found number 3"},
 		{name: "empty shard name", index: replace(`"d":"`+s3+`"`, `"d":""`), sentinel: ErrIndex, file: idx, tensor: "d", marker: `""`, detail: "non-empty string"},
-		{name: "duplicate top-level key", index: replace(`{"metadata":{"total_size":7},`, `{"metadata":{},"metadata":{},`), sentinel: ErrIndex, file: idx, marker: `"metadata":{},"w`, detail: `duplicate key "metadata"`},
+		{name: "duplicate top-level key", index: replace(`{"metadata":{"total_size":7},`, `{"metadata":{},"metadata":{},`), sentinel: ErrIndex, file: idx, marker: `"metadata":{},"w`, detail: `duplicate key "metadata" in the index`},
 		{name: "negative total_size", index: replace(`"total_size":7`, `"total_size":-7`), sentinel: ErrIndex, file: idx, marker: `-7`, detail: "total_size -7 is negative"},
 		{name: "fractional total_size", index: replace(`"total_size":7`, `"total_size":7.5`), sentinel: ErrIndex, file: idx, marker: `7.5`, detail: "not an integer"},
 		{name: "bad shard header", edit: func(t *testing.T, dir string) {

@@ -6,6 +6,7 @@ import (
 	"encoding/binary"
 	"encoding/json"
 	"fmt"
+	"maps"
 	"math"
 	"os"
 	"path/filepath"
@@ -180,12 +181,7 @@ func encodeHeader(tensors []TensorSpec, metadata map[string]string) ([]byte, []i
 	b.WriteByte('{')
 	if metadata != nil {
 		b.WriteString(`"` + metadataKey + `":{`)
-		keys := make([]string, 0, len(metadata))
-		for k := range metadata {
-			keys = append(keys, k)
-		}
-		slices.Sort(keys)
-		for i, k := range keys {
+		for i, k := range slices.Sorted(maps.Keys(metadata)) {
 			v := metadata[k]
 			if !utf8.ValidString(k) || !utf8.ValidString(v) {
 				return nil, nil, fmt.Errorf("%w: %q entry %q is not valid UTF-8", ErrHeader, metadataKey, k)
