@@ -9,6 +9,9 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"github.com/stretchr/testify/assert"
+	"github.com/stretchr/testify/require"
 )
 
 // stFile lays out a safetensors file as the published format description
@@ -101,4 +104,21 @@ func f64LE(v ...float64) []byte {
 		b = binary.LittleEndian.AppendUint64(b, math.Float64bits(x))
 	}
 	return b
+}
+
+// openFailure opens path, requires Open to fail with an *InputError that
+// wraps sentinel and names file and tensor at the start of its message, and
+// returns that error.
+func openFailure(t *testing.T, path string, sentinel error, file, tensor string) *InputError {
+	t.Helper()
+	s, err := Open(path)
+	require.Error(t, err)
+	require.Nil(t, s)
+	require.ErrorIs(t, err, sentinel)
+	var ie *InputError
+	require.ErrorAs(t, err, &ie)
+	assert.Equal(t, file, ie.File)
+	assert.Equal(t, tensor, ie.Tensor)
+	assert.True(t, strings.HasPrefix(err.Error(), file+": "), err.Error())
+	return ie
 }

@@ -221,17 +221,9 @@ func TestOpenBadInput(t *testing.T) {
 	for _, c := range tests {
 		t.Run(c.name, func(t *testing.T) {
 			path := writeTemp(t, "bad.safetensors", c.file)
-			s, err := Open(path)
-			require.Error(t, err)
-			require.Nil(t, s)
-			assert.ErrorIs(t, err, c.sentinel)
-			var ie *InputError
-			require.ErrorAs(t, err, &ie)
-			assert.Equal(t, path, ie.File)
-			assert.Equal(t, c.tensor, ie.Tensor)
+			ie := openFailure(t, path, c.sentinel, path, c.tensor)
 			assert.Equal(t, c.offset, ie.Offset)
-			msg := err.Error()
-			assert.True(t, strings.HasPrefix(msg, path+": "), msg)
+			msg := ie.Error()
 			assert.Contains(t, msg, fmt.Sprintf("byte %d: ", c.offset))
 			if c.tensor != "" {
 				assert.Contains(t, msg, fmt.Sprintf("tensor %q", c.tensor))

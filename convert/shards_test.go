@@ -244,19 +244,11 @@ func TestOpenShardsBadInput(t *testing.T) {
 				c.edit(t, dir)
 			}
 			for _, open := range []string{path, dir} {
-				s, err := Open(open)
-				require.Error(t, err)
-				require.Nil(t, s)
-				assert.ErrorIs(t, err, c.sentinel)
-				var ie *InputError
-				require.ErrorAs(t, err, &ie)
-				assert.Equal(t, filepath.Join(dir, c.file), ie.File)
-				assert.Equal(t, c.tensor, ie.Tensor)
+				ie := openFailure(t, open, c.sentinel, filepath.Join(dir, c.file), c.tensor)
 				if c.marker != "" {
 					assert.Equal(t, int64(strings.LastIndex(index, c.marker)), ie.Offset, "offset of %q", c.marker)
 				}
-				assert.Contains(t, err.Error(), c.detail)
-				assert.True(t, strings.HasPrefix(err.Error(), filepath.Join(dir, c.file)+": "), err.Error())
+				assert.Contains(t, ie.Error(), c.detail)
 			}
 		})
 	}
