@@ -33,13 +33,20 @@ func DTypeSize(dtype string) (int, bool) {
 	return n, ok
 }
 
-// isFloatDType reports whether DecodeFloat32 can decode dtype.
+// isFloatDType reports whether dtype is one of the wide float dtypes (F64,
+// F32, F16, BF16) that the default policy ternarizes.
 func isFloatDType(dtype string) bool {
 	switch dtype {
 	case "F64", "F32", "F16", "BF16":
 		return true
 	}
 	return false
+}
+
+// isDecodableDType reports whether DecodeFloat32 can decode dtype: the wide
+// float dtypes and the two 8-bit float dtypes.
+func isDecodableDType(dtype string) bool {
+	return isFloatDType(dtype) || dtype == "F8_E4M3" || dtype == "F8_E5M2"
 }
 
 // F16ToFloat32 returns the exact float32 value of the IEEE 754 binary16
@@ -69,6 +76,34 @@ func F16ToFloat32(h uint16) float32 {
 // the upper half of binary32, so the conversion is exact.
 func BF16ToFloat32(b uint16) float32 {
 	return math.Float32frombits(uint32(b) << 16)
+}
+
+// F8E4M3ToFloat32 returns the exact float32 value of the 8-bit float b with
+// 1 sign, 4 exponent (bias 7) and 3 fraction bits, in the variant without
+// infinities: S.1111.111 is NaN, S.1111.110 = ±448 is the largest finite
+// value, exponent 0 holds the subnormals m × 2^-9.
+func F8E4M3ToFloat32(b uint8) float32 {
+	sign := uint32(b&0x80) << 24
+	exp := uint32(b>>3) & 0xf
+	mant := uint32(b & 0x7)
+	switch {
+	case exp == 0xf && mant == 0x7:
+		return math.Float32frombits(sign | 0x7fc00000)
+	case exp == 0:
+		v := float32(mant) * (1.0 / (1 << 9))
+		if sign != 0 {
+			v = -v
+		}
+		return v
+	}
+	return math.Float32frombits(sign | (exp+127-7)<<23 | mant<<20)
+}
+
+// F8E5M2ToFloat32 returns the exact float32 value of the 8-bit float b with
+// 1 sign, 5 exponent (bias 15) and 2 fraction bits. Its layout is the upper
+// byte of binary16, infinities and NaNs included.
+func F8E5M2ToFloat32(b uint8) float32 {
+	return F16ToFloat32(uint16(b) << 8)
 }
 
 // Float32ToF16 rounds f to the nearest binary16 value, ties to even.
@@ -129,10 +164,12 @@ func Float32ToBF16(f float32) uint16 {
 }
 
 // DecodeFloat32 decodes little-endian raw data of a float dtype (F64, F32,
-// F16, BF16) into dst. len(dst) must equal len(raw)/size. F32, F16 and BF16
-// decode exactly; F64 rounds to nearest even. Other dtypes give ErrDType.
+// F16, BF16, F8_E4M3, F8_E5M2) into dst. len(dst) must equal len(raw)/size.
+// All but F64 decode exactly; F64 rounds to nearest even, and finite values
+// beyond the float32 range become ±Inf (Tensor.DecodeWeights reports them).
+// Other dtypes give ErrDType.
 func DecodeFloat32(dtype string, raw []byte, dst []float32) error {
-	if !isFloatDType(dtype) {
+	if !isDecodableDType(dtype) {
 		if _, known := dtypeSizes[dtype]; known {
 			return fmt.Errorf("%w: %q is not a float dtype", ErrDType, dtype)
 		}
@@ -158,6 +195,14 @@ func DecodeFloat32(dtype string, raw []byte, dst []float32) error {
 	case "BF16":
 		for i := range dst {
 			dst[i] = BF16ToFloat32(binary.LittleEndian.Uint16(raw[2*i:]))
+		}
+	case "F8_E4M3":
+		for i, b := range raw {
+			dst[i] = F8E4M3ToFloat32(b)
+		}
+	case "F8_E5M2":
+		for i, b := range raw {
+			dst[i] = F8E5M2ToFloat32(b)
 		}
 	}
 	return nil

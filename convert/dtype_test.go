@@ -192,20 +192,6 @@ func TestDecodeFloat32(t *testing.T) {
 		}
 		return b
 	}
-	le32 := func(v ...float32) []byte {
-		var b []byte
-		for _, x := range v {
-			b = binary.LittleEndian.AppendUint32(b, math.Float32bits(x))
-		}
-		return b
-	}
-	le64 := func(v ...float64) []byte {
-		var b []byte
-		for _, x := range v {
-			b = binary.LittleEndian.AppendUint64(b, math.Float64bits(x))
-		}
-		return b
-	}
 	tests := []struct {
 		name  string
 		dtype string
@@ -218,14 +204,18 @@ func TestDecodeFloat32(t *testing.T) {
 		{"F16", "F16", le16(0x3C00, 0xC000, 0x7BFF), 3, []float32{1, -2, 65504}, nil},
 		// bfloat16 = binary32 upper half.
 		{"BF16", "BF16", le16(0x3F80, 0xC000), 2, []float32{1, -2}, nil},
-		{"F32", "F32", le32(1.5, -0.25, math.MaxFloat32), 3, []float32{1.5, -0.25, math.MaxFloat32}, nil},
+		{"F32", "F32", f32LE(1.5, -0.25, math.MaxFloat32), 3, []float32{1.5, -0.25, math.MaxFloat32}, nil},
 		// F64 rounds to the nearest float32 (IEEE 754 round to nearest even).
-		{"F64", "F64", le64(0.1, 1e300, -3), 3, []float32{float32(0.1), float32(math.Inf(1)), -3}, nil},
+		{"F64", "F64", f64LE(0.1, 1e300, -3), 3, []float32{float32(0.1), float32(math.Inf(1)), -3}, nil},
 		// 1 + 2^-24 is halfway between float32 1 and 1 + 2^-23: ties to even gives 1.
-		{"F64 tie", "F64", le64(1 + math.Ldexp(1, -24)), 1, []float32{1}, nil},
+		{"F64 tie", "F64", f64LE(1 + math.Ldexp(1, -24)), 1, []float32{1}, nil},
 		{"empty", "F32", nil, 0, []float32{}, nil},
-		{"integer dtype", "I32", le32(1), 1, nil, ErrDType},
-		{"fp8 dtype", "F8_E4M3", []byte{1}, 1, nil, ErrDType},
+		{"integer dtype", "I32", f32LE(1), 1, nil, ErrDType},
+		// 8-bit floats (published 8-bit float specification, from memory):
+		// E4M3 0x01 = 2^-9, E5M2 0x01 = 2^-16.
+		{"F8_E4M3", "F8_E4M3", []byte{1}, 1, []float32{float32(math.Ldexp(1, -9))}, nil},
+		{"F8_E5M2", "F8_E5M2", []byte{1}, 1, []float32{float32(math.Ldexp(1, -16))}, nil},
+		{"bool dtype", "BOOL", []byte{1}, 1, nil, ErrDType},
 		{"unknown dtype", "F7", []byte{1}, 1, nil, ErrDType},
 	}
 	for _, tc := range tests {

@@ -171,15 +171,22 @@ func quantizable(dtype string) bool {
 }
 
 // Decide returns the action for t and the index of the rule that chose it
-// (−1 when no rule applies). An action the tensor cannot take is an
-// ErrPolicy error naming the rule and the tensor.
+// (−1 when no rule applies). Integer and BOOL tensors are kept without
+// consulting the rules. An action the tensor cannot take is an ErrPolicy
+// error naming the rule and the tensor; a dtype ternkit cannot decode
+// (one it does not know) matched by any action but keep also wraps
+// ErrDType.
 func (p *Policy) Decide(t *Tensor) (Action, int, error) {
-	if !quantizable(t.DType) {
+	_, known := DTypeSize(t.DType)
+	if known && !quantizable(t.DType) {
 		return Action{Kind: ActKeep}, -1, nil
 	}
 	for i, r := range p.Rules {
 		if !r.matches(t) {
 			continue
+		}
+		if !known && r.Action.Kind != ActKeep {
+			return Action{}, i, fmt.Errorf("%w: rule %d (%s) on tensor %q: %w: %q can only be kept byte for byte", ErrPolicy, i+1, r, t.Name, ErrDType, t.DType)
 		}
 		if err := r.Action.check(t); err != nil {
 			return Action{}, i, fmt.Errorf("%w: rule %d (%s) on tensor %q: %v", ErrPolicy, i+1, r, t.Name, err)
@@ -271,7 +278,7 @@ func ParsePolicy(name string, data []byte) (*Policy, error) {
 func (p *Policy) TOML() string {
 	var b strings.Builder
 	b.WriteString("# ternkit policy: the first rule that matches a tensor decides.\n")
-	b.WriteString("# Integer, BOOL and unknown-dtype tensors are always kept; a float tensor no rule matches is kept.\n")
+	b.WriteString("# Integer and BOOL tensors are always kept; a tensor no rule matches is kept.\n")
 	for _, r := range p.Rules {
 		b.WriteString("\n[[rule]]\n")
 		fmt.Fprintf(&b, "match = %s\n", strconv.Quote(r.Match))

@@ -78,7 +78,6 @@ func TestPolicyDecide(t *testing.T) {
 		{"b.mlp.up", "F16", []int64{4, 4}, "ternary", 3},
 		{"step", "I64", []int64{}, "keep", -1},
 		{"mask", "BOOL", []int64{4, 4}, "keep", -1},
-		{"odd", "Q4", []int64{4, 4}, "keep", -1},
 	}
 	for _, c := range cases {
 		a, i, err := p.Decide(&Tensor{Name: c.name, DType: c.dtype, Shape: c.shape})
@@ -86,8 +85,18 @@ func TestPolicyDecide(t *testing.T) {
 		require.Equal(t, c.want, a.String(), c.name)
 		require.Equal(t, c.rule, i, c.name)
 	}
+	// a dtype ternkit cannot decode: kept when a keep rule decides, an
+	// error when a ternary rule matches it
+	_, _, err := p.Decide(&Tensor{Name: "odd", DType: "Q4", Shape: []int64{4, 4}})
+	require.ErrorIs(t, err, ErrDType)
+	require.ErrorIs(t, err, ErrPolicy)
+	require.Contains(t, err.Error(), `"Q4"`)
+	a, i, err := (&Policy{Rules: []Rule{mustRule(t, "*=keep")}}).Decide(&Tensor{Name: "odd", DType: "Q4", Shape: []int64{4, 4}})
+	require.NoError(t, err)
+	require.Equal(t, ActKeep, a.Kind)
+	require.Equal(t, 0, i)
 	none := &Policy{Rules: []Rule{mustRule(t, "x=ternary")}}
-	a, i, err := none.Decide(&Tensor{Name: "y", DType: "F32", Shape: []int64{2, 2}})
+	a, i, err = none.Decide(&Tensor{Name: "y", DType: "F32", Shape: []int64{2, 2}})
 	require.NoError(t, err)
 	require.Equal(t, ActKeep, a.Kind)
 	require.Equal(t, -1, i)

@@ -13,20 +13,6 @@ import (
 	"github.com/stretchr/testify/require"
 )
 
-// numpyPython returns Debian's python3 when it has numpy (package
-// python3-numpy). It skips without it, but fails under CI, which installs it.
-func numpyPython(t *testing.T) string {
-	t.Helper()
-	const py = "/usr/bin/python3"
-	if err := exec.Command(py, "-c", "import numpy").Run(); err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatalf("%s with numpy not available (%v): CI must install python3-numpy", py, err)
-		}
-		t.Skipf("%s with numpy not available (%v); apt-get install python3-numpy", py, err)
-	}
-	return py
-}
-
 // The numpy reference (testdata/reference/absmean.py, written from the
 // recipe in pack/FORMAT.md) agrees trit for trit and scale for scale over
 // random tensors at every granularity, both scale rules and both tie
@@ -35,7 +21,8 @@ func numpyPython(t *testing.T) string {
 // round to the neighbouring float32; only groups whose scales differ may
 // then differ in trits whose scaled value lies next to ±0.5 or ±1.5.
 func TestTernarizeAgreesWithNumpy(t *testing.T) {
-	py := numpyPython(t)
+	requireNumpy(t)
+	py := numpyPython
 	script, err := filepath.Abs("../testdata/reference/absmean.py")
 	require.NoError(t, err)
 	rng := rand.New(rand.NewPCG(21, 22))

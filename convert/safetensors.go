@@ -29,7 +29,8 @@ type headerEntry struct {
 	dtype      string
 	shape      []int64
 	begin, end int64 // relative to the data section
-	nbytes     int64 // product(shape) × dtype size
+	nbytes     int64 // product(shape) × dtype size, -1 for an unknown dtype
+	count      int64 // product(shape), set for an unknown dtype
 	at         int64 // absolute offset of the entry's '{'
 }
 
@@ -39,18 +40,20 @@ type header struct {
 	entries  []headerEntry
 }
 
-// headerParser walks the JSON header token by token, so that every problem
-// can be located at an absolute byte offset and duplicate keys are seen.
+// headerParser walks a JSON document (a safetensors header or a shard
+// index) token by token, so that every problem can be located at an absolute
+// byte offset and duplicate keys are seen.
 type headerParser struct {
 	file string
 	h    []byte
 	dec  *json.Decoder
+	base int64 // absolute offset of h[0] in file
+	bad  error // sentinel for malformed JSON and wrong structure
 }
 
-// parseHeader decodes and validates h, the JSON header of file. It checks
-// UTF-8, JSON syntax, the shape of every entry, dtypes, and that each shape's
-// byte size fits in int64; data offsets are checked by layoutTensors.
-func parseHeader(file string, h []byte) (*header, error) {
+// newJSONParser checks that h, found at offset base of file, is UTF-8 and
+// returns a parser over it whose structural errors wrap bad.
+func newJSONParser(file string, h []byte, base int64, bad error, what string) (*headerParser, error) {
 	if !utf8.Valid(h) {
 		i := 0
 		for i < len(h) {
@@ -60,11 +63,21 @@ func parseHeader(file string, h []byte) (*header, error) {
 			}
 			i += n
 		}
-		return nil, inputError(file, "", headerStart+int64(i), ErrHeader, "header is not valid UTF-8 (byte 0x%02x)", h[i])
+		return nil, inputError(file, "", base+int64(i), bad, "%s is not valid UTF-8 (byte 0x%02x)", what, h[i])
 	}
 	dec := json.NewDecoder(bytes.NewReader(h))
 	dec.UseNumber()
-	p := &headerParser{file: file, h: h, dec: dec}
+	return &headerParser{file: file, h: h, dec: dec, base: base, bad: bad}, nil
+}
+
+// parseHeader decodes and validates h, the JSON header of file. It checks
+// UTF-8, JSON syntax, the shape of every entry, dtypes, and that each shape's
+// byte size fits in int64; data offsets are checked by layoutTensors.
+func parseHeader(file string, h []byte) (*header, error) {
+	p, err := newJSONParser(file, h, headerStart, ErrHeader, "header")
+	if err != nil {
+		return nil, err
+	}
 	return p.parse()
 }
 
@@ -83,16 +96,16 @@ func (p *headerParser) next(tensor string) (json.Token, int64, error) {
 		}
 		break
 	}
-	at := headerStart + pos
+	at := p.base + pos
 	tok, err := p.dec.Token()
 	if err == nil {
 		return tok, at, nil
 	}
 	off, detail := p.syntaxError(at)
-	return nil, at, p.fail(tensor, off, ErrHeader, "malformed JSON: %s", detail)
+	return nil, at, p.fail(tensor, off, p.bad, "malformed JSON: %s", detail)
 }
 
-// syntaxError locates the first JSON syntax error in the header with a full
+// syntaxError locates the first JSON syntax error in the document with a full
 // validating scan (the token stream does not report offsets reliably) and
 // returns its absolute offset and description. at is the fallback offset.
 func (p *headerParser) syntaxError(at int64) (int64, string) {
@@ -110,7 +123,7 @@ func (p *headerParser) syntaxError(at int64) (int64, string) {
 	if off > 0 && !(off == int64(len(p.h)) && se.Error() == "unexpected end of JSON input") {
 		off--
 	}
-	return headerStart + off, se.Error()
+	return p.base + off, se.Error()
 }
 
 // describe names a token for error messages.
@@ -143,7 +156,7 @@ func (p *headerParser) expectDelim(tensor string, d json.Delim, what string) (in
 		return at, err
 	}
 	if got, ok := tok.(json.Delim); !ok || got != d {
-		return at, p.fail(tensor, at, ErrHeader, "%s must be %s, found %s", what, describe(d), describe(tok))
+		return at, p.fail(tensor, at, p.bad, "%s must be %s, found %s", what, describe(d), describe(tok))
 	}
 	return at, nil
 }
@@ -184,8 +197,17 @@ func (p *headerParser) parse() (*header, error) {
 		}
 		hdr.entries = append(hdr.entries, e)
 	}
-	if _, err := p.expectDelim("", '}', "header"); err != nil {
+	if err := p.end("header"); err != nil {
 		return nil, err
+	}
+	return hdr, nil
+}
+
+// end reads the closing brace of the top-level object and requires nothing
+// but whitespace after it.
+func (p *headerParser) end(what string) error {
+	if _, err := p.expectDelim("", '}', what); err != nil {
+		return err
 	}
 	pos := p.dec.InputOffset()
 	if tok, err := p.dec.Token(); !errors.Is(err, io.EOF) {
@@ -193,11 +215,11 @@ func (p *headerParser) parse() (*header, error) {
 			pos++
 		}
 		if err != nil {
-			return nil, p.fail("", headerStart+pos, ErrHeader, "unexpected data after the header object: %v", err)
+			return p.fail("", p.base+pos, p.bad, "unexpected data after the %s object: %v", what, err)
 		}
-		return nil, p.fail("", headerStart+pos, ErrHeader, "unexpected %s after the header object", describe(tok))
+		return p.fail("", p.base+pos, p.bad, "unexpected %s after the %s object", describe(tok), what)
 	}
-	return hdr, nil
+	return nil
 }
 
 // parseMetadata reads the "__metadata__" object: a string → string map.
@@ -272,8 +294,8 @@ func (p *headerParser) parseEntry(name string) (headerEntry, error) {
 			if !ok {
 				return e, p.fail(name, at, ErrHeader, "dtype must be a string, found %s", describe(tok))
 			}
-			if _, known := dtypeSizes[s]; !known {
-				return e, p.fail(name, at, ErrDType, "dtype %q", s)
+			if _, known := dtypeSizes[s]; !known && !isDTypeName(s) {
+				return e, p.fail(name, at, ErrDType, "dtype %q is not a dtype name (want 1 to %d upper-case letters, digits or '_', starting with a letter)", s, maxDTypeName)
 			}
 			e.dtype = s
 		case "shape":
@@ -324,12 +346,42 @@ func (p *headerParser) parseEntry(name string) (headerEntry, error) {
 			return e, p.fail(name, e.at, ErrHeader, "missing field %q", f.name)
 		}
 	}
-	n, ok := shapeBytes(e.shape, int64(dtypeSizes[e.dtype]))
+	size, known := dtypeSizes[e.dtype]
+	if !known {
+		// An unknown dtype has no element size: only the element count must
+		// fit, and the byte length comes from the offsets (layoutTensors).
+		size = 1
+	}
+	n, ok := shapeBytes(e.shape, int64(size))
 	if !ok {
 		return e, p.fail(name, shapeAt, ErrHeader, "shape %v × %s overflows 64-bit size", e.shape, e.dtype)
 	}
 	e.nbytes = n
+	if !known {
+		e.nbytes = -1
+		e.count = n
+	}
 	return e, nil
+}
+
+// maxDTypeName bounds the length of a dtype string this package does not
+// know.
+const maxDTypeName = 32
+
+// isDTypeName reports whether s looks like a dtype string: an upper-case
+// letter, then upper-case letters, digits or '_', at most maxDTypeName bytes.
+// Such a dtype is accepted without being known; see layoutTensors.
+func isDTypeName(s string) bool {
+	if len(s) == 0 || len(s) > maxDTypeName || s[0] < 'A' || s[0] > 'Z' {
+		return false
+	}
+	for i := 1; i < len(s); i++ {
+		c := s[i]
+		if !('A' <= c && c <= 'Z' || '0' <= c && c <= '9' || c == '_') {
+			return false
+		}
+	}
+	return true
 }
 
 // nonNegative reads a JSON integer in [0, MaxInt64].
@@ -340,20 +392,20 @@ func (p *headerParser) nonNegative(tensor, what string) (int64, error) {
 	}
 	num, ok := tok.(json.Number)
 	if !ok {
-		return 0, p.fail(tensor, at, ErrHeader, "%s must be a non-negative integer, found %s", what, describe(tok))
+		return 0, p.fail(tensor, at, p.bad, "%s must be a non-negative integer, found %s", what, describe(tok))
 	}
 	s := num.String()
 	if len(s) > 0 && s[0] == '-' {
-		return 0, p.fail(tensor, at, ErrHeader, "%s %s is negative", what, s)
+		return 0, p.fail(tensor, at, p.bad, "%s %s is negative", what, s)
 	}
 	for i := 0; i < len(s); i++ {
 		if s[i] < '0' || s[i] > '9' {
-			return 0, p.fail(tensor, at, ErrHeader, "%s %s is not an integer", what, s)
+			return 0, p.fail(tensor, at, p.bad, "%s %s is not an integer", what, s)
 		}
 	}
 	v, err := strconv.ParseInt(s, 10, 64)
 	if err != nil {
-		return 0, p.fail(tensor, at, ErrHeader, "%s %s is out of range", what, s)
+		return 0, p.fail(tensor, at, p.bad, "%s %s is out of range", what, s)
 	}
 	return v, nil
 }
@@ -384,6 +436,12 @@ func absolute(dataStart, rel int64) int64 {
 // data-offset order: sorted, contiguous from 0, no holes, overlaps or
 // reversal, each span equal to shape × dtype size, the last ending exactly at
 // the end of the file.
+//
+// A dtype this package does not know has no element size, so its span is
+// taken from the offsets, which must still be contiguous with their
+// neighbours; the only size rule is that the span is empty exactly when the
+// shape holds no element. Such a tensor can be kept byte for byte but not
+// decoded (Tensor.DecodeWeights gives ErrDType).
 func layoutTensors(file string, entries []headerEntry, dataStart, dataLen int64) ([]*Tensor, error) {
 	for _, e := range entries {
 		if e.end < e.begin {
@@ -406,21 +464,26 @@ func layoutTensors(file string, entries []headerEntry, dataStart, dataLen int64)
 		case e.begin < pos:
 			return nil, inputError(file, e.name, at, ErrOffsets,
 				"data_offsets [%d, %d] overlap tensor %q, which ends at %d", e.begin, e.end, prev, pos)
-		case e.end-e.begin != e.nbytes:
+		case e.nbytes >= 0 && e.end-e.begin != e.nbytes:
 			return nil, inputError(file, e.name, at, ErrOffsets,
 				"data_offsets [%d, %d] span %d bytes, shape %v × %s needs %d", e.begin, e.end, e.end-e.begin, e.shape, e.dtype, e.nbytes)
+		case e.nbytes < 0 && (e.end == e.begin) != (e.count == 0):
+			return nil, inputError(file, e.name, at, ErrOffsets,
+				"data_offsets [%d, %d] span %d bytes for the %d elements of shape %v (dtype %q is unknown, but only an empty shape takes no bytes)",
+				e.begin, e.end, e.end-e.begin, e.count, e.shape, e.dtype)
 		case e.end > dataLen:
 			return nil, inputError(file, e.name, at, ErrTruncated,
 				"data_offsets [%d, %d] run past the end of the %d-byte data section", e.begin, e.end, dataLen)
 		}
 		pos, prev = e.end, e.name
 		tensors = append(tensors, &Tensor{
-			Name:   e.name,
-			DType:  e.dtype,
-			Shape:  e.shape,
-			File:   file,
-			Offset: at,
-			Length: e.nbytes,
+			Name:    e.name,
+			DType:   e.dtype,
+			Shape:   e.shape,
+			File:    file,
+			Offset:  at,
+			Length:  e.end - e.begin,
+			entryAt: e.at,
 		})
 	}
 	if pos < dataLen {

@@ -200,8 +200,20 @@ func TestOpenBadInput(t *testing.T) {
 	add(tc{"reversed offsets", stFile(h, make([]byte, 8)), ErrOffsets, "w", data(h, 8)})
 	h = `{"w":{"dtype":"F32","shape":[3],"data_offsets":[0,8]}}`
 	add(tc{"size not shape times dtype", stFile(h, make([]byte, 8)), ErrOffsets, "w", data(h, 0)})
-	h = `{"w":{"dtype":"F7","shape":[2],"data_offsets":[0,8]}}`
-	add(tc{"unknown dtype", stFile(h, make([]byte, 8)), ErrDType, "w", at(h, `"F7"`)})
+	h = `{"w":{"dtype":"f32","shape":[2],"data_offsets":[0,8]}}`
+	add(tc{"dtype not a dtype name", stFile(h, make([]byte, 8)), ErrDType, "w", at(h, `"f32"`)})
+	h = `{"w":{"dtype":"","shape":[2],"data_offsets":[0,8]}}`
+	add(tc{"empty dtype", stFile(h, make([]byte, 8)), ErrDType, "w", at(h, `""`)})
+	h = `{"w":{"dtype":"F7 ","shape":[2],"data_offsets":[0,8]}}`
+	add(tc{"dtype with a space", stFile(h, make([]byte, 8)), ErrDType, "w", at(h, `"F7 "`)})
+	h = `{"w":{"dtype":"F7","shape":[2],"data_offsets":[0,0]}}`
+	add(tc{"unknown dtype, elements but no bytes", stFile(h, nil), ErrOffsets, "w", data(h, 0)})
+	h = `{"w":{"dtype":"F7","shape":[0],"data_offsets":[0,4]}}`
+	add(tc{"unknown dtype, bytes but no elements", stFile(h, make([]byte, 4)), ErrOffsets, "w", data(h, 0)})
+	h = `{"a":{"dtype":"F7","shape":[3],"data_offsets":[0,4]},"b":{"dtype":"U8","shape":[1],"data_offsets":[5,6]}}`
+	add(tc{"unknown dtype, hole after it", stFile(h, make([]byte, 6)), ErrOffsets, "b", data(h, 5)})
+	h = `{"w":{"dtype":"F7","shape":[4294967296,4294967296],"data_offsets":[0,8]}}`
+	add(tc{"unknown dtype, shape overflow", stFile(h, make([]byte, 8)), ErrHeader, "w", at(h, "[4294967296")})
 	add(tc{"trailing bytes", stFile(entry, make([]byte, 12)), ErrOffsets, "", data(entry, 8)})
 	h = `{}`
 	add(tc{"bytes but no tensors", stFile(h, []byte{1}), ErrOffsets, "", data(h, 0)})
@@ -209,17 +221,9 @@ func TestOpenBadInput(t *testing.T) {
 	for _, c := range tests {
 		t.Run(c.name, func(t *testing.T) {
 			path := writeTemp(t, "bad.safetensors", c.file)
-			s, err := Open(path)
-			require.Error(t, err)
-			require.Nil(t, s)
-			assert.ErrorIs(t, err, c.sentinel)
-			var ie *InputError
-			require.ErrorAs(t, err, &ie)
-			assert.Equal(t, path, ie.File)
-			assert.Equal(t, c.tensor, ie.Tensor)
+			ie := openFailure(t, path, c.sentinel, path, c.tensor)
 			assert.Equal(t, c.offset, ie.Offset)
-			msg := err.Error()
-			assert.True(t, strings.HasPrefix(msg, path+": "), msg)
+			msg := ie.Error()
 			assert.Contains(t, msg, fmt.Sprintf("byte %d: ", c.offset))
 			if c.tensor != "" {
 				assert.Contains(t, msg, fmt.Sprintf("tensor %q", c.tensor))
@@ -240,4 +244,33 @@ func TestOpenMissingFile(t *testing.T) {
 	assert.Equal(t, int64(-1), ie.Offset)
 	assert.ErrorIs(t, err, os.ErrNotExist)
 	assert.Equal(t, path+": open: no such file or directory", err.Error())
+}
+
+// A dtype this package does not know is accepted when its offsets are
+// consistent: its byte length comes from data_offsets, Walk returns its
+// bytes unchanged, and it cannot be decoded for ternarization.
+func TestOpenUnknownDType(t *testing.T) {
+	header := `{"a":{"dtype":"F4_PACKED","shape":[3],"data_offsets":[0,2]},` +
+		`"b":{"dtype":"U8","shape":[2],"data_offsets":[2,4]},` +
+		`"c":{"dtype":"X9","shape":[0],"data_offsets":[4,4]}}`
+	data := []byte{0xAB, 0x0C, 5, 6}
+	path := writeTemp(t, "u.safetensors", stFile(header, data))
+	s, err := Open(path)
+	require.NoError(t, err)
+	defer s.Close()
+	require.Len(t, s.Tensors, 3)
+	a, b, c := s.Tensors[0], s.Tensors[1], s.Tensors[2]
+	assert.Equal(t, "F4_PACKED", a.DType)
+	assert.Equal(t, int64(2), a.Length, "length from the offsets")
+	assert.Equal(t, int64(3), a.NumElements())
+	assert.False(t, a.KnownDType())
+	assert.False(t, a.Ternarizable())
+	assert.True(t, b.KnownDType())
+	assert.Equal(t, int64(0), c.Length)
+	got, _ := walkAll(t, s)
+	assert.Equal(t, data[:2], got["a"])
+	assert.Equal(t, data[2:], got["b"])
+	err = a.DecodeWeights(got["a"], make([]float32, 3))
+	assert.ErrorIs(t, err, ErrDType)
+	assert.Contains(t, err.Error(), `tensor "a"`)
 }

@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"math"
 	"os"
 
 	"github.com/zeebo/blake3"
@@ -18,6 +19,8 @@ type Tensor struct {
 	File   string  // path of the file holding it
 	Offset int64   // absolute byte offset of its first data byte in File
 	Length int64   // data bytes
+
+	entryAt int64 // absolute offset of its header entry in File
 }
 
 // NumElements returns the product of the shape (1 for a scalar).
@@ -32,6 +35,53 @@ func (t *Tensor) NumElements() int64 {
 // IsFloat reports whether the tensor holds F64, F32, F16 or BF16 values.
 func (t *Tensor) IsFloat() bool { return isFloatDType(t.DType) }
 
+// KnownDType reports whether the tensor's dtype is one this package knows
+// the element size of. A tensor of an unknown dtype was accepted on its
+// offsets alone; it can be kept byte for byte, never ternarized.
+func (t *Tensor) KnownDType() bool {
+	_, ok := dtypeSizes[t.DType]
+	return ok
+}
+
+// Ternarizable reports whether the tensor's dtype can be decoded for
+// ternarization: F64, F32, F16, BF16, F8_E4M3 or F8_E5M2. Integer and BOOL
+// tensors and tensors of a dtype this package does not know are only ever
+// kept.
+func (t *Tensor) Ternarizable() bool { return isDecodableDType(t.DType) }
+
+// DecodeWeights decodes raw, the tensor's bytes as Walk gives them, into
+// dst (one float32 per element) for ternarization. Errors are
+// *InputError values naming the file, the tensor and the byte offset:
+// ErrDType when the dtype cannot be ternarized (integer, BOOL or unknown),
+// ErrNonFinite at the first NaN or infinity, including an F64 value too
+// large for float32, which the message reports as an overflow.
+func (t *Tensor) DecodeWeights(raw []byte, dst []float32) error {
+	if !t.Ternarizable() {
+		why := "integer and BOOL tensors are always kept, never ternarized"
+		if !t.KnownDType() {
+			why = "a dtype this version does not know can be kept byte for byte, never ternarized"
+		}
+		return inputError(t.File, t.Name, t.Offset, ErrDType, "dtype %q: %s", t.DType, why)
+	}
+	if err := DecodeFloat32(t.DType, raw, dst); err != nil {
+		return &InputError{File: t.File, Tensor: t.Name, Offset: t.Offset, Err: err}
+	}
+	for i, v := range dst {
+		if !math.IsNaN(float64(v)) && !math.IsInf(float64(v), 0) {
+			continue
+		}
+		size := int64(dtypeSizes[t.DType])
+		at := t.Offset + int64(i)*size
+		if t.DType == "F64" {
+			if src := math.Float64frombits(binary.LittleEndian.Uint64(raw[8*i:])); !math.IsNaN(src) && !math.IsInf(src, 0) {
+				return inputError(t.File, t.Name, at, ErrNonFinite, "element %d: F64 value %g overflows float32 to %v", i, src, v)
+			}
+		}
+		return inputError(t.File, t.Name, at, ErrNonFinite, "element %d is %v", i, v)
+	}
+	return nil
+}
+
 // SourceFile is one file of a source; BLAKE3 is filled in by Walk.
 type SourceFile struct {
 	Path   string
@@ -39,12 +89,14 @@ type SourceFile struct {
 	BLAKE3 [32]byte
 }
 
-// Source is an opened checkpoint.
+// Source is an opened checkpoint: one safetensors file, or every shard of a
+// sharded set read as one model.
 type Source struct {
-	Path     string
-	Files    []SourceFile
-	Metadata map[string]string // "__metadata__", may be nil
+	Path     string            // the file or index read (a directory resolves to one)
+	Files    []SourceFile      // the files holding tensors; shards in name order
+	Metadata map[string]string // "__metadata__" (merged over shards), may be nil
 	Tensors  []*Tensor         // file order, then data-offset order
+	Warnings []string          // problems that do not stop reading, e.g. an index total_size that disagrees
 
 	open []*openFile // parallel to Files; nil once closed
 }
@@ -58,16 +110,12 @@ type openFile struct {
 	tensors   []*Tensor
 }
 
-// Open parses and validates the header of the safetensors file at path; it
-// reads no tensor data. Every error is an *InputError.
-func Open(path string) (*Source, error) {
+// openSingle parses and validates the header of the safetensors file at
+// path.
+func openSingle(path string) (*Source, error) {
 	f, err := os.Open(path)
 	if err != nil {
-		var pe *os.PathError
-		if errors.As(err, &pe) {
-			err = pe.Err
-		}
-		return nil, &InputError{File: path, Offset: -1, Err: fmt.Errorf("open: %w", err)}
+		return nil, openError(path, err)
 	}
 	of, size, md, err := readHeader(path, f)
 	if err != nil {
@@ -81,6 +129,16 @@ func Open(path string) (*Source, error) {
 		Tensors:  of.tensors,
 		open:     []*openFile{of},
 	}, nil
+}
+
+// openError reports a file that cannot be opened, without repeating its
+// path.
+func openError(path string, err error) *InputError {
+	var pe *os.PathError
+	if errors.As(err, &pe) {
+		err = pe.Err
+	}
+	return &InputError{File: path, Offset: -1, Err: fmt.Errorf("open: %w", err)}
 }
 
 // readHeader reads and validates the length field and header of f, leaving

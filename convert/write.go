@@ -4,6 +4,8 @@ import (
 	"bytes"
 	"encoding/json"
 	"fmt"
+	"maps"
+	"math"
 	"slices"
 	"strconv"
 	"unicode/utf8"
@@ -54,12 +56,7 @@ func encodeHeader(tensors []WriteTensor, metadata map[string]string) ([]byte, []
 	b.WriteByte('{')
 	if metadata != nil {
 		b.WriteString(`"` + metadataKey + `":{`)
-		keys := make([]string, 0, len(metadata))
-		for k := range metadata {
-			keys = append(keys, k)
-		}
-		slices.Sort(keys)
-		for i, k := range keys {
+		for i, k := range slices.Sorted(maps.Keys(metadata)) {
 			v := metadata[k]
 			if !utf8.ValidString(k) || !utf8.ValidString(v) {
 				return nil, nil, fmt.Errorf("%w: %q entry %q is not valid UTF-8", ErrHeader, metadataKey, k)
@@ -98,6 +95,9 @@ func encodeHeader(tensors []WriteTensor, metadata map[string]string) ([]byte, []
 		n, ok := shapeBytes(t.Shape, int64(size))
 		if !ok {
 			return nil, nil, fmt.Errorf("tensor %q: %w: shape %v × %s overflows 64-bit size", t.Name, ErrHeader, t.Shape, t.DType)
+		}
+		if n > math.MaxInt64-offset {
+			return nil, nil, fmt.Errorf("tensor %q: %w: data offsets pass 64-bit size", t.Name, ErrHeader)
 		}
 		sizes = append(sizes, n)
 		if b.Len() > 1 {

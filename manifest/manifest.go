@@ -399,7 +399,12 @@ func (e *Tensor) validateKept(n int64) error {
 		return fmt.Errorf("kept tensor stored as %s from %s: stats are required exactly when the dtype changes", e.DType, e.SourceDType)
 	}
 	if !ok {
-		return nil // an unknown dtype kept byte for byte: its length is the source's
+		// An unknown dtype is kept byte for byte, as the source's data
+		// offsets delimit it: only an empty shape has no bytes.
+		if (n == 0) != (e.Section.Length == 0) {
+			return fmt.Errorf("section length %d for %d elements of dtype %q", e.Section.Length, n, e.DType)
+		}
+		return nil
 	}
 	if hi, lo := bits.Mul64(uint64(n), uint64(size)); hi != 0 || lo != uint64(e.Section.Length) {
 		return fmt.Errorf("section length %d, %d %s elements need %d", e.Section.Length, n, e.DType, n*int64(size))

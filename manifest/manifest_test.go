@@ -124,6 +124,9 @@ func TestDecodeRejects(t *testing.T) {
 		{"int8 trits", func(m *Manifest) { m.Tensors[3].Trits = &convert.TritCounts{Zero: 6} }, "carries"},
 		{"1-D ternary", func(m *Manifest) { m.Tensors[2].Shape = []int64{12} }, "2 or more dimensions"},
 		{"missing stats", func(m *Manifest) { m.Tensors[0].Stats = nil }, "missing stats"},
+		{"unknown dtype without bytes", func(m *Manifest) {
+			m.Tensors[1].SourceDType, m.Tensors[1].DType, m.Tensors[1].Section.Length = "F12", "F12", 0
+		}, `"F12"`},
 		{"totals", func(m *Manifest) { m.Totals.TernaryParams++ }, "totals"},
 		{"created not a time", func(m *Manifest) { m.Created = "yesterday" }, `"yesterday"`},
 		{"created with offset", func(m *Manifest) { m.Created = "2026-01-02T03:04:05+01:00" }, "+01:00"},
@@ -142,6 +145,20 @@ func TestDecodeRejects(t *testing.T) {
 			require.Contains(t, err.Error(), c.want)
 		})
 	}
+}
+
+// A kept tensor of a source dtype without a known element size has the
+// length the source's offsets gave it.
+func TestKeptUnknownDType(t *testing.T) {
+	m := validManifest()
+	m.Tensors[1].SourceDType, m.Tensors[1].DType = "F4_PACKED", "F4_PACKED"
+	m.Tensors[1].Section.Length = 2
+	m.ComputeTotals()
+	b, err := Encode(m)
+	require.NoError(t, err)
+	got, err := Decode(b)
+	require.NoError(t, err)
+	require.Equal(t, "F4_PACKED", got.Tensors[1].SourceDType)
 }
 
 func TestDecodeRejectsUnknownKeys(t *testing.T) {

@@ -163,7 +163,12 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 	}
 	n := int(t.NumElements())
 	q.floats = grow(q.floats, n)
-	if err := convert.DecodeFloat32(t.DType, raw, q.floats); err != nil {
+	if a.Kind == convert.ActTernary || a.Kind == convert.ActInt8 {
+		// weights to quantize: F8 decoded too, NaN, Inf and F64 overflow refused
+		if err := t.DecodeWeights(raw, q.floats); err != nil {
+			return sections{}, err
+		}
+	} else if err := convert.DecodeFloat32(t.DType, raw, q.floats); err != nil {
 		return sections{}, fail(err)
 	}
 	cols := convert.Columns(t.Shape)

@@ -203,7 +203,7 @@ func TestPackBadInput(t *testing.T) {
 		{"offsets hole", rawSafetensors(`{"a":{"dtype":"F32","shape":[1],"data_offsets":[0,4]},"b":{"dtype":"F32","shape":[1],"data_offsets":[8,12]}}`, make([]byte, 12)), "b", "offsets"},
 		{"offsets overlap", rawSafetensors(`{"a":{"dtype":"F32","shape":[2],"data_offsets":[0,8]},"b":{"dtype":"F32","shape":[2],"data_offsets":[4,12]}}`, make([]byte, 12)), "b", "offsets"},
 		{"size not shape x dtype", rawSafetensors(`{"w":{"dtype":"F32","shape":[2,2],"data_offsets":[0,12]}}`, make([]byte, 12)), "w", "offsets"},
-		{"unknown dtype", rawSafetensors(`{"w":{"dtype":"F12","shape":[2],"data_offsets":[0,4]}}`, make([]byte, 4)), "w", "F12"},
+		{"dtype not a dtype name", rawSafetensors(`{"w":{"dtype":"f12","shape":[2],"data_offsets":[0,4]}}`, make([]byte, 4)), "w", "f12"},
 		{"nan in ternary tensor", rawSafetensors(good, nan), "w", "element 2"},
 		{"inf in ternary tensor", rawSafetensors(`{"w":{"dtype":"F16","shape":[2,2],"data_offsets":[0,8]}}`, inf), "w", "element 1"},
 	}

@@ -118,7 +118,8 @@ func newPackCmd() *cobra.Command {
 	cmd := &cobra.Command{
 		Use:   "pack SRC -o OUT",
 		Short: "Ternarize a safetensors checkpoint into an artifact",
-		Long: `pack reads SRC (a .safetensors file) and applies the policy to every tensor:
+		Long: `pack reads SRC (a .safetensors file, the index of a sharded set, or a
+directory holding either) and applies the policy to every tensor:
 by default every 2-D float tensor except embeddings and the output head
 (names containing "embed" or "lm_head") is ternarized per tensor with the
 absmean method, and the rest is kept byte for byte. --policy FILE and
@@ -129,6 +130,7 @@ is written at OUT.
 
 ` + caution + `.`,
 		Example: `  ternkit pack model.safetensors -o model.tkart
+  ternkit pack model.safetensors.index.json -o model.tkart
   ternkit pack model.safetensors -o model.tkart --rule '*.mlp.*=ternary:group:128' --rule '*embed*=int8'
   ternkit pack --print-policy > policy.toml
   ternkit pack model.safetensors -o model.tkart --policy policy.toml --codec bits2
@@ -181,7 +183,7 @@ is written at OUT.
 // packFile opens src and builds the artifact at out. With warnUnmatched it
 // warns on stderr about rules that match no tensor of the source.
 func packFile(src, out string, opts pack.Options, warnUnmatched bool, stderr io.Writer) (*manifest.Manifest, error) {
-	s, err := convert.Open(src)
+	s, err := openSource(src, stderr)
 	if err != nil {
 		return nil, err
 	}

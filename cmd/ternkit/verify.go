@@ -9,7 +9,6 @@ import (
 
 	"github.com/spf13/cobra"
 
-	"ternkit/convert"
 	"ternkit/pack"
 	"ternkit/verify"
 )
@@ -54,7 +53,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			bar := newProgressBar(cmd, "verify")
 			opts := verify.Options{Progress: bar.callback(), Budget: budget}
 			if against != "" {
-				src, err := convert.Open(against)
+				src, err := openSource(against, cmd.ErrOrStderr())
 				if err != nil {
 					return checkpointHint(err, against)
 				}
@@ -81,7 +80,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 		},
 	}
 	registerKeyFlag(cmd)
-	cmd.Flags().StringVar(&against, "against", "", "source checkpoint `SRC` to re-quantize and compare")
+	cmd.Flags().StringVar(&against, "against", "", "source checkpoint `SRC` to re-quantize and compare (file, sharded set index, or directory)")
 	_ = cmd.MarkFlagFilename("against", "safetensors")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON (keys in README, \"JSON output\")")
 	cmd.Flags().StringVar(&budgetFile, "budget", "", "budget `FILE` (TOML [[budget]] tables: match and limits)")

@@ -1,0 +1,65 @@
+package main
+
+import (
+	"math"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/convert"
+)
+
+// The plan for the measured sizes lands within half a layer of the target
+// and doubling the target keeps the shapes and doubles the layers (about).
+func TestPlanSizes(t *testing.T) {
+	perLayer := 2 * float64(4*2048*2048+3*2048*5632+2*2048)
+	for _, tc := range []struct {
+		size   float64
+		layers int
+	}{{1.5e9, 12}, {3e9, 27}} {
+		files, layers := plan(midSized, tc.size, 1)
+		require.Equal(t, tc.layers, layers)
+		var bytes float64
+		largest := int64(0)
+		for _, p := range files[0] {
+			bytes += 2 * float64(p.elements())
+			largest = max(largest, p.elements())
+		}
+		require.LessOrEqual(t, math.Abs(bytes-tc.size), perLayer/2)
+		require.Equal(t, int64(32000*2048), largest, "the embedding is the largest tensor")
+	}
+}
+
+// A small sharded set and a single file, written with tiny widths, open
+// through convert with the planned tensors.
+func TestRunWritesReadableCheckpoints(t *testing.T) {
+	tiny := dims{hidden: 8, ffn: 16, vocab: 32}
+	dir := t.TempDir()
+	set := filepath.Join(dir, "set")
+	require.NoError(t, run(set, tiny, 1e4, 3, 1))
+	s, err := convert.Open(set)
+	require.NoError(t, err)
+	defer s.Close()
+	require.Len(t, s.Files, 3)
+	require.Empty(t, s.Warnings, "total_size matches the shards")
+	files, layers := plan(tiny, 1e4, 3)
+	want := 0
+	for _, f := range files {
+		want += len(f)
+	}
+	require.Len(t, s.Tensors, want)
+	require.Equal(t, 9*layers+3, want)
+	require.Equal(t, "fernmoss-scout-bulk", s.Metadata["model"])
+
+	single := filepath.Join(dir, "one.safetensors")
+	require.NoError(t, run(single, tiny, 1e4, 1, 1))
+	s1, err := convert.Open(single)
+	require.NoError(t, err)
+	defer s1.Close()
+	require.Len(t, s1.Tensors, want)
+	entries, err := os.ReadDir(dir)
+	require.NoError(t, err)
+	require.Len(t, entries, 2)
+}
