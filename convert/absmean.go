@@ -246,6 +246,7 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 		groups, size = 1, len(w) // one scale, even for an empty tensor
 	}
 	quants := make([]quantizer, groups)
+	gammas := make([]float64, groups)
 	exact := true
 	for k := range quants {
 		part := w[k*size : (k+1)*size]
@@ -257,6 +258,7 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 			}
 			return Ternary{}, err
 		}
+		gammas[k] = gamma
 		quants[k] = newQuantizer(r, gamma)
 		if exact {
 			c, ok := exactScale(part)
@@ -269,27 +271,136 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 	if !exact {
 		// The exact scales apply only when the whole tensor is exact.
 		for k := range quants {
-			quants[k] = newQuantizer(r, mustAbsmean(w[k*size:(k+1)*size]))
+			quants[k] = newQuantizer(r, gammas[k])
 		}
 	}
 	res := Ternary{Scales: make([]float32, groups), Exact: exact}
-	var acc statsAccumulator
+	var sums groupSums
 	for k, q := range quants {
 		res.Scales[k] = q.scale
-		for i := k * size; i < (k+1)*size; i++ {
-			x := q.scaled(w[i])
-			t := q.trit(x)
-			trits[i] = t
-			acc.add(w[i], q.scale*float32(t), x >= 1.5 || x <= -1.5)
-		}
+		part := w[k*size : (k+1)*size]
+		sums.add(q.quantizeGroup(part, trits[k*size:(k+1)*size]), q.scale)
 	}
-	res.Counts.Count(trits)
-	res.Stats = acc.stats(res.Counts.Zero)
+	res.Counts = sums.counts(int64(len(w)))
+	res.Stats = sums.stats(int64(len(w)), exact)
 	return res, nil
 }
 
-// mustAbsmean is Absmean on values already checked to be finite.
-func mustAbsmean(w []float32) float64 {
-	g, _ := Absmean(w)
+// groupTotals is what one pass over a group gathers: the element count with
+// a nonzero trit, the sum of the trits, the count of clipped values, Σ|w|
+// over the nonzero trits, Σw², and the largest |w − scale·trit|.
+type groupTotals struct {
+	nonzero, tritSum, clipped int64
+	absNonzero, sumSq, maxErr float64
+}
+
+// quantizeGroup writes the trits of one group and returns its totals.
+func (q quantizer) quantizeGroup(w []float32, trits []int8) groupTotals {
+	// t = +1 when x > th, −1 when x < −th: th is 0.5 for ties to even, the
+	// float32 just below 0.5 for ties away (x ≥ 0.5).
+	th := float32(0.5)
+	if q.halfAway {
+		th = math.Nextafter32(0.5, 0)
+	}
+	var g groupTotals
+	var xs [512]float32
+	for start := 0; start < len(w); start += len(xs) {
+		v := w[start:min(start+len(xs), len(w))]
+		x := xs[:len(v)]
+		if q.reciprocal {
+			for i := range v {
+				x[i] = v[i] * q.mul
+			}
+		} else {
+			for i := range v {
+				x[i] = v[i] / q.div
+			}
+		}
+		g.tally(v, x, trits[start:start+len(v)], th, float64(q.scale))
+	}
 	return g
+}
+
+// tally writes the trits of weights v with scaled values x and adds their
+// totals to g, without branches on the data: trits are random, so a branch
+// per element would be mispredicted about half the time.
+func (g *groupTotals) tally(v, x []float32, trits []int8, th float32, scale float64) {
+	var nonzero, tritSum, clipped int64
+	var absNonzero, sumSq, maxErr float64
+	x = x[:len(v)]
+	trits = trits[:len(v)]
+	for i := range v {
+		pos, neg := b2i(x[i] > th), b2i(x[i] < -th)
+		nz := pos + neg
+		nonzero += nz
+		tritSum += pos - neg
+		trits[i] = int8(pos - neg)
+		ax := math.Float32frombits(math.Float32bits(x[i]) &^ (1 << 31))
+		clipped += b2i(ax >= 1.5)
+		m := float64(math.Float32frombits(math.Float32bits(v[i]) &^ (1 << 31)))
+		absNonzero += m * float64(nz)
+		sumSq += m * m
+		maxErr = max(maxErr, math.Abs(m-scale*float64(nz)))
+	}
+	g.nonzero += nonzero
+	g.tritSum += tritSum
+	g.clipped += clipped
+	g.absNonzero += absNonzero
+	g.sumSq += sumSq
+	g.maxErr = max(g.maxErr, maxErr)
+}
+
+func b2i(b bool) int64 {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+// groupSums adds the totals of a tensor's groups, each with its scale s:
+// Σw·ŵ = s·Σ|w| over nonzero trits (ŵ = s·sign(w) there), Σŵ² = s²·nonzero.
+type groupSums struct {
+	nonzero, tritSum, clipped int64
+	sumSq, cross, reconSq     float64
+	maxErr                    float64
+}
+
+func (t *groupSums) add(g groupTotals, scale float32) {
+	s := float64(scale)
+	t.nonzero += g.nonzero
+	t.tritSum += g.tritSum
+	t.clipped += g.clipped
+	t.sumSq += g.sumSq
+	t.cross += s * g.absNonzero
+	t.reconSq += s * s * float64(g.nonzero)
+	t.maxErr = max(t.maxErr, g.maxErr)
+}
+
+func (t *groupSums) counts(n int64) TritCounts {
+	return TritCounts{Pos: (t.nonzero + t.tritSum) / 2, Neg: (t.nonzero - t.tritSum) / 2, Zero: n - t.nonzero}
+}
+
+// stats derives the statistics: Σ(w − ŵ)² = Σw² − 2Σwŵ + Σŵ², which is 0
+// by definition for an exact tensor.
+func (t *groupSums) stats(n int64, exact bool) Stats {
+	s := Stats{Cosine: 1}
+	if n == 0 {
+		return s
+	}
+	s.ZeroFraction = float64(n-t.nonzero) / float64(n)
+	s.ClippedFraction = float64(t.clipped) / float64(n)
+	if exact {
+		return s
+	}
+	s.MaxAbsErr = t.maxErr
+	if t.sumSq > 0 {
+		s.RelRMSE = math.Sqrt(max(0, t.sumSq-2*t.cross+t.reconSq) / t.sumSq)
+	}
+	switch {
+	case t.sumSq > 0 && t.reconSq > 0:
+		s.Cosine = t.cross / math.Sqrt(t.sumSq*t.reconSq)
+	case t.sumSq > 0 || t.reconSq > 0:
+		s.Cosine = 0
+	}
+	return s
 }

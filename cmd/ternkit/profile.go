@@ -1,0 +1,37 @@
+package main
+
+import (
+	"fmt"
+	"os"
+	"runtime/pprof"
+
+	"github.com/spf13/cobra"
+)
+
+// cpuProfileFlag names the hidden root flag that writes a CPU profile of the
+// command (go tool pprof reads it); for contributors measuring hot paths.
+const cpuProfileFlag = "cpuprofile"
+
+func registerProfileFlag(root *cobra.Command) {
+	root.PersistentFlags().String(cpuProfileFlag, "", "write a CPU profile of the command to `FILE` (go tool pprof)")
+	_ = root.PersistentFlags().MarkHidden(cpuProfileFlag)
+	root.PersistentPreRunE = func(cmd *cobra.Command, _ []string) error {
+		path, _ := cmd.Flags().GetString(cpuProfileFlag)
+		if path == "" {
+			return nil
+		}
+		f, err := os.Create(path)
+		if err != nil {
+			return fmt.Errorf("--%s: %w", cpuProfileFlag, err)
+		}
+		if err := pprof.StartCPUProfile(f); err != nil {
+			f.Close()
+			return fmt.Errorf("--%s: %w", cpuProfileFlag, err)
+		}
+		cobra.OnFinalize(func() {
+			pprof.StopCPUProfile()
+			f.Close()
+		})
+		return nil
+	}
+}
