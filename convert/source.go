@@ -66,6 +66,18 @@ func (t *Tensor) DecodeWeights(raw []byte, dst []float32) error {
 	if err := DecodeFloat32(t.DType, raw, dst); err != nil {
 		return &InputError{File: t.File, Tensor: t.Name, Offset: t.Offset, Err: err}
 	}
+	// A float32 is NaN or ±Inf exactly when its exponent bits are all set:
+	// one branch-free pass finds whether any is, a second finds the first.
+	var nonFinite uint32
+	for _, v := range dst {
+		// x is 0 exactly for a non-finite value, and below 2^31, so x−1 has
+		// its top bit set exactly then
+		x := ^math.Float32bits(v) & 0x7f800000
+		nonFinite |= (x - 1) & 0x80000000
+	}
+	if nonFinite == 0 {
+		return nil
+	}
 	for i, v := range dst {
 		if !math.IsNaN(float64(v)) && !math.IsInf(float64(v), 0) {
 			continue

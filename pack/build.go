@@ -8,6 +8,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"runtime"
 	"slices"
 	"time"
 
@@ -22,7 +23,12 @@ type Options struct {
 	Codec  Codec           // trit codec for ternary tensors
 	Recipe convert.Recipe  // ternarization recipe
 	Policy *convert.Policy // nil means convert.DefaultPolicy()
-	Tool   string          // recorded as the manifest's "tool"
+	// Workers quantize tensors in parallel; 0 means one per CPU. The bytes
+	// written are the same for any count.
+	Workers int
+	// Budget bounds the source bytes in flight (0: convert.DefaultWalkBudget).
+	Budget int64
+	Tool   string // recorded as the manifest's "tool"
 	// PolicyRules describes Policy in words, recorded as the manifest's
 	// "policy"; nil records none.
 	PolicyRules []string
@@ -87,33 +93,50 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if err := w.write(encodePreamble(minorFor(m))); err != nil {
 		return nil, err
 	}
-	var q quantizeBuffers
+	workers := opts.Workers
+	if workers <= 0 {
+		workers = runtime.NumCPU()
+	}
+	bufs := make([]quantizeBuffers, workers)
 	advance := progressFunc(opts.Progress, src.Tensors)
-	err = src.Walk(func(t *convert.Tensor, raw []byte, sum [32]byte) error {
-		e := manifest.Tensor{
-			Name:         t.Name,
-			Shape:        t.Shape,
-			SourceDType:  t.DType,
-			SourceBLAKE3: manifest.HexHash(sum),
-		}
-		out, err := q.apply(&e, t, raw, actions[t], opts)
-		if err != nil {
-			return err
-		}
-		if e.Section, err = w.section(out.payload); err != nil {
-			return err
-		}
-		if out.scales != nil {
-			s, err := w.section(out.scales)
+	type packed struct {
+		entry manifest.Tensor
+		out   sections
+	}
+	err = convert.WalkOrdered(src, convert.WalkOptions{Workers: workers, Budget: opts.Budget},
+		func(worker int, t *convert.Tensor, raw []byte, sum [32]byte) (packed, error) {
+			e := manifest.Tensor{
+				Name:         t.Name,
+				Shape:        t.Shape,
+				SourceDType:  t.DType,
+				SourceBLAKE3: manifest.HexHash(sum),
+			}
+			out, err := bufs[worker].apply(&e, t, raw, actions[t], opts)
 			if err != nil {
+				return packed{}, err
+			}
+			e.Section = hashSection(out.payload)
+			if out.scales != nil {
+				s := hashSection(out.scales)
+				e.Scales = &s
+			}
+			return packed{e, out}, nil
+		},
+		func(t *convert.Tensor, p packed) error {
+			e := p.entry
+			var err error
+			if e.Section.Offset, err = w.place(p.out.payload); err != nil {
 				return err
 			}
-			e.Scales = &s
-		}
-		m.Tensors = append(m.Tensors, e)
-		advance(t.Length)
-		return nil
-	})
+			if e.Scales != nil {
+				if e.Scales.Offset, err = w.place(p.out.scales); err != nil {
+					return err
+				}
+			}
+			m.Tensors = append(m.Tensors, e)
+			advance(t.Length)
+			return nil
+		})
 	if err != nil {
 		return nil, err
 	}
@@ -129,12 +152,12 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	return m, nil
 }
 
-// quantizeBuffers are reused from tensor to tensor.
+// quantizeBuffers are one worker's scratch space, reused from tensor to
+// tensor; what a tensor writes is allocated afresh, since it is written
+// after the worker has moved on.
 type quantizeBuffers struct {
-	floats  []float32
-	codes   []int8
-	payload []byte
-	scales  []byte
+	floats []float32
+	codes  []int8
 }
 
 // sections is what one tensor writes: its payload and, for row, group and
@@ -182,13 +205,12 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 		g := a.Granularity
 		e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(opts.Codec), &g, res.Exact
 		e.Trits, e.Stats = &res.Counts, &res.Stats
-		q.payload = opts.Codec.Encode(q.payload[:0], q.codes)
+		payload := opts.Codec.Encode(make([]byte, 0, opts.Codec.EncodedLen(n)), q.codes)
 		if g.Kind == convert.GranTensor {
 			e.Scale = res.Scales[0]
-			return sections{payload: q.payload}, nil
+			return sections{payload: payload}, nil
 		}
-		q.scales = appendFloat32s(q.scales[:0], res.Scales)
-		return sections{payload: q.payload, scales: q.scales}, nil
+		return sections{payload: payload, scales: appendFloat32s(nil, res.Scales)}, nil
 	case convert.ActInt8:
 		q.codes = grow(q.codes, n)
 		scales, stats, err := convert.QuantizeInt8Rows(q.floats, cols, q.codes)
@@ -197,23 +219,20 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 		}
 		row := convert.Granularity{Kind: convert.GranRow}
 		e.Kind, e.Codec, e.Granularity, e.Stats = manifest.KindInt8, manifest.CodecRaw, &row, &stats
-		q.payload = append(q.payload[:0], int8Bytes(q.codes)...)
-		q.scales = appendFloat32s(q.scales[:0], scales)
-		return sections{payload: q.payload, scales: q.scales}, nil
+		return sections{payload: append([]byte(nil), int8Bytes(q.codes)...), scales: appendFloat32s(nil, scales)}, nil
 	}
 	// keep:f16, keep:bf16, keep:f32 with a dtype change
-	out, err := convert.EncodeFloat32(q.payload[:0], target, q.floats)
+	out, err := convert.EncodeFloat32(nil, target, q.floats)
 	if err != nil {
 		return sections{}, fail(err)
 	}
-	q.payload = out
 	back := make([]float32, n)
 	if err := convert.DecodeFloat32(target, out, back); err != nil {
 		return sections{}, fail(err)
 	}
 	stats := convert.CompareFloat32(q.floats, back)
 	e.Kind, e.Codec, e.DType, e.Stats = manifest.KindKept, manifest.CodecRaw, target, &stats
-	return sections{payload: q.payload}, nil
+	return sections{payload: out}, nil
 }
 
 func appendFloat32s(dst []byte, v []float32) []byte {
@@ -283,18 +302,25 @@ func (w *atomicWriter) pad() error {
 	return w.write(zeros[:alignUp(w.off)-w.off])
 }
 
-// section pads to the alignment, writes p and returns its manifest entry.
-func (w *atomicWriter) section(p []byte) (manifest.Section, error) {
-	if err := w.pad(); err != nil {
-		return manifest.Section{}, err
-	}
-	s := manifest.Section{Offset: w.off, Length: int64(len(p)), BLAKE3: manifest.HexHash(blake3.Sum256(p))}
+// hashSection is the manifest entry of a section holding p, but for its
+// offset: its BLAKE3 and, past manifest.ChunkSize, the BLAKE3 of each piece.
+func hashSection(p []byte) manifest.Section {
+	s := manifest.Section{Length: int64(len(p)), BLAKE3: manifest.HexHash(blake3.Sum256(p))}
 	if manifest.NumChunks(s.Length) > 0 {
 		for c := 0; c < len(p); c += manifest.ChunkSize {
 			s.Chunks = append(s.Chunks, manifest.HexHash(blake3.Sum256(p[c:min(c+manifest.ChunkSize, len(p))])))
 		}
 	}
-	return s, w.write(p)
+	return s
+}
+
+// place pads to the alignment, writes p and returns its offset.
+func (w *atomicWriter) place(p []byte) (int64, error) {
+	if err := w.pad(); err != nil {
+		return 0, err
+	}
+	off := w.off
+	return off, w.write(p)
 }
 
 func (w *atomicWriter) finish(m *manifest.Manifest) error {

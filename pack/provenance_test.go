@@ -138,12 +138,9 @@ func TestBuildReproducibleForAnyWorkers(t *testing.T) {
 	want := readFile(t, ref)
 	for _, workers := range []int{1, 2, 8} {
 		t.Run("workers="+strconv.Itoa(workers), func(t *testing.T) {
-			if workers != 1 {
-				t.Skip("pending the parallel pipeline: Build has no worker option yet")
-			}
 			sub := t.TempDir()
 			dst := filepath.Join(sub, "w"+Extension)
-			buildWith(t, src, dst, Options{PolicyRules: testRules})
+			buildWith(t, src, dst, Options{PolicyRules: testRules, Workers: workers, Budget: 1})
 			require.Equal(t, want, readFile(t, dst))
 		})
 	}

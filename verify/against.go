@@ -25,35 +25,37 @@ func (w *worstBound) note(tensor string, excess, tolerance float64, index int) {
 	}
 }
 
+// tensorVerdict is what checking one source tensor found.
+type tensorVerdict struct {
+	checks      []Check
+	name        string
+	excess, tol float64
+	at          int // element of the largest bound excess, -1 for none
+	inArtifact  bool
+}
+
 // checkAgainst re-reads the source, redoes each tensor's recorded action
-// with the recorded recipe and compares.
-func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, advance func(n int64)) error {
+// with the recorded recipe and compares. Tensors are checked by workers in
+// parallel; the checks are reported in source order.
+func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers int, advance func(n int64)) error {
 	m := a.Manifest()
 	seen := make(map[string]bool, len(m.Tensors))
 	var worst worstBound
-	err := src.Walk(func(st *convert.Tensor, raw []byte, sum [32]byte) error {
-		defer advance(st.Length)
-		t, err := a.Tensor(st.Name)
-		if err != nil {
-			rep.add(CheckSourceSet, st.Name, false, "source tensor %q (%s) is not in the artifact", st.Name, st.File)
+	err := convert.WalkOrdered(src, convert.WalkOptions{Workers: workers},
+		func(_ int, st *convert.Tensor, raw []byte, sum [32]byte) (tensorVerdict, error) {
+			return checkTensor(a, m.Recipe, st, raw, sum), nil
+		},
+		func(st *convert.Tensor, v tensorVerdict) error {
+			for _, c := range v.checks {
+				rep.add(c.Name, c.Tensor, c.OK, "%s", c.Detail)
+			}
+			if v.inArtifact {
+				seen[st.Name] = true
+			}
+			worst.note(v.name, v.excess, v.tol, v.at)
+			advance(st.Length)
 			return nil
-		}
-		seen[st.Name] = true
-		e := t.Entry
-		if got := manifest.HexHash(sum); got != e.SourceBLAKE3 {
-			rep.add(CheckSourceHash, e.Name, false, "source bytes at %s byte %d differ from those packed (BLAKE3 %s, manifest records %s)",
-				st.File, st.Offset, got, e.SourceBLAKE3)
-			return nil
-		}
-		rep.add(CheckSourceHash, e.Name, true, "")
-		name := CheckRequantize
-		if e.Kind == manifest.KindKept {
-			name = CheckKept
-		}
-		detail := redo(t, m.Recipe, raw, &worst)
-		rep.add(name, e.Name, detail == "", "%s", detail)
-		return nil
-	})
+		})
 	if err != nil {
 		return err
 	}
@@ -75,9 +77,41 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, advance fu
 	return nil
 }
 
+// checkTensor checks one source tensor against the artifact.
+func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, sum [32]byte) tensorVerdict {
+	v := tensorVerdict{name: st.Name, at: -1}
+	add := func(name string, ok bool, format string, args ...any) {
+		c := Check{Name: name, Tensor: st.Name, OK: ok}
+		if !ok {
+			c.Detail = fmt.Sprintf(format, args...)
+		}
+		v.checks = append(v.checks, c)
+	}
+	t, err := a.Tensor(st.Name)
+	if err != nil {
+		add(CheckSourceSet, false, "source tensor %q (%s) is not in the artifact", st.Name, st.File)
+		return v
+	}
+	v.inArtifact = true
+	e := t.Entry
+	if got := manifest.HexHash(sum); got != e.SourceBLAKE3 {
+		add(CheckSourceHash, false, "source bytes at %s byte %d differ from those packed (BLAKE3 %s, manifest records %s)",
+			st.File, st.Offset, got, e.SourceBLAKE3)
+		return v
+	}
+	add(CheckSourceHash, true, "")
+	name := CheckRequantize
+	if e.Kind == manifest.KindKept {
+		name = CheckKept
+	}
+	detail := redo(t, r, raw, &v)
+	add(name, detail == "", "%s", detail)
+	return v
+}
+
 // redo repeats the tensor's action on the source bytes and returns what
-// differs, or "". It records the tensor's bound excess in worst.
-func redo(t *pack.Tensor, r convert.Recipe, raw []byte, worst *worstBound) string {
+// differs, or "". It records the tensor's bound excess in v.
+func redo(t *pack.Tensor, r convert.Recipe, raw []byte, v *tensorVerdict) string {
 	e := t.Entry
 	if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
 		p, err := t.Payload()
@@ -114,8 +148,8 @@ func redo(t *pack.Tensor, r convert.Recipe, raw []byte, worst *worstBound) strin
 		if err != nil {
 			return err.Error()
 		}
-		excess, at := convert.TernaryBoundExcess(w, packed, scales, t.GroupSize())
-		worst.note(e.Name, excess, convert.TernaryBoundTolerance, at)
+		v.excess, v.at = convert.TernaryBoundExcess(w, packed, scales, t.GroupSize())
+		v.tol = convert.TernaryBoundTolerance
 		if d := diffScales(scales, q.Scales); d != "" {
 			return d
 		}
@@ -140,8 +174,8 @@ func redo(t *pack.Tensor, r convert.Recipe, raw []byte, worst *worstBound) strin
 		if err != nil {
 			return err.Error()
 		}
-		excess, at := convert.Int8BoundExcess(w, packed, stored, cols)
-		worst.note(e.Name, excess, convert.Int8BoundTolerance, at)
+		v.excess, v.at = convert.Int8BoundExcess(w, packed, stored, cols)
+		v.tol = convert.Int8BoundTolerance
 		if d := diffScales(stored, scales); d != "" {
 			return d
 		}

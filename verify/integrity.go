@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"sync"
+	"sync/atomic"
 
 	"github.com/zeebo/blake3"
 
@@ -12,82 +14,133 @@ import (
 	"ternkit/pack"
 )
 
+// placedSection is one section of the artifact and the tensor it belongs to.
+type placedSection struct {
+	s      manifest.Section
+	owner  *manifest.Tensor
+	scales bool // the scales section, not the payload
+}
+
 // checkSections streams every section in pieces of manifest.ChunkSize:
-// hashes it whole and piece by piece, checks the zero padding after it,
-// and checks trit payloads (codes, padding, counts), int8 codes and scales.
-// Memory stays at one piece, whatever the artifact's size.
-func checkSections(rep *Report, a *pack.Artifact, advance func(n int64)) {
-	ra := a.ReaderAt()
+// hashes it, checks the zero padding after it, and checks trit payloads
+// (codes, padding, counts), int8 codes and scales. Sections are checked by
+// workers in parallel, each holding one piece; the checks are reported in
+// file order.
+func checkSections(rep *Report, a *pack.Artifact, workers int, advance func(n int64)) {
 	m := a.Manifest()
-	type placed struct {
-		s     manifest.Section
-		owner *manifest.Tensor
-		kind  string // "payload" or "scales"
-	}
-	var all []placed
+	var all []placedSection
 	for i := range m.Tensors {
 		e := &m.Tensors[i]
-		all = append(all, placed{e.Section, e, "payload"})
+		all = append(all, placedSection{e.Section, e, false})
 		if e.Scales != nil {
-			all = append(all, placed{*e.Scales, e, "scales"})
+			all = append(all, placedSection{*e.Scales, e, true})
 		}
 	}
-	buf := make([]byte, min(manifest.ChunkSize, maxLength(m)))
-	padFail := 0
-	for i, p := range all {
-		e := p.owner
-		var sink io.Writer
-		var counter *pack.TritCounter
-		var scales *scaleChecker
-		switch {
-		case p.kind == "scales":
-			scales = &scaleChecker{ternary: e.Kind == manifest.KindTernary, bad: -1}
-			sink = scales
-		case e.Kind == manifest.KindTernary:
-			counter, _ = pack.NewTritCounter(pack.Codec(e.Codec), manifest.NumElements(e.Shape))
-			sink = counter
-		case e.Kind == manifest.KindInt8:
-			sink = &int8Checker{bad: -1}
+	pieceLen := min(manifest.ChunkSize, maxLength(m))
+	bufs := make([][]byte, workers)
+	results := inParallel(len(all), workers, func(worker, i int) []Check {
+		if bufs[worker] == nil {
+			bufs[worker] = make([]byte, pieceLen)
 		}
-		hashOK, detail := streamSection(ra, p.s, buf, sink)
-		advance(p.s.Length)
-		rep.add(CheckSection, e.Name, hashOK, "%s", detail)
-
-		end, next := p.s.Offset+p.s.Length, a.ManifestOffset()
+		next := a.ManifestOffset()
 		if i+1 < len(all) {
 			next = all[i+1].s.Offset
 		}
-		if gap := next - end; gap > 0 {
-			pad := make([]byte, gap)
-			if _, err := ra.ReadAt(pad, end); err != nil || firstNonZero(pad) >= 0 {
-				rep.add(CheckPadding, e.Name, false, "padding at byte %d..%d is not zero", end, next)
+		return checkSection(a.ReaderAt(), all[i], next, bufs[worker])
+	})
+	padFail := 0
+	for i, checks := range results {
+		for _, c := range checks {
+			rep.add(c.Name, c.Tensor, c.OK, "%s", c.Detail)
+			if c.Name == CheckPadding {
 				padFail++
 			}
 		}
-		if !hashOK {
-			continue // the decode would only repeat the hash's verdict
-		}
-		switch {
-		case counter != nil:
-			got, err := counter.Close()
-			switch {
-			case err != nil:
-				rep.add(CheckDecode, e.Name, false, "section at byte %d: %v", p.s.Offset, err)
-			case got != *e.Trits:
-				rep.add(CheckDecode, e.Name, false, "trit counts %+v, manifest records %+v", got, *e.Trits)
-			default:
-				rep.add(CheckDecode, e.Name, true, "")
-			}
-		case scales != nil:
-			rep.add(CheckDecode, e.Name, scales.bad < 0, "scales at byte %d: scale %d is %v", p.s.Offset, scales.bad, scales.badValue)
-		case sink != nil:
-			ic := sink.(*int8Checker)
-			rep.add(CheckDecode, e.Name, ic.bad < 0, "int8 payload byte %d is -128 (codes are -127..127)", ic.bad)
-		}
+		advance(all[i].s.Length)
 	}
 	if padFail == 0 {
 		rep.add(CheckPadding, "", true, "")
 	}
+}
+
+// checkSection checks one section and the padding up to next.
+func checkSection(ra io.ReaderAt, p placedSection, next int64, buf []byte) []Check {
+	e := p.owner
+	var out []Check
+	add := func(name string, ok bool, format string, args ...any) {
+		c := Check{Name: name, Tensor: e.Name, OK: ok}
+		if !ok {
+			c.Detail = fmt.Sprintf(format, args...)
+		}
+		out = append(out, c)
+	}
+	var sink io.Writer
+	var counter *pack.TritCounter
+	var scales *scaleChecker
+	var int8s *int8Checker
+	switch {
+	case p.scales:
+		scales = &scaleChecker{ternary: e.Kind == manifest.KindTernary, bad: -1}
+		sink = scales
+	case e.Kind == manifest.KindTernary:
+		counter, _ = pack.NewTritCounter(pack.Codec(e.Codec), manifest.NumElements(e.Shape))
+		sink = counter
+	case e.Kind == manifest.KindInt8:
+		int8s = &int8Checker{bad: -1}
+		sink = int8s
+	}
+	hashOK, detail := streamSection(ra, p.s, buf, sink)
+	add(CheckSection, hashOK, "%s", detail)
+	end := p.s.Offset + p.s.Length
+	if gap := next - end; gap > 0 {
+		pad := make([]byte, gap)
+		if _, err := ra.ReadAt(pad, end); err != nil || firstNonZero(pad) >= 0 {
+			add(CheckPadding, false, "padding at byte %d..%d is not zero", end, next)
+		}
+	}
+	if !hashOK {
+		return out // the decode would only repeat the hash's verdict
+	}
+	switch {
+	case counter != nil:
+		got, err := counter.Close()
+		switch {
+		case err != nil:
+			add(CheckDecode, false, "section at byte %d: %v", p.s.Offset, err)
+		case got != *e.Trits:
+			add(CheckDecode, false, "trit counts %+v, manifest records %+v", got, *e.Trits)
+		default:
+			add(CheckDecode, true, "")
+		}
+	case scales != nil:
+		add(CheckDecode, scales.bad < 0, "scales at byte %d: scale %d is %v", p.s.Offset, scales.bad, scales.badValue)
+	case int8s != nil:
+		add(CheckDecode, int8s.bad < 0, "int8 payload byte %d is -128 (codes are -127..127)", int8s.bad)
+	}
+	return out
+}
+
+// inParallel runs fn(worker, i) for i in [0, n) on workers goroutines and
+// returns the results in index order.
+func inParallel[R any](n, workers int, fn func(worker, i int) R) []R {
+	results := make([]R, n)
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for w := range max(1, min(workers, n)) {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				i := int(next.Add(1) - 1)
+				if i >= n {
+					return
+				}
+				results[i] = fn(w, i)
+			}
+		}()
+	}
+	wg.Wait()
+	return results
 }
 
 func maxLength(m *manifest.Manifest) int64 {
@@ -100,43 +153,40 @@ func maxLength(m *manifest.Manifest) int64 {
 	return n
 }
 
-// streamSection reads section s piece by piece into buf, feeding sink, and
-// compares the whole hash and the piece hashes. It returns whether the
-// section is intact, and a detail naming the first bad piece otherwise.
+// streamSection reads section s piece by piece into buf, feeding sink,
+// and compares its BLAKE3. It returns whether the section is intact and,
+// when it is not, a detail that names the first bad piece if the section
+// records piece hashes (found by a second read, on failure only).
 func streamSection(ra io.ReaderAt, s manifest.Section, buf []byte, sink io.Writer) (bool, string) {
 	h := blake3.New()
-	badChunk := int64(-1)
 	var sinkErr error
-	for off, k := int64(0), 0; off < s.Length; off, k = off+manifest.ChunkSize, k+1 {
-		n := min(manifest.ChunkSize, s.Length-off)
-		piece := buf[:n]
+	for off := int64(0); off < s.Length; off += manifest.ChunkSize {
+		piece := buf[:min(manifest.ChunkSize, s.Length-off)]
 		if _, err := ra.ReadAt(piece, s.Offset+off); err != nil {
 			return false, fmt.Sprintf("read section at byte %d: %v", s.Offset+off, err)
 		}
 		h.Write(piece)
-		if len(s.Chunks) > 0 && badChunk < 0 {
-			sum := blake3.Sum256(piece)
-			if hex.EncodeToString(sum[:]) != s.Chunks[k] {
-				badChunk = s.Offset + off
-			}
-		}
 		if sink != nil && sinkErr == nil {
 			_, sinkErr = sink.Write(piece)
 		}
 	}
 	var sum [32]byte
 	h.Sum(sum[:0])
-	if got := manifest.HexHash(sum); got != s.BLAKE3 {
-		detail := fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s", s.Offset, s.Length, got, s.BLAKE3)
-		if badChunk >= 0 {
-			detail += fmt.Sprintf("; first bad chunk at byte %d", badChunk)
+	got := manifest.HexHash(sum)
+	if got == s.BLAKE3 {
+		return true, ""
+	}
+	detail := fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s", s.Offset, s.Length, got, s.BLAKE3)
+	for k, off := 0, int64(0); k < len(s.Chunks); k, off = k+1, off+manifest.ChunkSize {
+		piece := buf[:min(manifest.ChunkSize, s.Length-off)]
+		if _, err := ra.ReadAt(piece, s.Offset+off); err != nil {
+			break
 		}
-		return false, detail
+		if sum := blake3.Sum256(piece); hex.EncodeToString(sum[:]) != s.Chunks[k] {
+			return false, detail + fmt.Sprintf("; first bad chunk at byte %d", s.Offset+off)
+		}
 	}
-	if badChunk >= 0 {
-		return false, fmt.Sprintf("section at byte %d: chunk at byte %d does not match its recorded BLAKE3", s.Offset, badChunk)
-	}
-	return true, ""
+	return false, detail
 }
 
 // scaleChecker checks little-endian float32 scales as they stream by:

@@ -12,6 +12,7 @@ import (
 	"fmt"
 	"io"
 	"io/fs"
+	"runtime"
 
 	"ternkit/convert"
 	"ternkit/pack"
@@ -93,6 +94,9 @@ type Options struct {
 	Source *convert.Source
 	// Budget, when set, limits the tensors' error statistics.
 	Budget *Budget
+	// Workers check sections and source tensors in parallel; 0 means one
+	// per CPU. The report is the same for any count.
+	Workers int
 	// Progress, when set, is called with the bytes read so far and their
 	// total (every section, plus every source tensor when Source is set):
 	// once before the first read and after each section and source tensor.
@@ -154,10 +158,14 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	defer a.Close()
 	rep.add(CheckStructure, "", true, "")
 	advance := progressFunc(opts, a)
-	checkSections(rep, a, advance)
+	workers := opts.Workers
+	if workers <= 0 {
+		workers = runtime.NumCPU()
+	}
+	checkSections(rep, a, workers, advance)
 	if opts.Source != nil {
 		rep.Source = opts.Source.Path
-		if err := checkAgainst(rep, a, opts.Source, advance); err != nil {
+		if err := checkAgainst(rep, a, opts.Source, workers, advance); err != nil {
 			return nil, err
 		}
 	}

@@ -452,3 +452,33 @@ func TestVerifyBudget(t *testing.T) {
 		require.Contains(t, errOut, c.want, c.args)
 	}
 }
+
+// The same source and options give byte-identical artifacts for any worker
+// count, and verify gives the same report for any worker count.
+func TestPackAnyWorkersSameBytes(t *testing.T) {
+	dir := t.TempDir()
+	src, _ := demoArtifact(t, dir)
+	var first []byte
+	for _, workers := range []string{"1", "2", "8"} {
+		out := filepath.Join(dir, "w"+workers+".tkart")
+		code, _, errOut := ternkit("pack", src, "-o", out, "--workers", workers)
+		require.Equal(t, exitOK, code, errOut)
+		b, err := os.ReadFile(out)
+		require.NoError(t, err)
+		if first == nil {
+			first = b
+			continue
+		}
+		require.True(t, bytes.Equal(first, b), "--workers %s gives other bytes", workers)
+	}
+	var reports []string
+	for _, workers := range []string{"1", "3"} {
+		code, out, _ := ternkit("verify", filepath.Join(dir, "w1.tkart"), "--against", src, "--json", "--workers", workers)
+		require.Equal(t, exitOK, code, out)
+		reports = append(reports, out)
+	}
+	require.Equal(t, reports[0], reports[1])
+	code, _, errOut := ternkit("pack", src, "-o", filepath.Join(dir, "x.tkart"), "--workers", "0")
+	require.Equal(t, exitInput, code)
+	require.Contains(t, errOut, "--workers 0")
+}

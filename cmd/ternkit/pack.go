@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"runtime"
 	"slices"
 	"strings"
 	"time"
@@ -25,6 +26,7 @@ type recipeFlags struct {
 	tie        string
 	policyFile string
 	rules      []string
+	workers    int
 }
 
 func (f *recipeFlags) register(cmd *cobra.Command) {
@@ -33,6 +35,7 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	cmd.Flags().StringVar(&f.scaleRule, "scale-rule", string(d.ScaleRule), "reciprocal (w × 1/max(gamma, eps), training-code form) or quotient (w / (gamma + eps), paper form)")
 	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule")
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
+	cmd.Flags().IntVar(&f.workers, "workers", runtime.NumCPU(), "tensors quantized in parallel (the bytes written are the same for any count)")
 	cmd.Flags().StringVar(&f.policyFile, "policy", "", "policy file (TOML [[rule]] tables) replacing the default policy")
 	cmd.Flags().StringArrayVar(&f.rules, "rule", nil, "rule GLOB=ACTION placed before the policy's rules (repeatable); actions: ternary, ternary:row, ternary:group:N, keep, keep:f16, keep:bf16, keep:f32, int8")
 	_ = cmd.RegisterFlagCompletionFunc("codec", fixedCompletions(codecNames()...))
@@ -79,7 +82,10 @@ func (f *recipeFlags) options() (pack.Options, error) {
 	if err != nil {
 		return pack.Options{}, usageError{err}
 	}
-	return pack.Options{Codec: codec, Recipe: r, Policy: p, PolicyRules: p.Describe(), Tool: "ternkit " + version, Created: created}, nil
+	if f.workers < 1 {
+		return pack.Options{}, usagef("--workers %d: want 1 or more", f.workers)
+	}
+	return pack.Options{Codec: codec, Recipe: r, Policy: p, PolicyRules: p.Describe(), Tool: "ternkit " + version, Created: created, Workers: f.workers}, nil
 }
 
 // policy assembles the --rule flags and the --policy file (or the default).

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"runtime"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -18,6 +19,7 @@ func newVerifyCmd() *cobra.Command {
 		against    string
 		asJSON     bool
 		budgetFile string
+		workers    int
 		limits     = map[string]*[]string{}
 	)
 	cmd := &cobra.Command{
@@ -50,8 +52,11 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
+			if workers < 1 {
+				return usagef("--workers %d: want 1 or more", workers)
+			}
 			bar := newProgressBar(cmd, "verify")
-			opts := verify.Options{Progress: bar.callback(), Budget: budget}
+			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers}
 			if against != "" {
 				src, err := openSource(against, cmd.ErrOrStderr())
 				if err != nil {
@@ -80,6 +85,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 		},
 	}
 	registerKeyFlag(cmd)
+	cmd.Flags().IntVar(&workers, "workers", runtime.NumCPU(), "sections and source tensors checked in parallel")
 	cmd.Flags().StringVar(&against, "against", "", "source checkpoint `SRC` to re-quantize and compare (file, sharded set index, or directory)")
 	_ = cmd.MarkFlagFilename("against", "safetensors")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON (keys in README, \"JSON output\")")

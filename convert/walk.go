@@ -1,0 +1,243 @@
+package convert
+
+import (
+	"errors"
+	"fmt"
+	"io"
+	"sync"
+
+	"github.com/zeebo/blake3"
+)
+
+// WalkOptions bound a parallel walk.
+type WalkOptions struct {
+	// Workers run the work function; fewer than 1 means 1.
+	Workers int
+	// Budget bounds the bytes of tensors read but not yet emitted; it is
+	// raised to the largest tensor so that one always fits. 0 means
+	// DefaultWalkBudget.
+	Budget int64
+}
+
+// DefaultWalkBudget is the default bound on tensor bytes in flight.
+const DefaultWalkBudget = 256 << 20
+
+// WalkOrdered reads every tensor once, in Tensors order, as Walk does
+// (hashing each file whole as it goes), and hands each tensor to one of
+// opts.Workers goroutines: work(worker, t, raw, sum) runs concurrently, with
+// sum the BLAKE3 of raw and worker in [0, Workers) so that a worker can keep
+// scratch space of its own. raw belongs to the call, and to what it returns,
+// until emit has run. emit(t, result) runs on the caller's goroutine in
+// tensor order, so that what it writes is the same for any worker count.
+// The first error, in tensor order, stops the walk and is returned.
+func WalkOrdered[R any](s *Source, opts WalkOptions,
+	work func(worker int, t *Tensor, raw []byte, sum [32]byte) (R, error),
+	emit func(t *Tensor, r R) error) error {
+	if s.open == nil {
+		return &InputError{File: s.Path, Offset: -1, Err: errClosed}
+	}
+	workers := max(1, opts.Workers)
+	budget := opts.Budget
+	if budget <= 0 {
+		budget = DefaultWalkBudget
+	}
+	for _, t := range s.Tensors {
+		budget = max(budget, t.Length)
+	}
+
+	type job struct {
+		index int
+		t     *Tensor
+		raw   []byte
+		err   error
+	}
+	type done struct {
+		index  int
+		t      *Tensor
+		raw    []byte
+		result R
+		err    error
+	}
+	jobs := make(chan job, workers)
+	results := make(chan done, workers)
+	stop := make(chan struct{})
+	pool := newBufferPool(budget)
+	var wg sync.WaitGroup
+
+	// the reader: one goroutine reads and hashes the files in order
+	wg.Add(1)
+	go func() {
+		defer wg.Done()
+		defer close(jobs)
+		index := 0
+		for i, of := range s.open {
+			path := s.Files[i].Path
+			fileHash := of.prefix.Clone()
+			for _, t := range of.tensors {
+				raw, ok := pool.get(t.Length, stop)
+				if !ok {
+					return
+				}
+				j := job{index: index, t: t, raw: raw}
+				index++
+				if got, err := of.f.ReadAt(raw, t.Offset); got < len(raw) {
+					if err == nil || errors.Is(err, io.EOF) {
+						err = io.ErrUnexpectedEOF
+					}
+					j.err = &InputError{File: path, Tensor: t.Name, Offset: t.Offset + int64(got),
+						Err: fmt.Errorf("%w: read %d of %d bytes: %w", ErrTruncated, got, len(raw), err)}
+				} else {
+					fileHash.Write(raw)
+				}
+				select {
+				case jobs <- j:
+				case <-stop:
+					return
+				}
+				if j.err != nil {
+					return
+				}
+			}
+			end := of.dataStart + of.dataLen
+			var probe [1]byte
+			if got, _ := of.f.ReadAt(probe[:], end); got > 0 {
+				select {
+				case jobs <- job{index: index, err: inputError(path, "", end, ErrOffsets, "trailing bytes after the last tensor (the file grew after it was opened)")}:
+				case <-stop:
+				}
+				return
+			}
+			copy(s.Files[i].BLAKE3[:], fileHash.Sum(nil))
+		}
+	}()
+
+	// the workers
+	var workersDone sync.WaitGroup
+	for w := range workers {
+		workersDone.Add(1)
+		go func() {
+			defer workersDone.Done()
+			for j := range jobs {
+				d := done{index: j.index, t: j.t, raw: j.raw, err: j.err}
+				if d.err == nil {
+					d.result, d.err = work(w, j.t, j.raw, blake3.Sum256(j.raw))
+				}
+				select {
+				case results <- d:
+				case <-stop:
+					return
+				}
+			}
+		}()
+	}
+	go func() {
+		workersDone.Wait()
+		close(results)
+	}()
+
+	// the sequencer: emit in tensor order
+	pending := map[int]done{}
+	next := 0
+	var firstErr error
+	for d := range results {
+		pending[d.index] = d
+		for firstErr == nil {
+			r, ok := pending[next]
+			if !ok {
+				break
+			}
+			delete(pending, next)
+			next++
+			if r.err != nil {
+				firstErr = r.err
+				break
+			}
+			if err := emit(r.t, r.result); err != nil {
+				firstErr = err
+				break
+			}
+			pool.put(r.raw)
+		}
+		if firstErr != nil {
+			break
+		}
+	}
+	close(stop)
+	pool.wake()
+	for range results { // let the workers finish
+	}
+	wg.Wait()
+	return firstErr
+}
+
+// bufferPool hands out byte slices while the bytes in use stay within a
+// budget, reusing returned slices so that memory stays at the budget.
+type bufferPool struct {
+	mu     sync.Mutex
+	cond   *sync.Cond
+	free   [][]byte
+	inUse  int64
+	budget int64
+}
+
+func newBufferPool(budget int64) *bufferPool {
+	p := &bufferPool{budget: budget}
+	p.cond = sync.NewCond(&p.mu)
+	return p
+}
+
+// get returns a slice of length n, waiting while the budget is spent; it
+// returns false when stop is closed.
+func (p *bufferPool) get(n int64, stop <-chan struct{}) ([]byte, bool) {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	for p.inUse > 0 && p.inUse+n > p.budget {
+		select {
+		case <-stop:
+			return nil, false
+		default:
+		}
+		p.cond.Wait()
+	}
+	select {
+	case <-stop:
+		return nil, false
+	default:
+	}
+	p.inUse += n
+	best := -1
+	for i, b := range p.free {
+		if int64(cap(b)) >= n && (best < 0 || cap(b) < cap(p.free[best])) {
+			best = i
+		}
+	}
+	if best >= 0 {
+		b := p.free[best]
+		p.free = append(p.free[:best], p.free[best+1:]...)
+		return b[:n], true
+	}
+	// drop free slices too small to serve, so that memory stays bounded
+	var kept int64
+	for _, b := range p.free {
+		kept += int64(cap(b))
+	}
+	if kept+p.inUse > p.budget {
+		p.free = nil
+	}
+	return make([]byte, n), true
+}
+
+// wake lets a get waiting for the budget see that the walk stopped.
+func (p *bufferPool) wake() {
+	p.mu.Lock()
+	p.cond.Broadcast()
+	p.mu.Unlock()
+}
+
+func (p *bufferPool) put(b []byte) {
+	p.mu.Lock()
+	p.inUse -= int64(len(b))
+	p.free = append(p.free, b)
+	p.mu.Unlock()
+	p.cond.Broadcast()
+}
