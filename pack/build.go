@@ -115,7 +115,11 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 			if err != nil {
 				return packed{}, err
 			}
-			e.Section = hashSection(out.payload)
+			if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
+				e.Section = hashSectionKnown(out.payload, sum) // the source's bytes, hashed already
+			} else {
+				e.Section = hashSection(out.payload)
+			}
 			if out.scales != nil {
 				s := hashSection(out.scales)
 				e.Scales = &s
@@ -305,7 +309,12 @@ func (w *atomicWriter) pad() error {
 // hashSection is the manifest entry of a section holding p, but for its
 // offset: its BLAKE3 and, past manifest.ChunkSize, the BLAKE3 of each piece.
 func hashSection(p []byte) manifest.Section {
-	s := manifest.Section{Length: int64(len(p)), BLAKE3: manifest.HexHash(blake3.Sum256(p))}
+	return hashSectionKnown(p, blake3.Sum256(p))
+}
+
+// hashSectionKnown is hashSection for bytes whose BLAKE3 is known.
+func hashSectionKnown(p []byte, sum [32]byte) manifest.Section {
+	s := manifest.Section{Length: int64(len(p)), BLAKE3: manifest.HexHash(sum)}
 	if manifest.NumChunks(s.Length) > 0 {
 		for c := 0; c < len(p); c += manifest.ChunkSize {
 			s.Chunks = append(s.Chunks, manifest.HexHash(blake3.Sum256(p[c:min(c+manifest.ChunkSize, len(p))])))

@@ -1,0 +1,69 @@
+#!/usr/bin/env bash
+# The packing benchmark: generates a transformer-shaped BF16 checkpoint and,
+# in one run, alternating, measures ternkit pack, b3sum of the source,
+# ternkit verify, b3sum of the artifact, ternkit verify --against, and a
+# plain numpy ternarizer (the peer), each RUNS times; prints medians, peak
+# RSS (/usr/bin/time -v) and the ratios the performance goals are stated in.
+#
+# usage: testdata/bench/run.sh [SIZE_BYTES] [RUNS]     (default 1.5e9, 3)
+# needs: go, b3sum, /usr/bin/time (Debian package time), /usr/bin/python3
+# with numpy (python3-numpy); about 3 × SIZE of free space in $TMPDIR.
+set -euo pipefail
+cd "$(dirname "$0")/../.."
+size=${1:-1.5e9}
+runs=${2:-3}
+work=${TMPDIR:-/tmp}/ternkit-bench
+mkdir -p "$work"
+go build -o "$work/ternkit" ./cmd/ternkit
+go build -o "$work/synthcheckpoint" ./cmd/synthcheckpoint
+src="$work/model-$size.safetensors"
+art="$work/model-$size.tkart"
+[ -f "$src" ] || "$work/synthcheckpoint" -size "$size" -o "$src"
+"$work/ternkit" pack "$src" -o "$art" -q >/dev/null 2>&1   # warm the page cache
+
+results="$work/results.txt"
+: > "$results"
+measure() { # name command...
+  local name=$1; shift
+  /usr/bin/time -v -o "$work/time.txt" "$@" >/dev/null 2>"$work/stderr.txt" || { cat "$work/stderr.txt"; exit 1; }
+  local wall rss
+  wall=$(sed -n 's/.*Elapsed (wall clock) time (h:mm:ss or m:ss): //p' "$work/time.txt")
+  rss=$(sed -n 's/.*Maximum resident set size (kbytes): //p' "$work/time.txt")
+  echo "$name $wall $rss" >> "$results"
+}
+for r in $(seq "$runs"); do
+  echo "run $r of $runs" >&2
+  measure b3sum_source b3sum --no-names "$src"
+  measure pack "$work/ternkit" pack "$src" -o "$art" -q --codec bits2
+  measure b3sum_artifact b3sum --no-names "$art"
+  measure verify "$work/ternkit" verify "$art" -q
+  measure verify_against "$work/ternkit" verify "$art" --against "$src" -q
+  measure numpy_peer /usr/bin/python3 testdata/bench/numpy_ternarize.py "$src" "$work/peer.out"
+done
+
+/usr/bin/python3 - "$results" "$src" "$art" <<'PY'
+import os, statistics, sys
+rows = {}
+for line in open(sys.argv[1]):
+    name, wall, rss = line.split()
+    parts = [float(p) for p in wall.split(":")]
+    secs = sum(p * 60 ** i for i, p in enumerate(reversed(parts)))
+    rows.setdefault(name, []).append((secs, int(rss)))
+med = {k: statistics.median(s for s, _ in v) for k, v in rows.items()}
+rss = {k: max(r for _, r in v) for k, v in rows.items()}
+print(f"source {os.path.getsize(sys.argv[2]) / 1e9:.2f} GB, artifact {os.path.getsize(sys.argv[3]) / 1e9:.3f} GB, "
+      f"{len(next(iter(rows.values())))} runs, {os.cpu_count()} CPUs")
+print()
+print("| command | median s | peak RSS MiB |")
+print("|---|---|---|")
+for k in ["pack", "b3sum_source", "verify", "b3sum_artifact", "verify_against", "numpy_peer"]:
+    print(f"| {k} | {med[k]:.2f} | {rss[k] / 1024:.0f} |")
+print()
+print("| ratio | value | goal |")
+print("|---|---|---|")
+print(f"| pack / b3sum source | {med['pack'] / med['b3sum_source']:.2f} | <= 1.5 |")
+print(f"| numpy peer / pack | {med['numpy_peer'] / med['pack']:.2f} | >= 10 |")
+print(f"| verify / b3sum artifact | {med['verify'] / med['b3sum_artifact']:.2f} | <= 1.2 |")
+print(f"| verify --against / b3sum source | {med['verify_against'] / med['b3sum_source']:.2f} | <= 2 |")
+print(f"| pack peak RSS MiB | {rss['pack'] / 1024:.0f} | <= 512 |")
+PY
