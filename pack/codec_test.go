@@ -1,6 +1,8 @@
 package pack
 
 import (
+	"bytes"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -19,7 +21,7 @@ func randomTrits(rng *rand.Rand, n int) []int8 {
 func TestCodecRoundTrip(t *testing.T) {
 	rng := rand.New(rand.NewPCG(7, 7))
 	for _, c := range Codecs {
-		for n := 0; n <= 64; n++ {
+		for n := 0; n <= 200; n++ { // past the 32- and 40-trit steps of the decoders
 			trits := randomTrits(rng, n)
 			p := c.Encode(nil, trits)
 			require.Len(t, p, c.EncodedLen(n), "%s n=%d", c, n)
@@ -64,6 +66,27 @@ func TestCodecEveryByte(t *testing.T) {
 		} else {
 			require.NoError(t, err, "base3 %d", b)
 			require.Equal(t, p, Base3.Encode(nil, five))
+		}
+	}
+}
+
+// An invalid byte anywhere in a long payload is found and named, whether it
+// falls in a decoder's multi-byte step or in the tail.
+func TestCodecNamesInvalidByte(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 8))
+	cases := []struct {
+		codec Codec
+		bad   byte
+	}{{Bits2, 0x30}, {Base3, 250}} // 0x30: code 3 in pair 2; 250 > 242
+	for _, c := range cases {
+		const n = 203
+		good := c.codec.Encode(nil, randomTrits(rng, n))
+		for j := 0; j < len(good)-1; j++ { // the last byte is the padding case
+			p := bytes.Clone(good)
+			p[j] = c.bad
+			err := c.codec.Decode(make([]int8, n), p)
+			require.ErrorIs(t, err, ErrInvalidCode, "%s byte %d", c.codec, j)
+			require.Contains(t, err.Error(), fmt.Sprintf("byte %d is ", j), "%s", c.codec)
 		}
 	}
 }
