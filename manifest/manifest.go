@@ -29,9 +29,10 @@ const (
 
 // Codec names.
 const (
-	CodecBits2 = "bits2"
-	CodecBase3 = "base3"
-	CodecRaw   = "raw"
+	CodecBits2   = "bits2"
+	CodecBase3   = "base3"
+	CodecEntropy = "entropy" // a zstd frame of the base3 payload: variable length
+	CodecRaw     = "raw"
 )
 
 // ErrInvalid reports a manifest that breaks the rules of pack/FORMAT.md.
@@ -227,12 +228,15 @@ func (e *Tensor) validate() error {
 	}
 	switch e.Kind {
 	case KindTernary:
-		want, ok := TritPayloadLen(e.Codec, n)
+		lo, hi, ok := TritPayloadRange(e.Codec, n)
 		if !ok {
 			return fmt.Errorf("codec %q is not a trit codec", e.Codec)
 		}
-		if e.Section.Length != want {
-			return fmt.Errorf("section length %d, codec %s needs %d for %d trits", e.Section.Length, e.Codec, want, n)
+		if e.Section.Length < lo || e.Section.Length > hi {
+			if lo == hi {
+				return fmt.Errorf("section length %d, codec %s needs %d for %d trits", e.Section.Length, e.Codec, lo, n)
+			}
+			return fmt.Errorf("section length %d, codec %s takes %d to %d bytes for %d trits", e.Section.Length, e.Codec, lo, hi, n)
 		}
 		if !(e.Scale > 0) || math.IsInf(float64(e.Scale), 0) {
 			return fmt.Errorf("scale %v is not a positive finite number", e.Scale)
@@ -263,7 +267,8 @@ func (e *Tensor) validate() error {
 	return nil
 }
 
-// TritPayloadLen is the payload length of n trits in a trit codec.
+// TritPayloadLen is the payload length of n trits in a fixed-length trit
+// codec (bits2, base3).
 func TritPayloadLen(codec string, n int64) (int64, bool) {
 	switch codec {
 	case CodecBits2:
@@ -272,6 +277,31 @@ func TritPayloadLen(codec string, n int64) (int64, bool) {
 		return (n + 4) / 5, true
 	}
 	return 0, false
+}
+
+// Bounds of an entropy payload (pack/FORMAT.md, "entropy"): one frame
+// with a 4-byte magic, a 1-byte descriptor, a 1- to 8-byte content size
+// and blocks of at most EntropyBlockMax content bytes, each behind a 3-byte
+// header.
+const (
+	EntropyMinLen   = 9 // magic, descriptor, 1-byte content size, one empty block
+	EntropyBlockMax = 128 << 10
+	entropyHeadMax  = 4 + 1 + 8
+)
+
+// TritPayloadRange is the smallest and largest payload length of n trits
+// in a trit codec: the same for bits2 and base3; for entropy, at most the
+// size of a frame holding the base3 payload in stored blocks.
+func TritPayloadRange(codec string, n int64) (lo, hi int64, ok bool) {
+	if l, ok := TritPayloadLen(codec, n); ok {
+		return l, l, true
+	}
+	if codec != CodecEntropy {
+		return 0, 0, false
+	}
+	b := (n + 4) / 5
+	blocks := max(1, (b+EntropyBlockMax-1)/EntropyBlockMax)
+	return EntropyMinLen, entropyHeadMax + 3*blocks + b, true
 }
 
 // HexHash formats a BLAKE3 sum as the manifest writes it.
