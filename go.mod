@@ -3,6 +3,7 @@ module ternkit
 go 1.26.8
 
 require (
+	github.com/klauspost/compress v1.20.4
 	github.com/nlpodyssey/safetensors v0.0.0-20250209183917-bfb01cc25f7c
 	github.com/spf13/cobra v1.10.2
 	github.com/stretchr/testify v1.12.1

@@ -53,7 +53,8 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		Source:  manifest.Source{Metadata: src.Metadata},
 		Tensors: make([]manifest.Tensor, 0, len(src.Tensors)),
 	}
-	if err := w.write(encodePreamble()); err != nil {
+	// The minor version depends on the codecs chosen; finish rewrites it.
+	if err := w.write(encodePreamble(0)); err != nil {
 		return nil, err
 	}
 	var (
@@ -93,9 +94,10 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 				}
 				return &convert.InputError{File: t.File, Tensor: t.Name, Offset: off, Err: err}
 			}
-			payload = opts.Codec.Encode(payload[:0], trits)
+			var codec Codec
+			payload, codec = opts.Codec.EncodeTensor(payload[:0], trits)
 			section = payload
-			e.Kind, e.Codec, e.Scale = manifest.KindTernary, string(opts.Codec), q.Scale
+			e.Kind, e.Codec, e.Scale = manifest.KindTernary, string(codec), q.Scale
 			counts, rel, maxErr := q.Counts, q.RelRMSE, q.MaxAbsErr
 			e.Trits, e.RelRMSE, e.MaxAbsErr = &counts, &rel, &maxErr
 		default:
@@ -190,6 +192,9 @@ func (w *atomicWriter) finish(m *manifest.Manifest) error {
 		return err
 	}
 	if err := w.bw.Flush(); err != nil {
+		return fmt.Errorf("write %s: %w", w.dst, err)
+	}
+	if _, err := w.f.WriteAt(encodePreamble(minorVersionFor(m)), 0); err != nil {
 		return fmt.Errorf("write %s: %w", w.dst, err)
 	}
 	if err := w.f.Sync(); err != nil {

@@ -78,7 +78,7 @@ func TestBuildAndRead(t *testing.T) {
 			st, err := os.Stat(dst)
 			require.NoError(t, err)
 			require.Equal(t, st.Size(), a.Size())
-			require.Zero(t, a.Size()%Align)
+			require.Zero(t, a.ManifestOffset()%Align)
 			require.Equal(t, "pack test", a.Manifest().Source.Metadata["purpose"])
 
 			for _, e := range a.Tensors() {

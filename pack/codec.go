@@ -9,35 +9,44 @@ import (
 	"ternkit/manifest"
 )
 
-// Codec names a trit payload encoding (pack/FORMAT.md, "Codecs").
+// Codec names a trit payload encoding (pack/FORMAT.md, "Codecs"), or Auto,
+// a writer's choice among them.
 type Codec string
 
 // Trit codecs.
 const (
-	Bits2 Codec = manifest.CodecBits2 // 4 trits per byte, decoded by table
-	Base3 Codec = manifest.CodecBase3 // 5 trits per byte, 1.6 bits per trit
+	Bits2   Codec = manifest.CodecBits2   // 4 trits per byte, decoded by table
+	Base3   Codec = manifest.CodecBase3   // 5 trits per byte, 1.6 bits per trit
+	Entropy Codec = manifest.CodecEntropy // the base3 payload in a zstd frame
+	// Auto is a writer option, never stored: per tensor, the smaller of
+	// Base3 and Entropy (Base3 on a tie, as it decodes faster).
+	Auto Codec = "auto"
 )
 
-// Codecs lists the trit codecs a writer can choose.
-var Codecs = []Codec{Bits2, Base3}
+// Codecs lists the trit codecs an artifact stores.
+var Codecs = []Codec{Bits2, Base3, Entropy}
+
+// WriterCodecs lists the codec choices of a writer: the stored codecs and Auto.
+var WriterCodecs = []Codec{Bits2, Base3, Entropy, Auto}
 
 // ErrCodec reports an unknown codec name.
 var ErrCodec = errors.New("unknown codec")
 
 // ErrInvalidCode reports a trit payload that no encoder writes: a reserved
-// code, a byte out of range, nonzero padding or a wrong length. Typically
-// this indicates corrupted input.
+// code, a byte out of range, nonzero padding, a wrong length or a frame
+// outside the entropy codec's rules. Typically this indicates corrupted
+// input.
 var ErrInvalidCode = errors.New("invalid trit payload")
 
-// ParseCodec checks a codec name.
+// ParseCodec checks a writer's codec choice (one of WriterCodecs).
 func ParseCodec(s string) (Codec, error) {
-	for _, c := range Codecs {
+	for _, c := range WriterCodecs {
 		if string(c) == s {
 			return c, nil
 		}
 	}
-	names := make([]string, len(Codecs))
-	for i, c := range Codecs {
+	names := make([]string, len(WriterCodecs))
+	for i, c := range WriterCodecs {
 		names[i] = string(c)
 	}
 	return "", fmt.Errorf("%w %q (valid: %s)", ErrCodec, s, strings.Join(names, ", "))
@@ -56,30 +65,53 @@ func code(t int8) byte {
 
 var codeTrit = [3]int8{0, 1, -1}
 
-// EncodedLen is the payload length of n trits.
+// EncodedLen is the payload length of n trits for a fixed-length codec
+// (Bits2, Base3), and -1 for the others.
 func (c Codec) EncodedLen(n int) int {
-	l, _ := manifest.TritPayloadLen(string(c), int64(n))
+	l, ok := manifest.TritPayloadLen(string(c), int64(n))
+	if !ok {
+		return -1
+	}
 	return int(l)
 }
 
-// Encode appends the payload of trits to dst. Trits must be in {-1, 0, 1}.
+// Encode appends the payload of trits to dst in a stored codec. Trits must
+// be in {-1, 0, 1}. It panics for Auto and unknown codecs: use EncodeTensor.
 func (c Codec) Encode(dst []byte, trits []int8) []byte {
 	switch c {
 	case Bits2:
 		return encodeBits2(dst, trits)
 	case Base3:
 		return encodeBase3(dst, trits)
+	case Entropy:
+		return encodeEntropy(dst, trits)
 	default:
-		panic("pack: encode with unknown codec " + string(c))
+		panic("pack: encode with codec " + string(c))
 	}
+}
+
+// EncodeTensor appends the payload of trits to dst and returns the codec
+// stored: c itself, or for Auto the smaller of Base3 and Entropy.
+func (c Codec) EncodeTensor(dst []byte, trits []int8) ([]byte, Codec) {
+	if c != Auto {
+		return c.Encode(dst, trits), c
+	}
+	start := len(dst)
+	dst = encodeBase3(dst, trits)
+	frame := appendEntropyFrame(nil, dst[start:])
+	if len(frame) < len(dst)-start {
+		return append(dst[:start], frame...), Entropy
+	}
+	return dst, Base3
 }
 
 // Decode fills dst (len(dst) is the trit count) from payload. It returns an
 // error wrapping ErrInvalidCode, naming the byte index, for any payload an
-// encoder would not write.
+// encoder would not write; it checks the payload's length, or for Entropy
+// the frame's declared content size, before it allocates.
 func (c Codec) Decode(dst []int8, payload []byte) error {
 	n := len(dst)
-	if want := c.EncodedLen(n); len(payload) != want {
+	if want := c.EncodedLen(n); want >= 0 && len(payload) != want {
 		return fmt.Errorf("%w: %s payload of %d bytes for %d trits (want %d)", ErrInvalidCode, c, len(payload), n, want)
 	}
 	switch c {
@@ -87,6 +119,8 @@ func (c Codec) Decode(dst []int8, payload []byte) error {
 		return decodeBits2(dst, payload)
 	case Base3:
 		return decodeBase3(dst, payload)
+	case Entropy:
+		return decodeEntropy(dst, payload)
 	}
 	return fmt.Errorf("%w %q", ErrCodec, string(c))
 }

@@ -100,3 +100,5 @@ func BenchmarkCopyPeer(b *testing.B) {
 	}
 	b.ReportMetric(float64(len(dst))*float64(b.N)/b.Elapsed().Seconds(), "trits/s")
 }
+
+func newTestRand(seed uint64) *rand.Rand { return rand.New(rand.NewPCG(seed, seed)) }

@@ -22,7 +22,7 @@ const (
 	DefaultMaxManifest = 256 << 20
 
 	majorVersion = 1
-	minorVersion = 0
+	minorVersion = 1 // the highest minor version this package reads
 )
 
 var (
@@ -67,13 +67,16 @@ func (e *FormatError) Unwrap() error { return e.Err }
 
 func alignUp(n int64) int64 { return (n + Align - 1) &^ (Align - 1) }
 
-func encodePreamble() []byte {
+func encodePreamble(minor uint16) []byte {
 	p := make([]byte, PreambleLen)
 	copy(p, magic[:])
 	binary.LittleEndian.PutUint16(p[8:], majorVersion)
-	binary.LittleEndian.PutUint16(p[10:], minorVersion)
+	binary.LittleEndian.PutUint16(p[10:], minor)
 	return p
 }
+
+// preambleMinor is the minor version of a checked preamble.
+func preambleMinor(p []byte) uint16 { return binary.LittleEndian.Uint16(p[10:]) }
 
 // checkPreamble returns the offset and error of the first bad preamble byte.
 func checkPreamble(p []byte) (int64, error) {

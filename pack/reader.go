@@ -21,6 +21,7 @@ type Artifact struct {
 	closer       io.Closer
 	size         int64
 	m            *manifest.Manifest
+	minor        uint16
 	manifestHash [32]byte
 	manifestOff  int64
 	index        map[string]int
@@ -84,7 +85,11 @@ func newArtifact(file string, r io.ReaderAt, size int64) (*Artifact, error) {
 	if err != nil {
 		return nil, fail("manifest", t.manifestOffset, err)
 	}
-	a := &Artifact{file: file, r: r, size: size, m: m, manifestHash: t.manifestHash, manifestOff: t.manifestOffset, index: make(map[string]int, len(m.Tensors))}
+	minor := preambleMinor(pre)
+	if err := checkMinorVersion(m, minor); err != nil {
+		return nil, fail("preamble", 10, err)
+	}
+	a := &Artifact{file: file, r: r, size: size, m: m, minor: minor, manifestHash: t.manifestHash, manifestOff: t.manifestOffset, index: make(map[string]int, len(m.Tensors))}
 	next := int64(PreambleLen)
 	for i, e := range m.Tensors {
 		a.index[e.Name] = i
@@ -112,6 +117,9 @@ func (a *Artifact) Close() error {
 	}
 	return a.closer.Close()
 }
+
+// Version is the artifact's format version from its preamble.
+func (a *Artifact) Version() (major, minor int) { return majorVersion, int(a.minor) }
 
 // Manifest returns the decoded manifest. Callers must not modify it.
 func (a *Artifact) Manifest() *manifest.Manifest { return a.m }
