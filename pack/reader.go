@@ -166,6 +166,19 @@ func (t *Tensor) Payload() ([]byte, error) {
 	return p, nil
 }
 
+// VerifiedPayload reads the section bytes and checks them against the
+// BLAKE3 the manifest records (ErrHash on a mismatch).
+func (t *Tensor) VerifiedPayload() ([]byte, error) {
+	p, err := t.Payload()
+	if err != nil {
+		return nil, err
+	}
+	if got := manifest.HexHash(blake3.Sum256(p)); got != t.Entry.Section.BLAKE3 {
+		return nil, t.fail(t.Entry.Section.Offset, fmt.Errorf("%w: section BLAKE3 %s, manifest records %s", ErrHash, got, t.Entry.Section.BLAKE3))
+	}
+	return p, nil
+}
+
 func (t *Tensor) fail(off int64, err error) error {
 	return &FormatError{File: t.a.file, Where: fmt.Sprintf("section %q", t.Entry.Name), Offset: off, Err: err}
 }
@@ -173,7 +186,9 @@ func (t *Tensor) fail(off int64, err error) error {
 // ErrKind reports a decode the tensor's kind does not allow.
 var ErrKind = errors.New("wrong tensor kind")
 
-// DecodeTrits fills dst (length Len()) with the trits of a ternary tensor.
+// DecodeTrits fills dst (length Len()) with the trits of a ternary tensor,
+// after checking the section's BLAKE3. Errors are *FormatError values
+// wrapping ErrHash or ErrInvalidCode; dst is undefined after an error.
 func (t *Tensor) DecodeTrits(dst []int8) error {
 	if t.Entry.Kind != manifest.KindTernary {
 		return fmt.Errorf("%w: tensor %q is %s, not ternary", ErrKind, t.Entry.Name, t.Entry.Kind)
@@ -181,7 +196,7 @@ func (t *Tensor) DecodeTrits(dst []int8) error {
 	if len(dst) != t.Len() {
 		return fmt.Errorf("decode tensor %q: dst holds %d trits, tensor has %d", t.Entry.Name, len(dst), t.Len())
 	}
-	p, err := t.Payload()
+	p, err := t.VerifiedPayload()
 	if err != nil {
 		return err
 	}
@@ -192,13 +207,14 @@ func (t *Tensor) DecodeTrits(dst []int8) error {
 }
 
 // DecodeFloat32 fills dst (length Len()) with scale × trit for a ternary
-// tensor, or the decoded values of a kept float tensor.
+// tensor, or the decoded values of a kept float tensor, after checking the
+// section's BLAKE3.
 func (t *Tensor) DecodeFloat32(dst []float32) error {
 	if len(dst) != t.Len() {
 		return fmt.Errorf("decode tensor %q: dst holds %d values, tensor has %d", t.Entry.Name, len(dst), t.Len())
 	}
 	if t.Entry.Kind == manifest.KindKept {
-		p, err := t.Payload()
+		p, err := t.VerifiedPayload()
 		if err != nil {
 			return err
 		}
