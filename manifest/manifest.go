@@ -11,6 +11,7 @@ import (
 	"fmt"
 	"math"
 	"math/bits"
+	"reflect"
 
 	"ternkit/convert"
 )
@@ -151,8 +152,12 @@ func Encode(m *Manifest) ([]byte, error) {
 	return bytes.TrimSuffix(buf.Bytes(), []byte("\n")), nil
 }
 
-// Decode parses and validates a manifest. Unknown keys are rejected.
+// Decode parses and validates a manifest. Unknown, repeated and
+// case-mismatched keys are rejected.
 func Decode(b []byte) (*Manifest, error) {
+	if err := checkStrictJSON(b, reflect.TypeFor[Manifest]()); err != nil {
+		return nil, err
+	}
 	dec := json.NewDecoder(bytes.NewReader(b))
 	dec.DisallowUnknownFields()
 	var m Manifest

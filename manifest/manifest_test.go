@@ -113,6 +113,10 @@ func TestDecodeRejectsUnknownKeys(t *testing.T) {
 		strings.Replace(string(b), `"tie":`, `"ties":1,"tie":`, 1),
 		string(b) + "{}",
 		"[]",
+		strings.Replace(string(b), `"name":"w"`, `"Name":"w"`, 1),                           // keys match exactly
+		strings.Replace(string(b), `"codec":"base3"`, `"codec":"raw","codec":"base3"`, 1),   // no key twice
+		strings.Replace(string(b), `"tool":"ternkit test"`, "\"tool\":\"ternkit \xff\"", 1), // UTF-8 only
+		strings.Replace(string(b), `"source":{`, `"source":{"metadata":{"k":"1","k":"2"},`, 1),
 	} {
 		_, err := Decode([]byte(bad))
 		require.ErrorIs(t, err, ErrInvalid, bad)

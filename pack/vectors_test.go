@@ -364,6 +364,16 @@ func writeVectors(t *testing.T) {
 			return bytes.Replace(b, []byte(`{"name":"layer.w",`), []byte(`{"name":"layer.w","note":"x",`), 1)
 		}
 	})
+	redo("bad-key-case.tkart", failManifest, `tensor key "Name" where "name" is meant (keys match exactly)`, bits2Path, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`{"name":"layer.w",`), []byte(`{"Name":"layer.w",`), 1)
+		}
+	})
+	redo("bad-duplicate-key.tkart", failManifest, `tensor entry with "codec" twice, the last one valid`, bits2Path, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`"codec":"bits2"`), []byte(`"codec":"base3","codec":"bits2"`), 1)
+		}
+	})
 	redo("bad-duplicate-name.tkart", failManifest, "two tensors named layer.w", bits2Path, func(d *draft) { d.m.Tensors[1].Name = "layer.w" })
 	redo("bad-codec-name.tkart", failManifest, `ternary tensor with codec "base4"`, base3Path, func(d *draft) { d.m.Tensors[0].Codec = "base4" })
 	redo("bad-section-length.tkart", failManifest, "bits2 section of 5 bytes for 14 trits (needs 4)", bits2Path, func(d *draft) { d.payloads[0] = append(d.payloads[0], 0) })
