@@ -65,6 +65,21 @@ func code(t int8) byte {
 
 var codeTrit = [3]int8{0, 1, -1}
 
+// encodeDigits appends one byte per group of per trits, holding their
+// codes as digits in radix, least significant first; digits past the end
+// of trits are 0.
+func encodeDigits(dst []byte, trits []int8, per, radix int) []byte {
+	for i := 0; i < len(trits); i += per {
+		b, pow := 0, 1
+		for k := 0; k < per && i+k < len(trits); k++ {
+			b += int(code(trits[i+k])) * pow
+			pow *= radix
+		}
+		dst = append(dst, byte(b))
+	}
+	return dst
+}
+
 // EncodedLen is the payload length of n trits for a fixed-length codec
 // (Bits2, Base3), and -1 for the others.
 func (c Codec) EncodedLen(n int) int {

@@ -32,16 +32,7 @@ func init() {
 	}
 }
 
-func encodeBase3(dst []byte, trits []int8) []byte {
-	for i := 0; i < len(trits); i += 5 {
-		var b int
-		for k := 0; k < 5 && i+k < len(trits); k++ {
-			b += int(code(trits[i+k])) * pow3[k]
-		}
-		dst = append(dst, byte(b))
-	}
-	return dst
-}
+func encodeBase3(dst []byte, trits []int8) []byte { return encodeDigits(dst, trits, 5, 3) }
 
 // decodeBase3 decodes 8 payload bytes (40 trits) per step: each table
 // entry is stored as an 8-byte little-endian word at 5-byte stride, so the

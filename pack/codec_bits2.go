@@ -24,16 +24,7 @@ func init() {
 // bits2HasCode3 reports whether any 2-bit pair of x is 3 (both bits set).
 func bits2HasCode3(x uint64) bool { return x&(x>>1)&0x5555555555555555 != 0 }
 
-func encodeBits2(dst []byte, trits []int8) []byte {
-	for i := 0; i < len(trits); i += 4 {
-		var b byte
-		for k := 0; k < 4 && i+k < len(trits); k++ {
-			b |= code(trits[i+k]) << (2 * k)
-		}
-		dst = append(dst, b)
-	}
-	return dst
-}
+func encodeBits2(dst []byte, trits []int8) []byte { return encodeDigits(dst, trits, 4, 4) }
 
 // decodeBits2 decodes 8 payload bytes (32 trits) per step: one word test
 // for code 3, then table lookups stored as little-endian words, which is
