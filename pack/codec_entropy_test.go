@@ -140,6 +140,27 @@ func TestEntropyZstdCLI(t *testing.T) {
 	require.NoError(t, err)
 	require.Equal(t, content, out)
 
+	// A section extracted from an artifact decodes to the base3 payload of
+	// the tensor's trits.
+	art := filepath.Join(dir, "a"+Extension)
+	buildArtifact(t, autoSource(t, dir), art, Entropy)
+	a, err := Open(art)
+	require.NoError(t, err)
+	defer a.Close()
+	for _, e := range a.Tensors() {
+		tn, err := a.Tensor(e.Name)
+		require.NoError(t, err)
+		sec, err := tn.VerifiedPayload()
+		require.NoError(t, err)
+		extracted := filepath.Join(dir, "section-"+e.Name)
+		require.NoError(t, os.WriteFile(extracted, sec, 0o644))
+		out, err := exec.Command(zstdBin, "-d", "-q", "-c", extracted).Output()
+		require.NoError(t, err, e.Name)
+		tr := make([]int8, tn.Len())
+		require.NoError(t, tn.DecodeTrits(tr))
+		require.Equal(t, Base3.Encode(nil, tr), out, e.Name)
+	}
+
 	raw := filepath.Join(dir, "content.bin")
 	require.NoError(t, os.WriteFile(raw, content, 0o644))
 	theirs, err := exec.Command(zstdBin, "-q", "-c", "--no-check", "-19", raw).Output()
