@@ -284,10 +284,12 @@ def payload_range(codec, n):
 
 
 def sections(tensors):
-    """The sections in file order, as (tensor, section) pairs: one payload
-    section per tensor. A format version that adds sections (scales, say)
-    lists them here in their place."""
-    return [(t, {"offset": t["offset"], "length": t["length"], "blake3": t["blake3"]}) for t in tensors]
+    """The sections in file order, as (tensor, role, section): one "payload"
+    section per tensor. A format version that adds sections to a tensor
+    (scales, say) lists them here after its payload, under their own role;
+    decode_tensor receives every section of the tensor by role."""
+    return [(t, "payload", {"offset": t["offset"], "length": t["length"], "blake3": t["blake3"]})
+            for t in tensors]
 
 
 # ---- codecs -------------------------------------------------------------
@@ -419,7 +421,7 @@ def read_artifact(data, with_trits):
 
     secs = sections(tensors)
     nxt = PREAMBLE_LEN
-    for t, s in secs:
+    for t, _, s in secs:
         if s["offset"] != nxt:
             raise Reject("structure", "tensor %r: section at %d, layout puts it at %d" % (t["name"], s["offset"], nxt))
         if s["length"] > m_off - nxt:
@@ -428,22 +430,26 @@ def read_artifact(data, with_trits):
     if nxt != m_off:
         raise Reject("structure", "manifest at %d, layout puts it at %d" % (m_off, nxt))
 
-    out = []
-    for i, (t, s) in enumerate(secs):
+    out, parts = [], {}
+    for i, (t, role, s) in enumerate(secs):
         end = s["offset"] + s["length"]
-        pad_to = secs[i + 1][1]["offset"] if i + 1 < len(secs) else m_off
+        pad_to = secs[i + 1][2]["offset"] if i + 1 < len(secs) else m_off
         if any(data[end:pad_to]):
             raise Reject("structure", "nonzero padding after tensor %r" % t["name"])
-        payload = data[s["offset"]:end]
-        if blake3_hex(payload) != s["blake3"]:
-            raise Reject("section-hash", "tensor %r: section BLAKE3 differs" % t["name"])
-        out.append(decode_tensor(t, np.frombuffer(payload, dtype=np.uint8), with_trits))
+        section = data[s["offset"]:end]
+        if blake3_hex(section) != s["blake3"]:
+            raise Reject("section-hash", "tensor %r: %s section BLAKE3 differs" % (t["name"], role))
+        parts[role] = np.frombuffer(section, dtype=np.uint8)
+        if i + 1 == len(secs) or secs[i + 1][0] is not t:  # the tensor's last section
+            out.append(decode_tensor(t, parts, with_trits))
+            parts = {}
     if not secs and any(data[PREAMBLE_LEN:m_off]):
         raise Reject("structure", "nonzero padding before the manifest")
     return "1.%d" % minor, out
 
 
-def decode_tensor(t, p, with_trits):
+def decode_tensor(t, parts, with_trits):
+    p = parts["payload"]
     r = {"name": t["name"], "kind": t["kind"], "codec": t["codec"], "shape": t["shape"]}
     if t["kind"] == "kept":
         raw = p.tobytes()
