@@ -84,7 +84,8 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if !opts.Created.IsZero() {
 		m.Created = manifest.CreatedAt(opts.Created)
 	}
-	if err := w.write(encodePreamble(minorFor(m))); err != nil {
+	// The minor version depends on the codecs chosen; finish rewrites it.
+	if err := w.write(encodePreamble(0)); err != nil {
 		return nil, err
 	}
 	var q quantizeBuffers
@@ -180,9 +181,10 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 			return sections{}, fail(err)
 		}
 		g := a.Granularity
-		e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(opts.Codec), &g, res.Exact
+		var codec Codec
+		q.payload, codec = opts.Codec.EncodeTensor(q.payload[:0], q.codes)
+		e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(codec), &g, res.Exact
 		e.Trits, e.Stats = &res.Counts, &res.Stats
-		q.payload = opts.Codec.Encode(q.payload[:0], q.codes)
 		if g.Kind == convert.GranTensor {
 			e.Scale = res.Scales[0]
 			return sections{payload: q.payload}, nil
@@ -313,6 +315,9 @@ func (w *atomicWriter) finish(m *manifest.Manifest) error {
 		return err
 	}
 	if err := w.bw.Flush(); err != nil {
+		return fmt.Errorf("write %s: %w", w.dst, err)
+	}
+	if _, err := w.f.WriteAt(encodePreamble(minorVersionFor(m)), 0); err != nil {
 		return fmt.Errorf("write %s: %w", w.dst, err)
 	}
 	if err := w.f.Sync(); err != nil {

@@ -44,8 +44,12 @@ func checkSections(rep *Report, a *pack.Artifact, advance func(n int64)) {
 			scales = &scaleChecker{ternary: e.Kind == manifest.KindTernary, bad: -1}
 			sink = scales
 		case e.Kind == manifest.KindTernary:
-			counter, _ = pack.NewTritCounter(pack.Codec(e.Codec), manifest.NumElements(e.Shape))
-			sink = counter
+			c, err := pack.NewTritCounter(pack.Codec(e.Codec), manifest.NumElements(e.Shape))
+			if err != nil { // the manifest's rules admit only known codecs
+				rep.add(CheckDecode, e.Name, false, "%v", err)
+			} else {
+				counter, sink = c, c
+			}
 		case e.Kind == manifest.KindInt8:
 			sink = &int8Checker{bad: -1}
 		}
