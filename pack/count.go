@@ -14,7 +14,7 @@ import (
 type TritCounter struct {
 	codec    Codec
 	frame    []byte // entropy payload, decoded at Close
-	n        int64 // trits the payload must hold
+	n        int64  // trits the payload must hold
 	perByte  int64
 	seen     int64 // payload bytes consumed
 	counts   convert.TritCounts
