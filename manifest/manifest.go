@@ -406,6 +406,9 @@ func (e *Tensor) validateKept(n int64) error {
 	if (e.Stats != nil) != (e.DType != e.SourceDType) {
 		return fmt.Errorf("kept tensor stored as %s from %s: stats are required exactly when the dtype changes", e.DType, e.SourceDType)
 	}
+	if e.DType != e.SourceDType && (!convertedTo[e.DType] || !floatSource[e.SourceDType]) {
+		return fmt.Errorf("kept tensor converted from %q to %q (a float dtype converts to F16, BF16 or F32 only)", e.SourceDType, e.DType)
+	}
 	if !ok {
 		// An unknown dtype is kept byte for byte, as the source's data
 		// offsets delimit it: only an empty shape has no bytes.
@@ -419,6 +422,12 @@ func (e *Tensor) validateKept(n int64) error {
 	}
 	return nil
 }
+
+// The dtype conversions a kept tensor may have had (pack/FORMAT.md).
+var (
+	convertedTo = map[string]bool{"F16": true, "BF16": true, "F32": true}
+	floatSource = map[string]bool{"F64": true, "F32": true, "F16": true, "BF16": true, "F8_E4M3": true, "F8_E5M2": true}
+)
 
 func (e *Tensor) validateGranularity() error {
 	if e.Granularity == nil {

@@ -113,6 +113,8 @@ func TestDecodeRejects(t *testing.T) {
 		{"kept without dtype", func(m *Manifest) { m.Tensors[1].DType = "" }, "without dtype"},
 		{"converted without stats", func(m *Manifest) { m.Tensors[4].Stats = nil }, "stats are required"},
 		{"raw with stats", func(m *Manifest) { m.Tensors[1].Stats = &convert.Stats{} }, "stats are required"},
+		{"converted to an integer dtype", func(m *Manifest) { m.Tensors[4].DType, m.Tensors[4].Section.Length = "I16", 8 }, `to "I16"`},
+		{"converted from an integer dtype", func(m *Manifest) { m.Tensors[4].SourceDType = "I32" }, `from "I32"`},
 		{"no granularity", func(m *Manifest) { m.Tensors[0].Granularity = nil }, "missing granularity"},
 		{"row with one scale", func(m *Manifest) { m.Tensors[2].Scale = 1 }, "single scale"},
 		{"row without scales", func(m *Manifest) { m.Tensors[2].Scales = nil }, "without a scales section"},

@@ -13,48 +13,66 @@ import (
 var ErrTritCounts = errors.New("trit counts differ from the manifest")
 
 // Check reads the whole artifact beyond what Open checks: the zero padding
-// after every section, every section's BLAKE3, and every ternary payload,
-// decoded and counted against the manifest. It returns the first problem
+// after every section, every section's BLAKE3 and chunk hashes, every
+// ternary payload, decoded and counted against the manifest, every int8
+// code and every scale in a scales section. It returns the first problem
 // as a *FormatError wrapping ErrStructure, ErrHash, ErrInvalidCode or
 // ErrTritCounts. Memory use is bounded by the largest tensor.
 func (a *Artifact) Check() error {
-	var trits []int8
-	var sections []manifest.Section
-	var owners []*manifest.Tensor
+	type placed struct {
+		s      manifest.Section
+		owner  *manifest.Tensor
+		scales bool // the tensor's scales section, not its payload
+	}
+	var sections []placed
 	for i := range a.m.Tensors {
-		for _, s := range a.m.Tensors[i].Sections() {
-			sections = append(sections, s)
-			owners = append(owners, &a.m.Tensors[i])
+		for k, s := range a.m.Tensors[i].Sections() {
+			sections = append(sections, placed{s, &a.m.Tensors[i], k == 1})
 		}
 	}
-	for i, s := range sections {
+	var trits []int8
+	for i, p := range sections {
 		next := a.manifestOff
 		if i+1 < len(sections) {
-			next = sections[i+1].Offset
+			next = sections[i+1].s.Offset
 		}
-		if err := a.checkPadding(s.Offset+s.Length, next); err != nil {
+		if err := a.checkPadding(p.s.Offset+p.s.Length, next); err != nil {
 			return err
 		}
-		e := owners[i]
+		e := p.owner
 		t := &Tensor{a: a, Entry: *e}
-		if e.Kind != manifest.KindTernary || s.Offset != e.Section.Offset {
-			if _, err := t.verifiedSection(s); err != nil {
-				return err
-			}
-			continue
+		var err error
+		switch {
+		case p.scales:
+			_, err = t.Scales()
+		case e.Kind == manifest.KindInt8:
+			_, err = t.int8Codes()
+		case e.Kind == manifest.KindTernary:
+			trits = grow(trits, t.Len())
+			err = t.checkTrits(trits)
+		default:
+			_, err = t.verifiedSection(p.s)
 		}
-		trits = grow(trits, t.Len())
-		if err := t.DecodeTrits(trits); err != nil {
+		if err != nil {
 			return err
-		}
-		var got convert.TritCounts
-		got.Count(trits)
-		if got != *e.Trits {
-			return t.fail(e.Section.Offset, fmt.Errorf("%w: decoded %+v, manifest records %+v", ErrTritCounts, got, *e.Trits))
 		}
 	}
 	if len(sections) == 0 {
 		return a.checkPadding(PreambleLen, a.manifestOff)
+	}
+	return nil
+}
+
+// checkTrits decodes the tensor's trits into buf and counts them against
+// the manifest.
+func (t *Tensor) checkTrits(buf []int8) error {
+	if err := t.DecodeTrits(buf); err != nil {
+		return err
+	}
+	var got convert.TritCounts
+	got.Count(buf)
+	if got != *t.Entry.Trits {
+		return t.fail(t.Entry.Section.Offset, fmt.Errorf("%w: decoded %+v, manifest records %+v", ErrTritCounts, got, *t.Entry.Trits))
 	}
 	return nil
 }

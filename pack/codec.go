@@ -32,10 +32,10 @@ var WriterCodecs = []Codec{Bits2, Base3, Entropy, Auto}
 // ErrCodec reports an unknown codec name.
 var ErrCodec = errors.New("unknown codec")
 
-// ErrInvalidCode reports a trit payload that no encoder writes: a reserved
-// code, a byte out of range, nonzero padding, a wrong length or a frame
-// outside the entropy codec's rules. Typically this indicates corrupted
-// input.
+// ErrInvalidCode reports a payload that no encoder writes: a reserved trit
+// code, a byte out of range, nonzero padding, a wrong length, a frame
+// outside the entropy codec's rules, an int8 code of -128, or a scale out
+// of its range. Typically this indicates corrupted input.
 var ErrInvalidCode = errors.New("invalid trit payload")
 
 // ParseCodec checks a writer's codec choice (one of WriterCodecs).

@@ -1,6 +1,7 @@
 package pack
 
 import (
+	"bytes"
 	"encoding/binary"
 	"errors"
 	"fmt"
@@ -186,6 +187,12 @@ func (t *Tensor) verifiedSection(s manifest.Section) ([]byte, error) {
 	if got := manifest.HexHash(blake3.Sum256(p)); got != s.BLAKE3 {
 		return nil, t.fail(s.Offset, fmt.Errorf("%w: section BLAKE3 %s, manifest records %s", ErrHash, got, s.BLAKE3))
 	}
+	for k, want := range s.Chunks {
+		c := int64(k) * manifest.ChunkSize
+		if got := manifest.HexHash(blake3.Sum256(p[c:min(c+manifest.ChunkSize, s.Length)])); got != want {
+			return nil, t.fail(s.Offset+c, fmt.Errorf("%w: chunk %d BLAKE3 %s, manifest records %s", ErrHash, k, got, want))
+		}
+	}
 	return p, nil
 }
 
@@ -234,8 +241,25 @@ func (t *Tensor) Scales() ([]float32, error) {
 	s := make([]float32, len(p)/4)
 	for i := range s {
 		s[i] = math.Float32frombits(binary.LittleEndian.Uint32(p[4*i:]))
+		// Ternary scales are > 0; int8 scales are ≥ 0 (an all-zero row has 0).
+		if v := float64(s[i]); math.IsNaN(v) || math.IsInf(v, 0) || v < 0 || (v == 0 && e.Kind == manifest.KindTernary) {
+			return nil, t.fail(e.Scales.Offset+4*int64(i), fmt.Errorf("%w: %s scale %d is %v", ErrInvalidCode, e.Kind, i, s[i]))
+		}
 	}
 	return s, nil
+}
+
+// int8Codes checks the verified payload of an int8 tensor: codes are
+// -127..127.
+func (t *Tensor) int8Codes() ([]byte, error) {
+	p, err := t.VerifiedPayload()
+	if err != nil {
+		return nil, err
+	}
+	if i := bytes.IndexByte(p, 0x80); i >= 0 {
+		return nil, t.fail(t.Entry.Section.Offset+int64(i), fmt.Errorf("%w: int8 code %d is -128 (codes are -127..127)", ErrInvalidCode, i))
+	}
+	return p, nil
 }
 
 // GroupSize is the number of consecutive elements that share one scale.
@@ -273,7 +297,7 @@ func (t *Tensor) DecodeFloat32(dst []float32) error {
 			return err
 		}
 	} else {
-		p, err := t.VerifiedPayload()
+		p, err := t.int8Codes()
 		if err != nil {
 			return err
 		}
