@@ -8,6 +8,7 @@ import (
 	"errors"
 	"flag"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -40,13 +41,17 @@ type vector struct {
 
 // vectorTensor is what a reader must decode for one tensor.
 type vectorTensor struct {
-	Name  string  `json:"name"`
-	Kind  string  `json:"kind"`
-	Codec string  `json:"codec"`
-	Shape []int64 `json:"shape"`
-	Scale float32 `json:"scale,omitempty"`
-	Trits string  `json:"trits,omitempty"` // one of "-0+" per trit, C order
-	Hex   string  `json:"hex,omitempty"`   // kept bytes
+	Name        string    `json:"name"`
+	Kind        string    `json:"kind"`
+	Codec       string    `json:"codec"`
+	Shape       []int64   `json:"shape"`
+	DType       string    `json:"dtype,omitempty"`       // kept: the stored dtype
+	Granularity string    `json:"granularity,omitempty"` // ternary and int8
+	Exact       bool      `json:"exact,omitempty"`
+	Scale       float32   `json:"scale,omitempty"`  // ternary at tensor granularity
+	Scales      []float32 `json:"scales,omitempty"` // the scales section, one per group
+	Trits       string    `json:"trits,omitempty"`  // one of "-0+" per trit, C order
+	Hex         string    `json:"hex,omitempty"`    // kept bytes, or int8 codes
 }
 
 // Failure classes a reader reports (pack/FORMAT.md, "What a reader must reject").
@@ -125,27 +130,50 @@ func TestVectors(t *testing.T) {
 			require.Equal(t, v.Version, fmt.Sprintf("%d.%d", major, minor))
 			require.Len(t, a.Tensors(), len(v.Tensors))
 			for i, e := range a.Tensors() {
-				want := v.Tensors[i]
-				require.Equal(t, want.Name, e.Name)
-				require.Equal(t, want.Codec, e.Codec)
-				tn, err := a.Tensor(e.Name)
-				require.NoError(t, err)
-				if e.Kind == manifest.KindKept {
-					p, err := tn.VerifiedPayload()
-					require.NoError(t, err)
-					require.Equal(t, want.Hex, hex.EncodeToString(p))
-					continue
-				}
-				trits := make([]int8, tn.Len())
-				require.NoError(t, tn.DecodeTrits(trits))
-				require.Equal(t, want.Trits, tritString(trits))
-				vals := make([]float32, tn.Len())
-				require.NoError(t, tn.DecodeFloat32(vals))
-				for k := range vals {
-					require.Equal(t, want.Scale*float32(trits[k]), vals[k])
-				}
+				checkVectorTensor(t, a, e, v.Tensors[i])
 			}
 		})
+	}
+}
+
+// checkVectorTensor requires the Go reader to decode e as want says.
+func checkVectorTensor(t *testing.T, a *Artifact, e manifest.Tensor, want vectorTensor) {
+	t.Helper()
+	require.Equal(t, want.Name, e.Name)
+	require.Equal(t, want.Kind, e.Kind)
+	require.Equal(t, want.Codec, e.Codec)
+	require.Equal(t, want.Exact, e.Exact, e.Name)
+	tn, err := a.Tensor(e.Name)
+	require.NoError(t, err)
+	if e.Kind == manifest.KindKept {
+		require.Equal(t, want.DType, e.DType)
+		p, err := tn.VerifiedPayload()
+		require.NoError(t, err)
+		require.Equal(t, want.Hex, hex.EncodeToString(p))
+		return
+	}
+	require.Equal(t, want.Granularity, e.Granularity.String())
+	codes := make([]int8, tn.Len())
+	if e.Kind == manifest.KindTernary {
+		require.NoError(t, tn.DecodeTrits(codes))
+		require.Equal(t, want.Trits, tritString(codes))
+	} else {
+		p, err := tn.VerifiedPayload()
+		require.NoError(t, err)
+		require.Equal(t, want.Hex, hex.EncodeToString(p))
+		copy(unsafeInt8Bytes(codes), p)
+	}
+	scales, err := tn.Scales()
+	require.NoError(t, err)
+	if e.Scales == nil {
+		require.Equal(t, []float32{want.Scale}, scales)
+	} else {
+		require.Equal(t, want.Scales, scales)
+	}
+	vals := make([]float32, tn.Len())
+	require.NoError(t, tn.DecodeFloat32(vals))
+	for k := range vals {
+		require.Equal(t, scales[k/tn.GroupSize()]*float32(codes[k]), vals[k])
 	}
 }
 
@@ -162,7 +190,8 @@ type draft struct {
 	minor    uint16
 	m        *manifest.Manifest
 	payloads [][]byte
-	gap      map[int]int         // extra zero bytes before section i
+	scales   [][]byte            // nil for a tensor without a scales section
+	gap      map[int]int         // extra zero bytes before tensor i's payload
 	json     func([]byte) []byte // edits the manifest bytes
 }
 
@@ -183,6 +212,13 @@ func readDraft(t *testing.T, path string) *draft {
 		p, err := tn.Payload()
 		require.NoError(t, err)
 		d.payloads = append(d.payloads, p)
+		var sc []byte
+		if e.Scales != nil {
+			sc = make([]byte, e.Scales.Length)
+			_, err := a.ReaderAt().ReadAt(sc, e.Scales.Offset)
+			require.NoError(t, err)
+		}
+		d.scales = append(d.scales, sc)
 	}
 	return d
 }
@@ -191,11 +227,16 @@ func readDraft(t *testing.T, path string) *draft {
 // filling in section offsets, lengths, hashes and totals.
 func (d *draft) encode(t *testing.T) []byte {
 	out := encodePreamble(d.minor)
-	for i, p := range d.payloads {
-		out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out))+int64(d.gap[i]))...)
-		s := &d.m.Tensors[i].Section
+	place := func(s *manifest.Section, p []byte, gap int) {
+		out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out))+int64(gap))...)
 		s.Offset, s.Length, s.BLAKE3 = int64(len(out)), int64(len(p)), manifest.HexHash(blake3.Sum256(p))
 		out = append(out, p...)
+	}
+	for i, p := range d.payloads {
+		place(&d.m.Tensors[i].Section, p, d.gap[i])
+		if d.scales[i] != nil {
+			place(d.m.Tensors[i].Scales, d.scales[i], 0)
+		}
 	}
 	d.m.ComputeTotals()
 	out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out)))...)
@@ -214,13 +255,19 @@ func (d *draft) encode(t *testing.T) []byte {
 type vectorSource struct {
 	tensors []convert.WriteTensor
 	floats  map[string][]float32
+	actions map[string]string // policy action by tensor name; floats default to ternary
 }
 
 func (s *vectorSource) float(name string, shape []int64, v []float32) {
+	s.floatAs(name, shape, v, convert.ActTernary)
+}
+
+// floatAs adds an F32 tensor that the policy gives action.
+func (s *vectorSource) floatAs(name string, shape []int64, v []float32, action string) {
 	if s.floats == nil {
-		s.floats = map[string][]float32{}
+		s.floats, s.actions = map[string][]float32{}, map[string]string{}
 	}
-	s.floats[name] = v
+	s.floats[name], s.actions[name] = v, action
 	s.tensors = append(s.tensors, convert.WriteTensor{Name: name, DType: "F32", Shape: shape, Data: f32Bytes(v)})
 }
 
@@ -233,35 +280,91 @@ func (s *vectorSource) kept(name, dtype string, shape []int64, data []byte) {
 func (s *vectorSource) build(t *testing.T, codec Codec) ([]byte, []vectorTensor) {
 	dir := t.TempDir()
 	src := filepath.Join(dir, "src.safetensors")
-	require.NoError(t, convert.WriteFile(src, s.tensors, map[string]string{"scenario": "ternkit format test vector"}))
+	writeSafetensors(t, src, s.tensors, map[string]string{"scenario": "ternkit format test vector"})
 	f, err := convert.Open(src)
 	require.NoError(t, err)
 	defer f.Close()
-	ternaryW, err := convert.ParseRule("*.w=ternary")
-	require.NoError(t, err)
-	keepRest, err := convert.ParseRule("*=keep")
-	require.NoError(t, err)
-	policy := &convert.Policy{Rules: []convert.Rule{ternaryW, keepRest}}
+	policy := &convert.Policy{}
+	for _, wt := range s.tensors {
+		action, ok := s.actions[wt.Name]
+		if !ok {
+			action = convert.ActKeep
+		}
+		r, err := convert.ParseRule(wt.Name + "=" + action)
+		require.NoError(t, err)
+		policy.Rules = append(policy.Rules, r)
+	}
 	dst := filepath.Join(dir, "v"+Extension)
 	m, err := Build(f, dst, Options{Codec: codec, Recipe: convert.DefaultRecipe(), Policy: policy, Tool: "ternkit vectors"})
 	require.NoError(t, err)
 	var want []vectorTensor
 	for i, wt := range s.tensors {
-		e := m.Tensors[i]
-		vt := vectorTensor{Name: wt.Name, Kind: e.Kind, Codec: e.Codec, Shape: wt.Shape}
-		if w, ok := s.floats[wt.Name]; ok {
-			trits := make([]int8, len(w))
-			q, err := convert.Ternarize(w, convert.Columns(wt.Shape), convert.PerTensor, convert.DefaultRecipe(), trits)
-			require.NoError(t, err)
-			vt.Scale, vt.Trits = q.Scales[0], tritString(trits)
-		} else {
-			vt.Hex = hex.EncodeToString(wt.Data)
-		}
-		want = append(want, vt)
+		want = append(want, s.expect(t, wt, m.Tensors[i]))
 	}
 	b, err := os.ReadFile(dst)
 	require.NoError(t, err)
 	return b, want
+}
+
+// writeSafetensors writes tensors in order by the published layout of
+// safetensors (8-byte little-endian header length, JSON header padded with
+// spaces, data), for any dtype string, a dtype the format does not list
+// included.
+func writeSafetensors(t *testing.T, path string, tensors []convert.WriteTensor, metadata map[string]string) {
+	header := map[string]any{"__metadata__": metadata}
+	var data []byte
+	for _, wt := range tensors {
+		header[wt.Name] = map[string]any{"dtype": wt.DType, "shape": append([]int64{}, wt.Shape...), "data_offsets": []int{len(data), len(data) + len(wt.Data)}}
+		data = append(data, wt.Data...)
+	}
+	h, err := json.Marshal(header)
+	require.NoError(t, err)
+	for len(h)%8 != 0 {
+		h = append(h, ' ')
+	}
+	out := binary.LittleEndian.AppendUint64(nil, uint64(len(h)))
+	require.NoError(t, os.WriteFile(path, append(append(out, h...), data...), 0o644))
+}
+
+// expect is what a reader must decode for source tensor wt, stored as e
+// says (kind, codec), computed from the source and the quantizers rather
+// than by decoding the artifact.
+func (s *vectorSource) expect(t *testing.T, wt convert.WriteTensor, e manifest.Tensor) vectorTensor {
+	vt := vectorTensor{Name: wt.Name, Kind: e.Kind, Codec: e.Codec, Shape: wt.Shape}
+	w, ok := s.floats[wt.Name]
+	if !ok {
+		vt.DType, vt.Hex = wt.DType, hex.EncodeToString(wt.Data)
+		return vt
+	}
+	a, err := convert.ParseAction(s.actions[wt.Name])
+	require.NoError(t, err)
+	cols := convert.Columns(wt.Shape)
+	codes := make([]int8, len(w))
+	kind := manifest.KindKept
+	switch a.Kind {
+	case convert.ActTernary:
+		kind = manifest.KindTernary
+		q, err := convert.Ternarize(w, cols, a.Granularity, convert.DefaultRecipe(), codes)
+		require.NoError(t, err)
+		vt.Granularity, vt.Exact, vt.Trits = a.Granularity.String(), q.Exact, tritString(codes)
+		if a.Granularity.Kind == convert.GranTensor {
+			vt.Scale = q.Scales[0]
+		} else {
+			vt.Scales = q.Scales
+		}
+	case convert.ActInt8:
+		kind = manifest.KindInt8
+		scales, _, err := convert.QuantizeInt8Rows(w, cols, codes)
+		require.NoError(t, err)
+		vt.Granularity, vt.Scales, vt.Hex = convert.GranRow, scales, hex.EncodeToString(int8Bytes(codes))
+	default:
+		vt.DType = a.KeptDType(wt.DType)
+		b, err := convert.EncodeFloat32(nil, vt.DType, w)
+		require.NoError(t, err)
+		vt.Hex = hex.EncodeToString(b)
+	}
+	require.Equal(t, kind, e.Kind, wt.Name)
+	return vt
 }
 
 // sparseWeights are Gaussian weights with the positions of zero trits in
@@ -319,7 +422,35 @@ func writeVectors(t *testing.T) {
 	okEmpty, _ := (&vectorSource{}).build(t, Base3)
 	add(vector{File: "ok-no-tensors.tkart", Expect: "ok", Version: "1.0", Note: "no tensors: the manifest starts at byte 64"}, okEmpty)
 
+	// Scales sections: row and group granularity, int8.
+	rows := &vectorSource{}
+	rows.floatAs("rows.w", []int64{3, 6}, []float32{0.9, -1.1, 0.05, 0.6, -0.2, 1.7, 0, 0, 0, 0, 0, 0, 0.01, -0.03, 0.02, 0.04, -0.015, 0.0}, "ternary:row")
+	okRow, wantRow := rows.build(t, Bits2)
+	add(vector{File: "ok-row.tkart", Expect: "ok", Version: "1.0", Note: "ternary at row granularity: 3 rows of 6, the second all zero (its scale is the recipe's for gamma 0), the third 100 times smaller; 12 bytes of float32 scales after the payload", Tensors: wantRow}, okRow)
+	groups := &vectorSource{}
+	groups.floatAs("groups.w", []int64{2, 8}, []float32{0.9, -1.1, 0.05, 0.6, 4, -6, 0.5, 3, -0.2, 0.1, 0.3, -0.4, 0, 0, 0.2, 0}, "ternary:group:4")
+	okGroup, wantGroup := groups.build(t, Base3)
+	add(vector{File: "ok-group.tkart", Expect: "ok", Version: "1.0", Note: "ternary at group:4 granularity: 2 rows of 8, 4 groups of 4 elements, trit i dequantized by scale ⌊i/4⌋", Tensors: wantGroup}, okGroup)
+	i8 := &vectorSource{}
+	i8.floatAs("embed", []int64{3, 4}, []float32{1.27, -0.5, 0.005, 0.635, 0, 0, 0, 0, -254, 127, 1, -0.999}, convert.ActInt8)
+	okInt8, wantInt8 := i8.build(t, Bits2)
+	add(vector{File: "ok-int8.tkart", Expect: "ok", Version: "1.0", Note: "int8, per-row absmax: 3 rows of 4 (the second all zero, scale 0); codes as hex bytes, 12 bytes of scales after them", Tensors: wantInt8}, okInt8)
+	conv := &vectorSource{}
+	conv.floatAs("norm.f16", []int64{5}, []float32{1, -2, 65504, 1.0 / (1 << 24), 0.1}, convert.ActKeepF16)
+	conv.floatAs("norm.bf16", []int64{3}, []float32{1, -2, 0.1}, convert.ActKeepBF16)
+	conv.kept("scale.f8", "F8_E4M3", []int64{4}, []byte{0x38, 0xb8, 0x7e, 0x01}) // 1, -1, 448, 2^-9
+	conv.kept("blob", "Q4_BLOCK", []int64{2}, []byte{0xde, 0xad, 0xbe})
+	okConv, wantConv := conv.build(t, Bits2)
+	add(vector{File: "ok-keep-f16.tkart", Expect: "ok", Version: "1.0", Note: "kept F32 converted to F16 (1, -2, 65504, 2^-24, 0.1 rounded) and to BF16; a kept F8_E4M3 vector; an unknown dtype kept byte for byte (3 bytes for 2 elements)", Tensors: wantConv}, okConv)
+	ex := &vectorSource{}
+	ex.float("exact.w", []int64{2, 4}, []float32{0.25, 0, -0.25, 0.25, 0, 0, -0.25, 0})
+	ex.floatAs("exact-row.w", []int64{3, 2}, []float32{3, -3, 0, 0, 0.5, 0}, "ternary:row")
+	okExact, wantExact := ex.build(t, Base3)
+	require.True(t, wantExact[0].Exact && wantExact[1].Exact, "the source is already ternary")
+	add(vector{File: "ok-exact.tkart", Expect: "ok", Version: "1.0", Note: "tensors already c × {-1, 0, +1}: exact, scale 0.25 (tensor) and 3, recipe's, 0.5 (rows)", Tensors: wantExact}, okExact)
+
 	bits2Path, base3Path, entropyPath := path("bits2", okBits2), path("base3", okBase3), filepath.Join(dir, "entropy")
+	rowPath, int8Path, convPath := path("row", okRow), path("int8", okInt8), path("conv", okConv)
 
 	// Byte edits of a valid artifact.
 	edit := func(file, expect, note string, base []byte, f func(b []byte) []byte) {
@@ -347,6 +478,15 @@ func writeVectors(t *testing.T) {
 		return b
 	})
 	edit("bad-padding.tkart", failStructure, "a padding byte after the first section is 1", okBits2, func(b []byte) []byte { b[64+4] = 1; return b })
+	rowScales := readDraft(t, rowPath).m.Tensors[0].Scales
+	edit("bad-scales-hash.tkart", failSectionHash, "rows.w scales: lowest bit of the first scale flipped (still a valid scale), hash not updated", okRow, func(b []byte) []byte {
+		b[rowScales.Offset] ^= 1
+		return b
+	})
+	edit("bad-scales-padding.tkart", failStructure, "rows.w scales: the padding byte right after its 12 bytes is 1", okRow, func(b []byte) []byte {
+		b[rowScales.Offset+rowScales.Length] = 1
+		return b
+	})
 	edit("bad-section-hash.tkart", failSectionHash, "first payload byte changed to another valid bits2 byte, hash not updated", okBits2, func(b []byte) []byte { b[64] ^= 0x01; return b })
 
 	// Edits of the taken-apart artifact, laid out again with valid hashes
@@ -400,6 +540,31 @@ func writeVectors(t *testing.T) {
 		d.payloads[1] = appendStoredFrame(nil, []byte{27})
 	})
 
+	setScale := func(d *draft, i int, v float32) {
+		binary.LittleEndian.PutUint32(d.scales[0][4*i:], math.Float32bits(v))
+	}
+	redo("bad-scales-length.tkart", failManifest, "rows.w scales section of 16 bytes for 3 rows (needs 12)", rowPath, func(d *draft) { d.scales[0] = append(d.scales[0], 0, 0, 0x80, 0x3f) })
+	redo("bad-scale-zero.tkart", failPayload, "rows.w scale 1 is 0 (ternary scales are > 0)", rowPath, func(d *draft) { setScale(d, 1, 0) })
+	redo("bad-scale-nan.tkart", failPayload, "rows.w scale 2 is NaN", rowPath, func(d *draft) { setScale(d, 2, float32(math.NaN())) })
+	redo("bad-int8-scale-negative.tkart", failPayload, "embed scale 0 is -0.01 (int8 scales are ≥ 0)", int8Path, func(d *draft) { setScale(d, 0, -0.01) })
+	redo("bad-int8-code.tkart", failPayload, "embed code 0 is 0x80 (-128; codes are -127..127)", int8Path, func(d *draft) { d.payloads[0][0] = 0x80 })
+	redo("bad-int8-granularity.tkart", failManifest, `int8 tensor with granularity "group:2"`, int8Path, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`"granularity":"row"`), []byte(`"granularity":"group:2"`), 1)
+		}
+	})
+	redo("bad-group-leading-zero.tkart", failManifest, `ternary granularity "group:04" (group sizes are written without leading zeros)`, path("group", okGroup), func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`"granularity":"group:4"`), []byte(`"granularity":"group:04"`), 1)
+		}
+	})
+	redo("bad-dtype-conversion.tkart", failManifest, "norm.f16 claims dtype I16 from F32 (conversions are to F16, BF16 or F32)", convPath, func(d *draft) { d.m.Tensors[0].DType = "I16" })
+	redo("bad-exact-on-kept.tkart", failManifest, `kept tensor with "exact": true`, convPath, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`{"name":"scale.f8",`), []byte(`{"name":"scale.f8","exact":true,`), 1)
+		}
+	})
+
 	require.NoError(t, os.MkdirAll(vectorsDir, 0o755))
 	old, _ := filepath.Glob(filepath.Join(vectorsDir, "*.tkart"))
 	for _, f := range old {
@@ -421,7 +586,8 @@ func vectorsReadme(vs []vector) string {
 
 Each file is an artifact; the table says what a reader must produce for it:
 success with the listed tensors (trits written one character each, "-" for
-−1, "0" and "+" for +1, in C order; kept tensors as hex bytes), or the class
+−1, "0" and "+" for +1, in C order; int8 codes and kept tensors as hex
+bytes; the float32 scales of a scales section in order), or the class
 of failure from FORMAT.md, "What a reader must reject". vectors.json holds
 the same in full, for programs. A failure vector breaks exactly one rule;
 hashes and layout are otherwise valid.
@@ -448,7 +614,17 @@ written from FORMAT.md alone), run from ` + "`go test ./cmd/ternkit`" + `.
 				if len(val) > 24 {
 					val = val[:24] + "…"
 				}
-				parts = append(parts, fmt.Sprintf("`%s` %s %v `%s`", tn.Name, tn.Codec, tn.Shape, val))
+				desc := fmt.Sprintf("`%s` %s %v `%s`", tn.Name, tn.Codec, tn.Shape, val)
+				switch {
+				case tn.Granularity != "" && tn.Granularity != convert.GranTensor:
+					desc = fmt.Sprintf("`%s` %s %s %s %v `%s` scales %v", tn.Name, tn.Kind, tn.Granularity, tn.Codec, tn.Shape, val, tn.Scales)
+				case tn.DType != "" && tn.Kind == manifest.KindKept:
+					desc = fmt.Sprintf("`%s` %s %s %v `%s`", tn.Name, tn.Codec, tn.DType, tn.Shape, val)
+				}
+				if tn.Exact {
+					desc += " exact"
+				}
+				parts = append(parts, desc)
 			}
 			res = "success, version " + v.Version
 			if len(parts) > 0 {

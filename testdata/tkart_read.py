@@ -10,11 +10,16 @@ and zstd frames are decoded by the zstd tool (both Debian packages).
 prints a JSON array with one object per file: "result" is "ok" or the
 failure class of FORMAT.md ("What a reader must reject"), "detail" says why,
 and for a valid file "version" and "tensors" give each tensor's name, kind,
-codec, shape, scale, trit counts, and SHA-256 digests of its decoded trits
-(int8), its dequantized float32 values (little-endian) or its kept bytes.
---trits adds the trits themselves as a string of "-0+" and kept bytes as hex.
+codec, shape, stored dtype (kept), granularity and exact flag (ternary,
+int8), scale (ternary at tensor granularity), trit counts, and SHA-256
+digests of its decoded trits (int8 values), int8 codes, kept bytes and
+dequantized or decoded float32 values (little-endian, every NaN written as
+0x7FC00000).
+--trits adds the trits themselves as a string of "-0+", int8 codes and kept
+bytes as hex, and the scales of a scales section as numbers.
 """
 
+import datetime
 import hashlib
 import json
 import math
@@ -40,22 +45,27 @@ DTYPE_SIZE = {
     "I64": 8, "I32": 4, "I16": 2, "I8": 1, "U64": 8, "U32": 4, "U16": 2,
     "U8": 1, "BOOL": 1,
 }
+FLOAT_DTYPES = ("F64", "F32", "F16", "BF16", "F8_E4M3", "F8_E5M2")
+CONVERTED_TO = ("F16", "BF16", "F32")
 INT64_MAX = (1 << 63) - 1
+CHUNK = 1 << 22
 
 # The keys of every manifest object ("Manifest"); a new minor version that
 # adds keys adds them here.
 KEYS = {
-    "manifest": {"format", "version", "tool", "recipe", "source", "tensors", "totals"},
-    "recipe": {"method", "scale_rule", "epsilon", "tie", "granularity"},
+    "manifest": {"format", "version", "tool", "created", "recipe", "source", "policy",
+                 "tensors", "totals"},
+    "recipe": {"method", "scale_rule", "epsilon", "tie"},
     "source": {"files", "metadata"},
     "file": {"name", "bytes", "blake3"},
-    "tensor": {"name", "shape", "source_dtype", "kind", "codec", "scale", "section",
-               "source_blake3", "trits", "rel_rmse", "max_abs_err"},
-    "section": {"offset", "length", "blake3"},
+    "tensor": {"name", "shape", "source_dtype", "kind", "dtype", "codec", "granularity",
+               "scale", "scales", "exact", "section", "source_blake3", "trits", "stats"},
+    "section": {"offset", "length", "blake3", "chunks"},
     "trits": {"neg", "zero", "pos"},
-    "totals": {"tensors", "ternary_tensors", "kept_tensors", "ternary_params", "kept_params",
-               "source_bytes", "ternary_section_bytes", "kept_section_bytes",
-               "bits_per_ternary_weight"},
+    "stats": {"zero_fraction", "clipped_fraction", "rel_rmse", "max_abs_err", "cosine"},
+    "totals": {"tensors", "ternary_tensors", "int8_tensors", "kept_tensors", "ternary_params",
+               "int8_params", "kept_params", "source_bytes", "ternary_section_bytes",
+               "int8_section_bytes", "kept_section_bytes", "bits_per_ternary_weight"},
 }
 
 
@@ -164,6 +174,21 @@ def parse_manifest(body):
     if integer(m.get("version"), "version") != 1:
         raise bad("version %r" % m.get("version"))
     string(m.get("tool"), "tool")
+    created = string(m.get("created"), "created")
+    if created:
+        try:
+            t = datetime.datetime.strptime(created, "%Y-%m-%dT%H:%M:%SZ")
+        except ValueError:
+            t = None
+        if t is None or t.strftime("%Y-%m-%dT%H:%M:%SZ") != created:
+            raise bad("created %r is not YYYY-MM-DDThh:mm:ssZ" % created)
+    if m.get("policy") is not None:
+        policy = arr(m.get("policy"), "policy")
+        if not policy:
+            raise bad("policy is an empty array")
+        for i, rule in enumerate(policy):
+            if string(rule, "policy[%d]" % i) == "":
+                raise bad("policy[%d] is empty" % i)
 
     r = obj(m.get("recipe"), "recipe", "recipe")
     eps = number(r.get("epsilon"), "recipe.epsilon")
@@ -172,7 +197,6 @@ def parse_manifest(body):
     if (string(r.get("method"), "recipe.method") != "absmean"
             or string(r.get("scale_rule"), "recipe.scale_rule") not in ("reciprocal", "quotient")
             or string(r.get("tie"), "recipe.tie") not in ("half-even", "half-away")
-            or string(r.get("granularity"), "recipe.granularity") != "tensor"
             or not eps > 0 or math.isinf(eps) or eps32 == 0 or np.isinf(eps32)):
         raise bad("recipe %r" % r)
 
@@ -198,19 +222,53 @@ def parse_manifest(body):
         tensors.append(t)
 
     totals = obj(m.get("totals"), "totals", "totals")
-    want = {"tensors": len(tensors), "ternary_tensors": 0, "kept_tensors": 0, "ternary_params": 0,
-            "kept_params": 0, "source_bytes": source_bytes, "ternary_section_bytes": 0,
-            "kept_section_bytes": 0}
+    want = {"tensors": len(tensors), "source_bytes": source_bytes}
+    for k in ("ternary", "int8", "kept"):
+        want.update({k + "_tensors": 0, k + "_params": 0, k + "_section_bytes": 0})
     for t in tensors:
-        k = "ternary" if t["kind"] == "ternary" else "kept"
+        k = t["kind"]
         want[k + "_tensors"] += 1
         want[k + "_params"] += t["n"]
-        want[k + "_section_bytes"] += t["length"]
+        want[k + "_section_bytes"] += sum(sec["length"] for _, sec in t["sections"])
     for k, v in want.items():
         if integer(totals.get(k), "totals." + k) != v:
             raise bad("totals.%s is %r, the tensors give %d" % (k, totals.get(k), v))
     number(totals.get("bits_per_ternary_weight"), "totals.bits_per_ternary_weight")
     return tensors
+
+
+def parse_section(v, path):
+    sec = obj(v, "section", path)
+    r = {"offset": integer(sec.get("offset"), path + ".offset"),
+         "length": integer(sec.get("length"), path + ".length"),
+         "blake3": hash_hex(sec.get("blake3"), path + ".blake3"),
+         "chunks": [hash_hex(h, path + ".chunks") for h in arr(sec.get("chunks"), path + ".chunks")]}
+    if r["offset"] < 0 or r["length"] < 0:
+        raise bad("%s: offset %d length %d" % (path, r["offset"], r["length"]))
+    want = (r["length"] + CHUNK - 1) // CHUNK if r["length"] > CHUNK else 0
+    if len(r["chunks"]) != want:
+        raise bad("%s: %d chunk hashes for %d bytes, want %d" % (path, len(r["chunks"]), r["length"], want))
+    return r
+
+
+def group_size(gran, shape, n, p):
+    """The group size G of "Granularity", or 0 for an empty tensor."""
+    if len(shape) < 2:
+        raise bad("%s: shape %r has fewer than 2 dimensions" % (p, shape))
+    cols = n // shape[0] if shape[0] else 0
+    if n == 0:
+        return 0
+    if gran == "tensor":
+        return n
+    if gran == "row":
+        return cols
+    if gran.startswith("group:"):
+        text = gran[len("group:"):]
+        if text.isdigit() and text == str(int(text)) and 1 <= int(text) <= 2147483647:
+            if cols % int(text) != 0:
+                raise bad("%s: %s does not divide the row length %d" % (p, gran, cols))
+            return int(text)
+    raise bad("%s: granularity %r" % (p, gran))
 
 
 def parse_tensor(t, i):
@@ -227,26 +285,33 @@ def parse_tensor(t, i):
         n *= d
     if n > INT64_MAX:
         raise bad("%s: shape %r overflows" % (p, shape))
-    dtype = string(t.get("source_dtype"), p + ".source_dtype")
+    source_dtype = string(t.get("source_dtype"), p + ".source_dtype")
     kind = string(t.get("kind"), p + ".kind")
+    dtype = string(t.get("dtype"), p + ".dtype")
     codec = string(t.get("codec"), p + ".codec")
-    sec = obj(t.get("section"), "section", p + ".section")
-    offset = integer(sec.get("offset"), p + ".section.offset")
-    length = integer(sec.get("length"), p + ".section.length")
-    digest = hash_hex(sec.get("blake3"), p + ".section.blake3")
+    gran = string(t.get("granularity"), p + ".granularity")
+    sec = parse_section(t.get("section"), p + ".section")
+    scales = None if t.get("scales") is None else parse_section(t.get("scales"), p + ".scales")
+    exact = t.get("exact")
+    if exact is not None and not isinstance(exact, bool):
+        raise bad("%s: exact %r is not a boolean" % (p, exact))
+    exact = bool(exact)
     hash_hex(t.get("source_blake3"), p + ".source_blake3")
-    if offset < 0 or length < 0:
-        raise bad("%s: section offset %d length %d" % (p, offset, length))
     scale = float32_of(t.get("scale"), p + ".scale")
-    counts = None
+    stats = t.get("stats")
+    if stats is not None:
+        for k, v in obj(stats, "stats", p + ".stats").items():
+            number(v, p + ".stats." + k)
+    length = sec["length"]
+    counts, size = None, 0
     if kind == "ternary":
         if codec not in TRIT_CODECS:
             raise bad("%s: codec %r is not a trit codec" % (p, codec))
         lo, hi = payload_range(codec, n)
         if not lo <= length <= hi:
             raise bad("%s: section length %d, codec %s takes %d to %d" % (p, length, codec, lo, hi))
-        if not (scale > 0) or np.isinf(scale):
-            raise bad("%s: scale %r" % (p, t.get("scale")))
+        if dtype or source_dtype not in DTYPE_SIZE:
+            raise bad("%s: dtype %r, source dtype %r" % (p, dtype, source_dtype))
         tr = t.get("trits")
         if tr is None:
             raise bad(p + ": no trit counts")
@@ -254,23 +319,52 @@ def parse_tensor(t, i):
         counts = tuple(integer(tr.get(k), p + ".trits." + k) for k in ("neg", "zero", "pos"))
         if min(counts) < 0 or sum(counts) != n:
             raise bad("%s: trit counts %r do not sum to %d" % (p, counts, n))
-        if t.get("rel_rmse") is None or t.get("max_abs_err") is None:
-            raise bad(p + ": missing rel_rmse or max_abs_err")
-        number(t.get("rel_rmse"), p + ".rel_rmse")
-        number(t.get("max_abs_err"), p + ".max_abs_err")
+        if stats is None:
+            raise bad(p + ": no stats")
+        size = group_size(gran, shape, n, p)
+        if gran == "tensor":
+            if scales is not None:
+                raise bad(p + ": tensor granularity with a scales section")
+            if not (scale > 0) or np.isinf(scale):
+                raise bad("%s: scale %r" % (p, t.get("scale")))
+        elif scale != 0 or scales is None:
+            raise bad("%s: granularity %s needs a scales section and no scale" % (p, gran))
+    elif kind == "int8":
+        if codec != "raw" or length != n:
+            raise bad("%s: int8 tensor with codec %r, section length %d for %d codes" % (p, codec, length, n))
+        if gran != "row":
+            raise bad("%s: int8 tensor with granularity %r" % (p, gran))
+        if source_dtype not in DTYPE_SIZE or dtype or scale != 0 or exact or t.get("trits") is not None:
+            raise bad(p + ": int8 tensor with kept or ternary fields")
+        if stats is None or scales is None:
+            raise bad(p + ": int8 tensor without stats or scales")
+        size = group_size(gran, shape, n, p)
     elif kind == "kept":
         if codec != "raw":
             raise bad("%s: kept tensor with codec %r" % (p, codec))
-        if dtype not in DTYPE_SIZE:
-            raise bad("%s: unknown dtype %r" % (p, dtype))
-        if length != n * DTYPE_SIZE[dtype]:
-            raise bad("%s: section length %d for %d %s elements" % (p, length, n, dtype))
-        if scale != 0 or any(t.get(k) is not None for k in ("trits", "rel_rmse", "max_abs_err")):
+        if dtype == "":
+            raise bad(p + ": kept tensor without dtype")
+        if scale != 0 or exact or gran or scales is not None or t.get("trits") is not None:
             raise bad(p + ": kept tensor with ternary fields")
+        if dtype != source_dtype and (dtype not in CONVERTED_TO or source_dtype not in FLOAT_DTYPES):
+            raise bad("%s: kept tensor converted from %r to %r" % (p, source_dtype, dtype))
+        if (stats is not None) != (dtype != source_dtype):
+            raise bad(p + ": stats are required exactly when the dtype changes")
+        if dtype in DTYPE_SIZE:
+            if length != n * DTYPE_SIZE[dtype]:
+                raise bad("%s: section length %d for %d %s elements" % (p, length, n, dtype))
+        elif (n == 0) != (length == 0):
+            raise bad("%s: section length %d for %d elements of unknown dtype %r" % (p, length, n, dtype))
     else:
         raise bad("%s: kind %r" % (p, kind))
+    if scales is not None:
+        groups = n // size if size else 0
+        if scales["length"] != 4 * groups:
+            raise bad("%s: scales length %d for %d scales" % (p, scales["length"], groups))
+    secs = [("payload", sec)] + ([("scales", scales)] if scales is not None else [])
     return {"name": name, "shape": shape, "n": n, "dtype": dtype, "kind": kind, "codec": codec,
-            "scale": scale, "offset": offset, "length": length, "blake3": digest, "counts": counts}
+            "granularity": gran, "exact": exact, "scale": scale, "group": size,
+            "sections": secs, "counts": counts}
 
 
 def payload_range(codec, n):
@@ -284,12 +378,9 @@ def payload_range(codec, n):
 
 
 def sections(tensors):
-    """The sections in file order, as (tensor, role, section): one "payload"
-    section per tensor. A format version that adds sections to a tensor
-    (scales, say) lists them here after its payload, under their own role;
-    decode_tensor receives every section of the tensor by role."""
-    return [(t, "payload", {"offset": t["offset"], "length": t["length"], "blake3": t["blake3"]})
-            for t in tensors]
+    """The sections in file order, as (tensor, role, section): each
+    tensor's "payload", then its "scales" if it has them."""
+    return [(t, role, s) for t in tensors for role, s in t["sections"]]
 
 
 # ---- codecs -------------------------------------------------------------
@@ -435,38 +526,123 @@ def read_artifact(data, with_trits):
         end = s["offset"] + s["length"]
         pad_to = secs[i + 1][2]["offset"] if i + 1 < len(secs) else m_off
         if any(data[end:pad_to]):
-            raise Reject("structure", "nonzero padding after tensor %r" % t["name"])
+            raise Reject("structure", "nonzero padding after tensor %r's %s" % (t["name"], role))
         section = data[s["offset"]:end]
         if blake3_hex(section) != s["blake3"]:
             raise Reject("section-hash", "tensor %r: %s section BLAKE3 differs" % (t["name"], role))
-        parts[role] = np.frombuffer(section, dtype=np.uint8)
+        for k, want in enumerate(s["chunks"]):
+            if blake3_hex(section[k * CHUNK:(k + 1) * CHUNK]) != want:
+                raise Reject("section-hash", "tensor %r: %s chunk %d BLAKE3 differs" % (t["name"], role, k))
+        parts[role] = check_contents(t, role, np.frombuffer(section, dtype=np.uint8))
         if i + 1 == len(secs) or secs[i + 1][0] is not t:  # the tensor's last section
-            out.append(decode_tensor(t, parts, with_trits))
+            out.append(describe_tensor(t, parts, with_trits))
             parts = {}
     if not secs and any(data[PREAMBLE_LEN:m_off]):
         raise Reject("structure", "nonzero padding before the manifest")
     return "1.%d" % minor, out
 
 
-def decode_tensor(t, parts, with_trits):
+def check_contents(t, role, p):
+    """A section's contents decoded and checked ("Codecs", "Scales
+    sections"): trits counted, int8 codes, scale values."""
+    if role == "scales":
+        scales = p.view("<f4").astype(np.float32)
+        if t["kind"] == "ternary":
+            ok = np.isfinite(scales) & (scales > 0)
+        else:
+            ok = np.isfinite(scales) & (scales >= 0)
+        if not ok.all():
+            j = int(np.flatnonzero(~ok)[0])
+            raise Reject("payload", "tensor %r: %s scale %d is %r" % (t["name"], t["kind"], j, float(scales[j])))
+        return scales
+    if t["kind"] == "ternary":
+        trits = DECODERS[t["codec"]](p, t["n"])
+        counts = tuple(int((trits == v).sum()) for v in (-1, 0, 1))
+        if counts != t["counts"]:
+            raise Reject("counts", "tensor %r: decoded counts %r, manifest %r" % (t["name"], counts, t["counts"]))
+        return trits
+    if t["kind"] == "int8":
+        codes = p.view(np.int8)
+        if (codes == -128).any():
+            raise Reject("payload", "tensor %r: int8 code %d is -128" % (t["name"], int(np.flatnonzero(codes == -128)[0])))
+        return codes
+    return p
+
+
+# F8_E4M3: 1 sign, 4 exponent bits (bias 7), 3 fraction bits, no
+# infinities, S.1111.111 NaN, exponent 0 the subnormals m × 2^-9.
+def _e4m3(b):
+    sign = -1.0 if b & 0x80 else 1.0
+    e, m = (b >> 3) & 0xF, b & 7
+    if e == 0xF and m == 7:
+        return float("nan")
+    if e == 0:
+        return sign * m * 2.0 ** -9
+    return sign * (1 + m / 8) * 2.0 ** (e - 7)
+
+
+E4M3 = np.array([_e4m3(b) for b in range(256)], dtype=np.float32)
+
+
+def decode_floats(dtype, raw):
+    """Kept bytes of a float dtype as float32 ("raw")."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        if dtype == "F64":
+            return raw.view("<f8").astype(np.float32)
+        if dtype == "F32":
+            return raw.view("<f4").astype(np.float32)
+        if dtype == "F16":
+            return raw.view("<f2").astype(np.float32)
+        if dtype == "BF16":
+            return (raw.view("<u2").astype(np.uint32) << 16).view(np.float32)
+        if dtype == "F8_E5M2":
+            return (raw.astype(np.uint16) << 8).view(np.float16).astype(np.float32)
+        if dtype == "F8_E4M3":
+            return E4M3[raw]
+    return None
+
+
+def float32_digest(v):
+    bits = np.asarray(v, dtype="<f4").view("<u4").copy()
+    bits[np.isnan(np.asarray(v, dtype=np.float32))] = 0x7FC00000
+    return hashlib.sha256(bits.tobytes()).hexdigest()
+
+
+def describe_tensor(t, parts, with_trits):
     p = parts["payload"]
     r = {"name": t["name"], "kind": t["kind"], "codec": t["codec"], "shape": t["shape"]}
     if t["kind"] == "kept":
         raw = p.tobytes()
+        r["dtype"] = t["dtype"]
         r["kept_sha256"] = hashlib.sha256(raw).hexdigest()
+        values = decode_floats(t["dtype"], p)
+        if values is not None:
+            r["float32_sha256"] = float32_digest(values)
         if with_trits:
             r["hex"] = raw.hex()
         return r
-    trits = DECODERS[t["codec"]](p, t["n"])
-    counts = tuple(int((trits == v).sum()) for v in (-1, 0, 1))
-    if counts != t["counts"]:
-        raise Reject("counts", "tensor %r: decoded counts %r, manifest %r" % (t["name"], counts, t["counts"]))
-    values = (t["scale"] * trits.astype(np.float32)).astype("<f4")
-    r.update({"scale": float(t["scale"]), "counts": list(counts),
-              "trits_sha256": hashlib.sha256(trits.astype(np.int8).tobytes()).hexdigest(),
-              "float32_sha256": hashlib.sha256(values.tobytes()).hexdigest()})
-    if with_trits:
-        r["trits"] = "".join("-0+"[v + 1] for v in trits.tolist())
+    r["granularity"] = t["granularity"]
+    if t["exact"]:
+        r["exact"] = True
+    if "scales" in parts:
+        scales = parts["scales"]
+    else:
+        scales = np.array([t["scale"]], dtype=np.float32)
+        r["scale"] = float(t["scale"])
+    group = np.arange(t["n"]) // t["group"] if t["n"] else np.zeros(0, dtype=np.int64)
+    values = (scales[group] * p.astype(np.float32)).astype("<f4")
+    r["float32_sha256"] = float32_digest(values)
+    if t["kind"] == "ternary":
+        r["counts"] = list(t["counts"])
+        r["trits_sha256"] = hashlib.sha256(p.astype(np.int8).tobytes()).hexdigest()
+        if with_trits:
+            r["trits"] = "".join("-0+"[v + 1] for v in p.tolist())
+    else:
+        r["codes_sha256"] = hashlib.sha256(p.tobytes()).hexdigest()
+        if with_trits:
+            r["hex"] = p.tobytes().hex()
+    if with_trits and "scales" in parts:
+        r["scales"] = [float(v) for v in scales]
     return r
 
 
