@@ -3,6 +3,7 @@ module ternkit
 go 1.26.8
 
 require (
+	github.com/klauspost/compress v1.20.4
 	github.com/BurntSushi/toml v1.6.0
 	github.com/nlpodyssey/safetensors v0.0.0-20250209183917-bfb01cc25f7c
 	github.com/schollz/progressbar/v3 v3.19.1

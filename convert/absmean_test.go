@@ -307,7 +307,7 @@ func TestParseGranularity(t *testing.T) {
 		require.NoError(t, err)
 		require.Equal(t, s, g.String())
 	}
-	for _, s := range []string{"", "rows", "group", "group:0", "group:-4", "group:x", "group:1.5"} {
+	for _, s := range []string{"", "rows", "group", "group:0", "group:-4", "group:x", "group:1.5", "group:064", "group:+64"} {
 		_, err := ParseGranularity(s)
 		require.ErrorIs(t, err, ErrGranularity, s)
 		require.Contains(t, err.Error(), `"`+s+`"`)

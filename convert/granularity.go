@@ -40,8 +40,8 @@ func ParseGranularity(s string) (Granularity, error) {
 		return Granularity{Kind: GranRow}, nil
 	case strings.HasPrefix(s, GranGroup+":"):
 		n, err := strconv.Atoi(strings.TrimPrefix(s, GranGroup+":"))
-		if err != nil || n < 1 || n > math.MaxInt32 {
-			return Granularity{}, fmt.Errorf("%w %q: group size must be a positive integer", ErrGranularity, s)
+		if err != nil || n < 1 || n > math.MaxInt32 || GranGroup+":"+strconv.Itoa(n) != s {
+			return Granularity{}, fmt.Errorf("%w %q: group size must be a positive decimal integer without sign or leading zero", ErrGranularity, s)
 		}
 		return Granularity{Kind: GranGroup, Group: n}, nil
 	}

@@ -11,6 +11,7 @@ import (
 	"fmt"
 	"math"
 	"math/bits"
+	"reflect"
 	"time"
 
 	"ternkit/convert"
@@ -31,9 +32,10 @@ const (
 
 // Codec names.
 const (
-	CodecBits2 = "bits2"
-	CodecBase3 = "base3"
-	CodecRaw   = "raw"
+	CodecBits2   = "bits2"
+	CodecBase3   = "base3"
+	CodecEntropy = "entropy" // a zstd frame of the base3 payload: variable length
+	CodecRaw     = "raw"
 )
 
 // CreatedLayout is the form of "created": UTC, whole seconds (RFC 3339).
@@ -231,8 +233,12 @@ func Encode(m *Manifest) ([]byte, error) {
 	return bytes.TrimSuffix(buf.Bytes(), []byte("\n")), nil
 }
 
-// Decode parses and validates a manifest. Unknown keys are rejected.
+// Decode parses and validates a manifest. Unknown, repeated and
+// case-mismatched keys are rejected.
 func Decode(b []byte) (*Manifest, error) {
+	if err := checkStrictJSON(b, reflect.TypeFor[Manifest]()); err != nil {
+		return nil, err
+	}
 	dec := json.NewDecoder(bytes.NewReader(b))
 	dec.DisallowUnknownFields()
 	var m Manifest
@@ -331,12 +337,14 @@ func (e *Tensor) validate() error {
 }
 
 func (e *Tensor) validateTernary(n int64) error {
-	want, ok := TritPayloadLen(e.Codec, n)
+	lo, hi, ok := TritPayloadRange(e.Codec, n)
 	switch {
 	case !ok:
 		return fmt.Errorf("codec %q is not a trit codec", e.Codec)
-	case e.Section.Length != want:
-		return fmt.Errorf("section length %d, codec %s needs %d for %d trits", e.Section.Length, e.Codec, want, n)
+	case (e.Section.Length < lo || e.Section.Length > hi) && lo == hi:
+		return fmt.Errorf("section length %d, codec %s needs %d for %d trits", e.Section.Length, e.Codec, lo, n)
+	case e.Section.Length < lo || e.Section.Length > hi:
+		return fmt.Errorf("section length %d, codec %s takes %d to %d bytes for %d trits", e.Section.Length, e.Codec, lo, hi, n)
 	case e.DType != "":
 		return fmt.Errorf("ternary tensor with dtype %q", e.DType)
 	case e.Trits == nil || e.Trits.Neg < 0 || e.Trits.Zero < 0 || e.Trits.Pos < 0 || e.Trits.Total() != n:
@@ -398,6 +406,9 @@ func (e *Tensor) validateKept(n int64) error {
 	if (e.Stats != nil) != (e.DType != e.SourceDType) {
 		return fmt.Errorf("kept tensor stored as %s from %s: stats are required exactly when the dtype changes", e.DType, e.SourceDType)
 	}
+	if e.DType != e.SourceDType && (!convertedTo[e.DType] || !floatSource[e.SourceDType]) {
+		return fmt.Errorf("kept tensor converted from %q to %q (a float dtype converts to F16, BF16 or F32 only)", e.SourceDType, e.DType)
+	}
 	if !ok {
 		// An unknown dtype is kept byte for byte, as the source's data
 		// offsets delimit it: only an empty shape has no bytes.
@@ -411,6 +422,12 @@ func (e *Tensor) validateKept(n int64) error {
 	}
 	return nil
 }
+
+// The dtype conversions a kept tensor may have had (pack/FORMAT.md).
+var (
+	convertedTo = map[string]bool{"F16": true, "BF16": true, "F32": true}
+	floatSource = map[string]bool{"F64": true, "F32": true, "F16": true, "BF16": true, "F8_E4M3": true, "F8_E5M2": true}
+)
 
 func (e *Tensor) validateGranularity() error {
 	if e.Granularity == nil {
@@ -457,7 +474,8 @@ func checkSection(s Section) error {
 	return checkHash(s.BLAKE3)
 }
 
-// TritPayloadLen is the payload length of n trits in a trit codec.
+// TritPayloadLen is the payload length of n trits in a fixed-length trit
+// codec (bits2, base3).
 func TritPayloadLen(codec string, n int64) (int64, bool) {
 	switch codec {
 	case CodecBits2:
@@ -466,6 +484,31 @@ func TritPayloadLen(codec string, n int64) (int64, bool) {
 		return (n + 4) / 5, true
 	}
 	return 0, false
+}
+
+// Bounds of an entropy payload (pack/FORMAT.md, "entropy"): one frame
+// with a 4-byte magic, a 1-byte descriptor, a 1- to 8-byte content size
+// and blocks of at most EntropyBlockMax content bytes, each behind a 3-byte
+// header.
+const (
+	EntropyMinLen   = 9 // magic, descriptor, 1-byte content size, one empty block
+	EntropyBlockMax = 128 << 10
+	entropyHeadMax  = 4 + 1 + 8
+)
+
+// TritPayloadRange is the smallest and largest payload length of n trits
+// in a trit codec: the same for bits2 and base3; for entropy, at most the
+// size of a frame holding the base3 payload in stored blocks.
+func TritPayloadRange(codec string, n int64) (lo, hi int64, ok bool) {
+	if l, ok := TritPayloadLen(codec, n); ok {
+		return l, l, true
+	}
+	if codec != CodecEntropy {
+		return 0, 0, false
+	}
+	b := (n + 4) / 5
+	blocks := max(1, (b+EntropyBlockMax-1)/EntropyBlockMax)
+	return EntropyMinLen, entropyHeadMax + 3*blocks + b, true
 }
 
 // HexHash formats a BLAKE3 sum as the manifest writes it.

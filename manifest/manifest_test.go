@@ -100,6 +100,8 @@ func TestDecodeRejects(t *testing.T) {
 		{"kind", func(m *Manifest) { m.Tensors[0].Kind = "binary" }, `"binary"`},
 		{"codec", func(m *Manifest) { m.Tensors[0].Codec = "raw" }, `codec "raw"`},
 		{"length", func(m *Manifest) { m.Tensors[0].Section.Length = 4 }, "section length 4"},
+		{"entropy too short", func(m *Manifest) { m.Tensors[0].Codec, m.Tensors[0].Section.Length = CodecEntropy, 8 }, "takes 9 to 19 bytes"},
+		{"entropy too long", func(m *Manifest) { m.Tensors[0].Codec, m.Tensors[0].Section.Length = CodecEntropy, 20 }, "section length 20"},
 		{"kept length", func(m *Manifest) { m.Tensors[1].Section.Length = 6 }, "section length 6"},
 		{"hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = "xyz" }, `"xyz"`},
 		{"scale", func(m *Manifest) { m.Tensors[0].Scale = -1 }, "scale -1"},
@@ -111,6 +113,8 @@ func TestDecodeRejects(t *testing.T) {
 		{"kept without dtype", func(m *Manifest) { m.Tensors[1].DType = "" }, "without dtype"},
 		{"converted without stats", func(m *Manifest) { m.Tensors[4].Stats = nil }, "stats are required"},
 		{"raw with stats", func(m *Manifest) { m.Tensors[1].Stats = &convert.Stats{} }, "stats are required"},
+		{"converted to an integer dtype", func(m *Manifest) { m.Tensors[4].DType, m.Tensors[4].Section.Length = "I16", 8 }, `to "I16"`},
+		{"converted from an integer dtype", func(m *Manifest) { m.Tensors[4].SourceDType = "I32" }, `from "I32"`},
 		{"no granularity", func(m *Manifest) { m.Tensors[0].Granularity = nil }, "missing granularity"},
 		{"row with one scale", func(m *Manifest) { m.Tensors[2].Scale = 1 }, "single scale"},
 		{"row without scales", func(m *Manifest) { m.Tensors[2].Scales = nil }, "without a scales section"},
@@ -161,6 +165,32 @@ func TestKeptUnknownDType(t *testing.T) {
 	require.Equal(t, "F4_PACKED", got.Tensors[1].SourceDType)
 }
 
+// An entropy section takes any length from the smallest frame to a frame of
+// stored blocks holding the base3 payload.
+func TestEntropyLengthRange(t *testing.T) {
+	for _, length := range []int64{EntropyMinLen, 12, 19} {
+		m := validManifest()
+		m.Tensors[0].Codec, m.Tensors[0].Section.Length = CodecEntropy, length
+		m.ComputeTotals()
+		require.NoError(t, m.Validate(), "length %d", length)
+	}
+	cases := []struct {
+		n, hi int64
+	}{
+		{0, 13 + 3}, // one empty block
+		{5 * EntropyBlockMax, 13 + 3 + EntropyBlockMax},       // exactly one full block
+		{5*EntropyBlockMax + 1, 13 + 6 + EntropyBlockMax + 1}, // a second block of 1 byte
+	}
+	for _, c := range cases {
+		lo, hi, ok := TritPayloadRange(CodecEntropy, c.n)
+		require.True(t, ok)
+		require.Equal(t, int64(EntropyMinLen), lo)
+		require.Equal(t, c.hi, hi, "n=%d", c.n)
+	}
+	_, _, ok := TritPayloadRange(CodecRaw, 5)
+	require.False(t, ok)
+}
+
 func TestDecodeRejectsUnknownKeys(t *testing.T) {
 	b, err := Encode(validManifest())
 	require.NoError(t, err)
@@ -169,6 +199,10 @@ func TestDecodeRejectsUnknownKeys(t *testing.T) {
 		strings.Replace(string(b), `"tie":`, `"ties":1,"tie":`, 1),
 		string(b) + "{}",
 		"[]",
+		strings.Replace(string(b), `"name":"w"`, `"Name":"w"`, 1),                           // keys match exactly
+		strings.Replace(string(b), `"codec":"base3"`, `"codec":"raw","codec":"base3"`, 1),   // no key twice
+		strings.Replace(string(b), `"tool":"ternkit test"`, "\"tool\":\"ternkit \xff\"", 1), // UTF-8 only
+		strings.Replace(string(b), `"source":{`, `"source":{"metadata":{"k":"1","k":"2"},`, 1),
 	} {
 		_, err := Decode([]byte(bad))
 		require.ErrorIs(t, err, ErrInvalid, bad)

@@ -90,7 +90,8 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if !opts.Created.IsZero() {
 		m.Created = manifest.CreatedAt(opts.Created)
 	}
-	if err := w.write(encodePreamble(minorFor(m))); err != nil {
+	// The minor version depends on the codecs chosen; finish rewrites it.
+	if err := w.write(encodePreamble(0)); err != nil {
 		return nil, err
 	}
 	workers := opts.Workers
@@ -207,9 +208,9 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 			return sections{}, fail(err)
 		}
 		g := a.Granularity
-		e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(opts.Codec), &g, res.Exact
+		payload, codec := opts.Codec.EncodeTensor(make([]byte, 0, (n+4)/5), q.codes)
+		e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(codec), &g, res.Exact
 		e.Trits, e.Stats = &res.Counts, &res.Stats
-		payload := opts.Codec.Encode(make([]byte, 0, opts.Codec.EncodedLen(n)), q.codes)
 		if g.Kind == convert.GranTensor {
 			e.Scale = res.Scales[0]
 			return sections{payload: payload}, nil
@@ -348,6 +349,9 @@ func (w *atomicWriter) finish(m *manifest.Manifest) error {
 		return err
 	}
 	if err := w.bw.Flush(); err != nil {
+		return fmt.Errorf("write %s: %w", w.dst, err)
+	}
+	if _, err := w.f.WriteAt(encodePreamble(minorVersionFor(m)), 0); err != nil {
 		return fmt.Errorf("write %s: %w", w.dst, err)
 	}
 	if err := w.f.Sync(); err != nil {

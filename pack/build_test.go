@@ -79,6 +79,7 @@ func TestBuildAndRead(t *testing.T) {
 			st, err := os.Stat(dst)
 			require.NoError(t, err)
 			require.Equal(t, st.Size(), a.Size())
+			require.Zero(t, a.ManifestOffset()%Align)
 			require.Equal(t, "pack test", a.Manifest().Source.Metadata["purpose"])
 
 			for _, e := range a.Tensors() {
@@ -239,11 +240,18 @@ func FuzzOpen(f *testing.F) {
 	f.Add(good)
 	f.Add(good[:len(good)-1])
 	f.Add(make([]byte, 128))
+	vectors, _ := filepath.Glob(filepath.Join(vectorsDir, "*"+Extension))
+	for _, v := range vectors {
+		if b, err := os.ReadFile(v); err == nil {
+			f.Add(b)
+		}
+	}
 	f.Fuzz(func(t *testing.T, b []byte) {
 		a, err := NewReader(bytes.NewReader(b), int64(len(b)))
 		if err != nil {
 			return
 		}
+		_ = a.Check()
 		for _, e := range a.Tensors() {
 			tn, err := a.Tensor(e.Name)
 			if err != nil {

@@ -1,11 +1,16 @@
 package pack
 
 import (
+	"bytes"
+	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
 
 	"github.com/stretchr/testify/require"
+
+	"ternkit/manifest"
 )
 
 func randomTrits(rng *rand.Rand, n int) []int8 {
@@ -19,10 +24,12 @@ func randomTrits(rng *rand.Rand, n int) []int8 {
 func TestCodecRoundTrip(t *testing.T) {
 	rng := rand.New(rand.NewPCG(7, 7))
 	for _, c := range Codecs {
-		for n := 0; n <= 64; n++ {
+		for n := 0; n <= 200; n++ { // past the 32- and 40-trit steps of the decoders
 			trits := randomTrits(rng, n)
 			p := c.Encode(nil, trits)
-			require.Len(t, p, c.EncodedLen(n), "%s n=%d", c, n)
+			lo, hi, ok := manifest.TritPayloadRange(string(c), int64(n))
+			require.True(t, ok)
+			require.True(t, int64(len(p)) >= lo && int64(len(p)) <= hi, "%s n=%d: %d bytes", c, n, len(p))
 			got := make([]int8, n)
 			require.NoError(t, c.Decode(got, p), "%s n=%d", c, n)
 			require.Equal(t, trits, got, "%s n=%d", c, n)
@@ -64,6 +71,27 @@ func TestCodecEveryByte(t *testing.T) {
 		} else {
 			require.NoError(t, err, "base3 %d", b)
 			require.Equal(t, p, Base3.Encode(nil, five))
+		}
+	}
+}
+
+// An invalid byte anywhere in a long payload is found and named, whether it
+// falls in a decoder's multi-byte step or in the tail.
+func TestCodecNamesInvalidByte(t *testing.T) {
+	rng := rand.New(rand.NewPCG(8, 8))
+	cases := []struct {
+		codec Codec
+		bad   byte
+	}{{Bits2, 0x30}, {Base3, 250}} // 0x30: code 3 in pair 2; 250 > 242
+	for _, c := range cases {
+		const n = 203
+		good := c.codec.Encode(nil, randomTrits(rng, n))
+		for j := 0; j < len(good)-1; j++ { // the last byte is the padding case
+			p := bytes.Clone(good)
+			p[j] = c.bad
+			err := c.codec.Decode(make([]int8, n), p)
+			require.ErrorIs(t, err, ErrInvalidCode, "%s byte %d", c.codec, j)
+			require.Contains(t, err.Error(), fmt.Sprintf("byte %d is ", j), "%s", c.codec)
 		}
 	}
 }
@@ -113,21 +141,26 @@ func TestParseCodec(t *testing.T) {
 	_, err = ParseCodec("base4")
 	require.ErrorIs(t, err, ErrCodec)
 	require.Contains(t, err.Error(), `"base4"`)
-	require.Contains(t, err.Error(), "bits2, base3")
+	require.Contains(t, err.Error(), "bits2, base3, entropy, auto")
+	c, err = ParseCodec("auto")
+	require.NoError(t, err)
+	require.Equal(t, Auto, c)
 }
 
 func FuzzCodecDecode(f *testing.F) {
-	f.Add([]byte{0x49, 0x02}, uint16(5), false)
-	f.Add([]byte{196}, uint16(5), true)
-	f.Add([]byte{0xff, 0xff}, uint16(8), false)
-	f.Add([]byte{243}, uint16(5), true)
-	f.Fuzz(func(t *testing.T, payload []byte, n uint16, base3 bool) {
-		c := Bits2
-		if base3 {
-			c = Base3
-		}
+	f.Add([]byte{0x49, 0x02}, uint16(5), uint8(0))
+	f.Add([]byte{196}, uint16(5), uint8(1))
+	f.Add([]byte{0xff, 0xff}, uint16(8), uint8(0))
+	f.Add([]byte{243}, uint16(5), uint8(1))
+	f.Add(Entropy.Encode(nil, []int8{1, -1, 0, 1, -1, 0, 0}), uint16(7), uint8(2))
+	f.Add(Entropy.Encode(nil, sparseTrits(1, 3000, 0.6)), uint16(3000), uint8(2))
+	f.Fuzz(func(t *testing.T, payload []byte, n uint16, codec uint8) {
+		c := Codecs[int(codec)%len(Codecs)]
 		dst := make([]int8, n)
 		if err := c.Decode(dst, payload); err != nil {
+			if !errors.Is(err, ErrInvalidCode) {
+				t.Fatalf("error does not wrap ErrInvalidCode: %v", err)
+			}
 			return
 		}
 		for _, v := range dst {
@@ -135,8 +168,15 @@ func FuzzCodecDecode(f *testing.F) {
 				t.Fatalf("decoded trit %d", v)
 			}
 		}
-		if got := c.Encode(nil, dst); string(got) != string(payload) {
-			t.Fatalf("re-encode gives % x, payload % x", got, payload)
+		again := c.Encode(nil, dst)
+		if c != Entropy && string(again) != string(payload) {
+			// bits2 and base3 have one payload per trit sequence; a frame
+			// has many.
+			t.Fatalf("re-encode gives % x, payload % x", again, payload)
+		}
+		back := make([]int8, n)
+		if err := c.Decode(back, again); err != nil || string(unsafeInt8Bytes(back)) != string(unsafeInt8Bytes(dst)) {
+			t.Fatalf("re-encoded payload decodes to other trits (%v)", err)
 		}
 	})
 }

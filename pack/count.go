@@ -7,11 +7,14 @@ import (
 )
 
 // TritCounter checks and counts a trit payload written to it in pieces of
-// any size, holding only a few bytes: verification streams sections with
-// bounded memory. Close reports a short payload or bad padding.
+// any size. For bits2 and base3 it holds only a few bytes, so verification
+// streams sections with bounded memory; an entropy payload is one frame,
+// kept until Close decodes it (at most the base3 size of the tensor).
+// Close reports a short payload or bad padding.
 type TritCounter struct {
 	codec    Codec
-	n        int64 // trits the payload must hold
+	frame    []byte // entropy payload, decoded at Close
+	n        int64  // trits the payload must hold
 	perByte  int64
 	seen     int64 // payload bytes consumed
 	counts   convert.TritCounts
@@ -22,6 +25,9 @@ type TritCounter struct {
 
 // NewTritCounter counts a payload of n trits in codec c.
 func NewTritCounter(c Codec, n int64) (*TritCounter, error) {
+	if c == Entropy {
+		return &TritCounter{codec: c, n: n}, nil
+	}
 	per := map[Codec]int64{Bits2: 4, Base3: 5}[c]
 	if per == 0 {
 		return nil, fmt.Errorf("%w %q", ErrCodec, string(c))
@@ -53,6 +59,11 @@ func init() {
 func (tc *TritCounter) Write(p []byte) (int, error) {
 	if tc.err != nil {
 		return 0, tc.err
+	}
+	if tc.codec == Entropy {
+		// the manifest bounds the section's length (TritPayloadRange)
+		tc.frame = append(tc.frame, p...)
+		return len(p), nil
 	}
 	full := (tc.n / tc.perByte) - tc.seen // full bytes still expected
 	table := byteCounts[tc.codec]
@@ -102,6 +113,14 @@ func (tc *TritCounter) tail(p []byte) error {
 func (tc *TritCounter) Close() (convert.TritCounts, error) {
 	if tc.err != nil {
 		return tc.counts, tc.err
+	}
+	if tc.codec == Entropy {
+		trits := make([]int8, tc.n)
+		if err := decodeEntropy(trits, tc.frame); err != nil {
+			return tc.counts, err
+		}
+		tc.counts.Count(trits)
+		return tc.counts, nil
 	}
 	if want := (tc.n + tc.perByte - 1) / tc.perByte; tc.seen != want {
 		return tc.counts, fmt.Errorf("%w: %s payload of %d bytes for %d trits (want %d)", ErrInvalidCode, tc.codec, tc.seen, tc.n, want)

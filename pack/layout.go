@@ -9,8 +9,6 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
-
-	"ternkit/manifest"
 )
 
 // Layout constants (pack/FORMAT.md).
@@ -24,7 +22,7 @@ const (
 	DefaultMaxManifest = 256 << 20
 
 	majorVersion = 1
-	minorVersion = 1 // the highest this package reads and writes
+	minorVersion = 1 // the highest minor version this package reads
 )
 
 var (
@@ -77,14 +75,8 @@ func encodePreamble(minor uint16) []byte {
 	return p
 }
 
-// minorFor is the lowest minor version whose manifest keys m uses: 1.1
-// adds "created" and "policy".
-func minorFor(m *manifest.Manifest) uint16 {
-	if m.Created != "" || m.Policy != nil {
-		return 1
-	}
-	return 0
-}
+// preambleMinor is the minor version of a checked preamble.
+func preambleMinor(p []byte) uint16 { return binary.LittleEndian.Uint16(p[10:]) }
 
 // checkPreamble returns the offset and error of the first bad preamble byte.
 func checkPreamble(p []byte) (int64, error) {

@@ -1,6 +1,7 @@
 package pack
 
 import (
+	"bytes"
 	"encoding/binary"
 	"errors"
 	"fmt"
@@ -23,6 +24,7 @@ type Artifact struct {
 	closer       io.Closer
 	size         int64
 	m            *manifest.Manifest
+	minor        uint16
 	manifestHash [32]byte
 	manifestOff  int64
 	index        map[string]int
@@ -86,12 +88,11 @@ func newArtifact(file string, r io.ReaderAt, size int64) (*Artifact, error) {
 	if err != nil {
 		return nil, fail("manifest", t.manifestOffset, err)
 	}
-	// Writers set the lowest minor version whose features the file uses,
-	// so the manifest fixes the preamble's minor version.
-	if minor, need := binary.LittleEndian.Uint16(pre[10:]), minorFor(m); minor != need {
-		return nil, fail("preamble", 10, fmt.Errorf("%w: minor version %d, the manifest's keys make it 1.%d", ErrStructure, minor, need))
+	minor := preambleMinor(pre)
+	if err := checkMinorVersion(m, minor); err != nil {
+		return nil, fail("preamble", 10, err)
 	}
-	a := &Artifact{file: file, r: r, size: size, m: m, manifestHash: t.manifestHash, manifestOff: t.manifestOffset, index: make(map[string]int, len(m.Tensors))}
+	a := &Artifact{file: file, r: r, size: size, m: m, minor: minor, manifestHash: t.manifestHash, manifestOff: t.manifestOffset, index: make(map[string]int, len(m.Tensors))}
 	next := int64(PreambleLen)
 	for i, e := range m.Tensors {
 		a.index[e.Name] = i
@@ -122,6 +123,9 @@ func (a *Artifact) Close() error {
 	}
 	return a.closer.Close()
 }
+
+// Version is the artifact's format version from its preamble.
+func (a *Artifact) Version() (major, minor int) { return majorVersion, int(a.minor) }
 
 // Manifest returns the decoded manifest. Callers must not modify it.
 func (a *Artifact) Manifest() *manifest.Manifest { return a.m }
@@ -168,6 +172,30 @@ func (t *Tensor) Payload() ([]byte, error) {
 	return p, nil
 }
 
+// VerifiedPayload reads the section bytes and checks them against the
+// BLAKE3 the manifest records (ErrHash on a mismatch).
+func (t *Tensor) VerifiedPayload() ([]byte, error) {
+	return t.verifiedSection(t.Entry.Section)
+}
+
+// verifiedSection reads a section of the tensor and checks its BLAKE3.
+func (t *Tensor) verifiedSection(s manifest.Section) ([]byte, error) {
+	p := make([]byte, s.Length)
+	if _, err := t.a.r.ReadAt(p, s.Offset); err != nil {
+		return nil, t.fail(s.Offset, err)
+	}
+	if got := manifest.HexHash(blake3.Sum256(p)); got != s.BLAKE3 {
+		return nil, t.fail(s.Offset, fmt.Errorf("%w: section BLAKE3 %s, manifest records %s", ErrHash, got, s.BLAKE3))
+	}
+	for k, want := range s.Chunks {
+		c := int64(k) * manifest.ChunkSize
+		if got := manifest.HexHash(blake3.Sum256(p[c:min(c+manifest.ChunkSize, s.Length)])); got != want {
+			return nil, t.fail(s.Offset+c, fmt.Errorf("%w: chunk %d BLAKE3 %s, manifest records %s", ErrHash, k, got, want))
+		}
+	}
+	return p, nil
+}
+
 func (t *Tensor) fail(off int64, err error) error {
 	return &FormatError{File: t.a.file, Where: fmt.Sprintf("section %q", t.Entry.Name), Offset: off, Err: err}
 }
@@ -175,7 +203,9 @@ func (t *Tensor) fail(off int64, err error) error {
 // ErrKind reports a decode the tensor's kind does not allow.
 var ErrKind = errors.New("wrong tensor kind")
 
-// DecodeTrits fills dst (length Len()) with the trits of a ternary tensor.
+// DecodeTrits fills dst (length Len()) with the trits of a ternary tensor,
+// after checking the section's BLAKE3. Errors are *FormatError values
+// wrapping ErrHash or ErrInvalidCode; dst is undefined after an error.
 func (t *Tensor) DecodeTrits(dst []int8) error {
 	if t.Entry.Kind != manifest.KindTernary {
 		return fmt.Errorf("%w: tensor %q is %s, not ternary", ErrKind, t.Entry.Name, t.Entry.Kind)
@@ -183,7 +213,7 @@ func (t *Tensor) DecodeTrits(dst []int8) error {
 	if len(dst) != t.Len() {
 		return fmt.Errorf("decode tensor %q: dst holds %d trits, tensor has %d", t.Entry.Name, len(dst), t.Len())
 	}
-	p, err := t.Payload()
+	p, err := t.VerifiedPayload()
 	if err != nil {
 		return err
 	}
@@ -204,15 +234,32 @@ func (t *Tensor) Scales() ([]float32, error) {
 		}
 		return []float32{e.Scale}, nil
 	}
-	p := make([]byte, e.Scales.Length)
-	if _, err := t.a.r.ReadAt(p, e.Scales.Offset); err != nil {
-		return nil, t.fail(e.Scales.Offset, err)
+	p, err := t.verifiedSection(*e.Scales)
+	if err != nil {
+		return nil, err
 	}
 	s := make([]float32, len(p)/4)
 	for i := range s {
 		s[i] = math.Float32frombits(binary.LittleEndian.Uint32(p[4*i:]))
+		// Ternary scales are > 0; int8 scales are ≥ 0 (an all-zero row has 0).
+		if v := float64(s[i]); math.IsNaN(v) || math.IsInf(v, 0) || v < 0 || (v == 0 && e.Kind == manifest.KindTernary) {
+			return nil, t.fail(e.Scales.Offset+4*int64(i), fmt.Errorf("%w: %s scale %d is %v", ErrInvalidCode, e.Kind, i, s[i]))
+		}
 	}
 	return s, nil
+}
+
+// int8Codes checks the verified payload of an int8 tensor: codes are
+// -127..127.
+func (t *Tensor) int8Codes() ([]byte, error) {
+	p, err := t.VerifiedPayload()
+	if err != nil {
+		return nil, err
+	}
+	if i := bytes.IndexByte(p, 0x80); i >= 0 {
+		return nil, t.fail(t.Entry.Section.Offset+int64(i), fmt.Errorf("%w: int8 code %d is -128 (codes are -127..127)", ErrInvalidCode, i))
+	}
+	return p, nil
 }
 
 // GroupSize is the number of consecutive elements that share one scale.
@@ -227,14 +274,15 @@ func (t *Tensor) GroupSize() int {
 
 // DecodeFloat32 fills dst (length Len()) with the reconstructed weights:
 // scale × trit for a ternary tensor, scale × code for an int8 tensor, the
-// stored values of a kept float tensor.
+// stored values of a kept float tensor, after checking the sections'
+// BLAKE3.
 func (t *Tensor) DecodeFloat32(dst []float32) error {
 	e := t.Entry
 	if len(dst) != t.Len() {
 		return fmt.Errorf("decode tensor %q: dst holds %d values, tensor has %d", e.Name, len(dst), t.Len())
 	}
 	if e.Kind == manifest.KindKept {
-		p, err := t.Payload()
+		p, err := t.VerifiedPayload()
 		if err != nil {
 			return err
 		}
@@ -249,7 +297,7 @@ func (t *Tensor) DecodeFloat32(dst []float32) error {
 			return err
 		}
 	} else {
-		p, err := t.Payload()
+		p, err := t.int8Codes()
 		if err != nil {
 			return err
 		}

@@ -83,8 +83,12 @@ func checkSection(ra io.ReaderAt, p placedSection, next int64, buf []byte) []Che
 		scales = &scaleChecker{ternary: e.Kind == manifest.KindTernary, bad: -1}
 		sink = scales
 	case e.Kind == manifest.KindTernary:
-		counter, _ = pack.NewTritCounter(pack.Codec(e.Codec), manifest.NumElements(e.Shape))
-		sink = counter
+		c, err := pack.NewTritCounter(pack.Codec(e.Codec), manifest.NumElements(e.Shape))
+		if err != nil { // the manifest's rules admit only known codecs
+			add(CheckDecode, false, "%v", err)
+		} else {
+			counter, sink = c, c
+		}
 	case e.Kind == manifest.KindInt8:
 		int8s = &int8Checker{bad: -1}
 		sink = int8s

@@ -187,7 +187,7 @@ printf '%s\n' "${COMPREPLY[@]}"`
 		require.NoError(t, err, "%s", stderr.String())
 		return strings.Fields(string(got))
 	}
-	require.ElementsMatch(t, []string{"bits2", "base3"}, complete("ternkit pack m.safetensors --codec "))
+	require.ElementsMatch(t, []string{"bits2", "base3", "entropy", "auto"}, complete("ternkit pack m.safetensors --codec "))
 	require.ElementsMatch(t, []string{"base3"}, complete("ternkit pack m.safetensors --codec ba"))
 	require.Equal(t, []string{"inspect"}, complete("ternkit insp"))
 	require.Equal(t, []string{"error"}, complete("ternkit inspect a.tkart --sort er"))

@@ -1,0 +1,105 @@
+package manifest
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"reflect"
+	"strings"
+	"unicode/utf8"
+)
+
+// checkStrictJSON enforces what encoding/json lets pass but pack/FORMAT.md
+// forbids: text that is not UTF-8, an object key that matches a field only
+// when case is ignored, and a key repeated within one object. It walks b
+// beside the Go type t; syntax and type errors are left to the decoder.
+func checkStrictJSON(b []byte, t reflect.Type) error {
+	if !utf8.Valid(b) {
+		return fmt.Errorf("%w: not valid UTF-8", ErrInvalid)
+	}
+	dec := json.NewDecoder(bytes.NewReader(b))
+	dec.UseNumber()
+	err := walkJSON(dec, t, "manifest")
+	if _, syntax := err.(*json.SyntaxError); syntax {
+		return nil
+	}
+	return err
+}
+
+func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
+	tok, err := dec.Token()
+	if err != nil {
+		return err
+	}
+	for t != nil && t.Kind() == reflect.Pointer {
+		t = t.Elem()
+	}
+	switch tok {
+	case json.Delim('{'):
+		var fields map[string]reflect.Type
+		if t != nil && t.Kind() == reflect.Struct {
+			fields = jsonFields(t)
+		}
+		seen := map[string]bool{}
+		for dec.More() {
+			kt, err := dec.Token()
+			if err != nil {
+				return err
+			}
+			key, _ := kt.(string)
+			if seen[key] {
+				return fmt.Errorf("%w: %s: key %q appears twice", ErrInvalid, path, key)
+			}
+			seen[key] = true
+			var vt reflect.Type
+			switch {
+			case fields != nil:
+				ft, ok := fields[key]
+				if !ok {
+					return fmt.Errorf("%w: %s: unknown key %q", ErrInvalid, path, key)
+				}
+				vt = ft
+			case t != nil && t.Kind() == reflect.Map:
+				vt = t.Elem()
+			}
+			if err := walkJSON(dec, vt, path+"."+key); err != nil {
+				return err
+			}
+		}
+		_, err = dec.Token() // }
+		return err
+	case json.Delim('['):
+		var et reflect.Type
+		if t != nil && (t.Kind() == reflect.Slice || t.Kind() == reflect.Array) {
+			et = t.Elem()
+		}
+		for i := 0; dec.More(); i++ {
+			if err := walkJSON(dec, et, fmt.Sprintf("%s[%d]", path, i)); err != nil {
+				return err
+			}
+		}
+		_, err = dec.Token() // ]
+		return err
+	}
+	return nil
+}
+
+// jsonFields maps the JSON names of t's fields to their types.
+func jsonFields(t reflect.Type) map[string]reflect.Type {
+	fields := make(map[string]reflect.Type, t.NumField())
+	for i := 0; i < t.NumField(); i++ {
+		f := t.Field(i)
+		if !f.IsExported() {
+			continue
+		}
+		name, _, _ := strings.Cut(f.Tag.Get("json"), ",")
+		switch name {
+		case "-":
+			continue
+		case "":
+			name = f.Name
+		}
+		fields[name] = f.Type
+	}
+	return fields
+}

@@ -1,0 +1,39 @@
+package pack
+
+import (
+	"fmt"
+
+	"ternkit/manifest"
+)
+
+// codecSince is the minor version of format 1 that defines each stored
+// codec (pack/FORMAT.md, "Versioning").
+var codecSince = map[string]uint16{
+	manifest.CodecRaw:     0,
+	manifest.CodecBits2:   0,
+	manifest.CodecBase3:   0,
+	manifest.CodecEntropy: 1,
+}
+
+// minorVersionFor is the lowest minor version whose features m uses.
+func minorVersionFor(m *manifest.Manifest) uint16 {
+	var v uint16
+	for _, e := range m.Tensors {
+		v = max(v, codecSince[e.Codec])
+	}
+	return v
+}
+
+// checkMinorVersion requires the preamble's minor version to be exactly
+// the lowest one whose features m uses, so that the byte is fixed by a rule.
+func checkMinorVersion(m *manifest.Manifest, minor uint16) error {
+	for _, e := range m.Tensors {
+		if since := codecSince[e.Codec]; since > minor {
+			return fmt.Errorf("%w: tensor %q uses codec %s of format 1.%d, the preamble says 1.%d", ErrVersion, e.Name, e.Codec, since, minor)
+		}
+	}
+	if want := minorVersionFor(m); minor != want {
+		return fmt.Errorf("%w: preamble says format 1.%d, the manifest uses features of 1.%d only", ErrStructure, minor, want)
+	}
+	return nil
+}

@@ -1,0 +1,96 @@
+package pack
+
+import (
+	"bytes"
+	"encoding/binary"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/convert"
+	"ternkit/manifest"
+)
+
+// autoSource writes a checkpoint with one Gaussian and one sparse weight
+// matrix (60% of the weights exactly 0, so 60% zero trits at least).
+func autoSource(t *testing.T, dir string) string {
+	t.Helper()
+	gauss := gaussian(newTestRand(21), 64*80)
+	sparse := gaussian(newTestRand(22), 64*80)
+	for i, tr := range sparseTrits(23, len(sparse), 0.6) {
+		if tr == 0 {
+			sparse[i] = 0
+		}
+	}
+	path := filepath.Join(dir, "auto.safetensors")
+	require.NoError(t, convert.WriteFile(path, []convert.WriteTensor{
+		{Name: "blocks.0.dense.weight", DType: "F32", Shape: []int64{64, 80}, Data: f32Bytes(gauss)},
+		{Name: "blocks.0.sparse.weight", DType: "F32", Shape: []int64{64, 80}, Data: f32Bytes(sparse)},
+	}, nil))
+	return path
+}
+
+func TestBuildAutoAndMinorVersion(t *testing.T) {
+	dir := t.TempDir()
+	src := autoSource(t, dir)
+	cases := []struct {
+		codec  Codec
+		stored []string // per tensor
+		minor  int
+	}{
+		{Auto, []string{"base3", "entropy"}, 1},
+		{Base3, []string{"base3", "base3"}, 0},
+		{Bits2, []string{"bits2", "bits2"}, 0},
+		{Entropy, []string{"entropy", "entropy"}, 1},
+	}
+	for _, c := range cases {
+		t.Run(string(c.codec), func(t *testing.T) {
+			dst := filepath.Join(dir, string(c.codec)+Extension)
+			m := buildArtifact(t, src, dst, c.codec)
+			for i, e := range m.Tensors {
+				require.Equal(t, c.stored[i], e.Codec, e.Name)
+			}
+			a, err := Open(dst)
+			require.NoError(t, err)
+			defer a.Close()
+			major, minor := a.Version()
+			require.Equal(t, 1, major)
+			require.Equal(t, c.minor, minor)
+			for _, e := range a.Tensors() {
+				tn, err := a.Tensor(e.Name)
+				require.NoError(t, err)
+				require.NoError(t, tn.DecodeTrits(make([]int8, tn.Len())))
+			}
+
+			// Any other minor version is rejected: too low for the codecs
+			// used, or higher than the features need.
+			b, err := os.ReadFile(dst)
+			require.NoError(t, err)
+			for _, other := range []uint16{0, 1, 2} {
+				if int(other) == c.minor {
+					continue
+				}
+				bad := bytes.Clone(b)
+				binary.LittleEndian.PutUint16(bad[10:], other)
+				_, err := NewReader(bytes.NewReader(bad), int64(len(bad)))
+				require.Error(t, err, "minor %d", other)
+				want := ErrStructure
+				if int(other) < c.minor || other > minorVersion {
+					want = ErrVersion
+				}
+				require.ErrorIs(t, err, want, "minor %d", other)
+			}
+		})
+	}
+}
+
+func TestMinorVersionFor(t *testing.T) {
+	m := &manifest.Manifest{}
+	require.Equal(t, uint16(0), minorVersionFor(m))
+	m.Tensors = []manifest.Tensor{{Codec: manifest.CodecRaw}, {Codec: manifest.CodecBits2}}
+	require.Equal(t, uint16(0), minorVersionFor(m))
+	m.Tensors = append(m.Tensors, manifest.Tensor{Codec: manifest.CodecEntropy})
+	require.Equal(t, uint16(1), minorVersionFor(m))
+}

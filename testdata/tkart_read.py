@@ -1,0 +1,670 @@
+#!/usr/bin/python3
+"""A second reader of ternkit artifacts (.tkart), written from pack/FORMAT.md.
+
+It shares no code with the Go reader: the layout, the manifest rules and the
+codecs are implemented here with numpy, BLAKE3 comes from the b3sum tool
+and zstd frames are decoded by the zstd tool (both Debian packages).
+
+    tkart_read.py [--trits] FILE...
+
+prints a JSON array with one object per file: "result" is "ok" or the
+failure class of FORMAT.md ("What a reader must reject"), "detail" says why,
+and for a valid file "version" and "tensors" give each tensor's name, kind,
+codec, shape, stored dtype (kept), granularity and exact flag (ternary,
+int8), scale (ternary at tensor granularity), trit counts, and SHA-256
+digests of its decoded trits (int8 values), int8 codes, kept bytes and
+dequantized or decoded float32 values (little-endian, every NaN written as
+0x7FC00000).
+--trits adds the trits themselves as a string of "-0+", int8 codes and kept
+bytes as hex, and the scales of a scales section as numbers.
+"""
+
+import datetime
+import hashlib
+import json
+import math
+import struct
+import subprocess
+import sys
+
+import numpy as np
+
+MAGIC = b"TKART\x00\r\n"
+TRAILER_MAGIC = b"TKEND\x00\r\n"
+ALIGN = 64
+PREAMBLE_LEN = 64
+TRAILER_LEN = 64
+MANIFEST_LIMIT = 256 << 20
+READER_MINOR = 1  # the highest minor version of format 1 this reader implements
+
+# Minor version that defines each codec ("Versioning").
+CODEC_SINCE = {"raw": 0, "bits2": 0, "base3": 0, "entropy": 1}
+TRIT_CODECS = ("bits2", "base3", "entropy")
+DTYPE_SIZE = {
+    "F64": 8, "F32": 4, "F16": 2, "BF16": 2, "F8_E4M3": 1, "F8_E5M2": 1,
+    "I64": 8, "I32": 4, "I16": 2, "I8": 1, "U64": 8, "U32": 4, "U16": 2,
+    "U8": 1, "BOOL": 1,
+}
+FLOAT_DTYPES = ("F64", "F32", "F16", "BF16", "F8_E4M3", "F8_E5M2")
+CONVERTED_TO = ("F16", "BF16", "F32")
+INT64_MAX = (1 << 63) - 1
+CHUNK = 1 << 22
+
+# The keys of every manifest object ("Manifest"); a new minor version that
+# adds keys adds them here.
+KEYS = {
+    "manifest": {"format", "version", "tool", "created", "recipe", "source", "policy",
+                 "tensors", "totals"},
+    "recipe": {"method", "scale_rule", "epsilon", "tie"},
+    "source": {"files", "metadata"},
+    "file": {"name", "bytes", "blake3"},
+    "tensor": {"name", "shape", "source_dtype", "kind", "dtype", "codec", "granularity",
+               "scale", "scales", "exact", "section", "source_blake3", "trits", "stats"},
+    "section": {"offset", "length", "blake3", "chunks"},
+    "trits": {"neg", "zero", "pos"},
+    "stats": {"zero_fraction", "clipped_fraction", "rel_rmse", "max_abs_err", "cosine"},
+    "totals": {"tensors", "ternary_tensors", "int8_tensors", "kept_tensors", "ternary_params",
+               "int8_params", "kept_params", "source_bytes", "ternary_section_bytes",
+               "int8_section_bytes", "kept_section_bytes", "bits_per_ternary_weight"},
+}
+
+
+class Reject(Exception):
+    """The file breaks a rule; cls is the failure class."""
+
+    def __init__(self, cls, detail):
+        super().__init__(detail)
+        self.cls = cls
+
+
+def blake3_hex(data):
+    out = subprocess.run(["b3sum", "--no-names"], input=bytes(data), capture_output=True, check=True)
+    return out.stdout.split()[0].decode()
+
+
+# ---- manifest -----------------------------------------------------------
+
+def bad(detail):
+    return Reject("manifest", detail)
+
+
+def parse_json(body):
+    def pairs(items):
+        obj = {}
+        for k, v in items:
+            if k in obj:
+                raise bad("key %r appears twice" % k)
+            obj[k] = v
+        return obj
+
+    def constant(name):
+        raise bad("%s is not JSON" % name)
+
+    try:
+        text = body.decode("utf-8")
+    except UnicodeDecodeError as e:
+        raise bad("not valid UTF-8: %s" % e)
+    try:
+        return json.loads(text, object_pairs_hook=pairs, parse_constant=constant)
+    except json.JSONDecodeError as e:
+        raise bad("invalid JSON: %s" % e)
+
+
+def obj(v, what, path):
+    """An object with only the keys of KEYS[what]; null reads as {}."""
+    if v is None:
+        return {}
+    if not isinstance(v, dict):
+        raise bad("%s is not an object" % path)
+    for k in v:
+        if k not in KEYS[what]:
+            raise bad("%s: unknown key %r" % (path, k))
+    return v
+
+
+def arr(v, path):
+    if v is None:
+        return []
+    if not isinstance(v, list):
+        raise bad("%s is not an array" % path)
+    return v
+
+
+def integer(v, path):
+    if v is None:
+        return 0
+    if isinstance(v, bool) or not isinstance(v, int) or not -INT64_MAX - 1 <= v <= INT64_MAX:
+        raise bad("%s is not a 64-bit integer: %r" % (path, v))
+    return v
+
+
+def number(v, path):
+    if v is None:
+        return 0.0
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise bad("%s is not a number: %r" % (path, v))
+    return float(v)
+
+
+def string(v, path):
+    if v is None:
+        return ""
+    if not isinstance(v, str):
+        raise bad("%s is not a string" % path)
+    return v
+
+
+def hash_hex(v, path):
+    s = string(v, path)
+    if len(s) != 64 or any(c not in "0123456789abcdef" for c in s):
+        raise bad("%s: %r is not 64 lowercase hex digits" % (path, s))
+    return s
+
+
+def float32_of(v, path):
+    """A JSON number as float32; out of range becomes inf, judged later."""
+    with np.errstate(over="ignore"):
+        return np.float32(number(v, path))
+
+
+def parse_manifest(body):
+    m = obj(parse_json(body), "manifest", "manifest")
+    if string(m.get("format"), "format") != "ternkit-artifact":
+        raise bad("format %r" % m.get("format"))
+    if integer(m.get("version"), "version") != 1:
+        raise bad("version %r" % m.get("version"))
+    string(m.get("tool"), "tool")
+    created = string(m.get("created"), "created")
+    if created:
+        try:
+            t = datetime.datetime.strptime(created, "%Y-%m-%dT%H:%M:%SZ")
+        except ValueError:
+            t = None
+        if t is None or t.strftime("%Y-%m-%dT%H:%M:%SZ") != created:
+            raise bad("created %r is not YYYY-MM-DDThh:mm:ssZ" % created)
+    if m.get("policy") is not None:
+        policy = arr(m.get("policy"), "policy")
+        if not policy:
+            raise bad("policy is an empty array")
+        for i, rule in enumerate(policy):
+            if string(rule, "policy[%d]" % i) == "":
+                raise bad("policy[%d] is empty" % i)
+
+    r = obj(m.get("recipe"), "recipe", "recipe")
+    eps = number(r.get("epsilon"), "recipe.epsilon")
+    with np.errstate(over="ignore"):
+        eps32 = np.float32(eps)
+    if (string(r.get("method"), "recipe.method") != "absmean"
+            or string(r.get("scale_rule"), "recipe.scale_rule") not in ("reciprocal", "quotient")
+            or string(r.get("tie"), "recipe.tie") not in ("half-even", "half-away")
+            or not eps > 0 or math.isinf(eps) or eps32 == 0 or np.isinf(eps32)):
+        raise bad("recipe %r" % r)
+
+    src = obj(m.get("source"), "source", "source")
+    source_bytes = 0
+    for i, f in enumerate(arr(src.get("files"), "source.files")):
+        f = obj(f, "file", "source.files[%d]" % i)
+        string(f.get("name"), "source.files[%d].name" % i)
+        source_bytes += integer(f.get("bytes"), "source.files[%d].bytes" % i)
+        hash_hex(f.get("blake3"), "source.files[%d].blake3" % i)
+    meta = src.get("metadata")
+    if meta is not None:
+        if not isinstance(meta, dict) or not all(isinstance(v, str) for v in meta.values()):
+            raise bad("source.metadata is not an object of strings")
+
+    tensors = []
+    names = set()
+    for i, t in enumerate(arr(m.get("tensors"), "tensors")):
+        t = parse_tensor(obj(t, "tensor", "tensors[%d]" % i), i)
+        if t["name"] in names:
+            raise bad("duplicate tensor name %r" % t["name"])
+        names.add(t["name"])
+        tensors.append(t)
+
+    totals = obj(m.get("totals"), "totals", "totals")
+    want = {"tensors": len(tensors), "source_bytes": source_bytes}
+    for k in ("ternary", "int8", "kept"):
+        want.update({k + "_tensors": 0, k + "_params": 0, k + "_section_bytes": 0})
+    for t in tensors:
+        k = t["kind"]
+        want[k + "_tensors"] += 1
+        want[k + "_params"] += t["n"]
+        want[k + "_section_bytes"] += sum(sec["length"] for _, sec in t["sections"])
+    for k, v in want.items():
+        if integer(totals.get(k), "totals." + k) != v:
+            raise bad("totals.%s is %r, the tensors give %d" % (k, totals.get(k), v))
+    number(totals.get("bits_per_ternary_weight"), "totals.bits_per_ternary_weight")
+    return tensors
+
+
+def parse_section(v, path):
+    sec = obj(v, "section", path)
+    r = {"offset": integer(sec.get("offset"), path + ".offset"),
+         "length": integer(sec.get("length"), path + ".length"),
+         "blake3": hash_hex(sec.get("blake3"), path + ".blake3"),
+         "chunks": [hash_hex(h, path + ".chunks") for h in arr(sec.get("chunks"), path + ".chunks")]}
+    if r["offset"] < 0 or r["length"] < 0:
+        raise bad("%s: offset %d length %d" % (path, r["offset"], r["length"]))
+    want = (r["length"] + CHUNK - 1) // CHUNK if r["length"] > CHUNK else 0
+    if len(r["chunks"]) != want:
+        raise bad("%s: %d chunk hashes for %d bytes, want %d" % (path, len(r["chunks"]), r["length"], want))
+    return r
+
+
+def group_size(gran, shape, n, p):
+    """The group size G of "Granularity", or 0 for an empty tensor."""
+    if len(shape) < 2:
+        raise bad("%s: shape %r has fewer than 2 dimensions" % (p, shape))
+    cols = n // shape[0] if shape[0] else 0
+    if n == 0:
+        return 0
+    if gran == "tensor":
+        return n
+    if gran == "row":
+        return cols
+    if gran.startswith("group:"):
+        text = gran[len("group:"):]
+        if text.isdigit() and text == str(int(text)) and 1 <= int(text) <= 2147483647:
+            if cols % int(text) != 0:
+                raise bad("%s: %s does not divide the row length %d" % (p, gran, cols))
+            return int(text)
+    raise bad("%s: granularity %r" % (p, gran))
+
+
+def parse_tensor(t, i):
+    p = "tensors[%d]" % i
+    name = string(t.get("name"), p + ".name")
+    if name == "":
+        raise bad(p + " has an empty name")
+    p = "tensor %r" % name
+    shape = [integer(d, p + ".shape") for d in arr(t.get("shape"), p + ".shape")]
+    n = 1
+    for d in shape:
+        if d < 0:
+            raise bad("%s: shape %r" % (p, shape))
+        n *= d
+    if n > INT64_MAX:
+        raise bad("%s: shape %r overflows" % (p, shape))
+    source_dtype = string(t.get("source_dtype"), p + ".source_dtype")
+    kind = string(t.get("kind"), p + ".kind")
+    dtype = string(t.get("dtype"), p + ".dtype")
+    codec = string(t.get("codec"), p + ".codec")
+    gran = string(t.get("granularity"), p + ".granularity")
+    sec = parse_section(t.get("section"), p + ".section")
+    scales = None if t.get("scales") is None else parse_section(t.get("scales"), p + ".scales")
+    exact = t.get("exact")
+    if exact is not None and not isinstance(exact, bool):
+        raise bad("%s: exact %r is not a boolean" % (p, exact))
+    exact = bool(exact)
+    hash_hex(t.get("source_blake3"), p + ".source_blake3")
+    scale = float32_of(t.get("scale"), p + ".scale")
+    stats = t.get("stats")
+    if stats is not None:
+        for k, v in obj(stats, "stats", p + ".stats").items():
+            number(v, p + ".stats." + k)
+    length = sec["length"]
+    counts, size = None, 0
+    if kind == "ternary":
+        if codec not in TRIT_CODECS:
+            raise bad("%s: codec %r is not a trit codec" % (p, codec))
+        lo, hi = payload_range(codec, n)
+        if not lo <= length <= hi:
+            raise bad("%s: section length %d, codec %s takes %d to %d" % (p, length, codec, lo, hi))
+        if dtype or source_dtype not in DTYPE_SIZE:
+            raise bad("%s: dtype %r, source dtype %r" % (p, dtype, source_dtype))
+        tr = t.get("trits")
+        if tr is None:
+            raise bad(p + ": no trit counts")
+        tr = obj(tr, "trits", p + ".trits")
+        counts = tuple(integer(tr.get(k), p + ".trits." + k) for k in ("neg", "zero", "pos"))
+        if min(counts) < 0 or sum(counts) != n:
+            raise bad("%s: trit counts %r do not sum to %d" % (p, counts, n))
+        if stats is None:
+            raise bad(p + ": no stats")
+        size = group_size(gran, shape, n, p)
+        if gran == "tensor":
+            if scales is not None:
+                raise bad(p + ": tensor granularity with a scales section")
+            if not (scale > 0) or np.isinf(scale):
+                raise bad("%s: scale %r" % (p, t.get("scale")))
+        elif scale != 0 or scales is None:
+            raise bad("%s: granularity %s needs a scales section and no scale" % (p, gran))
+    elif kind == "int8":
+        if codec != "raw" or length != n:
+            raise bad("%s: int8 tensor with codec %r, section length %d for %d codes" % (p, codec, length, n))
+        if gran != "row":
+            raise bad("%s: int8 tensor with granularity %r" % (p, gran))
+        if source_dtype not in DTYPE_SIZE or dtype or scale != 0 or exact or t.get("trits") is not None:
+            raise bad(p + ": int8 tensor with kept or ternary fields")
+        if stats is None or scales is None:
+            raise bad(p + ": int8 tensor without stats or scales")
+        size = group_size(gran, shape, n, p)
+    elif kind == "kept":
+        if codec != "raw":
+            raise bad("%s: kept tensor with codec %r" % (p, codec))
+        if dtype == "":
+            raise bad(p + ": kept tensor without dtype")
+        if scale != 0 or exact or gran or scales is not None or t.get("trits") is not None:
+            raise bad(p + ": kept tensor with ternary fields")
+        if dtype != source_dtype and (dtype not in CONVERTED_TO or source_dtype not in FLOAT_DTYPES):
+            raise bad("%s: kept tensor converted from %r to %r" % (p, source_dtype, dtype))
+        if (stats is not None) != (dtype != source_dtype):
+            raise bad(p + ": stats are required exactly when the dtype changes")
+        if dtype in DTYPE_SIZE:
+            if length != n * DTYPE_SIZE[dtype]:
+                raise bad("%s: section length %d for %d %s elements" % (p, length, n, dtype))
+        elif (n == 0) != (length == 0):
+            raise bad("%s: section length %d for %d elements of unknown dtype %r" % (p, length, n, dtype))
+    else:
+        raise bad("%s: kind %r" % (p, kind))
+    if scales is not None:
+        groups = n // size if size else 0
+        if scales["length"] != 4 * groups:
+            raise bad("%s: scales length %d for %d scales" % (p, scales["length"], groups))
+    secs = [("payload", sec)] + ([("scales", scales)] if scales is not None else [])
+    return {"name": name, "shape": shape, "n": n, "dtype": dtype, "kind": kind, "codec": codec,
+            "granularity": gran, "exact": exact, "scale": scale, "group": size,
+            "sections": secs, "counts": counts}
+
+
+def payload_range(codec, n):
+    b = (n + 4) // 5
+    if codec == "bits2":
+        return (n + 3) // 4, (n + 3) // 4
+    if codec == "base3":
+        return b, b
+    blocks = max(1, (b + 131071) // 131072)
+    return 9, 13 + 3 * blocks + b
+
+
+def sections(tensors):
+    """The sections in file order, as (tensor, role, section): each
+    tensor's "payload", then its "scales" if it has them."""
+    return [(t, role, s) for t in tensors for role, s in t["sections"]]
+
+
+# ---- codecs -------------------------------------------------------------
+
+TRIT_OF_CODE = np.array([0, 1, -1, 0], dtype=np.int8)
+
+
+def decode_bits2(p, n):
+    if len(p) != (n + 3) // 4:
+        raise Reject("payload", "bits2 payload of %d bytes for %d trits" % (len(p), n))
+    codes = ((p[:, None] >> np.array([0, 2, 4, 6], dtype=np.uint8)) & 3).reshape(-1)
+    if (codes == 3).any():
+        j = int(np.flatnonzero(codes == 3)[0]) // 4
+        raise Reject("payload", "bits2 byte %d is 0x%02x (code 3)" % (j, p[j]))
+    if codes[n:].any():
+        raise Reject("payload", "bits2 padding pairs of the last byte are not 0")
+    return TRIT_OF_CODE[codes[:n]]
+
+
+def decode_base3(p, n):
+    if len(p) != (n + 4) // 5:
+        raise Reject("payload", "base3 payload of %d bytes for %d trits" % (len(p), n))
+    if (p > 242).any():
+        j = int(np.flatnonzero(p > 242)[0])
+        raise Reject("payload", "base3 byte %d is %d" % (j, p[j]))
+    digits = ((p[:, None] // np.array([1, 3, 9, 27, 81], dtype=np.uint8)) % 3).reshape(-1)
+    if digits[n:].any():
+        raise Reject("payload", "base3 last byte has nonzero digits past the tensor")
+    return TRIT_OF_CODE[digits[:n]]
+
+
+def check_frame(p, b):
+    """The entropy frame rules of FORMAT.md, before decoding anything."""
+    def no(detail):
+        return Reject("payload", "entropy frame: " + detail)
+
+    if len(p) < 9:
+        raise no("%d bytes" % len(p))
+    if p[:4] != b"\x28\xb5\x2f\xfd":
+        raise no("magic %s" % p[:4].hex())
+    fhd = p[4]
+    if not fhd & 0x20 or fhd & 0x1F:
+        raise no("descriptor 0x%02x" % fhd)
+    width = (1, 2, 4, 8)[fhd >> 6]
+    if len(p) < 5 + width + 3:
+        raise no("truncated in its header")
+    size = int.from_bytes(p[5:5 + width], "little") + (256 if width == 2 else 0)
+    if size != b:
+        raise no("content size %d, the base3 payload is %d bytes" % (size, b))
+    off, stored = 5 + width, 0
+    while True:
+        if len(p) - off < 3:
+            raise no("truncated before a block header")
+        h = int.from_bytes(p[off:off + 3], "little")
+        last, typ, bsize = h & 1, (h >> 1) & 3, h >> 3
+        if typ == 3:
+            raise no("reserved block type")
+        if bsize > 131072:
+            raise no("block size %d" % bsize)
+        body = 1 if typ == 1 else bsize
+        if typ in (0, 1):
+            stored += bsize
+            if stored > size:
+                raise no("blocks hold more than the content size")
+        off += 3
+        if len(p) - off < body:
+            raise no("truncated block")
+        off += body
+        if last:
+            break
+    if off != len(p):
+        raise no("%d bytes after the frame" % (len(p) - off))
+
+
+def decode_entropy(p, n):
+    b = (n + 4) // 5
+    check_frame(bytes(p), b)
+    out = subprocess.run(["zstd", "-d", "-q", "-c"], input=bytes(p), capture_output=True)
+    if out.returncode != 0:
+        raise Reject("payload", "entropy frame: zstd: " + out.stderr.decode(errors="replace").strip())
+    if len(out.stdout) != b:
+        raise Reject("payload", "entropy frame decodes to %d bytes, want %d" % (len(out.stdout), b))
+    return decode_base3(np.frombuffer(out.stdout, dtype=np.uint8), n)
+
+
+DECODERS = {"bits2": decode_bits2, "base3": decode_base3, "entropy": decode_entropy}
+
+
+# ---- the file -----------------------------------------------------------
+
+def align_up(x):
+    return (x + ALIGN - 1) // ALIGN * ALIGN
+
+
+def read_artifact(data, with_trits):
+    size = len(data)
+    if size < PREAMBLE_LEN + TRAILER_LEN:
+        raise Reject("structure", "%d bytes is too short" % size)
+    if data[0:8] != MAGIC:
+        raise Reject("not-artifact", "magic %s" % data[0:8].hex())
+    major, minor, flags = struct.unpack_from("<HHI", data, 8)
+    if major != 1:
+        raise Reject("version", "major version %d" % major)
+    if minor > READER_MINOR:
+        raise Reject("version", "minor version %d" % minor)
+    if flags != 0 or any(data[16:64]):
+        raise Reject("structure", "preamble flags or reserved bytes are set")
+
+    tr = data[size - TRAILER_LEN:]
+    if tr[56:64] != TRAILER_MAGIC or any(tr[48:56]):
+        raise Reject("structure", "trailer magic or reserved bytes")
+    m_off, m_len = struct.unpack_from("<QQ", tr, 0)
+    if m_off < PREAMBLE_LEN or m_off % ALIGN or m_off > size - TRAILER_LEN:
+        raise Reject("structure", "manifest offset %d" % m_off)
+    if m_off + m_len != size - TRAILER_LEN:
+        raise Reject("structure", "manifest length %d does not reach the trailer" % m_len)
+    if m_len > MANIFEST_LIMIT:
+        raise Reject("structure", "manifest length %d over the limit" % m_len)
+    body = data[m_off:m_off + m_len]
+    if blake3_hex(body) != tr[16:48].hex():
+        raise Reject("manifest-hash", "manifest BLAKE3 differs from the trailer's")
+
+    tensors = parse_manifest(body)
+    used = max([CODEC_SINCE[t["codec"]] for t in tensors], default=0)
+    if used > minor:
+        raise Reject("version", "codecs of format 1.%d in a file of 1.%d" % (used, minor))
+    if minor != used:
+        raise Reject("structure", "file says 1.%d, its manifest uses 1.%d" % (minor, used))
+
+    secs = sections(tensors)
+    nxt = PREAMBLE_LEN
+    for t, _, s in secs:
+        if s["offset"] != nxt:
+            raise Reject("structure", "tensor %r: section at %d, layout puts it at %d" % (t["name"], s["offset"], nxt))
+        if s["length"] > m_off - nxt:
+            raise Reject("structure", "tensor %r: section runs past the manifest" % t["name"])
+        nxt = align_up(s["offset"] + s["length"])
+    if nxt != m_off:
+        raise Reject("structure", "manifest at %d, layout puts it at %d" % (m_off, nxt))
+
+    out, parts = [], {}
+    for i, (t, role, s) in enumerate(secs):
+        end = s["offset"] + s["length"]
+        pad_to = secs[i + 1][2]["offset"] if i + 1 < len(secs) else m_off
+        if any(data[end:pad_to]):
+            raise Reject("structure", "nonzero padding after tensor %r's %s" % (t["name"], role))
+        section = data[s["offset"]:end]
+        if blake3_hex(section) != s["blake3"]:
+            raise Reject("section-hash", "tensor %r: %s section BLAKE3 differs" % (t["name"], role))
+        for k, want in enumerate(s["chunks"]):
+            if blake3_hex(section[k * CHUNK:(k + 1) * CHUNK]) != want:
+                raise Reject("section-hash", "tensor %r: %s chunk %d BLAKE3 differs" % (t["name"], role, k))
+        parts[role] = check_contents(t, role, np.frombuffer(section, dtype=np.uint8))
+        if i + 1 == len(secs) or secs[i + 1][0] is not t:  # the tensor's last section
+            out.append(describe_tensor(t, parts, with_trits))
+            parts = {}
+    if not secs and any(data[PREAMBLE_LEN:m_off]):
+        raise Reject("structure", "nonzero padding before the manifest")
+    return "1.%d" % minor, out
+
+
+def check_contents(t, role, p):
+    """A section's contents decoded and checked ("Codecs", "Scales
+    sections"): trits counted, int8 codes, scale values."""
+    if role == "scales":
+        scales = p.view("<f4").astype(np.float32)
+        if t["kind"] == "ternary":
+            ok = np.isfinite(scales) & (scales > 0)
+        else:
+            ok = np.isfinite(scales) & (scales >= 0)
+        if not ok.all():
+            j = int(np.flatnonzero(~ok)[0])
+            raise Reject("payload", "tensor %r: %s scale %d is %r" % (t["name"], t["kind"], j, float(scales[j])))
+        return scales
+    if t["kind"] == "ternary":
+        trits = DECODERS[t["codec"]](p, t["n"])
+        counts = tuple(int((trits == v).sum()) for v in (-1, 0, 1))
+        if counts != t["counts"]:
+            raise Reject("counts", "tensor %r: decoded counts %r, manifest %r" % (t["name"], counts, t["counts"]))
+        return trits
+    if t["kind"] == "int8":
+        codes = p.view(np.int8)
+        if (codes == -128).any():
+            raise Reject("payload", "tensor %r: int8 code %d is -128" % (t["name"], int(np.flatnonzero(codes == -128)[0])))
+        return codes
+    return p
+
+
+# F8_E4M3: 1 sign, 4 exponent bits (bias 7), 3 fraction bits, no
+# infinities, S.1111.111 NaN, exponent 0 the subnormals m × 2^-9.
+def _e4m3(b):
+    sign = -1.0 if b & 0x80 else 1.0
+    e, m = (b >> 3) & 0xF, b & 7
+    if e == 0xF and m == 7:
+        return float("nan")
+    if e == 0:
+        return sign * m * 2.0 ** -9
+    return sign * (1 + m / 8) * 2.0 ** (e - 7)
+
+
+E4M3 = np.array([_e4m3(b) for b in range(256)], dtype=np.float32)
+
+
+def decode_floats(dtype, raw):
+    """Kept bytes of a float dtype as float32 ("raw")."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        if dtype == "F64":
+            return raw.view("<f8").astype(np.float32)
+        if dtype == "F32":
+            return raw.view("<f4").astype(np.float32)
+        if dtype == "F16":
+            return raw.view("<f2").astype(np.float32)
+        if dtype == "BF16":
+            return (raw.view("<u2").astype(np.uint32) << 16).view(np.float32)
+        if dtype == "F8_E5M2":
+            return (raw.astype(np.uint16) << 8).view(np.float16).astype(np.float32)
+        if dtype == "F8_E4M3":
+            return E4M3[raw]
+    return None
+
+
+def float32_digest(v):
+    bits = np.asarray(v, dtype="<f4").view("<u4").copy()
+    bits[np.isnan(np.asarray(v, dtype=np.float32))] = 0x7FC00000
+    return hashlib.sha256(bits.tobytes()).hexdigest()
+
+
+def describe_tensor(t, parts, with_trits):
+    p = parts["payload"]
+    r = {"name": t["name"], "kind": t["kind"], "codec": t["codec"], "shape": t["shape"]}
+    if t["kind"] == "kept":
+        raw = p.tobytes()
+        r["dtype"] = t["dtype"]
+        r["kept_sha256"] = hashlib.sha256(raw).hexdigest()
+        values = decode_floats(t["dtype"], p)
+        if values is not None:
+            r["float32_sha256"] = float32_digest(values)
+        if with_trits:
+            r["hex"] = raw.hex()
+        return r
+    r["granularity"] = t["granularity"]
+    if t["exact"]:
+        r["exact"] = True
+    if "scales" in parts:
+        scales = parts["scales"]
+    else:
+        scales = np.array([t["scale"]], dtype=np.float32)
+        r["scale"] = float(t["scale"])
+    group = np.arange(t["n"]) // t["group"] if t["n"] else np.zeros(0, dtype=np.int64)
+    values = (scales[group] * p.astype(np.float32)).astype("<f4")
+    r["float32_sha256"] = float32_digest(values)
+    if t["kind"] == "ternary":
+        r["counts"] = list(t["counts"])
+        r["trits_sha256"] = hashlib.sha256(p.astype(np.int8).tobytes()).hexdigest()
+        if with_trits:
+            r["trits"] = "".join("-0+"[v + 1] for v in p.tolist())
+    else:
+        r["codes_sha256"] = hashlib.sha256(p.tobytes()).hexdigest()
+        if with_trits:
+            r["hex"] = p.tobytes().hex()
+    if with_trits and "scales" in parts:
+        r["scales"] = [float(v) for v in scales]
+    return r
+
+
+def main(argv):
+    with_trits = "--trits" in argv
+    files = [a for a in argv if a != "--trits"]
+    if not files or any(a.startswith("-") for a in files):
+        print(__doc__, file=sys.stderr)
+        return 2
+    results = []
+    for path in files:
+        with open(path, "rb") as f:
+            data = f.read()
+        try:
+            version, tensors = read_artifact(data, with_trits)
+            results.append({"file": path, "result": "ok", "version": version, "tensors": tensors})
+        except Reject as e:
+            results.append({"file": path, "result": e.cls, "detail": str(e)})
+    json.dump(results, sys.stdout, indent=1)
+    print()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main(sys.argv[1:]))
