@@ -69,15 +69,38 @@ var codeTrit = [3]int8{0, 1, -1}
 // codes as digits in radix, least significant first; digits past the end
 // of trits are 0.
 func encodeDigits(dst []byte, trits []int8, per, radix int) []byte {
-	for i := 0; i < len(trits); i += per {
+	full := len(trits) / per
+	start := len(dst)
+	dst = append(dst, make([]byte, (len(trits)+per-1)/per)...)
+	out := dst[start:]
+	// full groups without branches on the data: the code of a trit t is
+	// (t & 3) ^ ((t >> 1) & 1) on its byte (0 → 0, 1 → 1, −1 = 0xff → 2)
+	if per == 4 {
+		for j := range full {
+			g := trits[4*j : 4*j+4]
+			out[j] = codeOf(g[0]) | codeOf(g[1])<<2 | codeOf(g[2])<<4 | codeOf(g[3])<<6
+		}
+	} else { // base3: 5 digits
+		for j := range full {
+			g := trits[5*j : 5*j+5]
+			out[j] = codeOf(g[0]) + 3*(codeOf(g[1])+3*(codeOf(g[2])+3*(codeOf(g[3])+3*codeOf(g[4]))))
+		}
+	}
+	if rest := trits[full*per:]; len(rest) > 0 {
 		b, pow := 0, 1
-		for k := 0; k < per && i+k < len(trits); k++ {
-			b += int(code(trits[i+k])) * pow
+		for _, t := range rest {
+			b += int(codeOf(t)) * pow
 			pow *= radix
 		}
-		dst = append(dst, byte(b))
+		out[full] = byte(b)
 	}
 	return dst
+}
+
+// codeOf is code without a branch.
+func codeOf(t int8) byte {
+	u := uint8(t)
+	return (u & 3) ^ ((u >> 1) & 1)
 }
 
 // EncodedLen is the payload length of n trits for a fixed-length codec

@@ -102,3 +102,18 @@ func BenchmarkCopyPeer(b *testing.B) {
 }
 
 func newTestRand(seed uint64) *rand.Rand { return rand.New(rand.NewPCG(seed, seed)) }
+
+// BenchmarkCodecEncode reports encoding throughput per codec on Gaussian
+// latent weights (trits/s, as bytes of one trit each).
+func BenchmarkCodecEncode(b *testing.B) {
+	trits := gaussianTrits(b, 3, benchTrits)
+	for _, c := range []Codec{Bits2, Base3} {
+		b.Run(string(c), func(b *testing.B) {
+			dst := make([]byte, 0, c.EncodedLen(len(trits)))
+			b.SetBytes(int64(len(trits)))
+			for b.Loop() {
+				dst = c.Encode(dst[:0], trits)
+			}
+		})
+	}
+}
