@@ -70,7 +70,7 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 		if !ok {
 			verdict = "broken"
 		}
-		rep.add(CheckBound, "", ok, "per-element bound %s; worst tensor %q element %d: %.3g of its scale beyond the bound (tolerance %g)",
+		rep.add(CheckBound, "", ok, "per-element bound %s; closest to it: tensor %q element %d, error minus bound = %.3g × its scale (tolerance %g)",
 			verdict, worst.tensor, worst.index, worst.excess, worst.tolerance)
 	}
 	checkSourceFiles(rep, m, src)

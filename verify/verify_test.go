@@ -120,7 +120,7 @@ func TestVerifyPassesMixedPolicy(t *testing.T) {
 	c, ok := rep.Find(CheckBound, "")
 	require.True(t, ok)
 	require.Contains(t, c.Detail, "holds")
-	require.Contains(t, c.Detail, "worst tensor")
+	require.Contains(t, c.Detail, "closest to it: tensor")
 	for _, name := range []string{"blocks.0.attn.q.weight", "blocks.0.mlp.down.weight"} {
 		c, ok := rep.Find(CheckRequantize, name)
 		require.True(t, ok, name)
