@@ -61,6 +61,23 @@ func (f *File) Write(p []byte) (int, error) {
 	return n, nil
 }
 
+// WriteAt overwrites bytes already written, at offset off, as a writer
+// does to fill in a header once the rest is known. Buffered data is flushed
+// first; it does not move the end where Write appends.
+func (f *File) WriteAt(p []byte, off int64) error {
+	if off < 0 || off+int64(len(p)) > f.n {
+		return fmt.Errorf("write %s: %d bytes at %d lie outside the %d written", f.path, len(p), off, f.n)
+	}
+	err := f.bw.Flush()
+	if err == nil {
+		_, err = f.tmp.WriteAt(p, off)
+	}
+	if err != nil {
+		return fmt.Errorf("write %s: %w", f.path, err)
+	}
+	return nil
+}
+
 // Written is the number of bytes written so far.
 func (f *File) Written() int64 { return f.n }
 
