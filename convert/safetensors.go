@@ -72,13 +72,14 @@ func newJSONParser(file string, h []byte, base int64, bad error, what string) (*
 
 // parseHeader decodes and validates h, the JSON header of file. It checks
 // UTF-8, JSON syntax, the shape of every entry, dtypes, and that each shape's
-// byte size fits in int64; data offsets are checked by layoutTensors.
-func parseHeader(file string, h []byte) (*header, error) {
+// byte size fits in int64; data offsets are checked by layoutTensors. More
+// than maxTensors entries is an error, found before the next is parsed.
+func parseHeader(file string, h []byte, maxTensors int) (*header, error) {
 	p, err := newJSONParser(file, h, headerStart, ErrHeader, "header")
 	if err != nil {
 		return nil, err
 	}
-	return p.parse()
+	return p.parse(maxTensors)
 }
 
 func (p *headerParser) fail(tensor string, at int64, sentinel error, format string, args ...any) error {
@@ -161,7 +162,7 @@ func (p *headerParser) expectDelim(tensor string, d json.Delim, what string) (in
 	return at, nil
 }
 
-func (p *headerParser) parse() (*header, error) {
+func (p *headerParser) parse(maxTensors int) (*header, error) {
 	tok, at, err := p.next("")
 	if err != nil {
 		return nil, err
@@ -190,6 +191,9 @@ func (p *headerParser) parse() (*header, error) {
 				return nil, err
 			}
 			continue
+		}
+		if len(hdr.entries) == maxTensors {
+			return nil, p.fail(key, at, ErrHeader, "more than %d tensors, over the limit", maxTensors)
 		}
 		e, err := p.parseEntry(key)
 		if err != nil {

@@ -41,7 +41,14 @@ const IndexSuffix = ".safetensors.index.json"
 // An index "metadata.total_size" that differs from the shards' tensor bytes
 // is a warning (Source.Warnings), not an error. Every error is an
 // *InputError naming the file, and the tensor and byte offset where known.
-func Open(path string) (*Source, error) {
+// Open applies DefaultLimits.
+func Open(path string) (*Source, error) { return OpenLimited(path, Limits{}) }
+
+// OpenLimited is Open with limits for untrusted input; zero fields of lim
+// take their defaults. A file over a limit gives an *InputError wrapping
+// ErrHeader (ErrIndex for an index).
+func OpenLimited(path string, lim Limits) (*Source, error) {
+	lim = lim.withDefaults()
 	fi, err := os.Stat(path)
 	if err != nil {
 		return nil, openError(path, err)
@@ -52,9 +59,9 @@ func Open(path string) (*Source, error) {
 		}
 	}
 	if strings.HasSuffix(path, ".json") {
-		return openIndex(path)
+		return openIndex(path, lim)
 	}
-	return openSingle(path)
+	return openSingle(path, lim)
 }
 
 // resolveDir finds the checkpoint in dir: its one index, else its one
@@ -238,7 +245,7 @@ func (p *headerParser) skipValue() error {
 
 // readIndex reads the whole index file, refusing one larger than the
 // header cap before allocating.
-func readIndex(path string) ([]byte, error) {
+func readIndex(path string, maxBytes int64) ([]byte, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, openError(path, err)
@@ -248,8 +255,8 @@ func readIndex(path string) ([]byte, error) {
 	if err != nil {
 		return nil, &InputError{File: path, Offset: -1, Err: fmt.Errorf("stat: %w", err)}
 	}
-	if fi.Size() > maxHeaderLen {
-		return nil, inputError(path, "", 0, ErrIndex, "index is %d bytes, over the cap of %d", fi.Size(), maxHeaderLen)
+	if fi.Size() > maxBytes {
+		return nil, inputError(path, "", 0, ErrIndex, "index is %d bytes, over the cap of %d", fi.Size(), maxBytes)
 	}
 	b := make([]byte, fi.Size())
 	if got, err := io.ReadFull(f, b); err != nil {
@@ -260,8 +267,8 @@ func readIndex(path string) ([]byte, error) {
 
 // openIndex opens every shard of the sharded set described by the index at
 // path and checks them against its weight_map.
-func openIndex(path string) (*Source, error) {
-	b, err := readIndex(path)
+func openIndex(path string, lim Limits) (*Source, error) {
+	b, err := readIndex(path, lim.MaxHeaderBytes)
 	if err != nil {
 		return nil, err
 	}
@@ -303,7 +310,7 @@ func openIndex(path string) (*Source, error) {
 			return nil, err
 		}
 		shardPath := filepath.Join(dir, name)
-		of, size, md, err := readHeader(shardPath, f)
+		of, size, md, err := readHeader(shardPath, f, lim)
 		if err != nil {
 			f.Close()
 			return nil, err
@@ -311,6 +318,9 @@ func openIndex(path string) (*Source, error) {
 		src.Files = append(src.Files, SourceFile{Path: shardPath, Size: size})
 		src.open = append(src.open, of)
 		src.Tensors = append(src.Tensors, of.tensors...)
+		if len(src.Tensors) > lim.MaxTensors {
+			return nil, inputError(shardPath, "", -1, ErrHeader, "the set holds more than %d tensors, over the limit", lim.MaxTensors)
+		}
 		metadata = append(metadata, md)
 	}
 	if err := checkWeightMap(path, idx, src, names); err != nil {

@@ -124,12 +124,12 @@ type openFile struct {
 
 // openSingle parses and validates the header of the safetensors file at
 // path.
-func openSingle(path string) (*Source, error) {
+func openSingle(path string, lim Limits) (*Source, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, openError(path, err)
 	}
-	of, size, md, err := readHeader(path, f)
+	of, size, md, err := readHeader(path, f, lim)
 	if err != nil {
 		f.Close()
 		return nil, err
@@ -155,7 +155,7 @@ func openError(path string, err error) *InputError {
 
 // readHeader reads and validates the length field and header of f, leaving
 // the file open.
-func readHeader(path string, f *os.File) (*openFile, int64, map[string]string, error) {
+func readHeader(path string, f *os.File, lim Limits) (*openFile, int64, map[string]string, error) {
 	fi, err := f.Stat()
 	if err != nil {
 		return nil, 0, nil, &InputError{File: path, Offset: -1, Err: fmt.Errorf("stat: %w", err)}
@@ -173,9 +173,9 @@ func readHeader(path string, f *os.File) (*openFile, int64, map[string]string, e
 		return nil, 0, nil, inputError(path, "", 0, ErrTruncated, "reading header length: %v", err)
 	}
 	n := binary.LittleEndian.Uint64(lenField[:])
-	if n > maxHeaderLen {
+	if n > uint64(lim.MaxHeaderBytes) {
 		return nil, 0, nil, inputError(path, "", 0, ErrHeader,
-			"header length %d exceeds the cap of %d bytes", n, maxHeaderLen)
+			"header length %d exceeds the cap of %d bytes", n, lim.MaxHeaderBytes)
 	}
 	if n > uint64(size-headerStart) {
 		return nil, 0, nil, inputError(path, "", 0, ErrTruncated,
@@ -186,7 +186,7 @@ func readHeader(path string, f *os.File) (*openFile, int64, map[string]string, e
 		return nil, 0, nil, inputError(path, "", headerStart+int64(got), ErrTruncated,
 			"read %d of %d header bytes: %v", got, n, err)
 	}
-	hdr, err := parseHeader(path, h)
+	hdr, err := parseHeader(path, h, lim.MaxTensors)
 	if err != nil {
 		return nil, 0, nil, err
 	}

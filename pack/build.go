@@ -1,12 +1,10 @@
 package pack
 
 import (
-	"bufio"
 	"encoding/binary"
 	"errors"
 	"fmt"
 	"math"
-	"os"
 	"path/filepath"
 	"runtime"
 	"slices"
@@ -15,6 +13,7 @@ import (
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/atomicfile"
 	"ternkit/manifest"
 )
 
@@ -273,32 +272,26 @@ func grow[T any](s []T, n int) []T {
 	return s[:n]
 }
 
-// atomicWriter writes an artifact to a temporary file beside its
-// destination and renames it into place on finish.
+// atomicWriter writes an artifact through an atomicfile.File (temporary
+// file beside the destination, fsync, rename, directory fsync) and keeps
+// the offset for the layout.
 type atomicWriter struct {
-	dst  string
-	f    *os.File
-	bw   *bufio.Writer
-	off  int64
-	done bool
+	f   *atomicfile.File
+	off int64
 }
 
 func createAtomic(dst string) (*atomicWriter, error) {
-	dir := filepath.Dir(dst)
-	f, err := os.CreateTemp(dir, "."+filepath.Base(dst)+".tmp-*")
+	f, err := atomicfile.Create(dst, 0o644)
 	if err != nil {
-		return nil, fmt.Errorf("create %s: %w", dst, err)
+		return nil, err
 	}
-	return &atomicWriter{dst: dst, f: f, bw: bufio.NewWriterSize(f, 1<<20)}, nil
+	return &atomicWriter{f: f}, nil
 }
 
 func (w *atomicWriter) write(p []byte) error {
-	n, err := w.bw.Write(p)
+	n, err := w.f.Write(p)
 	w.off += int64(n)
-	if err != nil {
-		return fmt.Errorf("write %s: %w", w.dst, err)
-	}
-	return nil
+	return err
 }
 
 var zeros [Align]byte
@@ -348,34 +341,12 @@ func (w *atomicWriter) finish(m *manifest.Manifest) error {
 	if err := w.write(t.encode()); err != nil {
 		return err
 	}
-	if err := w.bw.Flush(); err != nil {
-		return fmt.Errorf("write %s: %w", w.dst, err)
+	// the minor version depends on the codecs chosen: set it now
+	if err := w.f.WriteAt(encodePreamble(minorVersionFor(m)), 0); err != nil {
+		return err
 	}
-	if _, err := w.f.WriteAt(encodePreamble(minorVersionFor(m)), 0); err != nil {
-		return fmt.Errorf("write %s: %w", w.dst, err)
-	}
-	if err := w.f.Sync(); err != nil {
-		return fmt.Errorf("sync %s: %w", w.dst, err)
-	}
-	if err := w.f.Close(); err != nil {
-		return fmt.Errorf("close %s: %w", w.dst, err)
-	}
-	if err := os.Rename(w.f.Name(), w.dst); err != nil {
-		return fmt.Errorf("rename into %s: %w", w.dst, err)
-	}
-	w.done = true
-	if d, err := os.Open(filepath.Dir(w.dst)); err == nil {
-		_ = d.Sync() // best effort: some filesystems refuse directory sync
-		d.Close()
-	}
-	return nil
+	return w.f.Commit()
 }
 
 // abort removes the temporary file unless finish succeeded.
-func (w *atomicWriter) abort() {
-	if w.done {
-		return
-	}
-	w.f.Close()
-	os.Remove(w.f.Name())
-}
+func (w *atomicWriter) abort() { w.f.Abort() }

@@ -247,7 +247,7 @@ func FuzzOpen(f *testing.F) {
 		}
 	}
 	f.Fuzz(func(t *testing.T, b []byte) {
-		a, err := NewReader(bytes.NewReader(b), int64(len(b)))
+		a, err := readBounded(t, b)
 		if err != nil {
 			return
 		}
@@ -257,7 +257,7 @@ func FuzzOpen(f *testing.F) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			_ = tn.DecodeFloat32(make([]float32, tn.Len()))
+			decodeBounded(t, tn)
 		}
 	})
 }

@@ -31,7 +31,7 @@ type Artifact struct {
 }
 
 // Open opens the artifact at path.
-func Open(path string) (*Artifact, error) {
+func Open(path string, opts ...ReadOption) (*Artifact, error) {
 	f, err := os.Open(path)
 	if err != nil {
 		return nil, err
@@ -41,7 +41,7 @@ func Open(path string) (*Artifact, error) {
 		f.Close()
 		return nil, err
 	}
-	a, err := newArtifact(path, f, st.Size())
+	a, err := newArtifact(path, f, st.Size(), opts)
 	if err != nil {
 		f.Close()
 		return nil, err
@@ -51,11 +51,11 @@ func Open(path string) (*Artifact, error) {
 }
 
 // NewReader reads an artifact of the given size from r.
-func NewReader(r io.ReaderAt, size int64) (*Artifact, error) {
-	return newArtifact("", r, size)
+func NewReader(r io.ReaderAt, size int64, opts ...ReadOption) (*Artifact, error) {
+	return newArtifact("", r, size, opts)
 }
 
-func newArtifact(file string, r io.ReaderAt, size int64) (*Artifact, error) {
+func newArtifact(file string, r io.ReaderAt, size int64, opts []ReadOption) (*Artifact, error) {
 	fail := func(where string, off int64, err error) error {
 		return &FormatError{File: file, Where: where, Offset: off, Err: err}
 	}
@@ -73,7 +73,7 @@ func newArtifact(file string, r io.ReaderAt, size int64) (*Artifact, error) {
 	if _, err := r.ReadAt(tr, size-TrailerLen); err != nil {
 		return nil, fail("trailer", size-TrailerLen, err)
 	}
-	t, off, err := decodeTrailer(tr, size, DefaultMaxManifest)
+	t, off, err := decodeTrailer(tr, size, applyReadOptions(opts).maxManifest)
 	if err != nil {
 		return nil, fail("trailer", size-TrailerLen+off, err)
 	}

@@ -11,6 +11,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/convert"
+	"ternkit/internal/atomicfile"
 	"ternkit/verify"
 )
 
@@ -68,7 +69,7 @@ report beside it. Nothing is downloaded.`,
 				src, demoModel, time.Since(start).Round(time.Millisecond))
 			if !rf.customPolicy() {
 				policyPath := filepath.Join(dir, demoModel+".policy.toml")
-				if err := os.WriteFile(policyPath, []byte(demoPolicy), 0o644); err != nil {
+				if err := atomicfile.WriteFile(policyPath, []byte(demoPolicy), 0o644); err != nil {
 					return err
 				}
 				if opts.Policy, err = convert.ParsePolicy(policyPath, []byte(demoPolicy)); err != nil {

@@ -9,6 +9,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"ternkit/internal/atomicfile"
 	"ternkit/report"
 )
 
@@ -57,39 +58,10 @@ func writeReport(w io.Writer, art, out string) error {
 	if err := report.WriteHTML(&page, s); err != nil {
 		return err
 	}
-	if err := writeFileAtomic(out, page.Bytes()); err != nil {
+	if err := atomicfile.WriteFile(out, page.Bytes(), 0o644); err != nil {
 		return err
 	}
 	fmt.Fprintf(w, "wrote %s (%s): %d tensors, %d ternary\n",
 		out, report.FormatBytes(int64(page.Len())), s.Totals.Tensors, s.Totals.TernaryTensors)
 	return nil
-}
-
-// writeFileAtomic writes data to a temporary file beside path, syncs it and
-// renames it into place: on error nothing is left at path.
-func writeFileAtomic(path string, data []byte) (err error) {
-	tmp, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp-*")
-	if err != nil {
-		return fmt.Errorf("write %s: %w", path, err)
-	}
-	defer func() {
-		if err != nil {
-			tmp.Close()
-			os.Remove(tmp.Name())
-			err = fmt.Errorf("write %s: %w", path, err)
-		}
-	}()
-	if _, err := tmp.Write(data); err != nil {
-		return err
-	}
-	if err := tmp.Chmod(0o644); err != nil {
-		return err
-	}
-	if err := tmp.Sync(); err != nil {
-		return err
-	}
-	if err := tmp.Close(); err != nil {
-		return err
-	}
-	return os.Rename(tmp.Name(), path)
 }

@@ -1,8 +1,14 @@
 // Package atomicfile writes files so that the destination holds either what
 // it held before or the complete new file, never a part: data goes to a
 // temporary file in the destination's directory, which is flushed, synced
-// and then renamed (or linked) into place. On any error the temporary file
-// is removed.
+// and then renamed (or linked) into place, and the directory is synced. On
+// any error the temporary file is removed.
+//
+// A temporary file is named ".NAME.tmp-PID-RANDOM" after the destination
+// NAME and the writing process's PID. A process killed before it could
+// clean up leaves its temporary file behind; the next Create for the same
+// destination removes such stale files, but only those whose PID names no
+// running process, so a concurrent writer's file is never touched.
 package atomicfile
 
 import (
@@ -12,6 +18,8 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"strconv"
+	"strings"
 )
 
 // File is a file being written; nothing appears at its path until Commit.
@@ -31,7 +39,8 @@ func Create(path string, perm fs.FileMode) (*File, error) {
 	if dir == "" {
 		dir = "."
 	}
-	tmp, err := os.CreateTemp(dir, "."+base+".tmp-*")
+	RemoveStale(path)
+	tmp, err := os.CreateTemp(dir, tempPrefix(base)+strconv.Itoa(os.Getpid())+"-*")
 	if err != nil {
 		var pe *fs.PathError
 		if errors.As(err, &pe) {
@@ -50,6 +59,23 @@ func (f *File) Write(p []byte) (int, error) {
 		return n, fmt.Errorf("write %s: %w", f.path, err)
 	}
 	return n, nil
+}
+
+// WriteAt overwrites bytes already written, at offset off, as a writer
+// does to fill in a header once the rest is known. Buffered data is flushed
+// first; it does not move the end where Write appends.
+func (f *File) WriteAt(p []byte, off int64) error {
+	if off < 0 || off+int64(len(p)) > f.n {
+		return fmt.Errorf("write %s: %d bytes at %d lie outside the %d written", f.path, len(p), off, f.n)
+	}
+	err := f.bw.Flush()
+	if err == nil {
+		_, err = f.tmp.WriteAt(p, off)
+	}
+	if err != nil {
+		return fmt.Errorf("write %s: %w", f.path, err)
+	}
+	return nil
 }
 
 // Written is the number of bytes written so far.
@@ -136,4 +162,39 @@ func write(path string, data []byte, perm fs.FileMode, commit func(*File) error)
 		return err
 	}
 	return commit(f)
+}
+
+// tempPrefix starts the name of every temporary file for destination base.
+func tempPrefix(base string) string { return "." + base + ".tmp-" }
+
+// RemoveStale removes the temporary files that writers of path left behind
+// when they were killed: those named after path whose creator PID names no
+// running process. Files of running writers, this process included, are
+// kept. It is best effort and returns the names it removed.
+func RemoveStale(path string) []string {
+	dir, base := filepath.Split(path)
+	if dir == "" {
+		dir = "."
+	}
+	entries, err := os.ReadDir(dir)
+	if err != nil {
+		return nil
+	}
+	var removed []string
+	prefix := tempPrefix(base)
+	for _, e := range entries {
+		rest, ok := strings.CutPrefix(e.Name(), prefix)
+		if !ok || !e.Type().IsRegular() {
+			continue
+		}
+		digits, _, ok := strings.Cut(rest, "-")
+		pid, err := strconv.Atoi(digits)
+		if !ok || err != nil || pid <= 0 || pid == os.Getpid() || processRuns(pid) {
+			continue
+		}
+		if os.Remove(filepath.Join(dir, e.Name())) == nil {
+			removed = append(removed, e.Name())
+		}
+	}
+	return removed
 }

@@ -80,3 +80,25 @@ func TestCreateInMissingDirectory(t *testing.T) {
 	_, err := Create(filepath.Join(t.TempDir(), "no", "such", "out"), 0o644)
 	require.ErrorIs(t, err, fs.ErrNotExist)
 }
+
+// WriteAt fills in bytes already written, as a header is filled in last,
+// and refuses a range past what was written.
+func TestWriteAt(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "out")
+	f, err := Create(path, 0o644)
+	require.NoError(t, err)
+	defer f.Abort()
+	_, err = f.Write([]byte("....body"))
+	require.NoError(t, err)
+	require.NoError(t, f.WriteAt([]byte("HEAD"), 0))
+	require.Error(t, f.WriteAt([]byte("xy"), 7), "past the end")
+	require.Error(t, f.WriteAt([]byte("x"), -1))
+	_, err = f.Write([]byte("!"))
+	require.NoError(t, err)
+	require.Equal(t, int64(9), f.Written())
+	require.NoError(t, f.Commit())
+	b, err := os.ReadFile(path)
+	require.NoError(t, err)
+	require.Equal(t, "HEADbody!", string(b))
+}
