@@ -136,19 +136,29 @@ func firstNonFinite(w []float32, base int) error {
 // Absmean returns gamma = mean |w|, accumulated in float64 in index order.
 // It returns a *NonFiniteError for the first NaN or ±Inf element.
 func Absmean(w []float32) (float64, error) {
+	gamma, _, err := absmeanAndSquares(w)
+	return gamma, err
+}
+
+// absmeanAndSquares is Absmean, and Σw² from the same pass (partial sums in
+// a fixed order: statistics only, unlike gamma).
+func absmeanAndSquares(w []float32) (gamma, sumSq float64, err error) {
 	var sum float64
-	for _, v := range w {
-		sum += math.Abs(float64(v))
+	var sq [2]float64
+	for i, v := range w {
+		a := float64(math.Float32frombits(math.Float32bits(v) &^ (1 << 31)))
+		sum += a
+		sq[i&1] += a * a
 	}
 	if math.IsNaN(sum) || math.IsInf(sum, 0) {
 		if err := firstNonFinite(w, 0); err != nil {
-			return 0, err
+			return 0, 0, err
 		}
 	}
 	if len(w) == 0 {
-		return 0, nil
+		return 0, 0, nil
 	}
-	return sum / float64(len(w)), nil
+	return sum / float64(len(w)), sq[0] + sq[1], nil
 }
 
 // quantizer holds the float32 constants of a recipe applied to one gamma.
@@ -247,10 +257,11 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 	}
 	quants := make([]quantizer, groups)
 	gammas := make([]float64, groups)
+	squares := make([]float64, groups)
 	exact := true
 	for k := range quants {
 		part := w[k*size : (k+1)*size]
-		gamma, err := Absmean(part)
+		gamma, sq, err := absmeanAndSquares(part)
 		if err != nil {
 			var nf *NonFiniteError
 			if errors.As(err, &nf) {
@@ -258,7 +269,7 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 			}
 			return Ternary{}, err
 		}
-		gammas[k] = gamma
+		gammas[k], squares[k] = gamma, sq
 		quants[k] = newQuantizer(r, gamma)
 		if exact {
 			c, ok := exactScale(part)
@@ -279,16 +290,19 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 	for k, q := range quants {
 		res.Scales[k] = q.scale
 		part := w[k*size : (k+1)*size]
-		sums.add(q.quantizeGroup(part, trits[k*size:(k+1)*size]), q.scale)
+		g := q.quantizeGroup(part, trits[k*size:(k+1)*size])
+		g.sumSq = squares[k]
+		sums.add(g, q.scale)
 	}
 	res.Counts = sums.counts(int64(len(w)))
 	res.Stats = sums.stats(int64(len(w)), exact)
 	return res, nil
 }
 
-// groupTotals is what one pass over a group gathers: the element count with
+// groupTotals is what the passes over a group gather: the element count with
 // a nonzero trit, the sum of the trits, the count of clipped values, Σ|w|
-// over the nonzero trits, Σw², and the largest |w − scale·trit|.
+// over the nonzero trits, Σw² (from the absmean pass), and the largest
+// |w − scale·trit|.
 type groupTotals struct {
 	nonzero, tritSum, clipped int64
 	absNonzero, sumSq, maxErr float64
@@ -326,7 +340,8 @@ func (q quantizer) quantizeGroup(w []float32, trits []int8) groupTotals {
 // per element would be mispredicted about half the time.
 func (g *groupTotals) tally(v, x []float32, trits []int8, th float32, scale float64) {
 	var nonzero, tritSum, clipped int64
-	var absNonzero, sumSq, maxErr float64
+	var absNonzero, maxErr float32 // a block of at most 512: float32 sums lose little
+	s := float32(scale)
 	x = x[:len(v)]
 	trits = trits[:len(v)]
 	for i := range v {
@@ -337,17 +352,20 @@ func (g *groupTotals) tally(v, x []float32, trits []int8, th float32, scale floa
 		trits[i] = int8(pos - neg)
 		ax := math.Float32frombits(math.Float32bits(x[i]) &^ (1 << 31))
 		clipped += b2i(ax >= 1.5)
-		m := float64(math.Float32frombits(math.Float32bits(v[i]) &^ (1 << 31)))
-		absNonzero += m * float64(nz)
-		sumSq += m * m
-		maxErr = max(maxErr, math.Abs(m-scale*float64(nz)))
+		m := math.Float32frombits(math.Float32bits(v[i]) &^ (1 << 31))
+		nzf := float32(nz)
+		absNonzero += m * nzf
+		e := m - s*nzf
+		e = math.Float32frombits(math.Float32bits(e) &^ (1 << 31))
+		if e > maxErr {
+			maxErr = e
+		}
 	}
 	g.nonzero += nonzero
 	g.tritSum += tritSum
 	g.clipped += clipped
-	g.absNonzero += absNonzero
-	g.sumSq += sumSq
-	g.maxErr = max(g.maxErr, maxErr)
+	g.absNonzero += float64(absNonzero)
+	g.maxErr = max(g.maxErr, float64(maxErr))
 }
 
 func b2i(b bool) int64 {

@@ -20,7 +20,7 @@ type WalkOptions struct {
 }
 
 // DefaultWalkBudget is the default bound on tensor bytes in flight.
-const DefaultWalkBudget = 256 << 20
+const DefaultWalkBudget = 128 << 20
 
 // WalkOrdered reads every tensor once, in Tensors order, as Walk does
 // (hashing each file whole as it goes), and hands each tensor to one of

@@ -40,6 +40,7 @@ func usagef(format string, args ...any) error {
 }
 
 func main() {
+	setMemoryLimit()
 	os.Exit(run(os.Args[1:], os.Stdout, os.Stderr))
 }
 

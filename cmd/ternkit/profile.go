@@ -3,6 +3,7 @@ package main
 import (
 	"fmt"
 	"os"
+	"runtime/debug"
 	"runtime/pprof"
 
 	"github.com/spf13/cobra"
@@ -11,6 +12,19 @@ import (
 // cpuProfileFlag names the hidden root flag that writes a CPU profile of the
 // command (go tool pprof reads it); for contributors measuring hot paths.
 const cpuProfileFlag = "cpuprofile"
+
+// softMemoryLimit is the heap size at which the garbage collector works
+// harder (GOMEMLIMIT overrides it): pack and verify hold a bounded number
+// of tensors, and collecting before the heap doubles keeps the resident
+// size near that bound.
+const softMemoryLimit = 384 << 20
+
+// setMemoryLimit applies softMemoryLimit unless GOMEMLIMIT is set.
+func setMemoryLimit() {
+	if os.Getenv("GOMEMLIMIT") == "" {
+		debug.SetMemoryLimit(softMemoryLimit)
+	}
+}
 
 func registerProfileFlag(root *cobra.Command) {
 	root.PersistentFlags().String(cpuProfileFlag, "", "write a CPU profile of the command to `FILE` (go tool pprof)")
