@@ -79,42 +79,65 @@ const (
 // amount, relative to s, by which an element breaks the bound (≤ 0 when
 // none does) and that element's index (−1 for an empty tensor).
 func TernaryBoundExcess(w []float32, trits []int8, scales []float32, groupSize int) (float64, int) {
-	return worstExcess(len(w), func(i int) (float64, float64) {
-		s := float64(scales[i/groupSize])
-		a := math.Abs(float64(w[i]))
-		d := math.Abs(float64(w[i]) - float64(scales[i/groupSize]*float32(trits[i])))
-		if a <= 1.5*s {
-			return d - s/2, s
+	var worst excessTracker
+	for g, sc := range scales {
+		s := float64(sc)
+		best, at := math.Inf(-1), -1
+		for i := g * groupSize; i < min((g+1)*groupSize, len(w)); i++ {
+			a := math.Abs(float64(w[i]))
+			d := math.Abs(float64(w[i]) - float64(sc*float32(trits[i])))
+			// without a branch on the data: beyond 1.5·s the bound is an equality
+			beyond := float64(b2i(a > 1.5*s))
+			e := (d-s/2)*(1-beyond) + math.Abs(d-(a-s))*beyond
+			if e > best {
+				best, at = e, i
+			}
 		}
-		return math.Abs(d - (a - s)), s
-	})
+		worst.note(best, at, s)
+	}
+	return worst.result()
 }
 
 // Int8BoundExcess checks |w − s·q| ≤ s/2 (absmax/254) for per-row int8
 // codes, returning the largest excess relative to s and its index.
 func Int8BoundExcess(w []float32, q []int8, scales []float32, cols int) (float64, int) {
-	return worstExcess(len(w), func(i int) (float64, float64) {
-		s := float64(scales[i/cols])
-		d := math.Abs(float64(w[i]) - float64(scales[i/cols]*float32(q[i])))
-		return d - s/2, s
-	})
+	var worst excessTracker
+	for r, sc := range scales {
+		s := float64(sc)
+		best, at := math.Inf(-1), -1
+		for i := r * cols; i < min((r+1)*cols, len(w)); i++ {
+			if e := math.Abs(float64(w[i])-float64(sc*float32(q[i]))) - s/2; e > best {
+				best, at = e, i
+			}
+		}
+		worst.note(best, at, s)
+	}
+	return worst.result()
 }
 
-// worstExcess returns the largest excess/scale over n elements (the raw
-// excess where the scale is 0) and its index, or (0, −1) when n is 0.
-func worstExcess(n int, excessAt func(i int) (excess, scale float64)) (float64, int) {
-	worst, at := math.Inf(-1), -1
-	for i := 0; i < n; i++ {
-		e, s := excessAt(i)
-		if s > 0 {
-			e /= s
-		}
-		if e > worst {
-			worst, at = e, i
-		}
-	}
+// excessTracker keeps the largest excess relative to its group's scale
+// (the raw excess where the scale is 0) and its index.
+type excessTracker struct {
+	worst float64
+	at    int
+	seen  bool
+}
+
+func (t *excessTracker) note(excess float64, at int, scale float64) {
 	if at < 0 {
+		return
+	}
+	if scale > 0 {
+		excess /= scale
+	}
+	if !t.seen || excess > t.worst {
+		t.worst, t.at, t.seen = excess, at, true
+	}
+}
+
+func (t *excessTracker) result() (float64, int) {
+	if !t.seen {
 		return 0, -1
 	}
-	return worst, at
+	return t.worst, t.at
 }

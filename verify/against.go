@@ -140,8 +140,9 @@ func redo(t *pack.Tensor, r convert.Recipe, raw []byte, v *tensorVerdict) string
 			return fmt.Sprintf("re-quantize: %v", err)
 		}
 		packed := make([]int8, n)
-		if err := t.DecodeTrits(packed); err != nil {
-			return err.Error()
+		// payload's hash is checked with the sections: decode it as read
+		if err := pack.Codec(e.Codec).Decode(packed, payload); err != nil {
+			return fmt.Sprintf("section at byte %d: %v", e.Section.Offset, err)
 		}
 		scales, err := t.Scales()
 		if err != nil {
