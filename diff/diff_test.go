@@ -1,7 +1,6 @@
 package diff
 
 import (
-	"encoding/binary"
 	"math"
 	"math/rand/v2"
 	"path/filepath"
@@ -14,11 +13,9 @@ import (
 	"ternkit/pack"
 )
 
+// f32Bytes is v as little-endian F32, as safetensors stores it.
 func f32Bytes(v []float32) []byte {
-	b := make([]byte, 4*len(v))
-	for i, f := range v {
-		binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(f))
-	}
+	b, _ := convert.EncodeFloat32(nil, "F32", v)
 	return b
 }
 

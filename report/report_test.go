@@ -2,7 +2,6 @@ package report
 
 import (
 	"bytes"
-	"encoding/binary"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -19,11 +18,9 @@ import (
 	"ternkit/pack"
 )
 
+// f32Bytes is v as little-endian F32, as safetensors stores it.
 func f32Bytes(v []float32) []byte {
-	b := make([]byte, 4*len(v))
-	for i, f := range v {
-		binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(f))
-	}
+	b, _ := convert.EncodeFloat32(nil, "F32", v)
 	return b
 }
 
