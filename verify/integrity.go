@@ -158,18 +158,24 @@ func maxLength(m *manifest.Manifest) int64 {
 }
 
 // streamSection reads section s piece by piece into buf, feeding sink,
-// and compares its BLAKE3. It returns whether the section is intact and,
-// when it is not, a detail that names the first bad piece if the section
-// records piece hashes (found by a second read, on failure only).
+// and compares its BLAKE3 and each piece's recorded BLAKE3 (pack/FORMAT.md,
+// "Hashing"). It returns whether the section is intact and, when it is not,
+// a detail that names the first bad piece where the section records them.
 func streamSection(ra io.ReaderAt, s manifest.Section, buf []byte, sink io.Writer) (bool, string) {
 	h := blake3.New()
 	var sinkErr error
-	for off := int64(0); off < s.Length; off += manifest.ChunkSize {
+	badChunk := int64(-1)
+	for k, off := 0, int64(0); off < s.Length; k, off = k+1, off+manifest.ChunkSize {
 		piece := buf[:min(manifest.ChunkSize, s.Length-off)]
 		if _, err := ra.ReadAt(piece, s.Offset+off); err != nil {
 			return false, fmt.Sprintf("read section at byte %d: %v", s.Offset+off, err)
 		}
 		h.Write(piece)
+		if k < len(s.Chunks) && badChunk < 0 {
+			if sum := blake3.Sum256(piece); hex.EncodeToString(sum[:]) != s.Chunks[k] {
+				badChunk = s.Offset + off
+			}
+		}
 		if sink != nil && sinkErr == nil {
 			_, sinkErr = sink.Write(piece)
 		}
@@ -177,20 +183,15 @@ func streamSection(ra io.ReaderAt, s manifest.Section, buf []byte, sink io.Write
 	var sum [32]byte
 	h.Sum(sum[:0])
 	got := manifest.HexHash(sum)
-	if got == s.BLAKE3 {
-		return true, ""
+	switch {
+	case got != s.BLAKE3 && badChunk >= 0:
+		return false, fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s; first bad chunk at byte %d", s.Offset, s.Length, got, s.BLAKE3, badChunk)
+	case got != s.BLAKE3:
+		return false, fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s", s.Offset, s.Length, got, s.BLAKE3)
+	case badChunk >= 0:
+		return false, fmt.Sprintf("section at byte %d: chunk at byte %d does not match its recorded BLAKE3", s.Offset, badChunk)
 	}
-	detail := fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s", s.Offset, s.Length, got, s.BLAKE3)
-	for k, off := 0, int64(0); k < len(s.Chunks); k, off = k+1, off+manifest.ChunkSize {
-		piece := buf[:min(manifest.ChunkSize, s.Length-off)]
-		if _, err := ra.ReadAt(piece, s.Offset+off); err != nil {
-			break
-		}
-		if sum := blake3.Sum256(piece); hex.EncodeToString(sum[:]) != s.Chunks[k] {
-			return false, detail + fmt.Sprintf("; first bad chunk at byte %d", s.Offset+off)
-		}
-	}
-	return false, detail
+	return true, ""
 }
 
 // scaleChecker checks little-endian float32 scales as they stream by:
