@@ -159,6 +159,20 @@ func TestVerifyNamesBadChunk(t *testing.T) {
 	f := rep.Failures()[0]
 	require.Equal(t, CheckSection, f.Name)
 	require.Contains(t, f.Detail, "first bad chunk at byte "+strconv.FormatInt(sec.Offset+2*(1<<22), 10))
+
+	// a manifest whose piece hash is wrong, though the section hash is
+	// right, is caught as well (pack/FORMAT.md: a reader checks both)
+	forged := filepath.Join(dir, "forged.tkart")
+	rewriteManifest(t, art, forged, func(m map[string]any) {
+		chunks := entry(m, 0)["section"].(map[string]any)["chunks"].([]any)
+		chunks[1] = strings.Repeat("0", 64)
+	})
+	rep, err = Run(forged, Options{})
+	require.NoError(t, err)
+	require.False(t, rep.OK())
+	f = rep.Failures()[0]
+	require.Equal(t, CheckSection, f.Name)
+	require.Contains(t, f.Detail, "chunk at byte "+strconv.FormatInt(sec.Offset+(1<<22), 10)+" does not match")
 }
 
 // b3sum (Debian package b3sum, the BLAKE3 authors' command-line tool)
