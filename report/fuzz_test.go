@@ -49,6 +49,17 @@ func pageFor(t *testing.T, name, key, value string) []byte {
 	return b.Bytes()
 }
 
+// plainLike keeps the dots and digits of name and turns every other rune
+// into "a".
+func plainLike(name string) string {
+	return strings.Map(func(r rune) rune {
+		if r == '.' || ('0' <= r && r <= '9') {
+			return r
+		}
+		return 'a'
+	}, name)
+}
+
 // Names and metadata come from the checkpoint, which may be hostile: no
 // value can add an element to the page (html/template escapes it in text,
 // attributes and SVG alike).
@@ -58,7 +69,9 @@ func FuzzWriteHTMLEscapes(f *testing.F) {
 	f.Add(`x" onmouseover="alert(1)`, "</style><b>", "]]><![CDATA[<i>")
 	f.Add("…ünïcode\u2028", "<!--", "-->")
 	f.Fuzz(func(t *testing.T, name, key, value string) {
-		want := elementCount(t, pageFor(t, "w", "k", "v"))
+		// the plain page groups its tensors into the same layers: layer
+		// names depend only on the dots and digits of a tensor name
+		want := elementCount(t, pageFor(t, plainLike(name), "k", "v"))
 		got := pageFor(t, name, key, value)
 		if n := elementCount(t, got); n != want {
 			t.Fatalf("name %q, metadata %q=%q: %d elements, a plain page has %d", name, key, value, n, want)
