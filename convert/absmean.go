@@ -33,6 +33,24 @@ const (
 	TieHalfAway TieRule = "half-away"
 )
 
+// SumOrder names the order in which gamma's float64 sum of |w| is taken.
+// Floating-point addition is not associative, so the order is part of the
+// recipe: a verifier must add in the same order to get the same gamma.
+type SumOrder string
+
+const (
+	// SumStrided16 adds |w_i| (as float64) to partial sum p_(i mod 16), each
+	// partial sum in index order from +0, and combines them as
+	// (t0 + t2) + (t1 + t3) with t_k = (p_k + p_(k+4)) + (p_(k+8) + p_(k+12))
+	// (combineLanes16). Sixteen independent sums let vector units add many
+	// weights per cycle; the statistics of the quantize pass are gathered
+	// in lanes too (see laneTotals).
+	SumStrided16 SumOrder = "strided16"
+	// SumSequential adds |w_i| into one float64 sum in index order. Recipes
+	// recorded without a sum order (the key is absent) use it.
+	SumSequential SumOrder = "sequential"
+)
+
 // DefaultEpsilon is the floor on gamma (reciprocal form) or the addend to
 // gamma (quotient form).
 const DefaultEpsilon = 1e-5
@@ -45,16 +63,28 @@ type Recipe struct {
 	ScaleRule ScaleRule `json:"scale_rule"`
 	Epsilon   float64   `json:"epsilon"`
 	Tie       TieRule   `json:"tie"`
+	// Sum is the order of gamma's sum; "" means SumSequential.
+	Sum SumOrder `json:"sum,omitempty"`
 }
 
-// DefaultRecipe is absmean, training-code form, eps 1e-5, ties to even.
+// DefaultRecipe is absmean, training-code form, eps 1e-5, ties to even,
+// gamma summed in 16 strided partial sums.
 func DefaultRecipe() Recipe {
 	return Recipe{
 		Method:    "absmean",
 		ScaleRule: ScaleReciprocal,
 		Epsilon:   DefaultEpsilon,
 		Tie:       TieHalfEven,
+		Sum:       SumStrided16,
 	}
+}
+
+// sumOrder is r.Sum, with the absent order read as SumSequential.
+func (r Recipe) sumOrder() SumOrder {
+	if r.Sum == "" {
+		return SumSequential
+	}
+	return r.Sum
 }
 
 // ErrRecipe reports a recipe this version cannot apply.
@@ -69,6 +99,8 @@ func (r Recipe) Validate() error {
 		return fmt.Errorf("%w: scale rule %q (want %q or %q)", ErrRecipe, r.ScaleRule, ScaleReciprocal, ScaleQuotient)
 	case r.Tie != TieHalfEven && r.Tie != TieHalfAway:
 		return fmt.Errorf("%w: tie rule %q (want %q or %q)", ErrRecipe, r.Tie, TieHalfEven, TieHalfAway)
+	case r.sumOrder() != SumStrided16 && r.sumOrder() != SumSequential:
+		return fmt.Errorf("%w: sum order %q (want %q or %q)", ErrRecipe, r.Sum, SumStrided16, SumSequential)
 	case !(r.Epsilon > 0) || math.IsInf(r.Epsilon, 0) || float32(r.Epsilon) == 0:
 		return fmt.Errorf("%w: epsilon %v (want a positive float32-representable number)", ErrRecipe, r.Epsilon)
 	}
@@ -133,22 +165,29 @@ func firstNonFinite(w []float32, base int) error {
 	return nil
 }
 
-// Absmean returns gamma = mean |w|, accumulated in float64 in index order.
-// It returns a *NonFiniteError for the first NaN or ±Inf element.
-func Absmean(w []float32) (float64, error) {
-	gamma, _, err := absmeanAndSquares(w)
+// Absmean returns gamma = mean |w|, accumulated in float64 in the given
+// order. It returns a *NonFiniteError for the first NaN or ±Inf element.
+func Absmean(w []float32, order SumOrder) (float64, error) {
+	gamma, _, err := absmeanAndSquares(w, order)
 	return gamma, err
 }
 
 // absmeanAndSquares is Absmean, and Σw² from the same pass (partial sums in
 // a fixed order: statistics only, unlike gamma).
-func absmeanAndSquares(w []float32) (gamma, sumSq float64, err error) {
+func absmeanAndSquares(w []float32, order SumOrder) (gamma, sumSq float64, err error) {
 	var sum float64
-	var sq [2]float64
-	for i, v := range w {
-		a := float64(math.Float32frombits(math.Float32bits(v) &^ (1 << 31)))
-		sum += a
-		sq[i&1] += a * a
+	if order == SumStrided16 {
+		var s, q [16]float64
+		absLanes16(w, &s, &q)
+		sum, sumSq = combineLanes16(&s), combineLanes16(&q)
+	} else {
+		var sq [2]float64
+		for i, v := range w {
+			a := float64(math.Float32frombits(math.Float32bits(v) &^ (1 << 31)))
+			sum += a
+			sq[i&1] += float64(a * a) // the conversion forbids a fused multiply-add
+		}
+		sumSq = sq[0] + sq[1]
 	}
 	if math.IsNaN(sum) || math.IsInf(sum, 0) {
 		if err := firstNonFinite(w, 0); err != nil {
@@ -158,7 +197,7 @@ func absmeanAndSquares(w []float32) (gamma, sumSq float64, err error) {
 	if len(w) == 0 {
 		return 0, 0, nil
 	}
-	return sum / float64(len(w)), sq[0] + sq[1], nil
+	return sum / float64(len(w)), sumSq, nil
 }
 
 // quantizer holds the float32 constants of a recipe applied to one gamma.
@@ -261,7 +300,7 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 	exact := true
 	for k := range quants {
 		part := w[k*size : (k+1)*size]
-		gamma, sq, err := absmeanAndSquares(part)
+		gamma, sq, err := absmeanAndSquares(part, r.sumOrder())
 		if err != nil {
 			var nf *NonFiniteError
 			if errors.As(err, &nf) {
@@ -290,7 +329,7 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 	for k, q := range quants {
 		res.Scales[k] = q.scale
 		part := w[k*size : (k+1)*size]
-		g := q.quantizeGroup(part, trits[k*size:(k+1)*size])
+		g := q.quantizeGroup(part, trits[k*size:(k+1)*size], r.sumOrder() == SumStrided16)
 		g.sumSq = squares[k]
 		sums.add(g, q.scale)
 	}
@@ -308,15 +347,30 @@ type groupTotals struct {
 	absNonzero, sumSq, maxErr float64
 }
 
-// quantizeGroup writes the trits of one group and returns its totals.
-func (q quantizer) quantizeGroup(w []float32, trits []int8) groupTotals {
-	// t = +1 when x > th, −1 when x < −th: th is 0.5 for ties to even, the
-	// float32 just below 0.5 for ties away (x ≥ 0.5).
-	th := float32(0.5)
+// threshold is th such that t = +1 when x > th and −1 when x < −th: 0.5
+// for ties to even, the float32 just below 0.5 for ties away (x ≥ 0.5).
+func (q quantizer) threshold() float32 {
 	if q.halfAway {
-		th = math.Nextafter32(0.5, 0)
+		return math.Nextafter32(0.5, 0)
 	}
+	return 0.5
+}
+
+// quantizeGroup writes the trits of one group and returns its totals,
+// gathered in lanes (laneTotals) or, for recipes of the sequential sum
+// order, in the order of earlier versions (tally).
+func (q quantizer) quantizeGroup(w []float32, trits []int8, lanes bool) groupTotals {
+	th := q.threshold()
 	var g groupTotals
+	if lanes {
+		for start := 0; start < len(w); start += laneBlock {
+			v := w[start:min(start+laneBlock, len(w))]
+			var l laneTotals
+			quantizeBlock(v, trits[start:start+len(v)], q, &l)
+			g.addLanes(&l)
+		}
+		return g
+	}
 	var xs [512]float32
 	for start := 0; start < len(w); start += len(xs) {
 		v := w[start:min(start+len(xs), len(w))]

@@ -22,7 +22,7 @@ func recipeWith(rule ScaleRule, tie TieRule) Recipe {
 // round = [[1, 0], [0, -2]], clip to [-1, 1] = [[1, 0], [0, -1]].
 func TestTernarizePaperExample(t *testing.T) {
 	w := []float32{0.8, -0.1, 0.3, -1.6}
-	gamma, err := Absmean(w)
+	gamma, err := Absmean(w, SumSequential)
 	require.NoError(t, err)
 	require.InDelta(t, 0.7, gamma, 1e-7)
 	for _, rule := range []ScaleRule{ScaleReciprocal, ScaleQuotient} {

@@ -46,7 +46,7 @@ func BenchmarkAbsmean(b *testing.B) {
 	w := benchWeights(1 << 20)
 	b.SetBytes(int64(4 * len(w)))
 	for b.Loop() {
-		if _, err := Absmean(w); err != nil {
+		if _, err := Absmean(w, SumStrided16); err != nil {
 			b.Fatal(err)
 		}
 	}

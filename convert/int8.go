@@ -56,7 +56,7 @@ func QuantizeInt8Rows(w []float32, cols int, q []int8) ([]float32, Stats, error)
 
 // nonFiniteIn returns a *NonFiniteError for the first NaN or ±Inf in w.
 func nonFiniteIn(w []float32) error {
-	_, err := Absmean(w)
+	_, err := Absmean(w, SumStrided16)
 	var nf *NonFiniteError
 	if errors.As(err, &nf) {
 		return err

@@ -66,13 +66,7 @@ func (t *Tensor) DecodeWeights(raw []byte, dst []float32) error {
 	if t.DType == "BF16" && len(raw) == 2*len(dst) {
 		// the common case in one pass: decode, and note a non-finite value
 		// (exponent bits all set) without a branch
-		var nonFinite uint32
-		for i := range dst {
-			b := uint32(raw[2*i]) | uint32(raw[2*i+1])<<8
-			nonFinite |= ((^b & 0x7f80) - 1) & 0x80000000
-			dst[i] = math.Float32frombits(b << 16)
-		}
-		if nonFinite == 0 {
+		if !decodeBF16(dst, raw) {
 			return nil
 		}
 	} else if err := DecodeFloat32(t.DType, raw, dst); err != nil {

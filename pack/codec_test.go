@@ -180,3 +180,27 @@ func FuzzCodecDecode(f *testing.F) {
 		}
 	})
 }
+
+// The word-at-a-time encoders write, at every length, the bytes the rule of
+// pack/FORMAT.md gives digit by digit: byte j = Σ_k code(trit[per·j+k])·radix^k.
+func TestCodecEncodeMatchesDigitRule(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 9))
+	for _, c := range []struct {
+		codec      Codec
+		per, radix int
+	}{{Bits2, 4, 4}, {Base3, 5, 3}} {
+		for n := 0; n <= 130; n++ {
+			trits := randomTrits(rng, n)
+			got := c.codec.Encode(nil, trits)
+			require.Len(t, got, (n+c.per-1)/c.per, "%s n=%d", c.codec, n)
+			for j := range got {
+				want, pow := 0, 1
+				for k := 0; k < c.per && c.per*j+k < n; k++ {
+					want += int(code(trits[c.per*j+k])) * pow
+					pow *= c.radix
+				}
+				require.Equal(t, byte(want), got[j], "%s n=%d byte %d", c.codec, n, j)
+			}
+		}
+	}
+}

@@ -20,9 +20,19 @@ func buildWith(t *testing.T, src, dst string, opts Options) {
 	s, err := convert.Open(src)
 	require.NoError(t, err)
 	defer s.Close()
-	opts.Codec, opts.Recipe, opts.Tool = Base3, convert.DefaultRecipe(), "ternkit test"
+	if opts.Recipe == (convert.Recipe{}) {
+		opts.Recipe = convert.DefaultRecipe()
+	}
+	opts.Codec, opts.Tool = Base3, "ternkit test"
 	_, err = Build(s, dst, opts)
 	require.NoError(t, err)
+}
+
+// sequentialRecipe is the default recipe without the sum key (format 1.0).
+func sequentialRecipe() convert.Recipe {
+	r := convert.DefaultRecipe()
+	r.Sum = ""
+	return r
 }
 
 func readFile(t *testing.T, path string) []byte {
@@ -43,11 +53,11 @@ func TestBuildRecordsProvenance(t *testing.T) {
 		created   string
 		policyLen int
 	}{
-		{"none", Options{}, "", 0},
-		{"empty rule list", Options{PolicyRules: []string{}}, "", 0},
-		{"policy", Options{PolicyRules: testRules}, "", 3},
+		{"none", Options{Recipe: sequentialRecipe()}, "", 0},
+		{"empty rule list", Options{Recipe: sequentialRecipe(), PolicyRules: []string{}}, "", 0},
+		{"policy", Options{Recipe: sequentialRecipe(), PolicyRules: testRules}, "", 3},
 		// 1,700,000,000 s after the Unix epoch is 2023-11-14 22:13:20 UTC (common practice: date -u -d @1700000000).
-		{"created", Options{Created: time.Unix(1_700_000_000, 0)}, "2023-11-14T22:13:20Z", 0},
+		{"created", Options{Recipe: sequentialRecipe(), Created: time.Unix(1_700_000_000, 0)}, "2023-11-14T22:13:20Z", 0},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -72,25 +82,33 @@ func TestBuildRecordsProvenance(t *testing.T) {
 }
 
 // A reader rejects a preamble whose minor version is not the lowest the
-// manifest needs (1.0 here: policy and created are 1.0 keys), and one above
-// what it implements.
+// manifest needs (1.0 without the recipe's sum key: policy and created are
+// 1.0 keys; 1.2 with it), and one above what it implements.
 func TestOpenRejectsMinorVersion(t *testing.T) {
 	dir := t.TempDir()
 	src, _ := testSource(t, dir)
-	dst := filepath.Join(dir, "p"+Extension)
-	buildWith(t, src, dst, Options{PolicyRules: testRules, Created: time.Unix(1_700_000_000, 0)})
-	good := readFile(t, dst)
-	_, err := NewReader(bytes.NewReader(good), int64(len(good)))
-	require.NoError(t, err)
-	for _, c := range []struct {
-		minor uint16
-		want  error
-	}{{1, ErrStructure}, {2, ErrVersion}} {
-		b := bytes.Clone(good)
-		binary.LittleEndian.PutUint16(b[10:], c.minor)
-		_, err := NewReader(bytes.NewReader(b), int64(len(b)))
-		require.ErrorIs(t, err, c.want, "minor %d", c.minor)
-		require.Contains(t, err.Error(), "byte 10")
+	for _, r := range []struct {
+		recipe convert.Recipe
+		good   uint16
+		bad    []uint16
+		wants  []error
+	}{
+		{sequentialRecipe(), 0, []uint16{1, 2, 3}, []error{ErrStructure, ErrStructure, ErrVersion}},
+		{convert.DefaultRecipe(), 2, []uint16{0, 1, 3}, []error{ErrVersion, ErrVersion, ErrVersion}},
+	} {
+		dst := filepath.Join(dir, "p"+Extension)
+		buildWith(t, src, dst, Options{Recipe: r.recipe, PolicyRules: testRules, Created: time.Unix(1_700_000_000, 0)})
+		good := readFile(t, dst)
+		require.Equal(t, r.good, binary.LittleEndian.Uint16(good[10:]))
+		_, err := NewReader(bytes.NewReader(good), int64(len(good)))
+		require.NoError(t, err)
+		for i, minor := range r.bad {
+			b := bytes.Clone(good)
+			binary.LittleEndian.PutUint16(b[10:], minor)
+			_, err := NewReader(bytes.NewReader(b), int64(len(b)))
+			require.ErrorIs(t, err, r.wants[i], "minor %d", minor)
+			require.Contains(t, err.Error(), "byte 10")
+		}
 	}
 }
 

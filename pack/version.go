@@ -15,9 +15,15 @@ var codecSince = map[string]uint16{
 	manifest.CodecEntropy: 1,
 }
 
+// sumKeySince is the minor version that defines the recipe's "sum" key.
+const sumKeySince = 2
+
 // minorVersionFor is the lowest minor version whose features m uses.
 func minorVersionFor(m *manifest.Manifest) uint16 {
 	var v uint16
+	if m.Recipe.Sum != "" {
+		v = sumKeySince
+	}
 	for _, e := range m.Tensors {
 		v = max(v, codecSince[e.Codec])
 	}
@@ -31,6 +37,9 @@ func checkMinorVersion(m *manifest.Manifest, minor uint16) error {
 		if since := codecSince[e.Codec]; since > minor {
 			return fmt.Errorf("%w: tensor %q uses codec %s of format 1.%d, the preamble says 1.%d", ErrVersion, e.Name, e.Codec, since, minor)
 		}
+	}
+	if m.Recipe.Sum != "" && minor < sumKeySince {
+		return fmt.Errorf("%w: the recipe's sum order is a key of format 1.%d, the preamble says 1.%d", ErrVersion, sumKeySince, minor)
 	}
 	if want := minorVersionFor(m); minor != want {
 		return fmt.Errorf("%w: preamble says format 1.%d, the manifest uses features of 1.%d only", ErrStructure, minor, want)

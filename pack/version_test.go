@@ -48,7 +48,12 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 	for _, c := range cases {
 		t.Run(string(c.codec), func(t *testing.T) {
 			dst := filepath.Join(dir, string(c.codec)+Extension)
-			m := buildArtifact(t, src, dst, c.codec)
+			// the recipe without the sum key, whose minor version is 2
+			s, err := convert.Open(src)
+			require.NoError(t, err)
+			defer s.Close()
+			m, err := Build(s, dst, Options{Codec: c.codec, Recipe: sequentialRecipe(), Tool: "ternkit test"})
+			require.NoError(t, err)
 			for i, e := range m.Tensors {
 				require.Equal(t, c.stored[i], e.Codec, e.Name)
 			}
@@ -93,4 +98,9 @@ func TestMinorVersionFor(t *testing.T) {
 	require.Equal(t, uint16(0), minorVersionFor(m))
 	m.Tensors = append(m.Tensors, manifest.Tensor{Codec: manifest.CodecEntropy})
 	require.Equal(t, uint16(1), minorVersionFor(m))
+	m.Recipe.Sum = convert.SumSequential // the key, even with the old order's value
+	require.Equal(t, uint16(2), minorVersionFor(m))
+	require.ErrorIs(t, checkMinorVersion(m, 1), ErrVersion)
+	require.ErrorIs(t, checkMinorVersion(m, 3), ErrStructure)
+	require.NoError(t, checkMinorVersion(m, 2))
 }

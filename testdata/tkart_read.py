@@ -35,10 +35,11 @@ ALIGN = 64
 PREAMBLE_LEN = 64
 TRAILER_LEN = 64
 MANIFEST_LIMIT = 256 << 20
-READER_MINOR = 1  # the highest minor version of format 1 this reader implements
+READER_MINOR = 2  # the highest minor version of format 1 this reader implements
 
 # Minor version that defines each codec ("Versioning").
 CODEC_SINCE = {"raw": 0, "bits2": 0, "base3": 0, "entropy": 1}
+SUM_KEY_SINCE = 2  # the recipe's "sum" key
 TRIT_CODECS = ("bits2", "base3", "entropy")
 DTYPE_SIZE = {
     "F64": 8, "F32": 4, "F16": 2, "BF16": 2, "F8_E4M3": 1, "F8_E5M2": 1,
@@ -55,7 +56,7 @@ CHUNK = 1 << 22
 KEYS = {
     "manifest": {"format", "version", "tool", "created", "recipe", "source", "policy",
                  "tensors", "totals"},
-    "recipe": {"method", "scale_rule", "epsilon", "tie"},
+    "recipe": {"method", "scale_rule", "epsilon", "tie", "sum"},
     "source": {"files", "metadata"},
     "file": {"name", "bytes", "blake3"},
     "tensor": {"name", "shape", "source_dtype", "kind", "dtype", "codec", "granularity",
@@ -197,6 +198,7 @@ def parse_manifest(body):
     if (string(r.get("method"), "recipe.method") != "absmean"
             or string(r.get("scale_rule"), "recipe.scale_rule") not in ("reciprocal", "quotient")
             or string(r.get("tie"), "recipe.tie") not in ("half-even", "half-away")
+            or string(r.get("sum"), "recipe.sum") not in ("", "strided16", "sequential")
             or not eps > 0 or math.isinf(eps) or eps32 == 0 or np.isinf(eps32)):
         raise bad("recipe %r" % r)
 
@@ -234,7 +236,7 @@ def parse_manifest(body):
         if integer(totals.get(k), "totals." + k) != v:
             raise bad("totals.%s is %r, the tensors give %d" % (k, totals.get(k), v))
     number(totals.get("bits_per_ternary_weight"), "totals.bits_per_ternary_weight")
-    return tensors
+    return tensors, bool(r.get("sum"))  # "" reads as absent, as any zero value
 
 
 def parse_section(v, path):
@@ -503,10 +505,12 @@ def read_artifact(data, with_trits):
     if blake3_hex(body) != tr[16:48].hex():
         raise Reject("manifest-hash", "manifest BLAKE3 differs from the trailer's")
 
-    tensors = parse_manifest(body)
+    tensors, has_sum = parse_manifest(body)
     used = max([CODEC_SINCE[t["codec"]] for t in tensors], default=0)
+    if has_sum:
+        used = max(used, SUM_KEY_SINCE)
     if used > minor:
-        raise Reject("version", "codecs of format 1.%d in a file of 1.%d" % (used, minor))
+        raise Reject("version", "codecs or keys of format 1.%d in a file of 1.%d" % (used, minor))
     if minor != used:
         raise Reject("structure", "file says 1.%d, its manifest uses 1.%d" % (minor, used))
 

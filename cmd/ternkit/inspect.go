@@ -12,6 +12,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"ternkit/convert"
 	"ternkit/manifest"
 	"ternkit/report"
 )
@@ -212,7 +213,11 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 		report.FormatCount(tot.TernaryParams), tot.BitsPerTernaryWeight, 100*s.ZeroFraction)
 	fmt.Fprintf(w, "weight memory    %s in ternary form vs %s at F16 (int8 and kept tensors as stored in both)\n",
 		report.FormatBytes(s.WeightMemory.TernaryForm), report.FormatBytes(s.WeightMemory.F16Form))
-	fmt.Fprintf(w, "recipe           %s/%s eps=%g ties %s\n", s.Recipe.Method, s.Recipe.ScaleRule, s.Recipe.Epsilon, s.Recipe.Tie)
+	sum := s.Recipe.Sum
+	if sum == "" {
+		sum = convert.SumSequential
+	}
+	fmt.Fprintf(w, "recipe           %s/%s eps=%g ties %s, sum %s\n", s.Recipe.Method, s.Recipe.ScaleRule, s.Recipe.Epsilon, s.Recipe.Tie, sum)
 	if len(s.Policy) > 0 {
 		fmt.Fprintf(w, "policy           %s\n", strings.Join(s.Policy, "; "))
 	}

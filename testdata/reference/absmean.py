@@ -2,11 +2,11 @@
 """Reference absmean ternarization in numpy, written from the recipe in
 pack/FORMAT.md, for ternkit's tests to compare against.
 
-usage: absmean.py IN ROWS COLS GRANULARITY SCALE_RULE EPSILON TIE OUT_TRITS OUT_SCALES
+usage: absmean.py IN ROWS COLS GRANULARITY SCALE_RULE EPSILON TIE SUM OUT_TRITS OUT_SCALES
 
 IN holds ROWS*COLS little-endian float32 values in C order. GRANULARITY is
 tensor, row or group:N; SCALE_RULE reciprocal or quotient; TIE half-even or
-half-away. OUT_TRITS receives int8 trits, OUT_SCALES little-endian float32
+half-away; SUM strided16 or sequential (the order of gamma's sum). OUT_TRITS receives int8 trits, OUT_SCALES little-endian float32
 scales, one per group in C order.
 """
 import sys
@@ -15,7 +15,7 @@ import numpy as np
 
 
 def main():
-    inp, rows, cols, gran, rule, eps, tie, out_trits, out_scales = sys.argv[1:]
+    inp, rows, cols, gran, rule, eps, tie, order, out_trits, out_scales = sys.argv[1:]
     rows, cols, eps = int(rows), int(cols), float(eps)
     w = np.fromfile(inp, dtype="<f4").reshape(rows, cols)
     if gran == "tensor":
@@ -27,8 +27,22 @@ def main():
     else:
         sys.exit("unknown granularity " + gran)
 
-    # gamma: mean |W| over each group, in float64
-    gamma = np.abs(groups.astype(np.float64)).mean(axis=1)
+    # gamma: mean |W| over each group, summed in float64 in the recipe's
+    # order. np.add.accumulate is sequential by definition (each output is
+    # the previous one plus the next input), unlike np.sum, which may pair.
+    a = np.abs(groups.astype(np.float64))
+    n = a.shape[1]
+    if order == "sequential":
+        total = np.add.accumulate(a, axis=1)[:, -1]
+    elif order == "strided16":
+        # element i to partial sum i mod 16 (zero padding adds nothing)
+        padded = np.pad(a, ((0, 0), (0, -n % 16)))
+        p = np.add.accumulate(padded.reshape(len(a), -1, 16), axis=1)[:, -1, :]
+        t = [(p[:, k] + p[:, k + 4]) + (p[:, k + 8] + p[:, k + 12]) for k in range(4)]
+        total = (t[0] + t[2]) + (t[1] + t[3])
+    else:
+        sys.exit("unknown sum order " + order)
+    gamma = total / n
     if rule == "reciprocal":
         g = np.maximum(gamma.astype(np.float32), np.float32(eps))
         q = np.float32(1) / g

@@ -1,0 +1,127 @@
+package convert
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+// kernelWeights returns n weights mixing Gaussian values with the values at
+// which the kernels could go wrong: ±0, exact ties of the thresholds after
+// scaling, subnormals and the largest finite float32.
+func kernelWeights(rng *rand.Rand, n int, gamma float32) []float32 {
+	special := []float32{0, float32(math.Copysign(0, -1)), gamma / 2, -gamma / 2, 1.5 * gamma, -1.5 * gamma,
+		gamma, -gamma, math.SmallestNonzeroFloat32, -math.SmallestNonzeroFloat32, math.MaxFloat32, -math.MaxFloat32,
+		math.Nextafter32(gamma/2, 0), math.Nextafter32(gamma/2, 1)}
+	w := make([]float32, n)
+	for i := range w {
+		if rng.IntN(4) == 0 {
+			w[i] = special[rng.IntN(len(special))]
+		} else {
+			w[i] = float32(rng.NormFloat64()) * gamma * 1.25
+		}
+	}
+	return w
+}
+
+// The vector kernels give the same bits as their portable twins, for every
+// length (so every tail) and both scale rules and tie rules.
+func TestKernelsMatchPortable(t *testing.T) {
+	if !useAVX2 {
+		t.Skip("no vector kernels on this machine: the portable code is the only code")
+	}
+	rng := rand.New(rand.NewPCG(7, 8))
+	for n := 0; n <= 600; n += 1 + n/40 {
+		w := kernelWeights(rng, n, 0.02)
+
+		var s1, q1, s2, q2 [16]float64
+		absLanes16(w, &s1, &q1)
+		absLanes16Go(w, &s2, &q2)
+		require.Equal(t, s2, s1, "absolute sums, %d weights", n)
+		require.Equal(t, q2, q1, "squares, %d weights", n)
+
+		for _, r := range []Recipe{recipeWith(ScaleReciprocal, TieHalfEven), recipeWith(ScaleQuotient, TieHalfAway),
+			recipeWith(ScaleReciprocal, TieHalfAway), recipeWith(ScaleQuotient, TieHalfEven)} {
+			q := newQuantizer(r, 0.02)
+			got, want := make([]int8, n), make([]int8, n)
+			var lg, lw laneTotals
+			quantizeBlock(w, got, q, &lg)
+			quantizeBlockGo(w, want, q, &lw)
+			require.Equal(t, want, got, "trits, %d weights, %+v", n, r)
+			require.Equal(t, lw, lg, "lane totals, %d weights, %+v", n, r)
+		}
+
+		raw := make([]byte, 2*n)
+		for i := range raw {
+			raw[i] = byte(rng.Uint32())
+		}
+		f1, f2 := make([]float32, n), make([]float32, n)
+		nf1, nf2 := decodeBF16(f1, raw), decodeBF16Go(f2, raw)
+		require.Equal(t, nf2, nf1, "non-finite, %d values", n)
+		for i := range f1 {
+			require.Equal(t, math.Float32bits(f2[i]), math.Float32bits(f1[i]), "value %d of %d", i, n)
+		}
+	}
+}
+
+// A NaN or ±Inf at any position of any length is reported by the BF16
+// decode, and only then. IEEE 754 bfloat16 (common practice: the top half
+// of binary32): 0x7f80 is +Inf, 0xff80 is −Inf, 0x7fc0 a quiet NaN, 0x7f81
+// a signalling NaN; 0x7f7f is the largest finite value.
+func TestDecodeBF16NonFiniteAtEveryPosition(t *testing.T) {
+	for n := 1; n <= 40; n++ {
+		raw := make([]byte, 2*n)
+		for i := 0; i < n; i++ {
+			raw[2*i], raw[2*i+1] = 0x7f, 0x7f // largest finite
+		}
+		dst := make([]float32, n)
+		require.False(t, decodeBF16(dst, raw), "%d finite values", n)
+		for i := 0; i < n; i++ {
+			for _, bad := range []uint16{0x7f80, 0xff80, 0x7fc0, 0x7f81} {
+				raw[2*i], raw[2*i+1] = byte(bad), byte(bad>>8)
+				require.True(t, decodeBF16(dst, raw), "0x%04x at %d of %d", bad, i, n)
+				raw[2*i], raw[2*i+1] = 0x7f, 0x7f
+			}
+		}
+	}
+}
+
+// combineLanes16 adds in the documented order: with partial sums that are
+// powers of two far apart, a different order rounds differently.
+func TestCombineLanes16Order(t *testing.T) {
+	var p [16]float64
+	p[0], p[4], p[2] = 1, 0x1p53, -0x1p53
+	// t0 = (1 + 2^53) + 0 = 2^53 (1 is lost), t2 = −2^53: the sum is 0;
+	// adding p0 after p4 and p2 would give 1
+	require.Equal(t, 0.0, combineLanes16(&p))
+	p = [16]float64{}
+	p[0], p[2], p[4] = 1, 0x1p53, -0x1p53
+	// t0 = (1 − 2^53) = −2^53+1 exactly, t2 = 2^53: the sum is 1
+	require.Equal(t, 1.0, combineLanes16(&p))
+}
+
+// The sum order is part of the recipe because it changes gamma: one large
+// weight followed by many ones loses every one in a sequential float64 sum
+// (2^60 + 1 rounds back to 2^60), while the strided partial sums gather the
+// ones first (Goldberg 1991, "What every computer scientist should know
+// about floating-point arithmetic": addition is not associative).
+func TestSumOrderChangesGamma(t *testing.T) {
+	w := make([]float32, 1024)
+	w[0] = 0x1p60
+	for i := 1; i < len(w); i++ {
+		if i%16 != 0 {
+			w[i] = 1
+		}
+	}
+	seq, err := Absmean(w, SumSequential)
+	require.NoError(t, err)
+	str, err := Absmean(w, SumStrided16)
+	require.NoError(t, err)
+	require.Equal(t, 0x1p60/1024, seq)
+	// lanes 1..15 hold 64 ones each; t0 = (2^60 + 64) + 128 = 2^60 (the
+	// float64 spacing at 2^60 is 256, and 2^60 + 128 is a tie to even),
+	// t1 = t2 = t3 = 256: (t0 + t2) + (t1 + t3) = 2^60 + 768, exactly
+	require.Equal(t, (0x1p60+768)/1024, str)
+}
