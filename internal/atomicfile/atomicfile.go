@@ -30,7 +30,14 @@ type File struct {
 	bw   *bufio.Writer
 	n    int64
 	done bool
+	// kicked is the end of the bytes whose writeback has been started
+	kicked int64
 }
+
+// writebackStep is how many bytes handed to the kernel start their
+// writeback together, so that writing to the disk overlaps the work that
+// produces the file instead of all waiting for Commit's fsync.
+const writebackStep = 32 << 20
 
 // Create starts writing path. The file gets mode perm on commit (the umask
 // does not apply). Call Abort (typically deferred) to clean up on error.
@@ -57,6 +64,10 @@ func (f *File) Write(p []byte) (int, error) {
 	f.n += int64(n)
 	if err != nil {
 		return n, fmt.Errorf("write %s: %w", f.path, err)
+	}
+	if handed := f.n - int64(f.bw.Buffered()); handed-f.kicked >= writebackStep {
+		startWriteback(f.tmp, f.kicked, handed-f.kicked)
+		f.kicked = handed
 	}
 	return n, nil
 }

@@ -2,6 +2,7 @@ package atomicfile
 
 import (
 	"io/fs"
+	"bytes"
 	"os"
 	"path/filepath"
 	"testing"
@@ -101,4 +102,28 @@ func TestWriteAt(t *testing.T) {
 	b, err := os.ReadFile(path)
 	require.NoError(t, err)
 	require.Equal(t, "HEADbody!", string(b))
+}
+
+// A file larger than several writeback steps, written in pieces of odd
+// sizes, commits with every byte in place: starting the writeback early
+// changes when the bytes reach the disk, never which bytes.
+func TestWriteLargeFileInPieces(t *testing.T) {
+	path := filepath.Join(t.TempDir(), "big")
+	f, err := Create(path, 0o644)
+	require.NoError(t, err)
+	defer f.Abort()
+	want := make([]byte, 3*writebackStep+12345)
+	for i := range want {
+		want[i] = byte(i * 7 / 3)
+	}
+	for off := 0; off < len(want); {
+		n := min(len(want)-off, 1+off%(5<<20))
+		_, err := f.Write(want[off : off+n])
+		require.NoError(t, err)
+		off += n
+	}
+	require.NoError(t, f.Commit())
+	got, err := os.ReadFile(path)
+	require.NoError(t, err)
+	require.True(t, bytes.Equal(want, got))
 }
