@@ -27,7 +27,8 @@ const DefaultWalkBudget = 128 << 20
 // opts.Workers goroutines: work(worker, t, raw, sum) runs concurrently, with
 // sum the BLAKE3 of raw and worker in [0, Workers) so that a worker can keep
 // scratch space of its own. raw belongs to the call, and to what it returns,
-// until emit has run. emit(t, result) runs on the caller's goroutine in
+// until emit has run; it must not be modified, since the file's hash is
+// taken from the same bytes concurrently. emit(t, result) runs on the caller's goroutine in
 // tensor order, so that what it writes is the same for any worker count.
 // The first error, in tensor order, stops the walk and is returned.
 func WalkOrdered[R any](s *Source, opts WalkOptions,
@@ -64,15 +65,21 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 	pool := newBufferPool(budget)
 	var wg sync.WaitGroup
 
-	// the reader: one goroutine reads and hashes the files in order
-	wg.Add(1)
+	// the reader: one goroutine reads the files in order; a second one
+	// hashes each file whole, in order, beside the workers
+	hashes := make(chan fileBytes, 2*workers+2)
+	wg.Add(2)
+	go func() {
+		defer wg.Done()
+		hashFiles(s, hashes, pool)
+	}()
 	go func() {
 		defer wg.Done()
 		defer close(jobs)
+		defer close(hashes)
 		index := 0
 		for i, of := range s.open {
 			path := s.Files[i].Path
-			fileHash := of.prefix.Clone()
 			for _, t := range of.tensors {
 				raw, ok := pool.get(t.Length, stop)
 				if !ok {
@@ -86,8 +93,9 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 					}
 					j.err = &InputError{File: path, Tensor: t.Name, Offset: t.Offset + int64(got),
 						Err: fmt.Errorf("%w: read %d of %d bytes: %w", ErrTruncated, got, len(raw), err)}
-				} else {
-					fileHash.Write(raw)
+				} else if len(raw) > 0 {
+					pool.hold(raw) // until the file hasher is done with it
+					hashes <- fileBytes{file: i, raw: raw}
 				}
 				select {
 				case jobs <- j:
@@ -107,7 +115,7 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 				}
 				return
 			}
-			copy(s.Files[i].BLAKE3[:], fileHash.Sum(nil))
+			hashes <- fileBytes{file: i, end: true}
 		}
 	}()
 
@@ -170,6 +178,33 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 	return firstErr
 }
 
+// fileBytes is the next piece of a file for hashFiles: a tensor's bytes,
+// or the end of the file.
+type fileBytes struct {
+	file int
+	raw  []byte
+	end  bool
+}
+
+// hashFiles hashes each file of s whole from the pieces the reader sends in
+// file order (the header was hashed when the file was opened), records
+// each file's BLAKE3 at its end, and releases each piece to the pool.
+func hashFiles(s *Source, pieces <-chan fileBytes, pool *bufferPool) {
+	var h *blake3.Hasher
+	current := -1
+	for p := range pieces {
+		if p.file != current {
+			current, h = p.file, s.open[p.file].prefix.Clone()
+		}
+		if p.end {
+			copy(s.Files[p.file].BLAKE3[:], h.Sum(nil))
+			continue
+		}
+		h.Write(p.raw)
+		pool.put(p.raw)
+	}
+}
+
 // bufferPool hands out byte slices while the bytes in use stay within a
 // budget, reusing returned slices so that memory stays at the budget.
 type bufferPool struct {
@@ -178,10 +213,13 @@ type bufferPool struct {
 	free   [][]byte
 	inUse  int64
 	budget int64
+	// refs counts the holders of a slice handed out beyond the first, by
+	// the address of its first byte
+	refs map[*byte]int
 }
 
 func newBufferPool(budget int64) *bufferPool {
-	p := &bufferPool{budget: budget}
+	p := &bufferPool{budget: budget, refs: map[*byte]int{}}
 	p.cond = sync.NewCond(&p.mu)
 	return p
 }
@@ -234,8 +272,27 @@ func (p *bufferPool) wake() {
 	p.mu.Unlock()
 }
 
+// hold adds a holder to b, a slice from get: it returns to the pool when
+// every holder has put it.
+func (p *bufferPool) hold(b []byte) {
+	p.mu.Lock()
+	p.refs[&b[0]]++
+	p.mu.Unlock()
+}
+
 func (p *bufferPool) put(b []byte) {
 	p.mu.Lock()
+	if len(b) > 0 {
+		if n := p.refs[&b[0]]; n > 0 {
+			if n == 1 {
+				delete(p.refs, &b[0])
+			} else {
+				p.refs[&b[0]] = n - 1
+			}
+			p.mu.Unlock()
+			return
+		}
+	}
 	p.inUse -= int64(len(b))
 	p.free = append(p.free, b)
 	p.mu.Unlock()
