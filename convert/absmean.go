@@ -156,9 +156,9 @@ func (e *NonFiniteError) Error() string {
 func (e *NonFiniteError) Unwrap() error { return ErrNonFinite }
 
 // firstNonFinite returns a *NonFiniteError for the first NaN or ±Inf in w.
-func firstNonFinite(w []float32, base int) error {
-	for i, v := range w {
-		if f := float64(v); math.IsNaN(f) || math.IsInf(f, 0) {
+func firstNonFinite(w weights, base int) error {
+	for i := range w.len() {
+		if v := w.at(i); math.IsNaN(float64(v)) || math.IsInf(float64(v), 0) {
 			return &NonFiniteError{Index: base + i, Value: v}
 		}
 	}
@@ -168,13 +168,13 @@ func firstNonFinite(w []float32, base int) error {
 // Absmean returns gamma = mean |w|, accumulated in float64 in the given
 // order. It returns a *NonFiniteError for the first NaN or ±Inf element.
 func Absmean(w []float32, order SumOrder) (float64, error) {
-	gamma, _, err := absmeanAndSquares(w, order)
+	gamma, _, err := absmeanAndSquares(weights{f32: w}, order)
 	return gamma, err
 }
 
 // absmeanAndSquares is Absmean, and Σw² from the same pass (partial sums in
 // a fixed order: statistics only, unlike gamma).
-func absmeanAndSquares(w []float32, order SumOrder) (gamma, sumSq float64, err error) {
+func absmeanAndSquares(w weights, order SumOrder) (gamma, sumSq float64, err error) {
 	var sum float64
 	if order == SumStrided16 {
 		var s, q [16]float64
@@ -182,8 +182,8 @@ func absmeanAndSquares(w []float32, order SumOrder) (gamma, sumSq float64, err e
 		sum, sumSq = combineLanes16(&s), combineLanes16(&q)
 	} else {
 		var sq [2]float64
-		for i, v := range w {
-			a := float64(math.Float32frombits(math.Float32bits(v) &^ (1 << 31)))
+		for i := range w.len() {
+			a := float64(abs32(w.at(i)))
 			sum += a
 			sq[i&1] += float64(a * a) // the conversion forbids a fused multiply-add
 		}
@@ -194,10 +194,10 @@ func absmeanAndSquares(w []float32, order SumOrder) (gamma, sumSq float64, err e
 			return 0, 0, err
 		}
 	}
-	if len(w) == 0 {
+	if w.len() == 0 {
 		return 0, 0, nil
 	}
-	return sum / float64(len(w)), sumSq, nil
+	return sum / float64(w.len()), sumSq, nil
 }
 
 // quantizer holds the float32 constants of a recipe applied to one gamma.
@@ -253,9 +253,10 @@ func (q quantizer) trit(x float32) int8 {
 
 // exactScale returns c when every element of w is 0 or ±c for one c > 0,
 // and whether it is so. An all-zero group has no exact scale.
-func exactScale(w []float32) (float32, bool) {
+func exactScale(w weights) (float32, bool) {
 	var c float32
-	for _, v := range w {
+	for i := range w.len() {
+		v := w.at(i)
 		if v == 0 {
 			continue
 		}
@@ -277,29 +278,47 @@ func exactScale(w []float32) (float32, bool) {
 // included), the result is Exact: the scales are the c_g (the recipe's
 // scale for an all-zero group) and the reconstruction error is 0.
 func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Ternary, error) {
-	if len(trits) != len(w) {
-		return Ternary{}, fmt.Errorf("ternarize: %d trits for %d weights", len(trits), len(w))
+	return ternarize(weights{f32: w}, cols, g, r, trits)
+}
+
+// TernarizeBF16 is Ternarize over little-endian BF16 weights (2 bytes
+// each), read as they are, without a float32 copy; the result is the same
+// as Ternarize's over their float32 values.
+func TernarizeBF16(raw []byte, cols int, g Granularity, r Recipe, trits []int8) (Ternary, error) {
+	if len(raw)%2 != 0 {
+		return Ternary{}, fmt.Errorf("ternarize: %d bytes of BF16", len(raw))
+	}
+	if raw == nil {
+		raw = []byte{}
+	}
+	return ternarize(weights{bf16: raw}, cols, g, r, trits)
+}
+
+func ternarize(all weights, cols int, g Granularity, r Recipe, trits []int8) (Ternary, error) {
+	n := all.len()
+	if len(trits) != n {
+		return Ternary{}, fmt.Errorf("ternarize: %d trits for %d weights", len(trits), n)
 	}
 	if err := r.Validate(); err != nil {
 		return Ternary{}, err
 	}
-	size, err := g.GroupSize(len(w), cols)
+	size, err := g.GroupSize(n, cols)
 	if err != nil {
 		return Ternary{}, err
 	}
 	groups := 0
 	if size > 0 {
-		groups = len(w) / size
+		groups = n / size
 	}
 	if g.Kind == GranTensor {
-		groups, size = 1, len(w) // one scale, even for an empty tensor
+		groups, size = 1, n // one scale, even for an empty tensor
 	}
 	quants := make([]quantizer, groups)
 	gammas := make([]float64, groups)
 	squares := make([]float64, groups)
 	exact := true
 	for k := range quants {
-		part := w[k*size : (k+1)*size]
+		part := all.slice(k*size, (k+1)*size)
 		gamma, sq, err := absmeanAndSquares(part, r.sumOrder())
 		if err != nil {
 			var nf *NonFiniteError
@@ -328,13 +347,13 @@ func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Te
 	var sums groupSums
 	for k, q := range quants {
 		res.Scales[k] = q.scale
-		part := w[k*size : (k+1)*size]
+		part := all.slice(k*size, (k+1)*size)
 		g := q.quantizeGroup(part, trits[k*size:(k+1)*size], r.sumOrder() == SumStrided16)
 		g.sumSq = squares[k]
 		sums.add(g, q.scale)
 	}
-	res.Counts = sums.counts(int64(len(w)))
-	res.Stats = sums.stats(int64(len(w)), exact)
+	res.Counts = sums.counts(int64(n))
+	res.Stats = sums.stats(int64(n), exact)
 	return res, nil
 }
 
@@ -359,21 +378,22 @@ func (q quantizer) threshold() float32 {
 // quantizeGroup writes the trits of one group and returns its totals,
 // gathered in lanes (laneTotals) or, for recipes of the sequential sum
 // order, in the order of earlier versions (tally).
-func (q quantizer) quantizeGroup(w []float32, trits []int8, lanes bool) groupTotals {
+func (q quantizer) quantizeGroup(w weights, trits []int8, lanes bool) groupTotals {
 	th := q.threshold()
 	var g groupTotals
+	n := w.len()
 	if lanes {
-		for start := 0; start < len(w); start += laneBlock {
-			v := w[start:min(start+laneBlock, len(w))]
+		for start := 0; start < n; start += laneBlock {
+			end := min(start+laneBlock, n)
 			var l laneTotals
-			quantizeBlock(v, trits[start:start+len(v)], q, &l)
+			quantizeBlock(w.slice(start, end), trits[start:end], q, &l)
 			g.addLanes(&l)
 		}
 		return g
 	}
-	var xs [512]float32
-	for start := 0; start < len(w); start += len(xs) {
-		v := w[start:min(start+len(xs), len(w))]
+	var xs, vs [512]float32
+	for start := 0; start < n; start += len(xs) {
+		v := w.slice(start, min(start+len(xs), n)).float32s(vs[:])
 		x := xs[:len(v)]
 		if q.reciprocal {
 			for i := range v {

@@ -1,6 +1,9 @@
 package convert
 
-import "math"
+import (
+	"encoding/binary"
+	"math"
+)
 
 // The passes over a tensor's weights, written so that vector units can run
 // them: every order of addition is fixed by lanes (element i of a run goes
@@ -8,21 +11,66 @@ import "math"
 // code of a platform (kernels_amd64.s) give the same bits. The tests hold
 // each vector kernel to its portable twin.
 
-// absLanes16 adds |w_i| and |w_i|² (float64) to s[i%16] and q[i%16], each
-// lane in index order. A NaN or ±Inf weight makes its lane NaN or +Inf.
-func absLanes16(w []float32, s, q *[16]float64) {
-	n := 0
-	if useAVX2 {
-		if n = len(w) &^ 15; n > 0 {
-			absLanes16AVX2(&w[0], n, s, q)
-		}
-	}
-	absLanes16Go(w[n:], s, q) // n is a multiple of 16: w[n+i] goes to lane i%16
+// weights are a run of a tensor's values: float32, or little-endian BF16
+// bytes (when bf16 is not nil) that the kernels widen as they load them, so
+// that a BF16 tensor is read in place, at half the bytes of a float32 copy.
+type weights struct {
+	f32  []float32
+	bf16 []byte
 }
 
-func absLanes16Go(w []float32, s, q *[16]float64) {
-	for i, v := range w {
-		a := float64(math.Float32frombits(math.Float32bits(v) &^ (1 << 31)))
+func (w weights) len() int {
+	if w.bf16 != nil {
+		return len(w.bf16) / 2
+	}
+	return len(w.f32)
+}
+
+func (w weights) slice(lo, hi int) weights {
+	if w.bf16 != nil {
+		return weights{bf16: w.bf16[2*lo : 2*hi]}
+	}
+	return weights{f32: w.f32[lo:hi]}
+}
+
+// at is weight i as a float32 (a BF16 value is the top half of one).
+func (w weights) at(i int) float32 {
+	if w.bf16 != nil {
+		return math.Float32frombits(uint32(binary.LittleEndian.Uint16(w.bf16[2*i:])) << 16)
+	}
+	return w.f32[i]
+}
+
+// float32s returns the weights as float32 values, in buf when they must be
+// widened (buf holds at least w.len() values).
+func (w weights) float32s(buf []float32) []float32 {
+	if w.bf16 == nil {
+		return w.f32
+	}
+	buf = buf[:w.len()]
+	decodeBF16Go(buf, w.bf16)
+	return buf
+}
+
+// absLanes16 adds |w_i| and |w_i|² (float64) to s[i%16] and q[i%16], each
+// lane in index order. A NaN or ±Inf weight makes its lane NaN or +Inf.
+func absLanes16(w weights, s, q *[16]float64) {
+	n := 0
+	if useAVX2 {
+		if n = w.len() &^ 15; n > 0 {
+			if w.bf16 != nil {
+				absLanes16BF16AVX2(&w.bf16[0], n, s, q)
+			} else {
+				absLanes16AVX2(&w.f32[0], n, s, q)
+			}
+		}
+	}
+	absLanes16Go(w.slice(n, w.len()), s, q) // n is a multiple of 16: w[n+i] goes to lane i%16
+}
+
+func absLanes16Go(w weights, s, q *[16]float64) {
+	for i := range w.len() {
+		a := float64(abs32(w.at(i)))
 		s[i&15] += a
 		q[i&15] += float64(a * a) // the conversion forbids a fused multiply-add
 	}
@@ -66,30 +114,38 @@ type quantConsts struct {
 
 // quantizeBlock writes the trits of at most laneBlock weights v and adds
 // their totals to l.
-func quantizeBlock(v []float32, trits []int8, q quantizer, l *laneTotals) {
-	trits = trits[:len(v)]
+func quantizeBlock(v weights, trits []int8, q quantizer, l *laneTotals) {
+	trits = trits[:v.len()]
 	n := 0
 	if useAVX2 {
-		if n = len(v) &^ 7; n > 0 {
+		if n = v.len() &^ 7; n > 0 {
 			c := quantConsts{factor: q.mul, th: q.threshold(), clip: 1.5, scale: q.scale}
 			c.negTh = -c.th
-			if q.reciprocal {
-				quantMulAVX2(&v[0], &trits[0], n, &c, l)
-			} else {
+			if !q.reciprocal {
 				c.factor = q.div
-				quantDivAVX2(&v[0], &trits[0], n, &c, l)
+			}
+			switch {
+			case v.bf16 != nil && q.reciprocal:
+				quantMulBF16AVX2(&v.bf16[0], &trits[0], n, &c, l)
+			case v.bf16 != nil:
+				quantDivBF16AVX2(&v.bf16[0], &trits[0], n, &c, l)
+			case q.reciprocal:
+				quantMulAVX2(&v.f32[0], &trits[0], n, &c, l)
+			default:
+				quantDivAVX2(&v.f32[0], &trits[0], n, &c, l)
 			}
 		}
 	}
-	quantizeBlockGo(v[n:], trits[n:], q, l) // n is a multiple of 8
+	quantizeBlockGo(v.slice(n, v.len()), trits[n:], q, l) // n is a multiple of 8
 }
 
 // quantizeBlockGo is quantizeBlock without vector units: element i goes to
 // lane i%8.
-func quantizeBlockGo(v []float32, trits []int8, q quantizer, l *laneTotals) {
+func quantizeBlockGo(v weights, trits []int8, q quantizer, l *laneTotals) {
 	th, s := q.threshold(), q.scale
-	trits = trits[:len(v)]
-	for i, w := range v {
+	trits = trits[:v.len()]
+	for i := range v.len() {
+		w := v.at(i)
 		x := q.scaled(w)
 		pos, neg := b2i32(x > th), b2i32(x < -th)
 		j := i & 7

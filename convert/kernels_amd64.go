@@ -26,3 +26,18 @@ func quantDivAVX2(w *float32, trits *int8, n int, c *quantConsts, l *laneTotals)
 //
 //go:noescape
 func decodeBF16AVX2(dst *float32, src *byte, n int) (nonFinite bool)
+
+// absLanes16BF16AVX2 is absLanes16AVX2 over n little-endian BF16 weights.
+//
+//go:noescape
+func absLanes16BF16AVX2(w *byte, n int, s, q *[16]float64)
+
+// quantMulBF16AVX2 is quantMulAVX2 over n little-endian BF16 weights.
+//
+//go:noescape
+func quantMulBF16AVX2(w *byte, trits *int8, n int, c *quantConsts, l *laneTotals)
+
+// quantDivBF16AVX2 is quantDivAVX2 over n little-endian BF16 weights.
+//
+//go:noescape
+func quantDivBF16AVX2(w *byte, trits *int8, n int, c *quantConsts, l *laneTotals)

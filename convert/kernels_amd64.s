@@ -1,6 +1,6 @@
 #include "textflag.h"
 
-// QUANT is the quantize step over 8 weights at SI, with x = w OP factor:
+// QUANT is the quantize step over 8 weights in Y5, with x = w OP factor:
 // trits to DI, totals into Y0 (Σ|w| over nonzero trits), Y1 (largest
 // |w − scale·trit|), Y2 (nonzero), Y3 (trit sum), Y4 (clipped).
 // Constants: Y15 factor, Y14 th, Y13 −th, Y12 scale, Y11 sign-clearing
@@ -8,7 +8,6 @@
 // trit is neg − pos and a count goes up by subtracting a mask; the largest
 // error is over | |w| − (scale where the trit is nonzero, else +0) |.
 #define QUANT(OP) \
-	VMOVUPS (SI), Y5; \
 	OP Y15, Y5, Y6; \
 	VCMPPS $0x1e, Y14, Y6, Y7; \
 	VCMPPS $0x11, Y13, Y6, Y8; \
@@ -121,6 +120,7 @@ TEXT ·quantMulAVX2(SB), NOSPLIT, $0-40
 	QUANT_SETUP
 
 mul8:
+	VMOVUPS (SI), Y5
 	QUANT(VMULPS)
 	ADDQ $32, SI
 	ADDQ $8, DI
@@ -133,12 +133,100 @@ TEXT ·quantDivAVX2(SB), NOSPLIT, $0-40
 	QUANT_SETUP
 
 div8:
+	VMOVUPS (SI), Y5
 	QUANT(VDIVPS)
 	ADDQ $32, SI
 	ADDQ $8, DI
 	SUBQ $8, CX
 	JNZ  div8
 	QUANT_DONE
+
+// func quantMulBF16AVX2(w *byte, trits *int8, n int, c *quantConsts, l *laneTotals)
+// is quantMulAVX2 over BF16 weights, widened as they are loaded.
+TEXT ·quantMulBF16AVX2(SB), NOSPLIT, $0-40
+	QUANT_SETUP
+
+mulbf8:
+	VPMOVZXWD (SI), Y5
+	VPSLLD $16, Y5, Y5
+	QUANT(VMULPS)
+	ADDQ $16, SI
+	ADDQ $8, DI
+	SUBQ $8, CX
+	JNZ  mulbf8
+	QUANT_DONE
+
+// func quantDivBF16AVX2(w *byte, trits *int8, n int, c *quantConsts, l *laneTotals)
+TEXT ·quantDivBF16AVX2(SB), NOSPLIT, $0-40
+	QUANT_SETUP
+
+divbf8:
+	VPMOVZXWD (SI), Y5
+	VPSLLD $16, Y5, Y5
+	QUANT(VDIVPS)
+	ADDQ $16, SI
+	ADDQ $8, DI
+	SUBQ $8, CX
+	JNZ  divbf8
+	QUANT_DONE
+
+// func absLanes16BF16AVX2(w *byte, n int, s, q *[16]float64) is
+// absLanes16AVX2 over BF16 weights.
+TEXT ·absLanes16BF16AVX2(SB), NOSPLIT, $0-32
+	MOVQ w+0(FP), SI
+	MOVQ n+8(FP), CX
+	MOVQ s+16(FP), DI
+	MOVQ q+24(FP), DX
+	VMOVUPD 0(DI), Y0
+	VMOVUPD 32(DI), Y1
+	VMOVUPD 64(DI), Y2
+	VMOVUPD 96(DI), Y3
+	VMOVUPD 0(DX), Y4
+	VMOVUPD 32(DX), Y5
+	VMOVUPD 64(DX), Y6
+	VMOVUPD 96(DX), Y7
+	VPCMPEQD Y15, Y15, Y15
+	VPSRLD $1, Y15, Y15 // 0x7fff_ffff: clears a float32's sign bit
+
+absbf16:
+	VPMOVZXWD 0(SI), Y12
+	VPMOVZXWD 16(SI), Y13
+	VPSLLD $16, Y12, Y12
+	VPSLLD $16, Y13, Y13
+	VANDPS Y15, Y12, Y12
+	VANDPS Y15, Y13, Y13
+	VCVTPS2PD X12, Y8
+	VEXTRACTF128 $1, Y12, X12
+	VCVTPS2PD X12, Y9
+	VCVTPS2PD X13, Y10
+	VEXTRACTF128 $1, Y13, X13
+	VCVTPS2PD X13, Y11
+	VADDPD Y8, Y0, Y0
+	VADDPD Y9, Y1, Y1
+	VADDPD Y10, Y2, Y2
+	VADDPD Y11, Y3, Y3
+	VMULPD Y8, Y8, Y8
+	VMULPD Y9, Y9, Y9
+	VMULPD Y10, Y10, Y10
+	VMULPD Y11, Y11, Y11
+	VADDPD Y8, Y4, Y4
+	VADDPD Y9, Y5, Y5
+	VADDPD Y10, Y6, Y6
+	VADDPD Y11, Y7, Y7
+	ADDQ $32, SI
+	SUBQ $16, CX
+	JNZ  absbf16
+
+	VMOVUPD Y0, 0(DI)
+	VMOVUPD Y1, 32(DI)
+	VMOVUPD Y2, 64(DI)
+	VMOVUPD Y3, 96(DI)
+	VMOVUPD Y4, 0(DX)
+	VMOVUPD Y5, 32(DX)
+	VMOVUPD Y6, 64(DX)
+	VMOVUPD Y7, 96(DX)
+	VZEROUPPER
+	RET
 
 // func decodeBF16AVX2(dst *float32, src *byte, n int) (nonFinite bool)
 // A BF16 value is the top half of a float32; it is NaN or ±Inf exactly when

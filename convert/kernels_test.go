@@ -36,21 +36,41 @@ func TestKernelsMatchPortable(t *testing.T) {
 	for n := 0; n <= 600; n += 1 + n/40 {
 		w := kernelWeights(rng, n, 0.02)
 
-		var s1, q1, s2, q2 [16]float64
-		absLanes16(w, &s1, &q1)
-		absLanes16Go(w, &s2, &q2)
-		require.Equal(t, s2, s1, "absolute sums, %d weights", n)
-		require.Equal(t, q2, q1, "squares, %d weights", n)
+		// the same weights as BF16 (the top halves), read in place
+		half := make([]byte, 2*n)
+		for i, v := range w {
+			b := math.Float32bits(v) >> 16
+			half[2*i], half[2*i+1] = byte(b), byte(b>>8)
+		}
+		widened := make([]float32, n)
+		decodeBF16Go(widened, half)
+		for _, in := range []struct {
+			name string
+			w    weights
+			f32  weights
+		}{{"float32", weights{f32: w}, weights{f32: w}}, {"bf16", weights{bf16: half}, weights{f32: widened}}} {
+			var s1, q1, s2, q2, s3, q3 [16]float64
+			absLanes16(in.w, &s1, &q1)
+			absLanes16Go(in.w, &s2, &q2)
+			absLanes16(in.f32, &s3, &q3)
+			require.Equal(t, s2, s1, "absolute sums, %d %s weights", n, in.name)
+			require.Equal(t, q2, q1, "squares, %d %s weights", n, in.name)
+			require.Equal(t, s3, s1, "absolute sums, %d %s weights and their float32 values", n, in.name)
+			require.Equal(t, q3, q1, "squares, %d %s weights and their float32 values", n, in.name)
 
-		for _, r := range []Recipe{recipeWith(ScaleReciprocal, TieHalfEven), recipeWith(ScaleQuotient, TieHalfAway),
-			recipeWith(ScaleReciprocal, TieHalfAway), recipeWith(ScaleQuotient, TieHalfEven)} {
-			q := newQuantizer(r, 0.02)
-			got, want := make([]int8, n), make([]int8, n)
-			var lg, lw laneTotals
-			quantizeBlock(w, got, q, &lg)
-			quantizeBlockGo(w, want, q, &lw)
-			require.Equal(t, want, got, "trits, %d weights, %+v", n, r)
-			require.Equal(t, lw, lg, "lane totals, %d weights, %+v", n, r)
+			for _, r := range []Recipe{recipeWith(ScaleReciprocal, TieHalfEven), recipeWith(ScaleQuotient, TieHalfAway),
+				recipeWith(ScaleReciprocal, TieHalfAway), recipeWith(ScaleQuotient, TieHalfEven)} {
+				q := newQuantizer(r, 0.02)
+				got, want, viaF32 := make([]int8, n), make([]int8, n), make([]int8, n)
+				var lg, lw, lf laneTotals
+				quantizeBlock(in.w, got, q, &lg)
+				quantizeBlockGo(in.w, want, q, &lw)
+				quantizeBlock(in.f32, viaF32, q, &lf)
+				require.Equal(t, want, got, "trits, %d %s weights, %+v", n, in.name, r)
+				require.Equal(t, lw, lg, "lane totals, %d %s weights, %+v", n, in.name, r)
+				require.Equal(t, viaF32, got, "trits, %d %s weights and their float32 values, %+v", n, in.name, r)
+				require.Equal(t, lf, lg, "lane totals, %d %s weights and their float32 values, %+v", n, in.name, r)
+			}
 		}
 
 		raw := make([]byte, 2*n)
@@ -124,4 +144,53 @@ func TestSumOrderChangesGamma(t *testing.T) {
 	// float64 spacing at 2^60 is 256, and 2^60 + 128 is a tie to even),
 	// t1 = t2 = t3 = 256: (t0 + t2) + (t1 + t3) = 2^60 + 768, exactly
 	require.Equal(t, (0x1p60+768)/1024, str)
+}
+
+// TernarizeBF16 reads BF16 weights in place and gives what Ternarize gives
+// over their float32 values, for every sum order, granularity and an exact
+// tensor; a NaN is reported at its index.
+func TestTernarizeBF16MatchesFloat32(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	toBF16 := func(w []float32) ([]byte, []float32) {
+		raw := make([]byte, 2*len(w))
+		for i, v := range w {
+			b := math.Float32bits(v) >> 16
+			raw[2*i], raw[2*i+1] = byte(b), byte(b>>8)
+		}
+		f := make([]float32, len(w))
+		decodeBF16Go(f, raw)
+		return raw, f
+	}
+	exact := make([]float32, 8*40)
+	for i := range exact {
+		exact[i] = float32(rng.IntN(3)-1) * 0.25
+	}
+	for _, w := range [][]float32{kernelWeights(rng, 8*40, 0.05), exact, {}} {
+		raw, f := toBF16(w)
+		for _, gs := range []string{"tensor", "row", "group:8"} {
+			g, err := ParseGranularity(gs)
+			require.NoError(t, err)
+			if _, err := g.GroupSize(len(w), 40); err != nil {
+				continue
+			}
+			for _, order := range []SumOrder{SumStrided16, SumSequential} {
+				r := DefaultRecipe()
+				r.Sum = order
+				want, got := make([]int8, len(w)), make([]int8, len(w))
+				qw, err := Ternarize(f, 40, g, r, want)
+				require.NoError(t, err)
+				qg, err := TernarizeBF16(raw, 40, g, r, got)
+				require.NoError(t, err)
+				require.Equal(t, want, got, "%d weights %s %s", len(w), gs, order)
+				require.Equal(t, qw, qg, "%d weights %s %s", len(w), gs, order)
+			}
+		}
+	}
+	w := kernelWeights(rng, 100, 0.05)
+	raw, _ := toBF16(w)
+	raw[2*37], raw[2*37+1] = 0xc0, 0x7f // a quiet NaN (IEEE 754 bfloat16, common practice)
+	_, err := TernarizeBF16(raw, 10, PerTensor, DefaultRecipe(), make([]int8, 100))
+	var nf *NonFiniteError
+	require.ErrorAs(t, err, &nf)
+	require.Equal(t, 37, nf.Index)
 }

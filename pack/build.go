@@ -189,6 +189,16 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 		return sections{payload: raw}, nil
 	}
 	n := int(t.NumElements())
+	cols := convert.Columns(t.Shape)
+	if a.Kind == convert.ActTernary && t.DType == "BF16" && len(raw) == 2*n {
+		// the common case: the kernels read the BF16 bytes in place
+		q.codes = grow(q.codes, n)
+		res, err := convert.TernarizeBF16(raw, cols, a.Granularity, opts.Recipe, q.codes)
+		if err != nil {
+			return sections{}, fail(err)
+		}
+		return q.ternary(e, a, res, opts), nil
+	}
 	q.floats = grow(q.floats, n)
 	if a.Kind == convert.ActTernary || a.Kind == convert.ActInt8 {
 		// weights to quantize: F8 decoded too, NaN, Inf and F64 overflow refused
@@ -198,7 +208,6 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 	} else if err := convert.DecodeFloat32(t.DType, raw, q.floats); err != nil {
 		return sections{}, fail(err)
 	}
-	cols := convert.Columns(t.Shape)
 	switch a.Kind {
 	case convert.ActTernary:
 		q.codes = grow(q.codes, n)
@@ -206,15 +215,7 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 		if err != nil {
 			return sections{}, fail(err)
 		}
-		g := a.Granularity
-		payload, codec := opts.Codec.EncodeTensor(make([]byte, 0, (n+4)/5), q.codes)
-		e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(codec), &g, res.Exact
-		e.Trits, e.Stats = &res.Counts, &res.Stats
-		if g.Kind == convert.GranTensor {
-			e.Scale = res.Scales[0]
-			return sections{payload: payload}, nil
-		}
-		return sections{payload: payload, scales: appendFloat32s(nil, res.Scales)}, nil
+		return q.ternary(e, a, res, opts), nil
 	case convert.ActInt8:
 		q.codes = grow(q.codes, n)
 		scales, stats, err := convert.QuantizeInt8Rows(q.floats, cols, q.codes)
@@ -237,6 +238,20 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 	stats := convert.CompareFloat32(q.floats, back)
 	e.Kind, e.Codec, e.DType, e.Stats = manifest.KindKept, manifest.CodecRaw, target, &stats
 	return sections{payload: out}, nil
+}
+
+// ternary encodes the trits in q.codes and fills the entry of a ternary
+// tensor.
+func (q *quantizeBuffers) ternary(e *manifest.Tensor, a convert.Action, res convert.Ternary, opts Options) sections {
+	g := a.Granularity
+	payload, codec := opts.Codec.EncodeTensor(make([]byte, 0, (len(q.codes)+3)/4), q.codes)
+	e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(codec), &g, res.Exact
+	e.Trits, e.Stats = &res.Counts, &res.Stats
+	if g.Kind == convert.GranTensor {
+		e.Scale = res.Scales[0]
+		return sections{payload: payload}
+	}
+	return sections{payload: payload, scales: appendFloat32s(nil, res.Scales)}
 }
 
 func appendFloat32s(dst []byte, v []float32) []byte {
