@@ -1,8 +1,8 @@
 package atomicfile
 
 import (
-	"io/fs"
 	"bytes"
+	"io/fs"
 	"os"
 	"path/filepath"
 	"testing"
