@@ -57,16 +57,23 @@ func (w weights) float32s(buf []float32) []float32 {
 func absLanes16(w weights, s, q *[16]float64) {
 	n := 0
 	if useAVX2 {
-		if n = w.len() &^ 15; n > 0 {
+		// in runs of kernelRun, a multiple of 16, so that lanes stay aligned
+		for end := w.len() &^ 15; n < end; n += min(kernelRun, end-n) {
+			m := min(kernelRun, end-n)
 			if w.bf16 != nil {
-				absLanes16BF16AVX2(&w.bf16[0], n, s, q)
+				absLanes16BF16AVX2(&w.bf16[2*n], m, s, q)
 			} else {
-				absLanes16AVX2(&w.f32[0], n, s, q)
+				absLanes16AVX2(&w.f32[n], m, s, q)
 			}
 		}
 	}
 	absLanes16Go(w.slice(n, w.len()), s, q) // n is a multiple of 16: w[n+i] goes to lane i%16
 }
+
+// kernelRun bounds the weights one kernel call takes: the runtime cannot
+// stop a goroutine inside assembly, so a long call would hold up the
+// garbage collector and every other goroutine waiting on it.
+const kernelRun = 1 << 16
 
 func absLanes16Go(w weights, s, q *[16]float64) {
 	for i := range w.len() {
@@ -187,8 +194,8 @@ func decodeBF16(dst []float32, raw []byte) (nonFinite bool) {
 	raw = raw[:2*len(dst)]
 	n := 0
 	if useAVX2 {
-		if n = len(dst) &^ 7; n > 0 {
-			nonFinite = decodeBF16AVX2(&dst[0], &raw[0], n)
+		for end := len(dst) &^ 7; n < end; n += min(kernelRun, end-n) {
+			nonFinite = decodeBF16AVX2(&dst[n], &raw[2*n], min(kernelRun, end-n)) || nonFinite
 		}
 	}
 	return decodeBF16Go(dst[n:], raw[2*n:]) || nonFinite

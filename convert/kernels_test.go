@@ -194,3 +194,29 @@ func TestTernarizeBF16MatchesFloat32(t *testing.T) {
 	require.ErrorAs(t, err, &nf)
 	require.Equal(t, 37, nf.Index)
 }
+
+// Inputs longer than one kernel call (kernelRun) give the portable bits
+// too: the runs keep every weight in its lane.
+func TestKernelsAcrossRuns(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 12))
+	n := 3*kernelRun + 37
+	w := kernelWeights(rng, n, 0.3)
+	half := make([]byte, 2*n)
+	for i, v := range w {
+		b := math.Float32bits(v) >> 16
+		half[2*i], half[2*i+1] = byte(b), byte(b>>8)
+	}
+	for _, in := range []weights{{f32: w}, {bf16: half}} {
+		var s1, q1, s2, q2 [16]float64
+		absLanes16(in, &s1, &q1)
+		absLanes16Go(in, &s2, &q2)
+		require.Equal(t, s2, s1)
+		require.Equal(t, q2, q1)
+	}
+	f1, f2 := make([]float32, n), make([]float32, n)
+	half[2*(2*kernelRun+5)+1] = 0x7f // exponent bits all set in the third run: NaN or Inf
+	half[2*(2*kernelRun+5)] |= 0x80
+	require.True(t, decodeBF16(f1, half))
+	require.True(t, decodeBF16Go(f2, half))
+	require.Equal(t, f2[:2*kernelRun], f1[:2*kernelRun])
+}
