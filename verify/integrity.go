@@ -1,6 +1,8 @@
 package verify
 
 import (
+	"bytes"
+	"encoding/binary"
 	"encoding/hex"
 	"fmt"
 	"io"
@@ -196,28 +198,44 @@ func streamSection(ra io.ReaderAt, s manifest.Section, buf []byte, sink io.Write
 
 // scaleChecker checks little-endian float32 scales as they stream by:
 // finite, and > 0 for ternary tensors (≥ 0 for int8, whose all-zero rows
-// have scale 0).
+// have scale 0). It tests each scale's bits as a 32-bit word.
 type scaleChecker struct {
 	ternary  bool
 	n        int
-	partial  []byte
-	bad      int // first bad scale, -1 for none
+	partial  []byte // the bytes of a scale split between writes
+	bad      int    // first bad scale, -1 for none
 	badValue float32
 }
 
 func (c *scaleChecker) Write(p []byte) (int, error) {
-	data := append(c.partial, p...)
-	for len(data) >= 4 {
-		v := math.Float32frombits(uint32(data[0]) | uint32(data[1])<<8 | uint32(data[2])<<16 | uint32(data[3])<<24)
-		f := float64(v)
-		if c.bad < 0 && (math.IsNaN(f) || math.IsInf(f, 0) || v < 0 || (v == 0 && c.ternary)) {
-			c.bad, c.badValue = c.n, v
+	n := len(p)
+	if len(c.partial) > 0 {
+		k := min(4-len(c.partial), len(p))
+		c.partial, p = append(c.partial, p[:k]...), p[k:]
+		if len(c.partial) < 4 {
+			return n, nil
 		}
-		c.n++
-		data = data[4:]
+		c.check(binary.LittleEndian.Uint32(c.partial))
+		c.partial = c.partial[:0]
 	}
-	c.partial = append(c.partial[:0], data...)
-	return len(p), nil
+	for ; len(p) >= 4; p = p[4:] {
+		c.check(binary.LittleEndian.Uint32(p))
+	}
+	c.partial = append(c.partial, p...)
+	return n, nil
+}
+
+// check tests the bits of the next scale: an exponent of all ones is a
+// NaN or an infinity, a set sign bit on a nonzero magnitude a negative
+// value, and a zero magnitude (+0 or -0) is 0.
+func (c *scaleChecker) check(bits uint32) {
+	const exponent, magnitude = 0x7f800000, 0x7fffffff
+	mag := bits & magnitude
+	bad := bits&exponent == exponent || (mag != 0 && bits>>31 != 0) || (mag == 0 && c.ternary)
+	if bad && c.bad < 0 {
+		c.bad, c.badValue = c.n, math.Float32frombits(bits)
+	}
+	c.n++
 }
 
 // int8Checker finds the first -128 in an int8 payload: codes are clamped
@@ -228,10 +246,8 @@ type int8Checker struct {
 }
 
 func (c *int8Checker) Write(p []byte) (int, error) {
-	for i, b := range p {
-		if b == 0x80 && c.bad < 0 {
-			c.bad = c.n + int64(i)
-		}
+	if i := bytes.IndexByte(p, 0x80); i >= 0 && c.bad < 0 {
+		c.bad = c.n + int64(i)
 	}
 	c.n += int64(len(p))
 	return len(p), nil
