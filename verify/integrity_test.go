@@ -5,9 +5,13 @@ import (
 	"encoding/binary"
 	"math"
 	"math/rand/v2"
+	"os"
+	"path/filepath"
 	"testing"
 
 	"github.com/stretchr/testify/require"
+
+	"ternkit/pack"
 )
 
 // writeInPieces writes p to w in random pieces, empty ones included.
@@ -115,4 +119,70 @@ func TestInt8Checker(t *testing.T) {
 		require.Equal(t, int64(bytes.IndexByte(p, 0x80)), c.bad)
 		require.Equal(t, int64(len(p)), c.n)
 	}
+}
+
+// Sections are checked in jobs (streams and pieces) on workers, from a
+// memory map or by reads: the report is the same for any worker count and
+// either way, for a good artifact, a bad byte in the first or a later
+// piece, and a forged piece hash.
+func TestVerifySameReportAnyWay(t *testing.T) {
+	dir := t.TempDir()
+	art, sec := bigArtifact(t, dir)
+	good, err := os.ReadFile(art)
+	require.NoError(t, err)
+	forged := filepath.Join(dir, "forged.tkart")
+	forgePieceHash(t, art, forged, 3)
+	cases := map[string]string{"good": art, "forged": forged}
+	for _, at := range []int64{sec.Offset, sec.Offset + 1<<22 + 9, sec.Offset + sec.Length - 1} {
+		b := append([]byte(nil), good...)
+		b[at] ^= 1
+		name := filepath.Join(dir, "bad-"+string(rune('a'+len(cases)))+".tkart")
+		require.NoError(t, os.WriteFile(name, b, 0o644))
+		cases[name] = name
+	}
+	for what, path := range cases {
+		b, err := os.ReadFile(path)
+		require.NoError(t, err)
+		want, err := RunReaderAt(path, bytes.NewReader(b), int64(len(b)), Options{Workers: 1})
+		require.NoError(t, err)
+		require.Equal(t, what == "good", want.OK(), "%s: %+v", what, want.Failures())
+		for _, workers := range []int{1, 2, 3, 8} {
+			got, err := Run(path, Options{Workers: workers})
+			require.NoError(t, err)
+			require.Equal(t, want, got, "%s, %d workers", what, workers)
+		}
+	}
+}
+
+// An artifact truncated after verify mapped it gives a failed check that
+// says so, not a crash.
+func TestVerifyTruncatedWhileMapped(t *testing.T) {
+	dir := t.TempDir()
+	art, sec := bigArtifact(t, dir)
+	isMapped := mapped(t, art)
+	cut := sec.Offset + 1<<22 + 100 // in the second piece
+	rep, err := Run(art, Options{Progress: func(done, _ int64) {
+		if done == 0 { // after the map, before any section is read
+			require.NoError(t, os.Truncate(art, cut))
+		}
+	}})
+	require.NoError(t, err)
+	require.False(t, rep.OK())
+	f := rep.Failures()[0]
+	require.Equal(t, CheckSection, f.Name)
+	t.Log(f.Detail)
+	if isMapped {
+		require.Contains(t, f.Detail, errArtifactChanged.Error())
+	}
+}
+
+// mapped reports whether verify maps a file like path here.
+func mapped(t *testing.T, path string) bool {
+	t.Helper()
+	a, err := pack.Open(path)
+	require.NoError(t, err)
+	defer a.Close()
+	m := mapArtifact(a)
+	defer unmapArtifact(m)
+	return m != nil
 }

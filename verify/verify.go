@@ -157,12 +157,14 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	}
 	defer a.Close()
 	rep.add(CheckStructure, "", true, "")
+	mapped := mapArtifact(a)
+	defer unmapArtifact(mapped)
 	advance := progressFunc(opts, a)
 	workers := opts.Workers
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
-	checkSections(rep, a, workers, advance)
+	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
 	if opts.Source != nil {
 		rep.Source = opts.Source.Path
 		if err := checkAgainst(rep, a, opts.Source, workers, advance); err != nil {
