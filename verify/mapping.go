@@ -55,15 +55,11 @@ func (b artifactBytes) guard(fn func()) (err error) {
 			return
 		}
 		fault, ok := r.(interface{ Addr() uintptr })
-		if !ok {
-			panic(r)
-		}
 		base := uintptr(unsafe.Pointer(unsafe.SliceData(b.mapped)))
-		if at := fault.Addr(); at >= base && at-base < uintptr(len(b.mapped)) {
-			err = fmt.Errorf("%w: no data at byte %d (truncated?)", errArtifactChanged, at-base)
-		} else {
-			err = fmt.Errorf("%w: %v", errArtifactChanged, r)
+		if !ok || fault.Addr() < base || fault.Addr()-base >= uintptr(len(b.mapped)) {
+			panic(r) // not a fault on the map: a bug, not the file
 		}
+		err = fmt.Errorf("%w: no data at byte %d (truncated?)", errArtifactChanged, fault.Addr()-base)
 	}()
 	fn()
 	return nil
