@@ -1,16 +1,20 @@
 package pack
 
 import (
+	"encoding/binary"
 	"fmt"
+	"math/bits"
 
 	"ternkit/convert"
 )
 
 // TritCounter checks and counts a trit payload written to it in pieces of
 // any size. For bits2 and base3 it holds only a few bytes, so verification
-// streams sections with bounded memory; an entropy payload is one frame,
-// kept until Close decodes it (at most the base3 size of the tensor).
-// Close reports a short payload or bad padding.
+// streams sections with bounded memory, and it counts without decoding:
+// bits2 by population counts of 64-bit words, base3 by a table of per-byte
+// counts. An entropy payload is one frame, kept until Close decodes it (at
+// most the base3 size of the tensor). Close reports a short payload or bad
+// padding.
 type TritCounter struct {
 	codec    Codec
 	frame    []byte // entropy payload, decoded at Close
@@ -25,34 +29,15 @@ type TritCounter struct {
 
 // NewTritCounter counts a payload of n trits in codec c.
 func NewTritCounter(c Codec, n int64) (*TritCounter, error) {
-	if c == Entropy {
+	switch c {
+	case Entropy:
 		return &TritCounter{codec: c, n: n}, nil
+	case Bits2:
+		return &TritCounter{codec: c, n: n, perByte: 4}, nil
+	case Base3:
+		return &TritCounter{codec: c, n: n, perByte: 5}, nil
 	}
-	per := map[Codec]int64{Bits2: 4, Base3: 5}[c]
-	if per == 0 {
-		return nil, fmt.Errorf("%w %q", ErrCodec, string(c))
-	}
-	return &TritCounter{codec: c, n: n, perByte: per}, nil
-}
-
-// byteCounts[codec][b] holds the neg, zero, pos counts of a full byte b,
-// and a count of 255 in [0] for a byte no encoder writes.
-var byteCounts = map[Codec]*[256][3]uint8{Bits2: new([256][3]uint8), Base3: new([256][3]uint8)}
-
-func init() {
-	var t [5]int8
-	for c, table := range byteCounts {
-		per := map[Codec]int{Bits2: 4, Base3: 5}[c]
-		for b := 0; b < 256; b++ {
-			if c.Decode(t[:per], []byte{byte(b)}) != nil {
-				table[b] = [3]uint8{255, 0, 0}
-				continue
-			}
-			for _, v := range t[:per] {
-				table[b][v+1]++
-			}
-		}
-	}
+	return nil, fmt.Errorf("%w %q", ErrCodec, string(c))
 }
 
 // Write checks and counts the next bytes of the payload.
@@ -65,31 +50,129 @@ func (tc *TritCounter) Write(p []byte) (int, error) {
 		tc.frame = append(tc.frame, p...)
 		return len(p), nil
 	}
-	full := (tc.n / tc.perByte) - tc.seen // full bytes still expected
-	table := byteCounts[tc.codec]
-	var neg, zero, pos int64
-	for i, b := range p {
-		if int64(i) >= full {
-			if err := tc.tail(p[i:]); err != nil {
-				tc.err = err
-				return i, err
-			}
-			break
-		}
-		c := table[b]
-		if c[0] == 255 {
-			tc.err = fmt.Errorf("%w: byte %d of the %s payload is 0x%02x", ErrInvalidCode, tc.seen+int64(i), tc.codec, b)
-			return i, tc.err
-		}
-		neg += int64(c[0])
-		zero += int64(c[1])
-		pos += int64(c[2])
+	full := max(0, tc.n/tc.perByte-tc.seen) // full bytes still expected
+	body := p[:min(int64(len(p)), full)]
+	var c convert.TritCounts
+	bad := -1
+	if tc.codec == Bits2 {
+		c, bad = countBits2(body)
+	} else {
+		c, bad = countBase3(body)
 	}
-	tc.counts.Neg += neg
-	tc.counts.Zero += zero
-	tc.counts.Pos += pos
+	if bad >= 0 {
+		tc.err = fmt.Errorf("%w: byte %d of the %s payload is 0x%02x", ErrInvalidCode, tc.seen+int64(bad), tc.codec, body[bad])
+		return bad, tc.err
+	}
+	tc.counts.Neg += c.Neg
+	tc.counts.Zero += c.Zero
+	tc.counts.Pos += c.Pos
+	if len(body) < len(p) {
+		if err := tc.tail(p[len(body):]); err != nil {
+			tc.err = err
+			return len(body), err
+		}
+	}
 	tc.seen += int64(len(p))
 	return len(p), nil
+}
+
+// bits2Low selects the low bit of every 2-bit code in a word.
+const bits2Low = 0x5555555555555555
+
+// countBits2 counts the trits of full bits2 bytes. The low bit of a 2-bit
+// code marks +1 (code 1), the high bit −1 (code 2), both (code 3) an
+// invalid code. Two 64-bit words at a time, it gathers the low bits of
+// both into one word and the high bits into another and counts each with
+// one population count: 64 trits' counts in two. It returns the index of
+// the first invalid byte, or -1.
+func countBits2(p []byte) (convert.TritCounts, int) {
+	var pos, neg int
+	j := 0
+	for ; j+16 <= len(p); j += 16 {
+		w := p[j : j+16]
+		x0, x1 := binary.LittleEndian.Uint64(w), binary.LittleEndian.Uint64(w[8:])
+		if (x0&(x0>>1)|x1&(x1>>1))&bits2Low != 0 {
+			break // the loop below names the byte
+		}
+		pos += bits.OnesCount64(x0&bits2Low | (x1<<1)&^bits2Low)
+		neg += bits.OnesCount64((x0>>1)&bits2Low | x1&^bits2Low)
+	}
+	for ; j < len(p); j++ {
+		x := uint64(p[j])
+		if bits2HasCode3(x) {
+			return convert.TritCounts{}, j
+		}
+		pos += bits.OnesCount64(x & bits2Low)
+		neg += bits.OnesCount64((x >> 1) & bits2Low)
+	}
+	return convert.TritCounts{Neg: int64(neg), Pos: int64(pos), Zero: int64(4*len(p) - pos - neg)}, -1
+}
+
+// firstBits2Code3 is the index of the first byte of p holding code 3.
+func firstBits2Code3(p []byte) int {
+	for i, b := range p {
+		if bits2HasCode3(uint64(b)) {
+			return i
+		}
+	}
+	return -1
+}
+
+// base3Counts[b] holds the counts of the 5 trits of base3 byte b, each in
+// its own bit field of base3Lane bits: +1s from bit 0, −1s from bit
+// base3Lane, and, from bit 2·base3Lane, 1 for a byte above 242 that no
+// encoder writes. Summing entries sums every field at once.
+var base3Counts [256]uint64
+
+// base3Lane is the width of a base3Counts field; base3Block bytes of up to
+// 5 counts each fit in it.
+const (
+	base3Lane  = 21
+	base3Block = (1<<base3Lane - 1) / 5
+	base3Field = 1<<base3Lane - 1
+)
+
+func init() {
+	for b := 0; b < 256; b++ {
+		if b >= 243 {
+			base3Counts[b] = 1 << (2 * base3Lane)
+			continue
+		}
+		var pos, neg uint64
+		for x, k := b, 0; k < 5; x, k = x/3, k+1 {
+			switch codeTrit[x%3] {
+			case 1:
+				pos++
+			case -1:
+				neg++
+			}
+		}
+		base3Counts[b] = pos | neg<<base3Lane
+	}
+}
+
+// countBase3 counts the trits of full base3 bytes by table, in blocks whose
+// sums cannot overflow a field. It returns the index of the first invalid
+// byte, or -1.
+func countBase3(p []byte) (convert.TritCounts, int) {
+	var pos, neg int64
+	for from := 0; from < len(p); from += base3Block {
+		block := p[from:min(len(p), from+base3Block)]
+		var sum uint64
+		for _, b := range block {
+			sum += base3Counts[b]
+		}
+		if sum>>(2*base3Lane) != 0 {
+			for i, b := range block {
+				if b >= 243 {
+					return convert.TritCounts{}, from + i
+				}
+			}
+		}
+		pos += int64(sum & base3Field)
+		neg += int64(sum >> base3Lane & base3Field)
+	}
+	return convert.TritCounts{Neg: neg, Pos: pos, Zero: 5*int64(len(p)) - pos - neg}, -1
 }
 
 // tail handles the bytes after the last full one: at most one byte with

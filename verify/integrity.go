@@ -1,10 +1,14 @@
 package verify
 
 import (
+	"bytes"
+	"cmp"
+	"encoding/binary"
 	"encoding/hex"
 	"fmt"
 	"io"
 	"math"
+	"slices"
 	"sync"
 	"sync/atomic"
 
@@ -21,12 +25,30 @@ type placedSection struct {
 	scales bool // the scales section, not the payload
 }
 
-// checkSections streams every section in pieces of manifest.ChunkSize:
-// hashes it, checks the zero padding after it, and checks trit payloads
-// (codes, padding, counts), int8 codes and scales. Sections are checked by
-// workers in parallel, each holding one piece; the checks are reported in
-// file order.
-func checkSections(rep *Report, a *pack.Artifact, workers int, advance func(n int64)) {
+// sectionJob is one unit of the section checks: the stream of a whole
+// section (piece < 0), or the recorded hash of one of its pieces.
+type sectionJob struct {
+	section int
+	piece   int
+}
+
+// pieceOutcome is what a piece job found.
+type pieceOutcome struct {
+	bad     bool  // the piece's BLAKE3 differs from the recorded one
+	readErr error // the piece could not be read
+}
+
+// checkSections checks every section: its BLAKE3, the zero padding after
+// it, and its contents (trit payloads: codes, padding, counts; int8 codes;
+// scales), streamed piece by piece (manifest.ChunkSize); and, for a
+// section that records piece hashes, each piece's BLAKE3. A piece hash
+// cannot be derived from the section's (BLAKE3 numbers the chunks from
+// each input's start, so a piece hashed alone compresses differently from
+// the same bytes inside the section), so each is a job of its own: jobs run
+// on workers in parallel, longest first, each worker holding one piece,
+// and the checks are reported in file order, the same for any worker
+// count.
+func checkSections(rep *Report, a *pack.Artifact, src artifactBytes, workers int, advance func(n int64)) {
 	m := a.Manifest()
 	var all []placedSection
 	for i := range m.Tensors {
@@ -36,21 +58,52 @@ func checkSections(rep *Report, a *pack.Artifact, workers int, advance func(n in
 			all = append(all, placedSection{*e.Scales, e, true})
 		}
 	}
+	var jobs []sectionJob
+	pieces := make([][]pieceOutcome, len(all))
+	for i, p := range all {
+		jobs = append(jobs, sectionJob{i, -1})
+		pieces[i] = make([]pieceOutcome, len(p.s.Chunks))
+		for k := range p.s.Chunks {
+			jobs = append(jobs, sectionJob{i, k})
+		}
+	}
+	cost := func(j sectionJob) int64 {
+		s := all[j.section].s
+		if j.piece < 0 {
+			return s.Length
+		}
+		return min(manifest.ChunkSize, s.Length-int64(j.piece)*manifest.ChunkSize)
+	}
+	// longest first balances the workers: a long section's stream starts
+	// while pieces and short sections fill the other workers
+	slices.SortStableFunc(jobs, func(x, y sectionJob) int { return cmp.Compare(cost(y), cost(x)) })
+
 	pieceLen := min(manifest.ChunkSize, maxLength(m))
+	if src.mapped != nil {
+		pieceLen = 0 // pieces are slices of the map
+	}
 	bufs := make([][]byte, workers)
-	results := inParallel(len(all), workers, func(worker, i int) []Check {
-		if bufs[worker] == nil {
+	streams := make([]streamOutcome, len(all))
+	inParallel(len(jobs), workers, func(worker, i int) struct{} {
+		if bufs[worker] == nil && pieceLen > 0 {
 			bufs[worker] = make([]byte, pieceLen)
 		}
-		next := a.ManifestOffset()
-		if i+1 < len(all) {
-			next = all[i+1].s.Offset
+		j := jobs[i]
+		p := all[j.section]
+		if j.piece >= 0 {
+			pieces[j.section][j.piece] = checkPiece(src, p.s, j.piece, bufs[worker])
+			return struct{}{}
 		}
-		return checkSection(a.ReaderAt(), all[i], next, bufs[worker])
+		next := a.ManifestOffset()
+		if j.section+1 < len(all) {
+			next = all[j.section+1].s.Offset
+		}
+		streams[j.section] = streamSection(src, p, next, bufs[worker])
+		return struct{}{}
 	})
 	padFail := 0
-	for i, checks := range results {
-		for _, c := range checks {
+	for i, st := range streams {
+		for _, c := range sectionChecks(all[i], st, pieces[i]) {
 			rep.add(c.Name, c.Tensor, c.OK, "%s", c.Detail)
 			if c.Name == CheckPadding {
 				padFail++
@@ -63,63 +116,153 @@ func checkSections(rep *Report, a *pack.Artifact, workers int, advance func(n in
 	}
 }
 
-// checkSection checks one section and the padding up to next.
-func checkSection(ra io.ReaderAt, p placedSection, next int64, buf []byte) []Check {
+// streamOutcome is what the stream of a section found.
+type streamOutcome struct {
+	readErr  error  // reading the section failed
+	readAt   int64  // where
+	sum      string // the section's BLAKE3, hex
+	padBad   bool   // the padding after the section is not zero
+	padFrom  int64
+	padTo    int64
+	contents func() Check // the contents check, once the hash holds
+}
+
+// streamSection hashes section p piece by piece, feeding the contents
+// checker of its kind, and checks the padding up to next; buf holds a
+// piece when the file is read rather than mapped.
+func streamSection(src artifactBytes, p placedSection, next int64, buf []byte) streamOutcome {
+	s := p.s
+	var out streamOutcome
+	sink, contents := contentsChecker(p)
+	out.contents = contents
+	at, end := s.Offset, s.Offset+s.Length
+	err := src.guard(func() {
+		h := blake3.New()
+		var sinkErr error
+		for ; at < end; at += manifest.ChunkSize {
+			piece, err := src.at(buf, at, min(manifest.ChunkSize, end-at))
+			if err != nil {
+				out.readErr, out.readAt = err, at
+				return
+			}
+			h.Write(piece)
+			if sink != nil && sinkErr == nil {
+				_, sinkErr = sink.Write(piece)
+			}
+		}
+		var sum [32]byte
+		h.Sum(sum[:0])
+		out.sum = manifest.HexHash(sum)
+	})
+	if err != nil {
+		out.readErr, out.readAt = err, at
+	}
+	if gap := next - end; gap > 0 {
+		err := src.guard(func() {
+			pad, err := src.at(nil, end, gap)
+			out.padBad = err != nil || firstNonZero(pad) >= 0
+		})
+		if err != nil || out.padBad {
+			out.padBad, out.padFrom, out.padTo = true, end, next
+		}
+	}
+	return out
+}
+
+// checkPiece compares the BLAKE3 of piece k of section s with the one the
+// manifest records.
+func checkPiece(src artifactBytes, s manifest.Section, k int, buf []byte) pieceOutcome {
+	off := int64(k) * manifest.ChunkSize
+	var out pieceOutcome
+	err := src.guard(func() {
+		piece, err := src.at(buf, s.Offset+off, min(manifest.ChunkSize, s.Length-off))
+		if err != nil {
+			out.readErr = err
+			return
+		}
+		sum := blake3.Sum256(piece)
+		out.bad = hex.EncodeToString(sum[:]) != s.Chunks[k]
+	})
+	if err != nil {
+		out.readErr = err
+	}
+	return out
+}
+
+// contentsChecker returns the writer that checks a section's contents as
+// they stream by and the function giving its verdict, or nils for a kept
+// tensor's bytes, which only the hash covers.
+func contentsChecker(p placedSection) (io.Writer, func() Check) {
 	e := p.owner
-	var out []Check
-	add := func(name string, ok bool, format string, args ...any) {
-		c := Check{Name: name, Tensor: e.Name, OK: ok}
+	check := func(ok bool, format string, args ...any) Check {
+		c := Check{Name: CheckDecode, Tensor: e.Name, OK: ok}
 		if !ok {
 			c.Detail = fmt.Sprintf(format, args...)
 		}
-		out = append(out, c)
+		return c
 	}
-	var sink io.Writer
-	var counter *pack.TritCounter
-	var scales *scaleChecker
-	var int8s *int8Checker
 	switch {
 	case p.scales:
-		scales = &scaleChecker{ternary: e.Kind == manifest.KindTernary, bad: -1}
-		sink = scales
+		scales := &scaleChecker{ternary: e.Kind == manifest.KindTernary, bad: -1}
+		return scales, func() Check {
+			return check(scales.bad < 0, "scales at byte %d: scale %d is %v", p.s.Offset, scales.bad, scales.badValue)
+		}
 	case e.Kind == manifest.KindTernary:
-		c, err := pack.NewTritCounter(pack.Codec(e.Codec), manifest.NumElements(e.Shape))
+		counter, err := pack.NewTritCounter(pack.Codec(e.Codec), manifest.NumElements(e.Shape))
 		if err != nil { // the manifest's rules admit only known codecs
-			add(CheckDecode, false, "%v", err)
-		} else {
-			counter, sink = c, c
+			return nil, func() Check { return check(false, "%v", err) }
+		}
+		return counter, func() Check {
+			got, err := counter.Close()
+			switch {
+			case err != nil:
+				return check(false, "section at byte %d: %v", p.s.Offset, err)
+			case got != *e.Trits:
+				return check(false, "trit counts %+v, manifest records %+v", got, *e.Trits)
+			}
+			return check(true, "")
 		}
 	case e.Kind == manifest.KindInt8:
-		int8s = &int8Checker{bad: -1}
-		sink = int8s
-	}
-	hashOK, detail := streamSection(ra, p.s, buf, sink)
-	add(CheckSection, hashOK, "%s", detail)
-	end := p.s.Offset + p.s.Length
-	if gap := next - end; gap > 0 {
-		pad := make([]byte, gap)
-		if _, err := ra.ReadAt(pad, end); err != nil || firstNonZero(pad) >= 0 {
-			add(CheckPadding, false, "padding at byte %d..%d is not zero", end, next)
+		int8s := &int8Checker{bad: -1}
+		return int8s, func() Check {
+			return check(int8s.bad < 0, "int8 payload byte %d is -128 (codes are -127..127)", int8s.bad)
 		}
 	}
-	if !hashOK {
-		return out // the decode would only repeat the hash's verdict
+	return nil, nil
+}
+
+// sectionChecks turns what the stream and the piece jobs of a section
+// found into checks: the section hash (naming the first bad piece), the
+// padding after it, and, when the hash holds, its contents.
+func sectionChecks(p placedSection, st streamOutcome, pieces []pieceOutcome) []Check {
+	s, name := p.s, p.owner.Name
+	hash := Check{Name: CheckSection, Tensor: name, OK: true}
+	badChunk := int64(-1)
+	for k, o := range pieces {
+		if o.readErr != nil && st.readErr == nil {
+			st.readErr, st.readAt = o.readErr, s.Offset+int64(k)*manifest.ChunkSize
+		}
+		if o.bad && badChunk < 0 {
+			badChunk = s.Offset + int64(k)*manifest.ChunkSize
+		}
 	}
 	switch {
-	case counter != nil:
-		got, err := counter.Close()
-		switch {
-		case err != nil:
-			add(CheckDecode, false, "section at byte %d: %v", p.s.Offset, err)
-		case got != *e.Trits:
-			add(CheckDecode, false, "trit counts %+v, manifest records %+v", got, *e.Trits)
-		default:
-			add(CheckDecode, true, "")
-		}
-	case scales != nil:
-		add(CheckDecode, scales.bad < 0, "scales at byte %d: scale %d is %v", p.s.Offset, scales.bad, scales.badValue)
-	case int8s != nil:
-		add(CheckDecode, int8s.bad < 0, "int8 payload byte %d is -128 (codes are -127..127)", int8s.bad)
+	case st.readErr != nil:
+		hash.Detail = fmt.Sprintf("read section at byte %d: %v", st.readAt, st.readErr)
+	case st.sum != s.BLAKE3 && badChunk >= 0:
+		hash.Detail = fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s; first bad chunk at byte %d", s.Offset, s.Length, st.sum, s.BLAKE3, badChunk)
+	case st.sum != s.BLAKE3:
+		hash.Detail = fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s", s.Offset, s.Length, st.sum, s.BLAKE3)
+	case badChunk >= 0:
+		hash.Detail = fmt.Sprintf("section at byte %d: chunk at byte %d does not match its recorded BLAKE3", s.Offset, badChunk)
+	}
+	hash.OK = hash.Detail == ""
+	out := []Check{hash}
+	if st.padBad {
+		out = append(out, Check{Name: CheckPadding, Tensor: name, Detail: fmt.Sprintf("padding at byte %d..%d is not zero", st.padFrom, st.padTo)})
+	}
+	if hash.OK && st.contents != nil { // a bad hash: the decode would only repeat its verdict
+		out = append(out, st.contents())
 	}
 	return out
 }
@@ -157,67 +300,46 @@ func maxLength(m *manifest.Manifest) int64 {
 	return n
 }
 
-// streamSection reads section s piece by piece into buf, feeding sink,
-// and compares its BLAKE3 and each piece's recorded BLAKE3 (pack/FORMAT.md,
-// "Hashing"). It returns whether the section is intact and, when it is not,
-// a detail that names the first bad piece where the section records them.
-func streamSection(ra io.ReaderAt, s manifest.Section, buf []byte, sink io.Writer) (bool, string) {
-	h := blake3.New()
-	var sinkErr error
-	badChunk := int64(-1)
-	for k, off := 0, int64(0); off < s.Length; k, off = k+1, off+manifest.ChunkSize {
-		piece := buf[:min(manifest.ChunkSize, s.Length-off)]
-		if _, err := ra.ReadAt(piece, s.Offset+off); err != nil {
-			return false, fmt.Sprintf("read section at byte %d: %v", s.Offset+off, err)
-		}
-		h.Write(piece)
-		if k < len(s.Chunks) && badChunk < 0 {
-			if sum := blake3.Sum256(piece); hex.EncodeToString(sum[:]) != s.Chunks[k] {
-				badChunk = s.Offset + off
-			}
-		}
-		if sink != nil && sinkErr == nil {
-			_, sinkErr = sink.Write(piece)
-		}
-	}
-	var sum [32]byte
-	h.Sum(sum[:0])
-	got := manifest.HexHash(sum)
-	switch {
-	case got != s.BLAKE3 && badChunk >= 0:
-		return false, fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s; first bad chunk at byte %d", s.Offset, s.Length, got, s.BLAKE3, badChunk)
-	case got != s.BLAKE3:
-		return false, fmt.Sprintf("section at byte %d (%d bytes): BLAKE3 %s, manifest records %s", s.Offset, s.Length, got, s.BLAKE3)
-	case badChunk >= 0:
-		return false, fmt.Sprintf("section at byte %d: chunk at byte %d does not match its recorded BLAKE3", s.Offset, badChunk)
-	}
-	return true, ""
-}
-
 // scaleChecker checks little-endian float32 scales as they stream by:
 // finite, and > 0 for ternary tensors (≥ 0 for int8, whose all-zero rows
-// have scale 0).
+// have scale 0). It tests each scale's bits as a 32-bit word.
 type scaleChecker struct {
 	ternary  bool
 	n        int
-	partial  []byte
-	bad      int // first bad scale, -1 for none
+	partial  []byte // the bytes of a scale split between writes
+	bad      int    // first bad scale, -1 for none
 	badValue float32
 }
 
 func (c *scaleChecker) Write(p []byte) (int, error) {
-	data := append(c.partial, p...)
-	for len(data) >= 4 {
-		v := math.Float32frombits(uint32(data[0]) | uint32(data[1])<<8 | uint32(data[2])<<16 | uint32(data[3])<<24)
-		f := float64(v)
-		if c.bad < 0 && (math.IsNaN(f) || math.IsInf(f, 0) || v < 0 || (v == 0 && c.ternary)) {
-			c.bad, c.badValue = c.n, v
+	n := len(p)
+	if len(c.partial) > 0 {
+		k := min(4-len(c.partial), len(p))
+		c.partial, p = append(c.partial, p[:k]...), p[k:]
+		if len(c.partial) < 4 {
+			return n, nil
 		}
-		c.n++
-		data = data[4:]
+		c.check(binary.LittleEndian.Uint32(c.partial))
+		c.partial = c.partial[:0]
 	}
-	c.partial = append(c.partial[:0], data...)
-	return len(p), nil
+	for ; len(p) >= 4; p = p[4:] {
+		c.check(binary.LittleEndian.Uint32(p))
+	}
+	c.partial = append(c.partial, p...)
+	return n, nil
+}
+
+// check tests the bits of the next scale: an exponent of all ones is a
+// NaN or an infinity, a set sign bit on a nonzero magnitude a negative
+// value, and a zero magnitude (+0 or -0) is 0.
+func (c *scaleChecker) check(bits uint32) {
+	const exponent, magnitude = 0x7f800000, 0x7fffffff
+	mag := bits & magnitude
+	bad := bits&exponent == exponent || (mag != 0 && bits>>31 != 0) || (mag == 0 && c.ternary)
+	if bad && c.bad < 0 {
+		c.bad, c.badValue = c.n, math.Float32frombits(bits)
+	}
+	c.n++
 }
 
 // int8Checker finds the first -128 in an int8 payload: codes are clamped
@@ -228,10 +350,8 @@ type int8Checker struct {
 }
 
 func (c *int8Checker) Write(p []byte) (int, error) {
-	for i, b := range p {
-		if b == 0x80 && c.bad < 0 {
-			c.bad = c.n + int64(i)
-		}
+	if i := bytes.IndexByte(p, 0x80); i >= 0 && c.bad < 0 {
+		c.bad = c.n + int64(i)
 	}
 	c.n += int64(len(p))
 	return len(p), nil

@@ -16,6 +16,7 @@ import (
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/manifest"
 	"ternkit/pack"
 )
 
@@ -131,22 +132,7 @@ func TestVerifyCatchesTampering(t *testing.T) {
 // names the first bad piece's offset.
 func TestVerifyNamesBadChunk(t *testing.T) {
 	dir := t.TempDir()
-	n := 3*(1<<22)/4 + 1000 // F32 elements: three pieces
-	big := make([]byte, 4*n)
-	for i := range big {
-		big[i] = byte(i * 7)
-	}
-	src := filepath.Join(dir, "big.safetensors")
-	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{{Name: "big", DType: "I32", Shape: []int64{int64(n)}, Data: big}}, nil))
-	s, err := convert.Open(src)
-	require.NoError(t, err)
-	defer s.Close()
-	art := filepath.Join(dir, "big.tkart")
-	m, err := pack.Build(s, art, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe()})
-	require.NoError(t, err)
-	sec := m.Tensors[0].Section
-	require.Len(t, sec.Chunks, 4)
-
+	art, sec := bigArtifact(t, dir)
 	b, err := os.ReadFile(art)
 	require.NoError(t, err)
 	at := sec.Offset + 2*(1<<22) + 5 // in the third piece
@@ -163,16 +149,44 @@ func TestVerifyNamesBadChunk(t *testing.T) {
 	// a manifest whose piece hash is wrong, though the section hash is
 	// right, is caught as well (pack/FORMAT.md: a reader checks both)
 	forged := filepath.Join(dir, "forged.tkart")
-	rewriteManifest(t, art, forged, func(m map[string]any) {
-		chunks := entry(m, 0)["section"].(map[string]any)["chunks"].([]any)
-		chunks[1] = strings.Repeat("0", 64)
-	})
+	forgePieceHash(t, art, forged, 1)
 	rep, err = Run(forged, Options{})
 	require.NoError(t, err)
 	require.False(t, rep.OK())
 	f = rep.Failures()[0]
 	require.Equal(t, CheckSection, f.Name)
 	require.Contains(t, f.Detail, "chunk at byte "+strconv.FormatInt(sec.Offset+(1<<22), 10)+" does not match")
+}
+
+// forgePieceHash writes a copy of art whose first tensor records a wrong
+// hash for piece k.
+func forgePieceHash(t *testing.T, art, out string, k int) {
+	rewriteManifest(t, art, out, func(m map[string]any) {
+		chunks := entry(m, 0)["section"].(map[string]any)["chunks"].([]any)
+		chunks[k] = strings.Repeat("0", 64)
+	})
+}
+
+// bigArtifact packs one kept tensor whose section spans four pieces
+// (manifest.ChunkSize), the last one short, and returns the artifact and
+// the section.
+func bigArtifact(t *testing.T, dir string) (string, manifest.Section) {
+	n := 3*(1<<22)/4 + 1000 // I32 elements: three full pieces and a short one
+	big := make([]byte, 4*n)
+	for i := range big {
+		big[i] = byte(i * 7)
+	}
+	src := filepath.Join(dir, "big.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{{Name: "big", DType: "I32", Shape: []int64{int64(n)}, Data: big}}, nil))
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	art := filepath.Join(dir, "big.tkart")
+	m, err := pack.Build(s, art, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe()})
+	require.NoError(t, err)
+	sec := m.Tensors[0].Section
+	require.Len(t, sec.Chunks, 4)
+	return art, sec
 }
 
 // b3sum (Debian package b3sum, the BLAKE3 authors' command-line tool)

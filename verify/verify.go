@@ -157,12 +157,16 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	}
 	defer a.Close()
 	rep.add(CheckStructure, "", true, "")
+	mapped := mapArtifact(a)
 	advance := progressFunc(opts, a)
 	workers := opts.Workers
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
-	checkSections(rep, a, workers, advance)
+	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
+	// the source checks read the artifact by tensor; unmapping first keeps
+	// the mapped pages out of the resident size while the source is read
+	unmapArtifact(mapped)
 	if opts.Source != nil {
 		rep.Source = opts.Source.Path
 		if err := checkAgainst(rep, a, opts.Source, workers, advance); err != nil {
