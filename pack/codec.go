@@ -80,14 +80,14 @@ func encodeDigits(dst []byte, trits []int8, per, radix int) []byte {
 	// (0 → 0, 1 → 1, −1 = 0xff → 2), for all eight bytes at once
 	j := 0
 	if per == 4 {
-		// 8 trits → 2 bytes: gather the 2-bit codes of bytes 0..7 into bits
-		// 0..15 by halving the distance between neighbours three times
+		// 8 trits → 2 bytes, by the multiplication below with m = 64, 16, 4,
+		// 1: byte k of the product sums d_i·m_(k−i), at most 170, so none
+		// carries, and bytes 3 and 7 are d0 + 4·d1 + 16·d2 + 64·d3 and the
+		// same of d4..d7
+		const m = 64 | 16<<8 | 4<<16 | 1<<24
 		for ; 8*j+8 <= len(in); j++ {
-			c := wordCodes(binary.LittleEndian.Uint64(in[8*j:]))
-			c = (c | c>>6) & 0x000f000f000f000f
-			c = (c | c>>12) & 0x000000ff000000ff
-			c |= c >> 24
-			binary.LittleEndian.PutUint16(out[2*j:], uint16(c))
+			c := wordCodes(binary.LittleEndian.Uint64(in[8*j:])) * m
+			binary.LittleEndian.PutUint16(out[2*j:], uint16(c>>24&0xff|c>>48&0xff00))
 		}
 		j *= 2
 	} else { // base3: 5 digits d0..d4 in bytes 0..4 of a word
