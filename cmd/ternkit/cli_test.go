@@ -36,6 +36,8 @@ func TestErrorsSuggestTheFix(t *testing.T) {
 			[]string{`did you mean "reciprocal"?`, `"recip"`}},
 		{[]string{"pack", src, "-o", filepath.Join(dir, "x.tkart"), "--tie", "half_even"}, exitInput,
 			[]string{`did you mean "half-even"?`}},
+		{[]string{"pack", src, "-o", filepath.Join(dir, "x.tkart"), "--sum", "strided"}, exitInput,
+			[]string{`did you mean "strided16"?`, `sum order "strided"`}},
 		{[]string{"inspect", art, "--sort", "eror"}, exitInput,
 			[]string{`--sort "eror"`, `did you mean "error"?`, "valid: file, name, kind, codec, bits, zero, error, bytes"}},
 		{[]string{"inspect", art, "--tensor", "layers.[0"}, exitInput, []string{`--tensor "layers.[0" is not a valid glob`}},
@@ -126,6 +128,7 @@ func TestCompletion(t *testing.T) {
 	}{
 		{[]string{"pack", "m.safetensors", "--codec", ""}, []string{"bits2", "base3", ":4"}},
 		{[]string{"pack", "m.safetensors", "--tie", ""}, []string{"half-even", "half-away", ":4"}},
+		{[]string{"pack", "m.safetensors", "--sum", ""}, []string{"strided16", "sequential", ":4"}},
 		{[]string{"inspect", "a.tkart", "--sort", ""}, []string{"error", "bytes", ":4"}},
 		{[]string{"inspect", ""}, []string{"tkart", ":8"}}, // filter files by extension
 		{[]string{"pack", ""}, []string{"safetensors", ":8"}},

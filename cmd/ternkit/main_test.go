@@ -59,6 +59,23 @@ func TestDemo(t *testing.T) {
 	require.Contains(t, out, "file BLAKE3")
 }
 
+// Both sum orders pack and verify against the source; the artifact says
+// which one it used.
+func TestPackSumOrders(t *testing.T) {
+	dir := t.TempDir()
+	src, _ := demoArtifact(t, dir)
+	for _, order := range []string{"strided16", "sequential"} {
+		art := filepath.Join(dir, order+".tkart")
+		code, out, errOut := ternkit("pack", src, "-o", art, "--sum", order, "-q")
+		require.Equal(t, exitOK, code, errOut)
+		code, out, errOut = ternkit("verify", art, "--against", src)
+		require.Equal(t, exitOK, code, "%s\n%s", out, errOut)
+		code, out, _ = ternkit("inspect", art)
+		require.Equal(t, exitOK, code)
+		require.Contains(t, out, "sum "+order)
+	}
+}
+
 func TestInspectJSON(t *testing.T) {
 	_, art := demoArtifact(t, t.TempDir(), "--codec", "bits2")
 	code, out, errOut := ternkit("inspect", art, "--json")

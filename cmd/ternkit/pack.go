@@ -24,6 +24,7 @@ type recipeFlags struct {
 	scaleRule  string
 	epsilon    float64
 	tie        string
+	sum        string
 	policyFile string
 	rules      []string
 	workers    int
@@ -35,17 +36,20 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	cmd.Flags().StringVar(&f.scaleRule, "scale-rule", string(d.ScaleRule), "reciprocal (w × 1/max(gamma, eps), training-code form) or quotient (w / (gamma + eps), paper form)")
 	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule")
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
+	cmd.Flags().StringVar(&f.sum, "sum", string(d.Sum), "order of gamma's float64 sum: strided16 (16 partial sums, vector speed) or sequential (index order, the order of artifacts that record none)")
 	cmd.Flags().IntVar(&f.workers, "workers", runtime.NumCPU(), "tensors quantized in parallel (the bytes written are the same for any count)")
 	cmd.Flags().StringVar(&f.policyFile, "policy", "", "policy file (TOML [[rule]] tables) replacing the default policy")
 	cmd.Flags().StringArrayVar(&f.rules, "rule", nil, "rule GLOB=ACTION placed before the policy's rules (repeatable); actions: ternary, ternary:row, ternary:group:N, keep, keep:f16, keep:bf16, keep:f32, int8")
 	_ = cmd.RegisterFlagCompletionFunc("codec", fixedCompletions(codecNames()...))
 	_ = cmd.RegisterFlagCompletionFunc("scale-rule", fixedCompletions(scaleRules...))
 	_ = cmd.RegisterFlagCompletionFunc("tie", fixedCompletions(tieRules...))
+	_ = cmd.RegisterFlagCompletionFunc("sum", fixedCompletions(sumOrders...))
 }
 
 var (
 	scaleRules = []string{string(convert.ScaleReciprocal), string(convert.ScaleQuotient)}
 	tieRules   = []string{string(convert.TieHalfEven), string(convert.TieHalfAway)}
+	sumOrders  = []string{string(convert.SumStrided16), string(convert.SumSequential)}
 )
 
 func codecNames() []string {
@@ -63,7 +67,7 @@ func (f *recipeFlags) options() (pack.Options, error) {
 		return pack.Options{}, usagef("--codec: %w%s", err, didYouMean(f.codec, codecNames()))
 	}
 	r := convert.DefaultRecipe()
-	r.ScaleRule, r.Epsilon, r.Tie = convert.ScaleRule(f.scaleRule), f.epsilon, convert.TieRule(f.tie)
+	r.ScaleRule, r.Epsilon, r.Tie, r.Sum = convert.ScaleRule(f.scaleRule), f.epsilon, convert.TieRule(f.tie), convert.SumOrder(f.sum)
 	if err := r.Validate(); err != nil {
 		hint := ""
 		switch {
@@ -71,6 +75,8 @@ func (f *recipeFlags) options() (pack.Options, error) {
 			hint = didYouMean(f.scaleRule, scaleRules)
 		case !slices.Contains(tieRules, f.tie):
 			hint = didYouMean(f.tie, tieRules)
+		case !slices.Contains(sumOrders, f.sum):
+			hint = didYouMean(f.sum, sumOrders)
 		}
 		return pack.Options{}, usagef("%w%s", err, hint)
 	}
