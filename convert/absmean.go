@@ -278,7 +278,69 @@ func exactScale(w weights) (float32, bool) {
 // included), the result is Exact: the scales are the c_g (the recipe's
 // scale for an all-zero group) and the reconstruction error is 0.
 func Ternarize(w []float32, cols int, g Granularity, r Recipe, trits []int8) (Ternary, error) {
-	return ternarize(weights{f32: w}, cols, g, r, trits)
+	if len(trits) != len(w) {
+		return Ternary{}, fmt.Errorf("ternarize: %d trits for %d weights", len(trits), len(w))
+	}
+	return ternarize(weights{f32: w}, cols, g, r, &tritOut{all: trits})
+}
+
+// Weights are a tensor's values as TernarizeStream reads them.
+type Weights struct{ w weights }
+
+// Float32Weights are float32 values.
+func Float32Weights(w []float32) Weights { return Weights{weights{f32: w}} }
+
+// BF16Weights are little-endian BF16 values, 2 bytes each, read in place
+// by the kernels; raw must have an even length.
+func BF16Weights(raw []byte) Weights {
+	if raw == nil {
+		raw = []byte{}
+	}
+	return Weights{weights{bf16: raw[:len(raw)&^1]}}
+}
+
+// Len is the number of weights.
+func (w Weights) Len() int { return w.w.len() }
+
+// TernarizeStream is Ternarize that hands the trits to emit in order, a
+// run of at most a few hundred at a time, instead of storing them: a
+// caller that encodes them as they come touches each trit while it is in
+// cache and needs no buffer the size of the tensor. emit must not keep the
+// slice; an error from emit stops the work and is returned.
+func TernarizeStream(w Weights, cols int, g Granularity, r Recipe, emit func(trits []int8) error) (Ternary, error) {
+	o := &tritOut{buf: make([]int8, laneBlock), emit: emit}
+	res, err := ternarize(w.w, cols, g, r, o)
+	if err == nil {
+		err = o.err
+	}
+	if err != nil {
+		return Ternary{}, err
+	}
+	return res, nil
+}
+
+// tritOut is where the quantize pass puts trits: the whole tensor's slice,
+// or one block's scratch handed to emit when the block is done.
+type tritOut struct {
+	all  []int8
+	buf  []int8
+	emit func([]int8) error
+	err  error
+}
+
+// block is the space for the n trits starting at trit start.
+func (o *tritOut) block(start, n int) []int8 {
+	if o.all != nil {
+		return o.all[start : start+n]
+	}
+	return o.buf[:n]
+}
+
+// done passes a finished block on, when streaming.
+func (o *tritOut) done(t []int8) {
+	if o.emit != nil && o.err == nil {
+		o.err = o.emit(t)
+	}
 }
 
 // TernarizeBF16 is Ternarize over little-endian BF16 weights (2 bytes
@@ -291,14 +353,14 @@ func TernarizeBF16(raw []byte, cols int, g Granularity, r Recipe, trits []int8) 
 	if raw == nil {
 		raw = []byte{}
 	}
-	return ternarize(weights{bf16: raw}, cols, g, r, trits)
+	if len(trits) != len(raw)/2 {
+		return Ternary{}, fmt.Errorf("ternarize: %d trits for %d weights", len(trits), len(raw)/2)
+	}
+	return ternarize(weights{bf16: raw}, cols, g, r, &tritOut{all: trits})
 }
 
-func ternarize(all weights, cols int, g Granularity, r Recipe, trits []int8) (Ternary, error) {
+func ternarize(all weights, cols int, g Granularity, r Recipe, out *tritOut) (Ternary, error) {
 	n := all.len()
-	if len(trits) != n {
-		return Ternary{}, fmt.Errorf("ternarize: %d trits for %d weights", len(trits), n)
-	}
 	if err := r.Validate(); err != nil {
 		return Ternary{}, err
 	}
@@ -348,7 +410,10 @@ func ternarize(all weights, cols int, g Granularity, r Recipe, trits []int8) (Te
 	for k, q := range quants {
 		res.Scales[k] = q.scale
 		part := all.slice(k*size, (k+1)*size)
-		g := q.quantizeGroup(part, trits[k*size:(k+1)*size], r.sumOrder() == SumStrided16)
+		g := q.quantizeGroup(part, out, k*size, r.sumOrder() == SumStrided16)
+		if out.err != nil {
+			return Ternary{}, out.err
+		}
 		g.sumSq = squares[k]
 		sums.add(g, q.scale)
 	}
@@ -378,7 +443,7 @@ func (q quantizer) threshold() float32 {
 // quantizeGroup writes the trits of one group and returns its totals,
 // gathered in lanes (laneTotals) or, for recipes of the sequential sum
 // order, in the order of earlier versions (tally).
-func (q quantizer) quantizeGroup(w weights, trits []int8, lanes bool) groupTotals {
+func (q quantizer) quantizeGroup(w weights, out *tritOut, base int, lanes bool) groupTotals {
 	th := q.threshold()
 	var g groupTotals
 	n := w.len()
@@ -386,8 +451,10 @@ func (q quantizer) quantizeGroup(w weights, trits []int8, lanes bool) groupTotal
 		for start := 0; start < n; start += laneBlock {
 			end := min(start+laneBlock, n)
 			var l laneTotals
-			quantizeBlock(w.slice(start, end), trits[start:end], q, &l)
+			t := out.block(base+start, end-start)
+			quantizeBlock(w.slice(start, end), t, q, &l)
 			g.addLanes(&l)
+			out.done(t)
 		}
 		return g
 	}
@@ -404,7 +471,9 @@ func (q quantizer) quantizeGroup(w weights, trits []int8, lanes bool) groupTotal
 				x[i] = v[i] / q.div
 			}
 		}
-		g.tally(v, x, trits[start:start+len(v)], th, float64(q.scale))
+		t := out.block(base+start, len(v))
+		g.tally(v, x, t, th, float64(q.scale))
+		out.done(t)
 	}
 	return g
 }

@@ -1,6 +1,7 @@
 package convert
 
 import (
+	"errors"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -219,4 +220,58 @@ func TestKernelsAcrossRuns(t *testing.T) {
 	require.True(t, decodeBF16(f1, half))
 	require.True(t, decodeBF16Go(f2, half))
 	require.Equal(t, f2[:2*kernelRun], f1[:2*kernelRun])
+}
+
+// TernarizeStream hands over, in order, exactly the trits Ternarize
+// stores, with the same result, for float32 and BF16 weights, every
+// granularity and both sum orders; an error from emit stops it.
+func TestTernarizeStream(t *testing.T) {
+	rng := rand.New(rand.NewPCG(13, 14))
+	const rows, cols = 9, 1030 // rows longer than a block, not a multiple of it
+	w := kernelWeights(rng, rows*cols, 0.02)
+	raw := make([]byte, 2*len(w))
+	for i, v := range w {
+		b := math.Float32bits(v) >> 16
+		raw[2*i], raw[2*i+1] = byte(b), byte(b>>8)
+	}
+	widened := make([]float32, len(w))
+	decodeBF16Go(widened, raw)
+	for _, in := range []struct {
+		w   Weights
+		f32 []float32
+	}{{Float32Weights(w), w}, {BF16Weights(raw), widened}} {
+		for _, gs := range []string{"tensor", "row", "group:10"} {
+			g, err := ParseGranularity(gs)
+			require.NoError(t, err)
+			for _, order := range []SumOrder{SumStrided16, SumSequential} {
+				r := DefaultRecipe()
+				r.Sum = order
+				want := make([]int8, len(w))
+				qw, err := Ternarize(in.f32, cols, g, r, want)
+				require.NoError(t, err)
+				var got []int8
+				calls := 0
+				qg, err := TernarizeStream(in.w, cols, g, r, func(tr []int8) error {
+					got = append(got, tr...)
+					calls++
+					return nil
+				})
+				require.NoError(t, err)
+				require.Equal(t, want, got, "%s %s", gs, order)
+				require.Equal(t, qw, qg, "%s %s", gs, order)
+				require.Greater(t, calls, rows, "%s %s: trits come in runs", gs, order)
+			}
+		}
+		stop := errors.New("disk full")
+		calls := 0
+		_, err := TernarizeStream(in.w, cols, PerTensor, DefaultRecipe(), func([]int8) error {
+			calls++
+			if calls == 3 {
+				return stop
+			}
+			return nil
+		})
+		require.ErrorIs(t, err, stop)
+		require.Equal(t, 3, calls)
+	}
 }

@@ -192,12 +192,11 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 	cols := convert.Columns(t.Shape)
 	if a.Kind == convert.ActTernary && t.DType == "BF16" && len(raw) == 2*n {
 		// the common case: the kernels read the BF16 bytes in place
-		q.codes = grow(q.codes, n)
-		res, err := convert.TernarizeBF16(raw, cols, a.Granularity, opts.Recipe, q.codes)
+		out, err := ternary(e, a, convert.BF16Weights(raw), cols, opts)
 		if err != nil {
 			return sections{}, fail(err)
 		}
-		return q.ternary(e, a, res, opts), nil
+		return out, nil
 	}
 	q.floats = grow(q.floats, n)
 	if a.Kind == convert.ActTernary || a.Kind == convert.ActInt8 {
@@ -210,12 +209,11 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 	}
 	switch a.Kind {
 	case convert.ActTernary:
-		q.codes = grow(q.codes, n)
-		res, err := convert.Ternarize(q.floats, cols, a.Granularity, opts.Recipe, q.codes)
+		out, err := ternary(e, a, convert.Float32Weights(q.floats), cols, opts)
 		if err != nil {
 			return sections{}, fail(err)
 		}
-		return q.ternary(e, a, res, opts), nil
+		return out, nil
 	case convert.ActInt8:
 		q.codes = grow(q.codes, n)
 		scales, stats, err := convert.QuantizeInt8Rows(q.floats, cols, q.codes)
@@ -240,18 +238,26 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 	return sections{payload: out}, nil
 }
 
-// ternary encodes the trits in q.codes and fills the entry of a ternary
-// tensor.
-func (q *quantizeBuffers) ternary(e *manifest.Tensor, a convert.Action, res convert.Ternary, opts Options) sections {
+// ternary quantizes w, encoding the trits as they come, and fills the
+// entry of a ternary tensor.
+func ternary(e *manifest.Tensor, a convert.Action, w convert.Weights, cols int, opts Options) (sections, error) {
+	enc, err := NewTritEncoder(opts.Codec, w.Len())
+	if err != nil {
+		return sections{}, err
+	}
+	res, err := convert.TernarizeStream(w, cols, a.Granularity, opts.Recipe, enc.Write)
+	if err != nil {
+		return sections{}, err
+	}
+	payload, codec := enc.Finish()
 	g := a.Granularity
-	payload, codec := opts.Codec.EncodeTensor(make([]byte, 0, (len(q.codes)+3)/4), q.codes)
 	e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(codec), &g, res.Exact
 	e.Trits, e.Stats = &res.Counts, &res.Stats
 	if g.Kind == convert.GranTensor {
 		e.Scale = res.Scales[0]
-		return sections{payload: payload}
+		return sections{payload: payload}, nil
 	}
-	return sections{payload: payload, scales: appendFloat32s(nil, res.Scales)}
+	return sections{payload: payload, scales: appendFloat32s(nil, res.Scales)}, nil
 }
 
 func appendFloat32s(dst []byte, v []float32) []byte {

@@ -1,0 +1,40 @@
+package pack
+
+import (
+	"math/rand/v2"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+// Trits written in runs of any lengths give the payload and codec that
+// EncodeTensor gives for all of them at once, for every codec and every
+// length up to 300 (so every tail and every split of a byte's trits).
+func TestTritEncoderMatchesEncodeTensor(t *testing.T) {
+	rng := rand.New(rand.NewPCG(17, 18))
+	for _, c := range WriterCodecs {
+		for n := 0; n <= 300; n++ {
+			trits := randomTrits(rng, n)
+			if n%3 == 0 { // mostly zeros, so that auto picks entropy
+				for i := range trits {
+					if rng.IntN(10) > 0 {
+						trits[i] = 0
+					}
+				}
+			}
+			want, wantCodec := c.EncodeTensor(nil, trits)
+			e, err := NewTritEncoder(c, n)
+			require.NoError(t, err)
+			for rest := trits; len(rest) > 0; {
+				k := min(len(rest), rng.IntN(13))
+				require.NoError(t, e.Write(rest[:k]))
+				rest = rest[k:]
+			}
+			got, gotCodec := e.Finish()
+			require.Equal(t, wantCodec, gotCodec, "%s n=%d", c, n)
+			require.Equal(t, append([]byte{}, want...), append([]byte{}, got...), "%s n=%d", c, n)
+		}
+	}
+	_, err := NewTritEncoder("base4", 1)
+	require.ErrorIs(t, err, ErrCodec)
+}
