@@ -343,22 +343,6 @@ func (o *tritOut) done(t []int8) {
 	}
 }
 
-// TernarizeBF16 is Ternarize over little-endian BF16 weights (2 bytes
-// each), read as they are, without a float32 copy; the result is the same
-// as Ternarize's over their float32 values.
-func TernarizeBF16(raw []byte, cols int, g Granularity, r Recipe, trits []int8) (Ternary, error) {
-	if len(raw)%2 != 0 {
-		return Ternary{}, fmt.Errorf("ternarize: %d bytes of BF16", len(raw))
-	}
-	if raw == nil {
-		raw = []byte{}
-	}
-	if len(trits) != len(raw)/2 {
-		return Ternary{}, fmt.Errorf("ternarize: %d trits for %d weights", len(trits), len(raw)/2)
-	}
-	return ternarize(weights{bf16: raw}, cols, g, r, &tritOut{all: trits})
-}
-
 func ternarize(all weights, cols int, g Granularity, r Recipe, out *tritOut) (Ternary, error) {
 	n := all.len()
 	if err := r.Validate(); err != nil {

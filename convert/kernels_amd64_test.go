@@ -34,7 +34,7 @@ func TestTernarizeSameWithoutVectorKernels(t *testing.T) {
 					q, err := Ternarize(f, shape[1], g, r, trits)
 					require.NoError(t, err)
 					inPlace := make([]int8, len(w))
-					qb, err := TernarizeBF16(raw, shape[1], g, r, inPlace)
+					qb, err := ternarizeBF16(raw, shape[1], g, r, inPlace)
 					require.NoError(t, err)
 					require.Equal(t, trits, inPlace, "%v %v %+v trits from BF16 in place", shape, g, r)
 					require.Equal(t, q, qb, "%v %v %+v result from BF16 in place", shape, g, r)

@@ -2,6 +2,7 @@ package convert
 
 import (
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -147,8 +148,22 @@ func TestSumOrderChangesGamma(t *testing.T) {
 	require.Equal(t, (0x1p60+768)/1024, str)
 }
 
-// TernarizeBF16 reads BF16 weights in place and gives what Ternarize gives
-// over their float32 values, for every sum order, granularity and an exact
+// ternarizeBF16 collects the trits TernarizeStream hands over for BF16
+// weights read in place.
+func ternarizeBF16(raw []byte, cols int, g Granularity, r Recipe, trits []int8) (Ternary, error) {
+	got := trits[:0]
+	res, err := TernarizeStream(BF16Weights(raw), cols, g, r, func(t []int8) error {
+		got = append(got, t...)
+		return nil
+	})
+	if err == nil && len(got) != len(trits) {
+		err = fmt.Errorf("%d trits for %d weights", len(got), len(trits))
+	}
+	return res, err
+}
+
+// BF16 weights read in place give what Ternarize gives over their float32
+// values, for every sum order, granularity and an exact
 // tensor; a NaN is reported at its index.
 func TestTernarizeBF16MatchesFloat32(t *testing.T) {
 	rng := rand.New(rand.NewPCG(5, 6))
@@ -180,7 +195,7 @@ func TestTernarizeBF16MatchesFloat32(t *testing.T) {
 				want, got := make([]int8, len(w)), make([]int8, len(w))
 				qw, err := Ternarize(f, 40, g, r, want)
 				require.NoError(t, err)
-				qg, err := TernarizeBF16(raw, 40, g, r, got)
+				qg, err := ternarizeBF16(raw, 40, g, r, got)
 				require.NoError(t, err)
 				require.Equal(t, want, got, "%d weights %s %s", len(w), gs, order)
 				require.Equal(t, qw, qg, "%d weights %s %s", len(w), gs, order)
@@ -190,7 +205,7 @@ func TestTernarizeBF16MatchesFloat32(t *testing.T) {
 	w := kernelWeights(rng, 100, 0.05)
 	raw, _ := toBF16(w)
 	raw[2*37], raw[2*37+1] = 0xc0, 0x7f // a quiet NaN (IEEE 754 bfloat16, common practice)
-	_, err := TernarizeBF16(raw, 10, PerTensor, DefaultRecipe(), make([]int8, 100))
+	_, err := ternarizeBF16(raw, 10, PerTensor, DefaultRecipe(), make([]int8, 100))
 	var nf *NonFiniteError
 	require.ErrorAs(t, err, &nf)
 	require.Equal(t, 37, nf.Index)
