@@ -59,23 +59,55 @@
 	RET
 
 
+// ABS_SETUP loads the lanes: Y0..Y3 hold s[0:16] (at DI), Y4..Y7 hold
+// q[0:16] (at DX); ABS_ADD adds 16 float64 values |w| in Y8..Y11 (lanes
+// 0-3, 4-7, 8-11, 12-15) and their squares; ABS_DONE stores the lanes.
+#define ABS_SETUP \
+	MOVQ w+0(FP), SI; \
+	MOVQ n+8(FP), CX; \
+	MOVQ s+16(FP), DI; \
+	MOVQ q+24(FP), DX; \
+	VMOVUPD 0(DI), Y0; \
+	VMOVUPD 32(DI), Y1; \
+	VMOVUPD 64(DI), Y2; \
+	VMOVUPD 96(DI), Y3; \
+	VMOVUPD 0(DX), Y4; \
+	VMOVUPD 32(DX), Y5; \
+	VMOVUPD 64(DX), Y6; \
+	VMOVUPD 96(DX), Y7
+
+#define ABS_ADD \
+	VADDPD Y8, Y0, Y0; \
+	VADDPD Y9, Y1, Y1; \
+	VADDPD Y10, Y2, Y2; \
+	VADDPD Y11, Y3, Y3; \
+	VMULPD Y8, Y8, Y8; \
+	VMULPD Y9, Y9, Y9; \
+	VMULPD Y10, Y10, Y10; \
+	VMULPD Y11, Y11, Y11; \
+	VADDPD Y8, Y4, Y4; \
+	VADDPD Y9, Y5, Y5; \
+	VADDPD Y10, Y6, Y6; \
+	VADDPD Y11, Y7, Y7
+
+#define ABS_DONE \
+	VMOVUPD Y0, 0(DI); \
+	VMOVUPD Y1, 32(DI); \
+	VMOVUPD Y2, 64(DI); \
+	VMOVUPD Y3, 96(DI); \
+	VMOVUPD Y4, 0(DX); \
+	VMOVUPD Y5, 32(DX); \
+	VMOVUPD Y6, 64(DX); \
+	VMOVUPD Y7, 96(DX); \
+	VZEROUPPER; \
+	RET
+
 // func absLanes16AVX2(w *float32, n int, s, q *[16]float64)
 // Y0..Y3 hold s[0:16], Y4..Y7 hold q[0:16]; each step widens 16 weights to
 // float64, clears their sign bits and adds them (and their squares) to the
 // lanes of their index mod 16.
 TEXT ·absLanes16AVX2(SB), NOSPLIT, $0-32
-	MOVQ w+0(FP), SI
-	MOVQ n+8(FP), CX
-	MOVQ s+16(FP), DI
-	MOVQ q+24(FP), DX
-	VMOVUPD 0(DI), Y0
-	VMOVUPD 32(DI), Y1
-	VMOVUPD 64(DI), Y2
-	VMOVUPD 96(DI), Y3
-	VMOVUPD 0(DX), Y4
-	VMOVUPD 32(DX), Y5
-	VMOVUPD 64(DX), Y6
-	VMOVUPD 96(DX), Y7
+	ABS_SETUP
 	VPCMPEQQ Y15, Y15, Y15
 	VPSRLQ $1, Y15, Y15 // 0x7fff_ffff_ffff_ffff: clears the sign bit
 
@@ -88,32 +120,12 @@ abs16:
 	VANDPD Y15, Y9, Y9
 	VANDPD Y15, Y10, Y10
 	VANDPD Y15, Y11, Y11
-	VADDPD Y8, Y0, Y0
-	VADDPD Y9, Y1, Y1
-	VADDPD Y10, Y2, Y2
-	VADDPD Y11, Y3, Y3
-	VMULPD Y8, Y8, Y8
-	VMULPD Y9, Y9, Y9
-	VMULPD Y10, Y10, Y10
-	VMULPD Y11, Y11, Y11
-	VADDPD Y8, Y4, Y4
-	VADDPD Y9, Y5, Y5
-	VADDPD Y10, Y6, Y6
-	VADDPD Y11, Y7, Y7
+	ABS_ADD
 	ADDQ $64, SI
 	SUBQ $16, CX
 	JNZ  abs16
 
-	VMOVUPD Y0, 0(DI)
-	VMOVUPD Y1, 32(DI)
-	VMOVUPD Y2, 64(DI)
-	VMOVUPD Y3, 96(DI)
-	VMOVUPD Y4, 0(DX)
-	VMOVUPD Y5, 32(DX)
-	VMOVUPD Y6, 64(DX)
-	VMOVUPD Y7, 96(DX)
-	VZEROUPPER
-	RET
+	ABS_DONE
 
 // func quantMulAVX2(w *float32, trits *int8, n int, c *quantConsts, l *laneTotals)
 TEXT ·quantMulAVX2(SB), NOSPLIT, $0-40
@@ -173,18 +185,7 @@ divbf8:
 // func absLanes16BF16AVX2(w *byte, n int, s, q *[16]float64) is
 // absLanes16AVX2 over BF16 weights.
 TEXT ·absLanes16BF16AVX2(SB), NOSPLIT, $0-32
-	MOVQ w+0(FP), SI
-	MOVQ n+8(FP), CX
-	MOVQ s+16(FP), DI
-	MOVQ q+24(FP), DX
-	VMOVUPD 0(DI), Y0
-	VMOVUPD 32(DI), Y1
-	VMOVUPD 64(DI), Y2
-	VMOVUPD 96(DI), Y3
-	VMOVUPD 0(DX), Y4
-	VMOVUPD 32(DX), Y5
-	VMOVUPD 64(DX), Y6
-	VMOVUPD 96(DX), Y7
+	ABS_SETUP
 	VPCMPEQD Y15, Y15, Y15
 	VPSRLD $1, Y15, Y15 // 0x7fff_ffff: clears a float32's sign bit
 
@@ -201,32 +202,12 @@ absbf16:
 	VCVTPS2PD X13, Y10
 	VEXTRACTF128 $1, Y13, X13
 	VCVTPS2PD X13, Y11
-	VADDPD Y8, Y0, Y0
-	VADDPD Y9, Y1, Y1
-	VADDPD Y10, Y2, Y2
-	VADDPD Y11, Y3, Y3
-	VMULPD Y8, Y8, Y8
-	VMULPD Y9, Y9, Y9
-	VMULPD Y10, Y10, Y10
-	VMULPD Y11, Y11, Y11
-	VADDPD Y8, Y4, Y4
-	VADDPD Y9, Y5, Y5
-	VADDPD Y10, Y6, Y6
-	VADDPD Y11, Y7, Y7
+	ABS_ADD
 	ADDQ $32, SI
 	SUBQ $16, CX
 	JNZ  absbf16
 
-	VMOVUPD Y0, 0(DI)
-	VMOVUPD Y1, 32(DI)
-	VMOVUPD Y2, 64(DI)
-	VMOVUPD Y3, 96(DI)
-	VMOVUPD Y4, 0(DX)
-	VMOVUPD Y5, 32(DX)
-	VMOVUPD Y6, 64(DX)
-	VMOVUPD Y7, 96(DX)
-	VZEROUPPER
-	RET
+	ABS_DONE
 
 // func decodeBF16AVX2(dst *float32, src *byte, n int) (nonFinite bool)
 // A BF16 value is the top half of a float32; it is NaN or ±Inf exactly when

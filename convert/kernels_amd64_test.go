@@ -1,7 +1,6 @@
 package convert
 
 import (
-	"math"
 	"math/rand/v2"
 	"testing"
 
@@ -18,11 +17,7 @@ func TestTernarizeSameWithoutVectorKernels(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 4))
 	for _, shape := range [][2]int{{1, 1}, {3, 7}, {16, 33}, {64, 1000}, {7, 1536}} {
 		w := kernelWeights(rng, shape[0]*shape[1], 0.01)
-		raw := make([]byte, 2*len(w))
-		for i, v := range w {
-			b := math.Float32bits(v) >> 16
-			raw[2*i], raw[2*i+1] = byte(b), byte(b>>8)
-		}
+		raw, _ := bf16Of(w)
 		for _, g := range []Granularity{PerTensor, {Kind: GranRow}} {
 			for _, r := range []Recipe{DefaultRecipe(), recipeWith(ScaleQuotient, TieHalfAway)} {
 				run := func(vector bool) ([]int8, Ternary, []float32) {

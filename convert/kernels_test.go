@@ -28,6 +28,19 @@ func kernelWeights(rng *rand.Rand, n int, gamma float32) []float32 {
 	return w
 }
 
+// bf16Of is w as little-endian BF16 (the top half of each float32) and
+// those BF16 values widened back to float32.
+func bf16Of(w []float32) (raw []byte, widened []float32) {
+	raw = make([]byte, 2*len(w))
+	for i, v := range w {
+		b := math.Float32bits(v) >> 16
+		raw[2*i], raw[2*i+1] = byte(b), byte(b>>8)
+	}
+	widened = make([]float32, len(w))
+	decodeBF16Go(widened, raw)
+	return raw, widened
+}
+
 // The vector kernels give the same bits as their portable twins, for every
 // length (so every tail) and both scale rules and tie rules.
 func TestKernelsMatchPortable(t *testing.T) {
@@ -38,14 +51,8 @@ func TestKernelsMatchPortable(t *testing.T) {
 	for n := 0; n <= 600; n += 1 + n/40 {
 		w := kernelWeights(rng, n, 0.02)
 
-		// the same weights as BF16 (the top halves), read in place
-		half := make([]byte, 2*n)
-		for i, v := range w {
-			b := math.Float32bits(v) >> 16
-			half[2*i], half[2*i+1] = byte(b), byte(b>>8)
-		}
-		widened := make([]float32, n)
-		decodeBF16Go(widened, half)
+		// the same weights as BF16, read in place
+		half, widened := bf16Of(w)
 		for _, in := range []struct {
 			name string
 			w    weights
@@ -167,22 +174,12 @@ func ternarizeBF16(raw []byte, cols int, g Granularity, r Recipe, trits []int8) 
 // tensor; a NaN is reported at its index.
 func TestTernarizeBF16MatchesFloat32(t *testing.T) {
 	rng := rand.New(rand.NewPCG(5, 6))
-	toBF16 := func(w []float32) ([]byte, []float32) {
-		raw := make([]byte, 2*len(w))
-		for i, v := range w {
-			b := math.Float32bits(v) >> 16
-			raw[2*i], raw[2*i+1] = byte(b), byte(b>>8)
-		}
-		f := make([]float32, len(w))
-		decodeBF16Go(f, raw)
-		return raw, f
-	}
 	exact := make([]float32, 8*40)
 	for i := range exact {
 		exact[i] = float32(rng.IntN(3)-1) * 0.25
 	}
 	for _, w := range [][]float32{kernelWeights(rng, 8*40, 0.05), exact, {}} {
-		raw, f := toBF16(w)
+		raw, f := bf16Of(w)
 		for _, gs := range []string{"tensor", "row", "group:8"} {
 			g, err := ParseGranularity(gs)
 			require.NoError(t, err)
@@ -203,7 +200,7 @@ func TestTernarizeBF16MatchesFloat32(t *testing.T) {
 		}
 	}
 	w := kernelWeights(rng, 100, 0.05)
-	raw, _ := toBF16(w)
+	raw, _ := bf16Of(w)
 	raw[2*37], raw[2*37+1] = 0xc0, 0x7f // a quiet NaN (IEEE 754 bfloat16, common practice)
 	_, err := ternarizeBF16(raw, 10, PerTensor, DefaultRecipe(), make([]int8, 100))
 	var nf *NonFiniteError
@@ -217,11 +214,7 @@ func TestKernelsAcrossRuns(t *testing.T) {
 	rng := rand.New(rand.NewPCG(11, 12))
 	n := 3*kernelRun + 37
 	w := kernelWeights(rng, n, 0.3)
-	half := make([]byte, 2*n)
-	for i, v := range w {
-		b := math.Float32bits(v) >> 16
-		half[2*i], half[2*i+1] = byte(b), byte(b>>8)
-	}
+	half, _ := bf16Of(w)
 	for _, in := range []weights{{f32: w}, {bf16: half}} {
 		var s1, q1, s2, q2 [16]float64
 		absLanes16(in, &s1, &q1)
@@ -244,13 +237,7 @@ func TestTernarizeStream(t *testing.T) {
 	rng := rand.New(rand.NewPCG(13, 14))
 	const rows, cols = 9, 1030 // rows longer than a block, not a multiple of it
 	w := kernelWeights(rng, rows*cols, 0.02)
-	raw := make([]byte, 2*len(w))
-	for i, v := range w {
-		b := math.Float32bits(v) >> 16
-		raw[2*i], raw[2*i+1] = byte(b), byte(b>>8)
-	}
-	widened := make([]float32, len(w))
-	decodeBF16Go(widened, raw)
+	raw, widened := bf16Of(w)
 	for _, in := range []struct {
 		w   Weights
 		f32 []float32
