@@ -126,7 +126,7 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 	}
 	n := t.Len()
 	w := grow(&b.weights, n)
-	if err := b.decodeSource(st, e, raw, w); err != nil {
+	if err := decodeSource(st, e, raw, w); err != nil {
 		return fmt.Sprintf("decode source: %v", err)
 	}
 	cols := convert.Columns(e.Shape)

@@ -26,14 +26,15 @@ func grow[T any](s *[]T, n int) []T {
 	return (*s)[:n]
 }
 
-// decodeSource decodes the source bytes of the tensor entry e into w. When
-// the source tensor still has the recorded dtype it takes the fast path
-// (the vector BF16 decode); on any error there, and for a dtype that
-// changed, it decodes as recorded, so that what is reported does not
-// depend on the path: a non-finite weight is left for re-quantizing to
-// report.
-func (b *redoBuffers) decodeSource(st *convert.Tensor, e manifest.Tensor, raw []byte, w []float32) error {
-	if e.Kind != manifest.KindKept && st.DType == e.SourceDType && st.DecodeWeights(raw, w) == nil {
+// decodeSource decodes the source bytes of the tensor entry e into w, as
+// recorded (e.SourceDType). A BF16 source of a quantized tensor still in
+// that dtype takes the vector decode of Tensor.DecodeWeights; on any error
+// there (a NaN or ±Inf weight) it decodes as recorded, so that what is
+// reported does not depend on the path: a non-finite weight is left for
+// re-quantizing to report. Other dtypes gain nothing from DecodeWeights,
+// which decodes as recorded and then scans for non-finite values.
+func decodeSource(st *convert.Tensor, e manifest.Tensor, raw []byte, w []float32) error {
+	if e.Kind != manifest.KindKept && e.SourceDType == "BF16" && st.DType == "BF16" && st.DecodeWeights(raw, w) == nil {
 		return nil
 	}
 	return convert.DecodeFloat32(e.SourceDType, raw, w)

@@ -226,6 +226,42 @@ func TestAgainstCatchesChangedSourceWeight(t *testing.T) {
 	}
 }
 
+// A source tensor relabelled to another dtype of the same size, its bytes
+// unchanged, is still decoded as recorded: re-quantizing passes, and only
+// the source file's hash differs.
+func TestAgainstDecodesAsRecorded(t *testing.T) {
+	const name = "blocks.0.mlp.up.weight"
+	src, art, _ := bf16Fixture(t, t.TempDir(), pack.Base3)
+	raw, err := os.ReadFile(src)
+	require.NoError(t, err)
+	header := 8 + int(binary.LittleEndian.Uint64(raw))
+	at := strings.Index(string(raw[:header]), `"`+name+`"`)
+	require.GreaterOrEqual(t, at, 0)
+	d := strings.Index(string(raw[at:header]), `"BF16"`)
+	require.GreaterOrEqual(t, d, 0)
+	copy(raw[at+d:], `"F16" `) // same length: JSON allows the space
+	relabelled := filepath.Join(t.TempDir(), "src.safetensors")
+	require.NoError(t, os.WriteFile(relabelled, raw, 0o644))
+	s, err := convert.Open(relabelled)
+	require.NoError(t, err)
+	defer s.Close()
+	for _, st := range s.Tensors {
+		if st.Name == name {
+			require.Equal(t, "F16", st.DType, "the relabelled tensor")
+		}
+	}
+	rep, err := Run(art, Options{Source: s})
+	require.NoError(t, err)
+	c, ok := rep.Find(CheckRequantize, name)
+	require.True(t, ok)
+	require.True(t, c.OK, c.Detail)
+	var failed []string
+	for _, f := range rep.Failures() {
+		failed = append(failed, f.Name)
+	}
+	require.Equal(t, []string{CheckSourceFile}, failed)
+}
+
 // storedTrits returns the fresh trits themselves when the payload is their
 // encoding, and otherwise the payload's own trits, for every codec; a
 // payload no encoder writes is an error wrapping pack.ErrInvalidCode.
