@@ -1,7 +1,9 @@
 package verify
 
 import (
+	"bytes"
 	"encoding/binary"
+	"errors"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -260,6 +262,45 @@ func TestAgainstDecodesAsRecorded(t *testing.T) {
 		failed = append(failed, f.Name)
 	}
 	require.Equal(t, []string{CheckSourceFile}, failed)
+}
+
+// failingReaderAt fails every read that touches byte bad.
+type failingReaderAt struct {
+	data []byte
+	bad  int64
+}
+
+var errDevice = errors.New("device error")
+
+func (f failingReaderAt) ReadAt(p []byte, off int64) (int, error) {
+	if off <= f.bad && f.bad < off+int64(len(p)) {
+		return 0, errDevice
+	}
+	return bytes.NewReader(f.data).ReadAt(p, off)
+}
+
+// A section that cannot be read while re-quantizing fails that tensor's
+// check with an error naming the section and its offset.
+func TestAgainstNamesUnreadableSection(t *testing.T) {
+	const name = "blocks.0.mlp.up.weight"
+	src, art, _ := bf16Fixture(t, t.TempDir(), pack.Bits2)
+	b, err := os.ReadFile(art)
+	require.NoError(t, err)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	tensor, err := a.Tensor(name)
+	require.NoError(t, err)
+	a.Close()
+	sec := tensor.Entry.Section
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	rep, err := RunReaderAt("bad.tkart", failingReaderAt{b, sec.Offset + sec.Length/2}, int64(len(b)), Options{Source: s})
+	require.NoError(t, err)
+	c, ok := rep.Find(CheckRequantize, name)
+	require.True(t, ok)
+	require.False(t, c.OK)
+	require.Equal(t, fmt.Sprintf("section %q: byte %d: %v", name, sec.Offset, errDevice), c.Detail)
 }
 
 // storedTrits returns the fresh trits themselves when the payload is their
