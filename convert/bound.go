@@ -51,6 +51,9 @@ func newBoundConsts(sc float32) boundConsts {
 // −1 when no element has an excess above −Inf.
 func groupBoundExcess(w []float32, trits []int8, sc float32) (float64, int) {
 	c := newBoundConsts(sc)
+	if !useAVX2 { // without the kernel, one pass is quickest
+		return boundScan(w, trits, &c)
+	}
 	best, block := math.Inf(-1), -1
 	var maxima [boundChunk]float64
 	for b := 0; b < len(w); b += boundChunk * boundBlock {

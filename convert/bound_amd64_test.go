@@ -33,7 +33,7 @@ func TestBoundKernelMatchesPortable(t *testing.T) {
 	}
 }
 
-// Without the vector kernel, the portable twin gives the same results.
+// Without the vector kernel (one pass, no blocks) the results are the same.
 func TestTernaryBoundExcessMatchesScanPortable(t *testing.T) {
 	defer func(v bool) { useAVX2 = v }(useAVX2)
 	useAVX2 = false
