@@ -82,3 +82,22 @@ func BenchmarkEncodeBF16Bits(b *testing.B) {
 		sink += uint32(raw[0])
 	}
 }
+
+// The bound check of verify --against (the vector kernel where the
+// machine has it), and the per-element scan it must agree with.
+func BenchmarkTernaryBoundExcess(b *testing.B) { benchmarkBound(b, TernaryBoundExcess) }
+
+func BenchmarkTernaryBoundExcessScan(b *testing.B) { benchmarkBound(b, ternaryBoundExcessScalar) }
+
+func benchmarkBound(b *testing.B, bound func([]float32, []int8, []float32, int) (float64, int)) {
+	w := benchWeights(1 << 20)
+	trits := make([]int8, len(w))
+	q, err := Ternarize(w, 1024, Granularity{Kind: GranRow}, DefaultRecipe(), trits)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.SetBytes(int64(len(w)) * 4)
+	for b.Loop() {
+		bound(w, trits, q.Scales, 1024)
+	}
+}

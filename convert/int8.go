@@ -73,31 +73,6 @@ const (
 	Int8BoundTolerance    = 1.0 / (1 << 16)
 )
 
-// TernaryBoundExcess checks the per-element bound of RoundClip against the
-// dequantization scale s of each element's group: for |w| ≤ 1.5·s,
-// |w − s·t| ≤ s/2; beyond it, |w − s·t| = |w| − s. It returns the largest
-// amount, relative to s, by which an element breaks the bound (≤ 0 when
-// none does) and that element's index (−1 for an empty tensor).
-func TernaryBoundExcess(w []float32, trits []int8, scales []float32, groupSize int) (float64, int) {
-	var worst excessTracker
-	for g, sc := range scales {
-		s := float64(sc)
-		best, at := math.Inf(-1), -1
-		for i := g * groupSize; i < min((g+1)*groupSize, len(w)); i++ {
-			a := math.Abs(float64(w[i]))
-			d := math.Abs(float64(w[i]) - float64(sc*float32(trits[i])))
-			// without a branch on the data: beyond 1.5·s the bound is an equality
-			beyond := float64(b2i(a > 1.5*s))
-			e := (d-s/2)*(1-beyond) + math.Abs(d-(a-s))*beyond
-			if e > best {
-				best, at = e, i
-			}
-		}
-		worst.note(best, at, s)
-	}
-	return worst.result()
-}
-
 // Int8BoundExcess checks |w − s·q| ≤ s/2 (absmax/254) for per-row int8
 // codes, returning the largest excess relative to s and its index.
 func Int8BoundExcess(w []float32, q []int8, scales []float32, cols int) (float64, int) {

@@ -41,9 +41,10 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 	m := a.Manifest()
 	seen := make(map[string]bool, len(m.Tensors))
 	var worst worstBound
+	scratch := make([]redoBuffers, max(1, workers))
 	err := convert.WalkOrdered(src, convert.WalkOptions{Workers: workers},
-		func(_ int, st *convert.Tensor, raw []byte, sum [32]byte) (tensorVerdict, error) {
-			return checkTensor(a, m.Recipe, st, raw, sum), nil
+		func(worker int, st *convert.Tensor, raw []byte, sum [32]byte) (tensorVerdict, error) {
+			return checkTensor(a, m.Recipe, st, raw, sum, &scratch[worker]), nil
 		},
 		func(st *convert.Tensor, v tensorVerdict) error {
 			for _, c := range v.checks {
@@ -77,8 +78,9 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 	return nil
 }
 
-// checkTensor checks one source tensor against the artifact.
-func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, sum [32]byte) tensorVerdict {
+// checkTensor checks one source tensor against the artifact, with b the
+// worker's scratch space.
+func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, sum [32]byte, b *redoBuffers) tensorVerdict {
 	v := tensorVerdict{name: st.Name, at: -1}
 	add := func(name string, ok bool, format string, args ...any) {
 		c := Check{Name: name, Tensor: st.Name, OK: ok}
@@ -104,14 +106,14 @@ func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []b
 	if e.Kind == manifest.KindKept {
 		name = CheckKept
 	}
-	detail := redo(t, r, raw, &v)
+	detail := b.redo(a, t, r, st, raw, &v)
 	add(name, detail == "", "%s", detail)
 	return v
 }
 
 // redo repeats the tensor's action on the source bytes and returns what
 // differs, or "". It records the tensor's bound excess in v.
-func redo(t *pack.Tensor, r convert.Recipe, raw []byte, v *tensorVerdict) string {
+func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, st *convert.Tensor, raw []byte, v *tensorVerdict) string {
 	e := t.Entry
 	if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
 		// The source bytes hash to source_blake3 (checked by the caller) and
@@ -123,25 +125,24 @@ func redo(t *pack.Tensor, r convert.Recipe, raw []byte, v *tensorVerdict) string
 		return ""
 	}
 	n := t.Len()
-	w := make([]float32, n)
-	if err := convert.DecodeFloat32(e.SourceDType, raw, w); err != nil {
+	w := grow(&b.weights, n)
+	if err := decodeSource(st, e, raw, w); err != nil {
 		return fmt.Sprintf("decode source: %v", err)
 	}
 	cols := convert.Columns(e.Shape)
-	payload, err := t.Payload()
+	payload, err := b.readPayload(a, t)
 	if err != nil {
 		return err.Error()
 	}
 	switch e.Kind {
 	case manifest.KindTernary:
-		fresh := make([]int8, n)
+		fresh := grow(&b.fresh, n)
 		q, err := convert.Ternarize(w, cols, *e.Granularity, r, fresh)
 		if err != nil {
 			return fmt.Sprintf("re-quantize: %v", err)
 		}
-		packed := make([]int8, n)
-		// payload's hash is checked with the sections: decode it as read
-		if err := pack.Codec(e.Codec).Decode(packed, payload); err != nil {
+		packed, same, err := b.storedTrits(pack.Codec(e.Codec), payload, fresh)
+		if err != nil {
 			return fmt.Sprintf("section at byte %d: %v", e.Section.Offset, err)
 		}
 		scales, err := t.Scales()
@@ -153,22 +154,25 @@ func redo(t *pack.Tensor, r convert.Recipe, raw []byte, v *tensorVerdict) string
 		if d := diffScales(scales, q.Scales); d != "" {
 			return d
 		}
-		if d := diffCodes("trit", packed, fresh); d != "" {
-			return d
+		if !same { // equal payload bytes: the trits are fresh itself
+			if d := diffCodes("trit", packed, fresh); d != "" {
+				return d
+			}
 		}
 		if q.Exact != e.Exact {
 			return fmt.Sprintf("exact is %v, re-quantizing the source gives %v", e.Exact, q.Exact)
 		}
 		return diffStats(*e.Stats, q.Stats)
 	case manifest.KindInt8:
-		fresh := make([]int8, n)
+		fresh := grow(&b.fresh, n)
 		scales, stats, err := convert.QuantizeInt8Rows(w, cols, fresh)
 		if err != nil {
 			return fmt.Sprintf("re-quantize: %v", err)
 		}
-		packed := make([]int8, n)
-		for i, b := range payload {
-			packed[i] = int8(b)
+		packed := grow(&b.stored, n)
+		clear(packed)
+		for i, c := range payload[:min(len(payload), n)] {
+			packed[i] = int8(c)
 		}
 		stored, err := t.Scales()
 		if err != nil {
@@ -185,10 +189,11 @@ func redo(t *pack.Tensor, r convert.Recipe, raw []byte, v *tensorVerdict) string
 		return diffStats(*e.Stats, stats)
 	}
 	// kept, converted to another float dtype
-	want, err := convert.EncodeFloat32(nil, e.DType, w)
+	want, err := convert.EncodeFloat32(b.encoded[:0], e.DType, w)
 	if err != nil {
 		return err.Error()
 	}
+	b.encoded = want
 	if !bytes.Equal(payload, want) {
 		return fmt.Sprintf("%s bytes at artifact byte %d differ from the converted source", e.DType, e.Section.Offset)
 	}

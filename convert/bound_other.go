@@ -1,0 +1,5 @@
+//go:build !amd64
+
+package convert
+
+func blockMaximaAVX2(*float32, *int8, int, *boundConsts, *[boundChunk]float64) { panic("unreachable") }
