@@ -9,13 +9,20 @@ import "math"
 // none does) and that element's index, the first to attain it (−1 for an
 // empty tensor). Elements whose excess is NaN never count.
 func TernaryBoundExcess(w []float32, trits []int8, scales []float32, groupSize int) (float64, int) {
+	return TernaryBoundExcessOf(Float32Weights(w), trits, scales, groupSize)
+}
+
+// TernaryBoundExcessOf is TernaryBoundExcess over weights of any form
+// (BF16 read in place, without a float32 copy).
+func TernaryBoundExcessOf(ws Weights, trits []int8, scales []float32, groupSize int) (float64, int) {
+	w := ws.w
 	var worst excessTracker
 	for g, sc := range scales {
-		lo, hi := g*groupSize, min((g+1)*groupSize, len(w))
+		lo, hi := g*groupSize, min((g+1)*groupSize, w.len())
 		if lo >= hi {
 			continue
 		}
-		best, at := groupBoundExcess(w[lo:hi], trits[lo:hi], sc)
+		best, at := groupBoundExcess(w.slice(lo, hi), trits[lo:hi], sc)
 		if at >= 0 {
 			at += lo
 		}
@@ -49,16 +56,17 @@ func newBoundConsts(sc float32) boundConsts {
 // groupBoundExcess is the largest excess over the bound in one group (not
 // yet relative to the scale) and the first index attaining it, or −Inf and
 // −1 when no element has an excess above −Inf.
-func groupBoundExcess(w []float32, trits []int8, sc float32) (float64, int) {
+func groupBoundExcess(w weights, trits []int8, sc float32) (float64, int) {
 	c := newBoundConsts(sc)
 	if !useAVX2 { // without the kernel, one pass is quickest
 		return boundScan(w, trits, &c)
 	}
+	n := w.len()
 	best, block := math.Inf(-1), -1
 	var maxima [boundChunk]float64
-	for b := 0; b < len(w); b += boundChunk * boundBlock {
-		e := min(b+boundChunk*boundBlock, len(w))
-		for k, m := range blockMaxima(w[b:e], trits[b:e], &c, &maxima) {
+	for b := 0; b < n; b += boundChunk * boundBlock {
+		e := min(b+boundChunk*boundBlock, n)
+		for k, m := range blockMaxima(w.slice(b, e), trits[b:e], &c, &maxima) {
 			if m > best {
 				best, block = m, b+k*boundBlock
 			}
@@ -67,8 +75,8 @@ func groupBoundExcess(w []float32, trits []int8, sc float32) (float64, int) {
 	if block < 0 {
 		return best, -1
 	}
-	e := min(block+boundBlock, len(w))
-	best, at := boundScan(w[block:e], trits[block:e], &c)
+	e := min(block+boundBlock, n)
+	best, at := boundScan(w.slice(block, e), trits[block:e], &c)
 	return best, block + at
 }
 
@@ -76,24 +84,28 @@ func groupBoundExcess(w []float32, trits []int8, sc float32) (float64, int) {
 // elements of w (at most boundChunk runs; the last may be shorter) and
 // returns those maxima: NaN excesses are left out, −Inf stands for none,
 // and −0 reads as +0, so that every order of comparison gives the same bits.
-func blockMaxima(w []float32, trits []int8, c *boundConsts, out *[boundChunk]float64) []float64 {
-	trits = trits[:len(w)]
+func blockMaxima(w weights, trits []int8, c *boundConsts, out *[boundChunk]float64) []float64 {
+	trits = trits[:w.len()]
 	n := 0
 	if useAVX2 {
-		if n = len(w) &^ (boundBlock - 1); n > 0 {
-			blockMaximaAVX2(&w[0], &trits[0], n, c, out)
+		if n = w.len() &^ (boundBlock - 1); n > 0 {
+			if w.bf16 != nil {
+				blockMaximaBF16AVX2(&w.bf16[0], &trits[0], n, c, out)
+			} else {
+				blockMaximaAVX2(&w.f32[0], &trits[0], n, c, out)
+			}
 		}
 	}
-	blockMaximaGo(w[n:], trits[n:], c, out[n/boundBlock:])
-	return out[:(len(w)+boundBlock-1)/boundBlock]
+	blockMaximaGo(w.slice(n, w.len()), trits[n:], c, out[n/boundBlock:])
+	return out[:(w.len()+boundBlock-1)/boundBlock]
 }
 
 // blockMaximaGo is blockMaxima without vector units.
-func blockMaximaGo(w []float32, trits []int8, c *boundConsts, out []float64) {
-	for k := 0; k*boundBlock < len(w); k++ {
+func blockMaximaGo(w weights, trits []int8, c *boundConsts, out []float64) {
+	for k := 0; k*boundBlock < w.len(); k++ {
 		m := math.Inf(-1)
-		for i := k * boundBlock; i < min((k+1)*boundBlock, len(w)); i++ {
-			if e := boundExcess(w[i], trits[i], c); e > m {
+		for i := k * boundBlock; i < min((k+1)*boundBlock, w.len()); i++ {
+			if e := boundExcess(w.at(i), trits[i], c); e > m {
 				m = e
 			}
 		}
@@ -103,10 +115,10 @@ func blockMaximaGo(w []float32, trits []int8, c *boundConsts, out []float64) {
 
 // boundScan is the largest excess in w and the first index attaining it
 // (−1 when none is above −Inf).
-func boundScan(w []float32, trits []int8, c *boundConsts) (float64, int) {
+func boundScan(w weights, trits []int8, c *boundConsts) (float64, int) {
 	best, at := math.Inf(-1), -1
-	for i, v := range w {
-		if e := boundExcess(v, trits[i], c); e > best {
+	for i := range w.len() {
+		if e := boundExcess(w.at(i), trits[i], c); e > best {
 			best, at = e, i
 		}
 	}

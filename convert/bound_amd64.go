@@ -5,3 +5,8 @@ package convert
 //
 //go:noescape
 func blockMaximaAVX2(w *float32, trits *int8, n int, c *boundConsts, out *[boundChunk]float64)
+
+// blockMaximaBF16AVX2 is blockMaximaAVX2 over little-endian BF16 weights.
+//
+//go:noescape
+func blockMaximaBF16AVX2(w *byte, trits *int8, n int, c *boundConsts, out *[boundChunk]float64)

@@ -20,14 +20,22 @@ func TestBoundKernelMatchesPortable(t *testing.T) {
 	for n := 0; n <= 600; n++ {
 		for k, sc := range scales {
 			w, trits := boundCase(rng, n, 0.02, k%2 == 1)
+			raw, widened := bf16Of(w)
 			c := newBoundConsts(sc)
-			var out [boundChunk]float64
-			got := blockMaxima(w, trits, &c, &out)
-			want := make([]float64, (n+boundBlock-1)/boundBlock)
-			blockMaximaGo(w, trits, &c, want)
-			require.Len(t, got, len(want))
-			for k := range want {
-				require.Equal(t, math.Float64bits(want[k]), math.Float64bits(got[k]), "%d weights, scale %v, block %d: %v, want %v", n, sc, k, got[k], want[k])
+			for _, in := range []struct {
+				name    string
+				w, f32s weights
+			}{{"float32", weights{f32: w}, weights{f32: w}}, {"bf16", weights{bf16: raw}, weights{f32: widened}}} {
+				var out, viaF32 [boundChunk]float64
+				got := blockMaxima(in.w, trits, &c, &out)
+				want := make([]float64, (n+boundBlock-1)/boundBlock)
+				blockMaximaGo(in.w, trits, &c, want)
+				same := blockMaxima(in.f32s, trits, &c, &viaF32)
+				require.Len(t, got, len(want))
+				for k := range want {
+					require.Equal(t, math.Float64bits(want[k]), math.Float64bits(got[k]), "%d %s weights, scale %v, block %d: %v, want %v", n, in.name, sc, k, got[k], want[k])
+					require.Equal(t, math.Float64bits(same[k]), math.Float64bits(got[k]), "%d %s weights and their float32 values, scale %v, block %d", n, in.name, sc, k)
+				}
 			}
 		}
 	}

@@ -81,6 +81,12 @@ func checkBoundMatchesScan(t *testing.T) {
 			got, at := TernaryBoundExcess(w, trits, scales, sh.group)
 			require.Equal(t, math.Float64bits(want), math.Float64bits(got), "%+v non-finite %v: %v, want %v", sh, nonFinite, got, want)
 			require.Equal(t, wantAt, at, "%+v non-finite %v", sh, nonFinite)
+			// BF16 weights read in place, against the scan of their values
+			raw, widened := bf16Of(w)
+			want, wantAt = ternaryBoundExcessScalar(widened, trits, scales, sh.group)
+			got, at = TernaryBoundExcessOf(BF16Weights(raw), trits, scales, sh.group)
+			require.Equal(t, math.Float64bits(want), math.Float64bits(got), "%+v BF16 non-finite %v: %v, want %v", sh, nonFinite, got, want)
+			require.Equal(t, wantAt, at, "%+v BF16 non-finite %v", sh, nonFinite)
 		}
 	}
 }
