@@ -125,9 +125,16 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 		return ""
 	}
 	n := t.Len()
-	w := grow(&b.weights, n)
-	if err := decodeSource(st, e, raw, w); err != nil {
-		return fmt.Sprintf("decode source: %v", err)
+	var ws convert.Weights
+	var w []float32
+	if e.Kind == manifest.KindTernary && e.SourceDType == "BF16" && st.DType == "BF16" && len(raw) == 2*n {
+		ws = convert.BF16Weights(raw) // read in place by the kernels
+	} else {
+		w = grow(&b.weights, n)
+		if err := convert.DecodeFloat32(e.SourceDType, raw, w); err != nil {
+			return fmt.Sprintf("decode source: %v", err)
+		}
+		ws = convert.Float32Weights(w)
 	}
 	cols := convert.Columns(e.Shape)
 	payload, err := b.readPayload(a, t)
@@ -136,8 +143,7 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 	}
 	switch e.Kind {
 	case manifest.KindTernary:
-		fresh := grow(&b.fresh, n)
-		q, err := convert.Ternarize(w, cols, *e.Granularity, r, fresh)
+		fresh, q, err := b.requantize(ws, cols, *e.Granularity, r, pack.Codec(e.Codec))
 		if err != nil {
 			return fmt.Sprintf("re-quantize: %v", err)
 		}
@@ -149,7 +155,7 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 		if err != nil {
 			return err.Error()
 		}
-		v.excess, v.at = convert.TernaryBoundExcess(w, packed, scales, t.GroupSize())
+		v.excess, v.at = convert.TernaryBoundExcessOf(ws, packed, scales, t.GroupSize())
 		v.tol = convert.TernaryBoundTolerance
 		if d := diffScales(scales, q.Scales); d != "" {
 			return d

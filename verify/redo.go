@@ -4,7 +4,6 @@ import (
 	"bytes"
 
 	"ternkit/convert"
-	"ternkit/manifest"
 	"ternkit/pack"
 )
 
@@ -26,18 +25,27 @@ func grow[T any](s *[]T, n int) []T {
 	return (*s)[:n]
 }
 
-// decodeSource decodes the source bytes of the tensor entry e into w, as
-// recorded (e.SourceDType). A BF16 source of a quantized tensor still in
-// that dtype takes the vector decode of Tensor.DecodeWeights; on any error
-// there (a NaN or ±Inf weight) it decodes as recorded, so that what is
-// reported does not depend on the path: a non-finite weight is left for
-// re-quantizing to report. Other dtypes gain nothing from DecodeWeights,
-// which decodes as recorded and then scans for non-finite values.
-func decodeSource(st *convert.Tensor, e manifest.Tensor, raw []byte, w []float32) error {
-	if e.Kind != manifest.KindKept && e.SourceDType == "BF16" && st.DType == "BF16" && st.DecodeWeights(raw, w) == nil {
-		return nil
+// requantize quantizes the source weights again with the recorded recipe
+// and returns the fresh trits; for the fixed-length codecs it encodes them
+// into b.encoded as they come, while they are in cache.
+func (b *redoBuffers) requantize(w convert.Weights, cols int, g convert.Granularity, r convert.Recipe, c pack.Codec) ([]int8, convert.Ternary, error) {
+	fresh := grow(&b.fresh, w.Len())[:0]
+	var enc *pack.TritEncoder
+	if c == pack.Bits2 || c == pack.Base3 {
+		enc, _ = pack.NewTritEncoder(c, w.Len()) // a known codec: no error
 	}
-	return convert.DecodeFloat32(e.SourceDType, raw, w)
+	q, err := convert.TernarizeStream(w, cols, g, r, func(t []int8) error {
+		fresh = append(fresh, t...)
+		if enc != nil {
+			enc.Write(t)
+		}
+		return nil
+	})
+	b.encoded = nil
+	if enc != nil && err == nil {
+		b.encoded, _ = enc.Finish()
+	}
+	return fresh, q, err
 }
 
 // readPayload reads the tensor's section into the scratch space, without
@@ -56,17 +64,15 @@ func (b *redoBuffers) readPayload(a *pack.Artifact, t *pack.Tensor) ([]byte, err
 
 // storedTrits returns the trits the payload holds, and whether they are
 // fresh itself. For the fixed-length codecs, whose encoding of given trits
-// is one byte string, it encodes the fresh trits and compares bytes: equal
-// bytes mean the payload holds exactly fresh. Otherwise, and for the
+// is one byte string, it compares the payload with the fresh trits' bytes
+// (b.encoded, from requantize): equal bytes mean the payload holds exactly
+// fresh. Otherwise, and for the
 // entropy codec (whose compressed bytes may differ between library
 // versions), it decodes the payload, so that a difference is named trit by
 // trit.
 func (b *redoBuffers) storedTrits(c pack.Codec, payload []byte, fresh []int8) (trits []int8, same bool, err error) {
-	if c == pack.Bits2 || c == pack.Base3 {
-		b.encoded = c.Encode(b.encoded[:0], fresh)
-		if bytes.Equal(b.encoded, payload) {
-			return fresh, true, nil
-		}
+	if (c == pack.Bits2 || c == pack.Base3) && b.encoded != nil && bytes.Equal(b.encoded, payload) {
+		return fresh, true, nil
 	}
 	stored := grow(&b.stored, len(fresh))
 	if err := c.Decode(stored, payload); err != nil {

@@ -303,6 +303,40 @@ func TestAgainstNamesUnreadableSection(t *testing.T) {
 	require.Equal(t, fmt.Sprintf("section %q: byte %d: %v", name, sec.Offset, errDevice), c.Detail)
 }
 
+// requantize gives Ternarize's trits and result, for float32 and BF16
+// weights, and the fixed-length codecs' bytes of those trits.
+func TestRequantize(t *testing.T) {
+	rng := rand.New(rand.NewPCG(25, 26))
+	const rows, cols = 7, 300
+	raw := make([]byte, 2*rows*cols)
+	w := make([]float32, rows*cols)
+	for i := range w {
+		b := math.Float32bits(float32(rng.NormFloat64()*0.02)) >> 16
+		raw[2*i], raw[2*i+1] = byte(b), byte(b>>8)
+		w[i] = math.Float32frombits(b << 16)
+	}
+	r := convert.DefaultRecipe()
+	for _, g := range []convert.Granularity{convert.PerTensor, {Kind: convert.GranRow}} {
+		want := make([]int8, len(w))
+		q, err := convert.Ternarize(w, cols, g, r, want)
+		require.NoError(t, err)
+		for _, codec := range pack.Codecs {
+			for _, ws := range []convert.Weights{convert.Float32Weights(w), convert.BF16Weights(raw)} {
+				var b redoBuffers
+				fresh, got, err := b.requantize(ws, cols, g, r, codec)
+				require.NoError(t, err)
+				require.Equal(t, want, fresh, "%s %v", codec, g)
+				require.Equal(t, q, got, "%s %v", codec, g)
+				if codec == pack.Entropy {
+					require.Nil(t, b.encoded)
+				} else {
+					require.Equal(t, codec.Encode(nil, want), b.encoded, "%s %v", codec, g)
+				}
+			}
+		}
+	}
+}
+
 // storedTrits returns the fresh trits themselves when the payload is their
 // encoding, and otherwise the payload's own trits, for every codec; a
 // payload no encoder writes is an error wrapping pack.ErrInvalidCode.
@@ -315,6 +349,9 @@ func TestStoredTrits(t *testing.T) {
 				fresh[i] = int8(rng.IntN(3) - 1)
 			}
 			var b redoBuffers
+			if codec != pack.Entropy { // as requantize leaves them
+				b.encoded = append([]byte{}, codec.Encode(nil, fresh)...)
+			}
 			got, same, err := b.storedTrits(codec, codec.Encode(nil, fresh), fresh)
 			require.NoError(t, err)
 			require.Equal(t, codec != pack.Entropy, same, "%s: equal bytes need no decoding", codec)
