@@ -37,7 +37,7 @@ type File struct {
 // writebackStep is how many bytes handed to the kernel start their
 // writeback together, so that writing to the disk overlaps the work that
 // produces the file instead of all waiting for Commit's fsync.
-const writebackStep = 32 << 20
+const writebackStep = 8 << 20
 
 // Create starts writing path. The file gets mode perm on commit (the umask
 // does not apply). Call Abort (typically deferred) to clean up on error.
@@ -58,18 +58,26 @@ func Create(path string, perm fs.FileMode) (*File, error) {
 	return &File{path: path, perm: perm, tmp: tmp, bw: bufio.NewWriterSize(tmp, 1<<20)}, nil
 }
 
-// Write buffers p for the temporary file.
+// Write buffers p for the temporary file. A large p goes to the kernel in
+// steps, each one's writeback started as it is handed over, so that the
+// disk works while the rest is copied.
 func (f *File) Write(p []byte) (int, error) {
-	n, err := f.bw.Write(p)
-	f.n += int64(n)
-	if err != nil {
-		return n, fmt.Errorf("write %s: %w", f.path, err)
+	written := 0
+	for len(p) > 0 {
+		step := p[:min(len(p), writebackStep)]
+		n, err := f.bw.Write(step)
+		f.n += int64(n)
+		written += n
+		if err != nil {
+			return written, fmt.Errorf("write %s: %w", f.path, err)
+		}
+		if handed := f.n - int64(f.bw.Buffered()); handed-f.kicked >= writebackStep {
+			startWriteback(f.tmp, f.kicked, handed-f.kicked)
+			f.kicked = handed
+		}
+		p = p[n:]
 	}
-	if handed := f.n - int64(f.bw.Buffered()); handed-f.kicked >= writebackStep {
-		startWriteback(f.tmp, f.kicked, handed-f.kicked)
-		f.kicked = handed
-	}
-	return n, nil
+	return written, nil
 }
 
 // WriteAt overwrites bytes already written, at offset off, as a writer
