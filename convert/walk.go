@@ -14,10 +14,25 @@ type WalkOptions struct {
 	// Workers run the work function; fewer than 1 means 1.
 	Workers int
 	// Budget bounds the bytes of tensors read but not yet emitted; it is
-	// raised to the largest tensor so that one always fits. 0 means
-	// DefaultWalkBudget.
+	// raised to the largest tensor handed over whole so that one always
+	// fits. 0 means DefaultWalkBudget.
 	Budget int64
+	// InPieces, when set, chooses tensors to hand over in pieces of
+	// PieceSize bytes (the last one shorter) instead of whole, so that a
+	// tensor that needs no worker (one copied as it is) costs PieceSize of
+	// memory, not its length. Each piece goes to Piece on the caller's
+	// goroutine, in tensor order among the other tensors' emits, with the
+	// tensor's BLAKE3 given with the last piece (nil before). A piece
+	// belongs to the call.
+	InPieces func(t *Tensor) bool
+	Piece    func(t *Tensor, off int64, piece []byte, sum *[32]byte) error
+	// PieceSize is the size of those pieces; 0 means DefaultPieceSize.
+	PieceSize int64
 }
+
+// DefaultPieceSize is the size of the pieces a tensor chosen by
+// WalkOptions.InPieces is handed over in.
+const DefaultPieceSize = 16 << 20
 
 // DefaultWalkBudget is the default bound on tensor bytes in flight.
 const DefaultWalkBudget = 128 << 20
@@ -42,22 +57,36 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 	if budget <= 0 {
 		budget = DefaultWalkBudget
 	}
+	inPieces := func(t *Tensor) bool { return opts.InPieces != nil && opts.InPieces(t) }
+	pieceSize := opts.PieceSize
+	if pieceSize <= 0 {
+		pieceSize = DefaultPieceSize
+	}
+	budget = max(budget, pieceSize)
 	for _, t := range s.Tensors {
-		budget = max(budget, t.Length)
+		if !inPieces(t) {
+			budget = max(budget, t.Length)
+		}
 	}
 
+	// A job is a whole tensor, or one piece of a tensor handed over in
+	// pieces (piece set, off its offset in the tensor, last on the last).
 	type job struct {
-		index int
-		t     *Tensor
-		raw   []byte
-		err   error
+		index       int
+		t           *Tensor
+		raw         []byte
+		err         error
+		piece, last bool
+		off         int64
 	}
 	type done struct {
-		index  int
-		t      *Tensor
-		raw    []byte
-		result R
-		err    error
+		index       int
+		t           *Tensor
+		raw         []byte
+		result      R
+		err         error
+		piece, last bool
+		off         int64
 	}
 	jobs := make(chan job, workers)
 	results := make(chan done, workers)
@@ -81,29 +110,39 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		for i, of := range s.open {
 			path := s.Files[i].Path
 			for _, t := range of.tensors {
-				raw, ok := pool.get(t.Length, stop)
-				if !ok {
-					return
+				step, pieces := t.Length, false
+				if inPieces(t) {
+					step, pieces = pieceSize, true
 				}
-				j := job{index: index, t: t, raw: raw}
-				index++
-				if got, err := of.f.ReadAt(raw, t.Offset); got < len(raw) {
-					if err == nil || errors.Is(err, io.EOF) {
-						err = io.ErrUnexpectedEOF
+				for off := int64(0); ; off += step {
+					n := min(step, t.Length-off)
+					raw, ok := pool.get(n, stop)
+					if !ok {
+						return
 					}
-					j.err = &InputError{File: path, Tensor: t.Name, Offset: t.Offset + int64(got),
-						Err: fmt.Errorf("%w: read %d of %d bytes: %w", ErrTruncated, got, len(raw), err)}
-				} else if len(raw) > 0 {
-					pool.hold(raw) // until the file hasher is done with it
-					hashes <- fileBytes{file: i, raw: raw}
-				}
-				select {
-				case jobs <- j:
-				case <-stop:
-					return
-				}
-				if j.err != nil {
-					return
+					j := job{index: index, t: t, raw: raw, piece: pieces, off: off, last: off+n == t.Length}
+					index++
+					if got, err := of.f.ReadAt(raw, t.Offset+off); got < len(raw) {
+						if err == nil || errors.Is(err, io.EOF) {
+							err = io.ErrUnexpectedEOF
+						}
+						j.err = &InputError{File: path, Tensor: t.Name, Offset: t.Offset + off + int64(got),
+							Err: fmt.Errorf("%w: read %d of %d bytes: %w", ErrTruncated, got, len(raw), err)}
+					} else if len(raw) > 0 {
+						pool.hold(raw) // until the file hasher is done with it
+						hashes <- fileBytes{file: i, raw: raw}
+					}
+					select {
+					case jobs <- j:
+					case <-stop:
+						return
+					}
+					if j.err != nil {
+						return
+					}
+					if j.last {
+						break
+					}
 				}
 			}
 			end := of.dataStart + of.dataLen
@@ -126,8 +165,8 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		go func() {
 			defer workersDone.Done()
 			for j := range jobs {
-				d := done{index: j.index, t: j.t, raw: j.raw, err: j.err}
-				if d.err == nil {
+				d := done{index: j.index, t: j.t, raw: j.raw, err: j.err, piece: j.piece, last: j.last, off: j.off}
+				if d.err == nil && !j.piece {
 					d.result, d.err = work(w, j.t, j.raw, blake3.Sum256(j.raw))
 				}
 				select {
@@ -143,10 +182,24 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		close(results)
 	}()
 
-	// the sequencer: emit in tensor order
+	// the sequencer: emit in tensor order; a tensor in pieces is hashed
+	// here, piece by piece, as its pieces come in order
 	pending := map[int]done{}
 	next := 0
 	var firstErr error
+	var pieceHash *blake3.Hasher
+	emitPiece := func(r done) error {
+		if r.off == 0 {
+			pieceHash = blake3.New()
+		}
+		pieceHash.Write(r.raw)
+		var sum *[32]byte
+		if r.last {
+			sum = new([32]byte)
+			pieceHash.Sum(sum[:0])
+		}
+		return opts.Piece(r.t, r.off, r.raw, sum)
+	}
 	for d := range results {
 		pending[d.index] = d
 		for firstErr == nil {
@@ -160,7 +213,13 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 				firstErr = r.err
 				break
 			}
-			if err := emit(r.t, r.result); err != nil {
+			var err error
+			if r.piece {
+				err = emitPiece(r)
+			} else {
+				err = emit(r.t, r.result)
+			}
+			if err != nil {
 				firstErr = err
 				break
 			}

@@ -36,9 +36,29 @@ func TestWalkOrdered(t *testing.T) {
 			var mu sync.Mutex
 			seen := map[string]int{}
 			var order []string
-			err = WalkOrdered(s, WalkOptions{Workers: workers, Budget: budget},
+			// "big" and "empty" come in pieces of 7,000 bytes (the last shorter)
+			var pieced []byte
+			opts := WalkOptions{Workers: workers, Budget: budget, PieceSize: 7000,
+				InPieces: func(tn *Tensor) bool { return tn.Name == "big" || tn.Name == "empty" },
+				Piece: func(tn *Tensor, off int64, p []byte, sum *[32]byte) error {
+					require.Equal(t, int64(len(pieced)), off, tn.Name)
+					require.True(t, len(p) == 7000 || sum != nil, "%s: a short piece is the last", tn.Name)
+					pieced = append(pieced, p...)
+					if sum != nil {
+						require.Equal(t, tn.Length, int64(len(pieced)), tn.Name)
+						require.Equal(t, blake3.Sum256(pieced), *sum, tn.Name)
+						mu.Lock()
+						seen[tn.Name]++
+						mu.Unlock()
+						order = append(order, tn.Name)
+						pieced = nil
+					}
+					return nil
+				}}
+			err = WalkOrdered(s, opts,
 				func(w int, tn *Tensor, raw []byte, sum [32]byte) (string, error) {
 					require.True(t, w >= 0 && w < workers)
+					require.NotContains(t, []string{"big", "empty"}, tn.Name, "in pieces, not whole")
 					require.Equal(t, blake3.Sum256(raw), sum, tn.Name)
 					mu.Lock()
 					seen[tn.Name]++

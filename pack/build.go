@@ -103,7 +103,39 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		entry manifest.Tensor
 		out   sections
 	}
-	err = convert.WalkOrdered(src, convert.WalkOptions{Workers: workers, Budget: opts.Budget},
+	// a large tensor kept as it is comes in pieces, written as they come:
+	// its bytes cost a piece of memory, not their length
+	var piece struct {
+		entry  manifest.Tensor
+		chunks *chunkHasher
+	}
+	walk := convert.WalkOptions{Workers: workers, Budget: opts.Budget, PieceSize: keptPieceSize,
+		InPieces: func(t *convert.Tensor) bool { return t.Length > keptPieceSize && keptAsIs(actions[t], t) },
+		Piece: func(t *convert.Tensor, off int64, p []byte, sum *[32]byte) error {
+			if off == 0 {
+				if err := w.pad(); err != nil {
+					return err
+				}
+				piece.entry = manifest.Tensor{Name: t.Name, Shape: t.Shape, SourceDType: t.DType,
+					Kind: manifest.KindKept, Codec: manifest.CodecRaw, DType: t.DType,
+					Section: manifest.Section{Offset: w.off, Length: t.Length}}
+				piece.chunks = &chunkHasher{}
+			}
+			if err := w.write(p); err != nil {
+				return err
+			}
+			piece.chunks.Write(p)
+			advance(int64(len(p)))
+			if sum != nil {
+				e := piece.entry
+				e.SourceBLAKE3 = manifest.HexHash(*sum)
+				e.Section.BLAKE3 = e.SourceBLAKE3 // the source's bytes, hashed already
+				e.Section.Chunks = piece.chunks.finish(t.Length)
+				m.Tensors = append(m.Tensors, e)
+			}
+			return nil
+		}}
+	err = convert.WalkOrdered(src, walk,
 		func(worker int, t *convert.Tensor, raw []byte, sum [32]byte) (packed, error) {
 			e := manifest.Tensor{
 				Name:         t.Name,
@@ -184,7 +216,7 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 		return &convert.InputError{File: t.File, Tensor: t.Name, Offset: off, Err: err}
 	}
 	target := a.KeptDType(t.DType)
-	if a.Kind == convert.ActKeep || (a.Kind != convert.ActTernary && a.Kind != convert.ActInt8 && target == t.DType) {
+	if keptAsIs(a, t) {
 		e.Kind, e.Codec, e.DType = manifest.KindKept, manifest.CodecRaw, t.DType
 		return sections{payload: raw}, nil
 	}
@@ -258,6 +290,53 @@ func ternary(e *manifest.Tensor, a convert.Action, w convert.Weights, cols int, 
 		return sections{payload: payload}, nil
 	}
 	return sections{payload: payload, scales: appendFloat32s(nil, res.Scales)}, nil
+}
+
+// keptAsIs reports whether action a keeps tensor t's bytes as they are.
+func keptAsIs(a convert.Action, t *convert.Tensor) bool {
+	return a.Kind == convert.ActKeep ||
+		(a.Kind != convert.ActTernary && a.Kind != convert.ActInt8 && a.KeptDType(t.DType) == t.DType)
+}
+
+// keptPieceSize is the piece a large tensor kept as it is comes in (a
+// variable for tests); a multiple of manifest.ChunkSize is quickest.
+var keptPieceSize int64 = convert.DefaultPieceSize
+
+// chunkHasher gathers the BLAKE3 of each manifest.ChunkSize piece of a
+// section from bytes written in runs of any length.
+type chunkHasher struct {
+	h      *blake3.Hasher
+	n      int64 // bytes in the current piece
+	chunks []string
+}
+
+func (c *chunkHasher) Write(p []byte) {
+	for len(p) > 0 {
+		if c.h == nil {
+			c.h = blake3.New()
+		}
+		k := min(int64(len(p)), manifest.ChunkSize-c.n)
+		c.h.Write(p[:k])
+		c.n += k
+		p = p[k:]
+		if c.n == manifest.ChunkSize {
+			c.chunks = append(c.chunks, manifest.HexHash([32]byte(c.h.Sum(nil))))
+			c.h, c.n = nil, 0
+		}
+	}
+}
+
+// finish returns the piece hashes of a section of length bytes, none for a
+// section of at most one piece (pack/FORMAT.md, "Hashing").
+func (c *chunkHasher) finish(length int64) []string {
+	if manifest.NumChunks(length) == 0 {
+		return nil
+	}
+	if c.n > 0 {
+		c.chunks = append(c.chunks, manifest.HexHash([32]byte(c.h.Sum(nil))))
+		c.h, c.n = nil, 0
+	}
+	return c.chunks
 }
 
 func appendFloat32s(dst []byte, v []float32) []byte {

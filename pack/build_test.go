@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"errors"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -385,4 +386,43 @@ func TestBuildPolicyErrorLeavesNothing(t *testing.T) {
 	entries, err := os.ReadDir(dir)
 	require.NoError(t, err)
 	require.Len(t, entries, 1)
+}
+
+// A large tensor kept as it is, handed over in pieces and written as they
+// come, gives the bytes of a build that takes it whole: pieces of a length
+// that is no multiple of the 4 MiB hash pieces, a tensor of 9 MiB and a
+// little (so three hash pieces, the last short), beside quantized tensors,
+// and the artifact reads back with the tensor's bytes.
+func TestBuildKeptTensorInPieces(t *testing.T) {
+	dir := t.TempDir()
+	rng := rand.New(rand.NewPCG(31, 32))
+	big := make([]byte, 9<<20+12345)
+	for i := range big {
+		big[i] = byte(rng.Uint32())
+	}
+	src := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: f32Bytes(gaussian(rng, 128))},
+		{Name: "embed.tokens.weight", DType: "U8", Shape: []int64{int64(len(big))}, Data: big},
+		{Name: "blocks.1.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: f32Bytes(gaussian(rng, 128))},
+	}, nil))
+	whole := filepath.Join(dir, "whole"+Extension)
+	buildWith(t, src, whole, Options{})
+	defer func(n int64) { keptPieceSize = n }(keptPieceSize)
+	keptPieceSize = 3<<20 + 7
+	for _, workers := range []int{1, 2} {
+		pieces := filepath.Join(dir, fmt.Sprintf("pieces-%d%s", workers, Extension))
+		buildWith(t, src, pieces, Options{Workers: workers, Budget: 1})
+		require.True(t, bytes.Equal(readFile(t, whole), readFile(t, pieces)), "workers %d", workers)
+	}
+	a, err := Open(whole)
+	require.NoError(t, err)
+	defer a.Close()
+	tn, err := a.Tensor("embed.tokens.weight")
+	require.NoError(t, err)
+	require.Len(t, tn.Entry.Section.Chunks, 3)
+	got, err := tn.Payload()
+	require.NoError(t, err)
+	require.True(t, bytes.Equal(big, got))
+	require.NoError(t, a.Check())
 }

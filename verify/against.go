@@ -42,18 +42,36 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 	seen := make(map[string]bool, len(m.Tensors))
 	var worst worstBound
 	scratch := make([]redoBuffers, max(1, workers))
-	err := convert.WalkOrdered(src, convert.WalkOptions{Workers: workers},
+	record := func(st *convert.Tensor, v tensorVerdict) {
+		for _, c := range v.checks {
+			rep.add(c.Name, c.Tensor, c.OK, "%s", c.Detail)
+		}
+		if v.inArtifact {
+			seen[st.Name] = true
+		}
+		worst.note(v.name, v.excess, v.tol, v.at)
+	}
+	// a large tensor the artifact keeps as it is is compared by its hash
+	// alone: it comes in pieces, hashed as they come
+	walk := convert.WalkOptions{Workers: workers, PieceSize: keptPieceSize,
+		InPieces: func(st *convert.Tensor) bool {
+			t, err := a.Tensor(st.Name)
+			return err == nil && st.Length > keptPieceSize && st.DType == t.Entry.SourceDType &&
+				t.Entry.Kind == manifest.KindKept && t.Entry.DType == t.Entry.SourceDType
+		},
+		Piece: func(st *convert.Tensor, _ int64, p []byte, sum *[32]byte) error {
+			advance(int64(len(p)))
+			if sum != nil {
+				record(st, checkTensor(a, m.Recipe, st, nil, *sum, &redoBuffers{}))
+			}
+			return nil
+		}}
+	err := convert.WalkOrdered(src, walk,
 		func(worker int, st *convert.Tensor, raw []byte, sum [32]byte) (tensorVerdict, error) {
 			return checkTensor(a, m.Recipe, st, raw, sum, &scratch[worker]), nil
 		},
 		func(st *convert.Tensor, v tensorVerdict) error {
-			for _, c := range v.checks {
-				rep.add(c.Name, c.Tensor, c.OK, "%s", c.Detail)
-			}
-			if v.inArtifact {
-				seen[st.Name] = true
-			}
-			worst.note(v.name, v.excess, v.tol, v.at)
+			record(st, v)
 			advance(st.Length)
 			return nil
 		})
@@ -77,6 +95,10 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 	checkSourceFiles(rep, m, src)
 	return nil
 }
+
+// keptPieceSize is the piece a large source tensor the artifact keeps as
+// it is comes in (a variable for tests).
+var keptPieceSize int64 = convert.DefaultPieceSize
 
 // checkTensor checks one source tensor against the artifact, with b the
 // worker's scratch space.

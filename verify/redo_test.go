@@ -373,3 +373,54 @@ func TestStoredTrits(t *testing.T) {
 		}
 	}
 }
+
+// A large source tensor the artifact keeps as it is, taken in pieces and
+// hashed as they come, gets the report it gets whole: passing, and with one
+// byte changed (the source hash and the file hash fail, naming the same
+// bytes).
+func TestAgainstKeptTensorInPieces(t *testing.T) {
+	dir := t.TempDir()
+	rng := rand.New(rand.NewPCG(41, 42))
+	big := make([]byte, 5<<20+999)
+	for i := range big {
+		big[i] = byte(rng.Uint32())
+	}
+	q := make([]byte, 2*8*40)
+	for i := range 8 * 40 {
+		binary.LittleEndian.PutUint16(q[2*i:], convert.Float32ToBF16(float32(rng.NormFloat64()*0.02)))
+	}
+	src := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "embed.tokens.weight", DType: "U8", Shape: []int64{int64(len(big))}, Data: big},
+		{Name: "blocks.0.attn.q.weight", DType: "BF16", Shape: []int64{8, 40}, Data: q},
+	}, nil))
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	art := filepath.Join(dir, "a.tkart")
+	_, err = pack.Build(s, art, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe()})
+	require.NoError(t, err)
+	s.Close()
+
+	raw, err := os.ReadFile(src)
+	require.NoError(t, err)
+	at := bytes.Index(raw, big[:64])
+	require.GreaterOrEqual(t, at, 0)
+	raw[at+len(big)-3] ^= 0x10 // in the last piece
+	changed := filepath.Join(dir, "changed.safetensors")
+	require.NoError(t, os.WriteFile(changed, raw, 0o644))
+
+	defer func(n int64) { keptPieceSize = n }(keptPieceSize)
+	for _, source := range []string{src, changed} {
+		keptPieceSize = convert.DefaultPieceSize
+		whole := runAgainst(t, art, source)
+		keptPieceSize = 1<<20 + 3
+		pieces := runAgainst(t, art, source)
+		require.Equal(t, whole.Checks, pieces.Checks, source)
+		require.Equal(t, source == src, pieces.OK(), "%s: %+v", source, pieces.Failures())
+		if source == changed {
+			c, ok := pieces.Find(CheckSourceHash, "embed.tokens.weight")
+			require.True(t, ok)
+			require.False(t, c.OK)
+		}
+	}
+}
