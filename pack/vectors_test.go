@@ -256,6 +256,17 @@ type vectorSource struct {
 	tensors []convert.WriteTensor
 	floats  map[string][]float32
 	actions map[string]string // policy action by tensor name; floats default to ternary
+	// recipe is the recipe built with; the zero value is the default recipe
+	// without the sum key (sequential order, format 1.0), as the vectors of
+	// 1.0 and 1.1 were written
+	recipe convert.Recipe
+}
+
+func (s *vectorSource) recipeOrDefault() convert.Recipe {
+	if s.recipe == (convert.Recipe{}) {
+		return sequentialRecipe()
+	}
+	return s.recipe
 }
 
 func (s *vectorSource) float(name string, shape []int64, v []float32) {
@@ -295,7 +306,7 @@ func (s *vectorSource) build(t *testing.T, codec Codec) ([]byte, []vectorTensor)
 		policy.Rules = append(policy.Rules, r)
 	}
 	dst := filepath.Join(dir, "v"+Extension)
-	m, err := Build(f, dst, Options{Codec: codec, Recipe: convert.DefaultRecipe(), Policy: policy, Tool: "ternkit vectors"})
+	m, err := Build(f, dst, Options{Codec: codec, Recipe: s.recipeOrDefault(), Policy: policy, Tool: "ternkit vectors"})
 	require.NoError(t, err)
 	var want []vectorTensor
 	for i, wt := range s.tensors {
@@ -344,7 +355,7 @@ func (s *vectorSource) expect(t *testing.T, wt convert.WriteTensor, e manifest.T
 	switch a.Kind {
 	case convert.ActTernary:
 		kind = manifest.KindTernary
-		q, err := convert.Ternarize(w, cols, a.Granularity, convert.DefaultRecipe(), codes)
+		q, err := convert.Ternarize(w, cols, a.Granularity, s.recipeOrDefault(), codes)
 		require.NoError(t, err)
 		vt.Granularity, vt.Exact, vt.Trits = a.Granularity.String(), q.Exact, tritString(codes)
 		if a.Granularity.Kind == convert.GranTensor {
@@ -449,6 +460,13 @@ func writeVectors(t *testing.T) {
 	require.True(t, wantExact[0].Exact && wantExact[1].Exact, "the source is already ternary")
 	add(vector{File: "ok-exact.tkart", Expect: "ok", Version: "1.0", Note: "tensors already c × {-1, 0, +1}: exact, scale 0.25 (tensor) and 3, recipe's, 0.5 (rows)", Tensors: wantExact}, okExact)
 
+	// gamma summed in 16 strided partial sums: the recipe's sum key, 1.2
+	str := &vectorSource{recipe: convert.DefaultRecipe()}
+	str.float("strided.w", []int64{4, 10}, gaussian(newTestRand(34), 40))
+	okStrided, wantStrided := str.build(t, Base3)
+	add(vector{File: "ok-strided16.tkart", Expect: "ok", Version: "1.2", Note: `recipe with "sum": "strided16" (gamma summed in 16 strided partial sums), so format 1.2`, Tensors: wantStrided}, okStrided)
+	stridedPath := path("strided", okStrided)
+
 	bits2Path, base3Path, entropyPath := path("bits2", okBits2), path("base3", okBase3), filepath.Join(dir, "entropy")
 	rowPath, int8Path, convPath := path("row", okRow), path("int8", okInt8), path("conv", okConv)
 
@@ -498,6 +516,12 @@ func writeVectors(t *testing.T) {
 	}
 	redo("bad-minor-for-codec.tkart", failVersion, "entropy sections in a file that says version 1.0", entropyPath, func(d *draft) { d.minor = 0 })
 	redo("bad-minor-above-features.tkart", failStructure, "version 1.1 for a file using only 1.0 features", bits2Path, func(d *draft) { d.minor = 1 })
+	redo("bad-minor-for-sum.tkart", failVersion, `the recipe's "sum" key (format 1.2) in a file that says version 1.1`, stridedPath, func(d *draft) { d.minor = 1 })
+	redo("bad-sum-order.tkart", failManifest, `recipe "sum": "pairwise", an order this version does not define`, stridedPath, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`"sum":"strided16"`), []byte(`"sum":"pairwise"`), 1)
+		}
+	})
 	redo("bad-unknown-key.tkart", failManifest, `manifest tensor entry with an unknown key "note"`, bits2Path, func(d *draft) {
 		d.json = func(b []byte) []byte {
 			return bytes.Replace(b, []byte(`{"name":"layer.w",`), []byte(`{"name":"layer.w","note":"x",`), 1)
