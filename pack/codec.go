@@ -79,7 +79,11 @@ func encodeDigits(dst []byte, trits []int8, per, radix int) []byte {
 	// a time: the code of a trit byte t is (t & 3) ^ ((t >> 1) & 1)
 	// (0 → 0, 1 → 1, −1 = 0xff → 2), for all eight bytes at once
 	j := 0
+	if useAVX2 { // the vector encoders first, the rest below
+		j = encodeVector(out, trits, per)
+	}
 	if per == 4 {
+		j /= 2 // the loop counts 8-trit steps of 2 bytes
 		// 8 trits → 2 bytes, by the multiplication below with m = 64, 16, 4,
 		// 1: byte k of the product sums d_i·m_(k−i), at most 170, so none
 		// carries, and bytes 3 and 7 are d0 + 4·d1 + 16·d2 + 64·d3 and the
@@ -117,6 +121,24 @@ func encodeDigits(dst []byte, trits []int8, per, radix int) []byte {
 		out[full] = byte(b)
 	}
 	return dst
+}
+
+// encodeVector writes as many full bytes of out as the vector encoders
+// take at the start of trits (bits2: 32 trits at a time; base3: 20, with
+// 6 trits to spare after them) and returns how many it wrote.
+func encodeVector(out []byte, trits []int8, per int) int {
+	if per == 4 {
+		n := len(trits) &^ 31
+		if n > 0 {
+			encodeBits2AVX2(&out[0], &trits[0], n)
+		}
+		return n / 4
+	}
+	n := max(0, len(trits)-6) / 20 * 20
+	if n > 0 {
+		encodeBase3AVX2(&out[0], &trits[0], n)
+	}
+	return n / 5
 }
 
 // wordCodes is codeOf for each byte of a word of trits.
