@@ -281,7 +281,7 @@ func ternary(e *manifest.Tensor, a convert.Action, w convert.Weights, cols int, 
 	if err != nil {
 		return sections{}, err
 	}
-	payload, codec := enc.Finish()
+	payload, codec := enc.Finish(res.Counts)
 	g := a.Granularity
 	e.Kind, e.Codec, e.Granularity, e.Exact = manifest.KindTernary, string(codec), &g, res.Exact
 	e.Trits, e.Stats = &res.Counts, &res.Stats

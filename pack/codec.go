@@ -4,9 +4,11 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
+	"math"
 	"strings"
 	"unsafe"
 
+	"ternkit/convert"
 	"ternkit/manifest"
 )
 
@@ -19,8 +21,9 @@ const (
 	Bits2   Codec = manifest.CodecBits2   // 4 trits per byte, decoded by table
 	Base3   Codec = manifest.CodecBase3   // 5 trits per byte, 1.6 bits per trit
 	Entropy Codec = manifest.CodecEntropy // the base3 payload in a zstd frame
-	// Auto is a writer option, never stored: per tensor, the smaller of
-	// Base3 and Entropy (Base3 on a tie, as it decodes faster).
+	// Auto is a writer option, never stored: per tensor, Entropy when the
+	// trit counts leave room for it and its frame is smaller, else Base3
+	// (also on a tie, as it decodes faster); see autoEntropy.
 	Auto Codec = "auto"
 )
 
@@ -178,18 +181,52 @@ func (c Codec) Encode(dst []byte, trits []int8) []byte {
 }
 
 // EncodeTensor appends the payload of trits to dst and returns the codec
-// stored: c itself, or for Auto the smaller of Base3 and Entropy.
+// stored: c itself, or for Auto Base3 or Entropy as autoEntropy decides.
 func (c Codec) EncodeTensor(dst []byte, trits []int8) ([]byte, Codec) {
 	if c != Auto {
 		return c.Encode(dst, trits), c
 	}
 	start := len(dst)
 	dst = encodeBase3(dst, trits)
-	frame := appendEntropyFrame(nil, dst[start:])
-	if len(frame) < len(dst)-start {
+	var counts convert.TritCounts
+	counts.Count(trits)
+	if frame, ok := autoEntropy(dst[start:], counts); ok {
 		return append(dst[:start], frame...), Entropy
 	}
 	return dst, Base3
+}
+
+// autoEntropy is Auto's choice for a tensor whose base3 payload is digits
+// and whose trits are counted by counts: the entropy frame when it is
+// smaller, tried only when the counts leave room for it, that is when the
+// trits' order-0 entropy is at least 2% below base3's 1.6 bits per trit.
+// Trits of Gaussian weights (about 31% zeros, 1.583 bits) leave 1% at
+// most, which a frame's own bytes take back: their trial compression is
+// skipped.
+func autoEntropy(digits []byte, counts convert.TritCounts) ([]byte, bool) {
+	if countsEntropy(counts) > autoEntropyBelow {
+		return nil, false
+	}
+	frame := appendEntropyFrame(nil, digits)
+	return frame, len(frame) < len(digits)
+}
+
+// autoEntropyBelow is the order-0 entropy (bits per trit) under which Auto
+// tries the entropy codec: 2% below base3's 1.6.
+const autoEntropyBelow = 1.6 * 0.98
+
+// countsEntropy is the order-0 entropy of trits with these counts, in bits
+// per trit (0 for none).
+func countsEntropy(c convert.TritCounts) float64 {
+	n := float64(c.Total())
+	h := 0.0
+	for _, k := range []int64{c.Neg, c.Zero, c.Pos} {
+		if k > 0 {
+			p := float64(k) / n
+			h -= p * math.Log2(p)
+		}
+	}
+	return h
 }
 
 // Decode fills dst (len(dst) is the trit count) from payload. It returns an

@@ -13,6 +13,7 @@ import (
 
 	"github.com/stretchr/testify/require"
 
+	"ternkit/convert"
 	"ternkit/manifest"
 )
 
@@ -200,4 +201,38 @@ func TestCodecSizeGoals(t *testing.T) {
 	p, c = Auto.EncodeTensor([]byte("prefix"), gauss)
 	require.Equal(t, Base3, c, "Gaussian trits are within 1.1%% of log2(3): no gain over base3")
 	require.Equal(t, append([]byte("prefix"), Base3.Encode(nil, gauss)...), p)
+}
+
+// Auto tries the entropy codec only when the trit counts leave room for
+// it. Order-0 entropy by its definition (Shannon 1948, −Σ p log2 p): three
+// equal counts give log2 3 = 1.58496…; counts 1, 2, 1 give 1.5 bits; one
+// value alone gives 0.
+func TestAutoTriesEntropyByCounts(t *testing.T) {
+	require.InDelta(t, math.Log2(3), countsEntropy(convert.TritCounts{Neg: 5, Zero: 5, Pos: 5}), 1e-12)
+	require.InDelta(t, 1.5, countsEntropy(convert.TritCounts{Neg: 1, Zero: 2, Pos: 1}), 1e-12)
+	require.Equal(t, 0.0, countsEntropy(convert.TritCounts{Zero: 7}))
+	require.Equal(t, 0.0, countsEntropy(convert.TritCounts{}))
+
+	rng := rand.New(rand.NewPCG(61, 62))
+	for _, c := range []struct {
+		zeros float64
+		want  Codec
+	}{
+		{0.31, Base3},   // Gaussian weights: 1.583 bits, no trial
+		{0.60, Entropy}, // 1.371 bits: tried, and smaller
+		{0.99, Entropy},
+	} {
+		trits := make([]int8, 20000)
+		for i := range trits {
+			if rng.Float64() >= c.zeros {
+				trits[i] = int8(2*rng.IntN(2) - 1)
+			}
+		}
+		var counts convert.TritCounts
+		counts.Count(trits)
+		_, tried := autoEntropy(Base3.Encode(nil, trits), counts)
+		_, codec := Auto.EncodeTensor(nil, trits)
+		require.Equal(t, c.want, codec, "%.0f%% zeros, entropy %.3f", 100*c.zeros, countsEntropy(counts))
+		require.Equal(t, c.want == Entropy, tried)
+	}
 }

@@ -78,8 +78,8 @@ func ExampleArtifact_Check() {
 	// ../testdata/vectors/bad-bits2-code3.tkart: section "layer.w": byte 64: invalid trit payload: bits2 byte 0 is 0xff (code 3 is reserved)
 }
 
-// EncodeTensor with Auto stores each tensor in the smaller of base3 and
-// entropy.
+// EncodeTensor with Auto stores a sparse tensor (here 1 trit in 7 is
+// nonzero) in the entropy codec, where it is smaller than base3.
 func ExampleCodec_EncodeTensor() {
 	sparse := make([]int8, 10000)
 	for i := 0; i < len(sparse); i += 7 {

@@ -1,5 +1,7 @@
 package pack
 
+import "ternkit/convert"
+
 // TritEncoder encodes trits that arrive in runs of any length, in order,
 // into one payload: the bytes EncodeTensor gives for all of them at once.
 // It lets a quantizer hand over trits while they are in cache instead of
@@ -51,9 +53,10 @@ func (e *TritEncoder) encode(dst []byte, t []int8) []byte {
 	return encodeBase3(dst, t)
 }
 
-// Finish returns the payload and the codec stored (for Auto, the smaller
-// of Base3 and Entropy, as EncodeTensor chooses).
-func (e *TritEncoder) Finish() ([]byte, Codec) {
+// Finish returns the payload and the codec stored; for Auto, counts (the
+// written trits' counts, which a quantizer knows) decide as EncodeTensor
+// does whether the entropy codec is worth trying.
+func (e *TritEncoder) Finish(counts convert.TritCounts) ([]byte, Codec) {
 	if e.np > 0 {
 		e.digits = e.encode(e.digits, e.pending[:e.np])
 		e.np = 0
@@ -62,7 +65,7 @@ func (e *TritEncoder) Finish() ([]byte, Codec) {
 	case Entropy:
 		return appendEntropyFrame(nil, e.digits), Entropy
 	case Auto:
-		if frame := appendEntropyFrame(nil, e.digits); len(frame) < len(e.digits) {
+		if frame, ok := autoEntropy(e.digits, counts); ok {
 			return frame, Entropy
 		}
 		return e.digits, Base3

@@ -5,6 +5,8 @@ import (
 	"testing"
 
 	"github.com/stretchr/testify/require"
+
+	"ternkit/convert"
 )
 
 // Trits written in runs of any lengths give the payload and codec that
@@ -30,7 +32,9 @@ func TestTritEncoderMatchesEncodeTensor(t *testing.T) {
 				require.NoError(t, e.Write(rest[:k]))
 				rest = rest[k:]
 			}
-			got, gotCodec := e.Finish()
+			var counts convert.TritCounts
+			counts.Count(trits)
+			got, gotCodec := e.Finish(counts)
 			require.Equal(t, wantCodec, gotCodec, "%s n=%d", c, n)
 			require.Equal(t, append([]byte{}, want...), append([]byte{}, got...), "%s n=%d", c, n)
 		}

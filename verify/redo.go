@@ -43,7 +43,7 @@ func (b *redoBuffers) requantize(w convert.Weights, cols int, g convert.Granular
 	})
 	b.encoded = nil
 	if enc != nil && err == nil {
-		b.encoded, _ = enc.Finish()
+		b.encoded, _ = enc.Finish(q.Counts) // a fixed-length codec: the counts do not matter
 	}
 	return fresh, q, err
 }
