@@ -35,10 +35,10 @@
 	VPCMPEQQ Y15, Y15, Y15; \
 	VPSRLQ $1, Y15, Y15; \
 	MOVQ $0x3ff0000000000000, DX; \
-	MOVQ DX, X14; \
+	VMOVQ DX, X14; \
 	VPBROADCASTQ X14, Y14; \
 	MOVQ $0xfff0000000000000, DX; \
-	MOVQ DX, X1; \
+	VMOVQ DX, X1; \
 	VPBROADCASTQ X1, Y1
 
 // BOUND_STEP takes 8 elements: weights 0-3 and 4-7 as float64 in Y0 and

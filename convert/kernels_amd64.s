@@ -28,7 +28,7 @@
 	VEXTRACTI128 $1, Y9, X8; \
 	VPACKSSDW X8, X9, X9; \
 	VPACKSSWB X9, X9, X9; \
-	MOVQ X9, (DI)
+	VMOVQ X9, (DI)
 
 #define QUANT_SETUP \
 	MOVQ w+0(FP), SI; \
