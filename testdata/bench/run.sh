@@ -43,12 +43,19 @@ measure() { # name command...
 for r in $(seq "$runs"); do
   echo "run $r of $runs" >&2
   measure b3sum_source b3sum --no-names "$src"
+  # every writer writes a new file: freeing the previous run's blocks
+  # (which a rename over it, or a truncation, does on the spot) is not the
+  # work being measured
+  rm -f "$art"; sync
   measure pack "$work/ternkit" pack "$src" -o "$art" -q --codec bits2
+  rm -f "$shm"
   measure pack_tmpfs "$work/ternkit" pack "$src" -o "$shm" -q --codec bits2
+  rm -f "$work/floor.bin"; sync
   measure write_floor dd if=/dev/zero of="$work/floor.bin" bs=1M count="$blocks" conv=fsync status=none
   measure b3sum_artifact b3sum --no-names "$art"
   measure verify "$work/ternkit" verify "$art" -q
   measure verify_against "$work/ternkit" verify "$art" --against "$src" -q
+  rm -f "$work/peer.out"; sync
   measure numpy_peer /usr/bin/python3 testdata/bench/numpy_ternarize.py "$src" "$work/peer.out"
 done
 
