@@ -9,23 +9,10 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/testweights"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
-
-// f32Bytes is v as little-endian F32, as safetensors stores it.
-func f32Bytes(v []float32) []byte {
-	b, _ := convert.EncodeFloat32(nil, "F32", v)
-	return b
-}
-
-func gaussian(rng *rand.Rand, n int) []float32 {
-	v := make([]float32, n)
-	for i := range v {
-		v[i] = float32(rng.NormFloat64())
-	}
-	return v
-}
 
 type release struct {
 	tensors []convert.WriteTensor
@@ -66,18 +53,18 @@ func build(t *testing.T, dir, name string, r release) *pack.Artifact {
 func TestCompare(t *testing.T) {
 	dir := t.TempDir()
 	rng := rand.New(rand.NewPCG(3, 4))
-	q, up, old, shaped := gaussian(rng, 8*16), gaussian(rng, 5*7), gaussian(rng, 16), gaussian(rng, 16)
+	q, up, old, shaped := testweights.Gaussian(rng, 8*16), testweights.Gaussian(rng, 5*7), testweights.Gaussian(rng, 16), testweights.Gaussian(rng, 16)
 	norm := make([]float32, 16)
 	for i := range norm {
 		norm[i] = 1
 	}
 	a := build(t, dir, "a", release{
 		tensors: []convert.WriteTensor{
-			{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: f32Bytes(q)},
-			{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: f32Bytes(up)},
-			{Name: "blocks.0.norm.weight", DType: "F32", Shape: []int64{16}, Data: f32Bytes(norm)},
-			{Name: "blocks.0.old.weight", DType: "F32", Shape: []int64{4, 4}, Data: f32Bytes(old)},
-			{Name: "blocks.0.shaped.weight", DType: "F32", Shape: []int64{4, 4}, Data: f32Bytes(shaped)},
+			{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: testweights.F32Bytes(q)},
+			{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: testweights.F32Bytes(up)},
+			{Name: "blocks.0.norm.weight", DType: "F32", Shape: []int64{16}, Data: testweights.F32Bytes(norm)},
+			{Name: "blocks.0.old.weight", DType: "F32", Shape: []int64{4, 4}, Data: testweights.F32Bytes(old)},
+			{Name: "blocks.0.shaped.weight", DType: "F32", Shape: []int64{4, 4}, Data: testweights.F32Bytes(shaped)},
 		},
 		meta: map[string]string{"release": "1", "model": "scout"}, codec: pack.Base3, rules: []string{"default"},
 	})
@@ -95,11 +82,11 @@ func TestCompare(t *testing.T) {
 	}
 	b := build(t, dir, "b", release{
 		tensors: []convert.WriteTensor{
-			{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: f32Bytes(q2)},
-			{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: f32Bytes(up)},
-			{Name: "blocks.0.norm.weight", DType: "F32", Shape: []int64{16}, Data: f32Bytes(norm)},
-			{Name: "blocks.0.shaped.weight", DType: "F32", Shape: []int64{2, 8}, Data: f32Bytes(shaped)},
-			{Name: "blocks.0.new.weight", DType: "F32", Shape: []int64{3, 3}, Data: f32Bytes(gaussian(rng, 9))},
+			{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: testweights.F32Bytes(q2)},
+			{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: testweights.F32Bytes(up)},
+			{Name: "blocks.0.norm.weight", DType: "F32", Shape: []int64{16}, Data: testweights.F32Bytes(norm)},
+			{Name: "blocks.0.shaped.weight", DType: "F32", Shape: []int64{2, 8}, Data: testweights.F32Bytes(shaped)},
+			{Name: "blocks.0.new.weight", DType: "F32", Shape: []int64{3, 3}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 9))},
 		},
 		meta: map[string]string{"release": "2", "model": "scout"}, codec: pack.Base3, keep: "mlp.up", rules: []string{"keep mlp.up", "default"},
 	})
@@ -147,7 +134,7 @@ func TestCompare(t *testing.T) {
 func TestCompareCodecOnly(t *testing.T) {
 	dir := t.TempDir()
 	rng := rand.New(rand.NewPCG(5, 6))
-	tensors := []convert.WriteTensor{{Name: "w", DType: "F32", Shape: []int64{6, 10}, Data: f32Bytes(gaussian(rng, 60))}}
+	tensors := []convert.WriteTensor{{Name: "w", DType: "F32", Shape: []int64{6, 10}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 60))}}
 	a := build(t, dir, "a", release{tensors: tensors, codec: pack.Base3})
 	b := build(t, t.TempDir(), "a", release{tensors: tensors, codec: pack.Bits2})
 	r, err := Compare(a, b)

@@ -15,35 +15,22 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/testweights"
 	"ternkit/manifest"
 )
-
-// f32Bytes is v as little-endian F32, as safetensors stores it.
-func f32Bytes(v []float32) []byte {
-	b, _ := convert.EncodeFloat32(nil, "F32", v)
-	return b
-}
-
-func gaussian(rng *rand.Rand, n int) []float32 {
-	v := make([]float32, n)
-	for i := range v {
-		v[i] = float32(rng.NormFloat64())
-	}
-	return v
-}
 
 // testSource writes a small mixed checkpoint and returns its path and the
 // float values of its ternary tensors.
 func testSource(t *testing.T, dir string) (string, map[string][]float32) {
 	t.Helper()
 	rng := rand.New(rand.NewPCG(11, 12))
-	q := gaussian(rng, 8*16)
-	up := gaussian(rng, 5*7)
+	q := testweights.Gaussian(rng, 8*16)
+	up := testweights.Gaussian(rng, 5*7)
 	tensors := []convert.WriteTensor{
-		{Name: "embed.tokens.weight", DType: "F32", Shape: []int64{10, 4}, Data: f32Bytes(gaussian(rng, 40))},
-		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: f32Bytes(q)},
+		{Name: "embed.tokens.weight", DType: "F32", Shape: []int64{10, 4}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 40))},
+		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: testweights.F32Bytes(q)},
 		{Name: "blocks.0.norm.weight", DType: "BF16", Shape: []int64{16}, Data: make([]byte, 32)},
-		{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: f32Bytes(up)},
+		{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: testweights.F32Bytes(up)},
 		{Name: "step", DType: "I64", Shape: []int64{}, Data: []byte{7, 0, 0, 0, 0, 0, 0, 0}},
 		{Name: "empty", DType: "F32", Shape: []int64{0, 3}, Data: nil},
 	}
@@ -154,7 +141,7 @@ func TestBuildNonFiniteLeavesNothing(t *testing.T) {
 	w := []float32{1, 2, float32(math.NaN()), 4}
 	src := filepath.Join(dir, "nan.safetensors")
 	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
-		{Name: "blocks.0.w", DType: "F32", Shape: []int64{2, 2}, Data: f32Bytes(w)},
+		{Name: "blocks.0.w", DType: "F32", Shape: []int64{2, 2}, Data: testweights.F32Bytes(w)},
 	}, nil))
 	s, err := convert.Open(src)
 	require.NoError(t, err)
@@ -217,7 +204,7 @@ func FuzzOpen(f *testing.F) {
 	rng := rand.New(rand.NewPCG(1, 1))
 	src := filepath.Join(dir, "src.safetensors")
 	if err := convert.WriteFile(src, []convert.WriteTensor{
-		{Name: "w", DType: "F32", Shape: []int64{3, 5}, Data: f32Bytes(gaussian(rng, 15))},
+		{Name: "w", DType: "F32", Shape: []int64{3, 5}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 15))},
 		{Name: "b", DType: "F16", Shape: []int64{2}, Data: []byte{0, 0x3c, 0, 0xc0}},
 	}, nil); err != nil {
 		f.Fatal(err)
@@ -294,8 +281,8 @@ func TestBuildActionsRoundTrip(t *testing.T) {
 		"exact.row":    ternaryLike(cols),
 		"exact.group":  ternaryLike(8),
 	}
-	embed := gaussian(rng, rows*cols)
-	norm := gaussian(rng, cols)
+	embed := testweights.Gaussian(rng, rows*cols)
+	norm := testweights.Gaussian(rng, cols)
 	f64 := make([]byte, 8*cols)
 	f64vals := make([]float64, cols)
 	for i := range f64vals {
@@ -306,11 +293,11 @@ func TestBuildActionsRoundTrip(t *testing.T) {
 	src := filepath.Join(dir, "src.safetensors")
 	shape := []int64{rows, cols}
 	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
-		{Name: "exact.tensor", DType: "F32", Shape: shape, Data: f32Bytes(exact["exact.tensor"])},
-		{Name: "exact.row", DType: "F32", Shape: shape, Data: f32Bytes(exact["exact.row"])},
-		{Name: "exact.group", DType: "F32", Shape: shape, Data: f32Bytes(exact["exact.group"])},
-		{Name: "embed", DType: "F32", Shape: shape, Data: f32Bytes(embed)},
-		{Name: "norm", DType: "F32", Shape: []int64{cols}, Data: f32Bytes(norm)},
+		{Name: "exact.tensor", DType: "F32", Shape: shape, Data: testweights.F32Bytes(exact["exact.tensor"])},
+		{Name: "exact.row", DType: "F32", Shape: shape, Data: testweights.F32Bytes(exact["exact.row"])},
+		{Name: "exact.group", DType: "F32", Shape: shape, Data: testweights.F32Bytes(exact["exact.group"])},
+		{Name: "embed", DType: "F32", Shape: shape, Data: testweights.F32Bytes(embed)},
+		{Name: "norm", DType: "F32", Shape: []int64{cols}, Data: testweights.F32Bytes(norm)},
 		{Name: "wide", DType: "F64", Shape: []int64{cols}, Data: f64},
 		{Name: "step", DType: "I64", Shape: []int64{}, Data: make([]byte, 8)},
 	}, nil))
@@ -402,9 +389,9 @@ func TestBuildKeptTensorInPieces(t *testing.T) {
 	}
 	src := filepath.Join(dir, "src.safetensors")
 	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
-		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: f32Bytes(gaussian(rng, 128))},
+		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 128))},
 		{Name: "embed.tokens.weight", DType: "U8", Shape: []int64{int64(len(big))}, Data: big},
-		{Name: "blocks.1.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: f32Bytes(gaussian(rng, 128))},
+		{Name: "blocks.1.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 128))},
 	}, nil))
 	whole := filepath.Join(dir, "whole"+Extension)
 	buildWith(t, src, whole, Options{})

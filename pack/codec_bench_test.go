@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"ternkit/convert"
+	"ternkit/internal/testweights"
 )
 
 // benchTrits is the benchmark tensor size: a 1024 × 1024 weight matrix.
@@ -14,7 +15,7 @@ const benchTrits = 1 << 20
 // gaussianTrits ternarizes n Gaussian latent weights with the default
 // absmean recipe; p(0) ≈ 0.31.
 func gaussianTrits(tb testing.TB, seed uint64, n int) []int8 {
-	w := gaussian(rand.New(rand.NewPCG(seed, 1)), n)
+	w := testweights.Gaussian(rand.New(rand.NewPCG(seed, 1)), n)
 	t := make([]int8, n)
 	if _, err := convert.Ternarize(w, n, convert.PerTensor, convert.DefaultRecipe(), t); err != nil {
 		tb.Fatal(err)

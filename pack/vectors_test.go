@@ -18,6 +18,7 @@ import (
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/testweights"
 	"ternkit/manifest"
 )
 
@@ -279,7 +280,7 @@ func (s *vectorSource) floatAs(name string, shape []int64, v []float32, action s
 		s.floats, s.actions = map[string][]float32{}, map[string]string{}
 	}
 	s.floats[name], s.actions[name] = v, action
-	s.tensors = append(s.tensors, convert.WriteTensor{Name: name, DType: "F32", Shape: shape, Data: f32Bytes(v)})
+	s.tensors = append(s.tensors, convert.WriteTensor{Name: name, DType: "F32", Shape: shape, Data: testweights.F32Bytes(v)})
 }
 
 func (s *vectorSource) kept(name, dtype string, shape []int64, data []byte) {
@@ -381,7 +382,7 @@ func (s *vectorSource) expect(t *testing.T, wt convert.WriteTensor, e manifest.T
 // sparseWeights are Gaussian weights with the positions of zero trits in
 // sparseTrits set to 0: at least 60% zero trits after ternarization.
 func sparseWeights(seed uint64, n int) []float32 {
-	w := gaussian(newTestRand(seed), n)
+	w := testweights.Gaussian(newTestRand(seed), n)
 	for i, tr := range sparseTrits(seed, n, 0.6) {
 		if tr == 0 {
 			w[i] = 0
@@ -424,7 +425,7 @@ func writeVectors(t *testing.T) {
 	require.Equal(t, uint32(2), (uint32(sparseFrame[7])>>1)&3, "a compressed block after a 2-byte content size")
 	add(vector{File: "ok-entropy.tkart", Expect: "ok", Version: "1.1", Note: "entropy: 4000 trits with over 60% zeros in a compressed block; 3 trits in a stored block", Tensors: wantEntropy}, okEntropy)
 	mix := &vectorSource{}
-	mix.float("dense.w", []int64{16, 32}, gaussian(newTestRand(32), 512))
+	mix.float("dense.w", []int64{16, 32}, testweights.Gaussian(newTestRand(32), 512))
 	mix.float("sparse.w", []int64{40, 100}, sparseWeights(33, 4000))
 	mix.kept("norm", "BF16", []int64{4}, []byte{0x80, 0x3f, 0x00, 0xc0, 0x80, 0x7f, 0, 0}) // bfloat16 1, -2, +Inf, 0
 	okAuto, wantAuto := mix.build(t, Auto)
@@ -462,7 +463,7 @@ func writeVectors(t *testing.T) {
 
 	// gamma summed in 16 strided partial sums: the recipe's sum key, 1.2
 	str := &vectorSource{recipe: convert.DefaultRecipe()}
-	str.float("strided.w", []int64{4, 10}, gaussian(newTestRand(34), 40))
+	str.float("strided.w", []int64{4, 10}, testweights.Gaussian(newTestRand(34), 40))
 	okStrided, wantStrided := str.build(t, Base3)
 	add(vector{File: "ok-strided16.tkart", Expect: "ok", Version: "1.2", Note: `recipe with "sum": "strided16" (gamma summed in 16 strided partial sums), so format 1.2`, Tensors: wantStrided}, okStrided)
 	stridedPath := path("strided", okStrided)

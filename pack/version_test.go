@@ -10,6 +10,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/testweights"
 	"ternkit/manifest"
 )
 
@@ -17,8 +18,8 @@ import (
 // matrix (60% of the weights exactly 0, so 60% zero trits at least).
 func autoSource(t *testing.T, dir string) string {
 	t.Helper()
-	gauss := gaussian(newTestRand(21), 64*80)
-	sparse := gaussian(newTestRand(22), 64*80)
+	gauss := testweights.Gaussian(newTestRand(21), 64*80)
+	sparse := testweights.Gaussian(newTestRand(22), 64*80)
 	for i, tr := range sparseTrits(23, len(sparse), 0.6) {
 		if tr == 0 {
 			sparse[i] = 0
@@ -26,8 +27,8 @@ func autoSource(t *testing.T, dir string) string {
 	}
 	path := filepath.Join(dir, "auto.safetensors")
 	require.NoError(t, convert.WriteFile(path, []convert.WriteTensor{
-		{Name: "blocks.0.dense.weight", DType: "F32", Shape: []int64{64, 80}, Data: f32Bytes(gauss)},
-		{Name: "blocks.0.sparse.weight", DType: "F32", Shape: []int64{64, 80}, Data: f32Bytes(sparse)},
+		{Name: "blocks.0.dense.weight", DType: "F32", Shape: []int64{64, 80}, Data: testweights.F32Bytes(gauss)},
+		{Name: "blocks.0.sparse.weight", DType: "F32", Shape: []int64{64, 80}, Data: testweights.F32Bytes(sparse)},
 	}, nil))
 	return path
 }

@@ -14,23 +14,10 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/testweights"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
-
-// f32Bytes is v as little-endian F32, as safetensors stores it.
-func f32Bytes(v []float32) []byte {
-	b, _ := convert.EncodeFloat32(nil, "F32", v)
-	return b
-}
-
-func gaussian(rng *rand.Rand, n int) []byte {
-	v := make([]float32, n)
-	for i := range v {
-		v[i] = float32(rng.NormFloat64())
-	}
-	return f32Bytes(v)
-}
 
 // hostileName is a tensor name a checkpoint could carry to attack a page
 // that does not escape it.
@@ -43,11 +30,11 @@ func artifact(t *testing.T, codec pack.Codec) string {
 	dir := t.TempDir()
 	rng := rand.New(rand.NewPCG(3, 4))
 	tensors := []convert.WriteTensor{
-		{Name: "embed.weight", DType: "F32", Shape: []int64{6, 4}, Data: gaussian(rng, 24)},
-		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 8}, Data: gaussian(rng, 64)},
-		{Name: "blocks.0.norm.weight", DType: "F32", Shape: []int64{8}, Data: gaussian(rng, 8)},
-		{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: gaussian(rng, 35)},
-		{Name: hostileName, DType: "F32", Shape: []int64{3, 3}, Data: gaussian(rng, 9)},
+		{Name: "embed.weight", DType: "F32", Shape: []int64{6, 4}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 24))},
+		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{8, 8}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 64))},
+		{Name: "blocks.0.norm.weight", DType: "F32", Shape: []int64{8}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 8))},
+		{Name: "blocks.0.mlp.up.weight", DType: "F32", Shape: []int64{5, 7}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 35))},
+		{Name: hostileName, DType: "F32", Shape: []int64{3, 3}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 9))},
 	}
 	src := filepath.Join(dir, "small.safetensors")
 	require.NoError(t, convert.WriteFile(src, tensors, map[string]string{"model": "report-test"}))
