@@ -8,6 +8,8 @@ import (
 	"testing"
 
 	"github.com/stretchr/testify/require"
+
+	"ternkit/internal/testweights"
 )
 
 func recipeWith(rule ScaleRule, tie TieRule) Recipe {
@@ -92,11 +94,7 @@ func TestTernarizeGaussianZeroFraction(t *testing.T) {
 // The per-element bound (a property of RoundClip): for |w| ≤ 1.5·gamma,
 // |w − gamma·t| ≤ gamma/2; beyond it, |w − gamma·t| = |w| − gamma.
 func TestTernarizeElementBound(t *testing.T) {
-	rng := rand.New(rand.NewPCG(3, 4))
-	w := make([]float32, 4096)
-	for i := range w {
-		w[i] = float32(rng.NormFloat64())
-	}
+	w := testweights.Gaussian(rand.New(rand.NewPCG(3, 4)), 4096)
 	trits := make([]int8, len(w))
 	for _, rule := range []ScaleRule{ScaleReciprocal, ScaleQuotient} {
 		q, err := Ternarize(w, 2, PerTensor, recipeWith(rule, TieHalfEven), trits)

@@ -2,8 +2,6 @@ package verify
 
 import (
 	"bytes"
-	"encoding/binary"
-	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
@@ -13,6 +11,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/testweights"
 	"ternkit/pack"
 )
 
@@ -48,22 +47,15 @@ func fixtureWith(t testing.TB, dir string, codec pack.Codec, policy *convert.Pol
 	}
 	var tensors []convert.WriteTensor
 	for _, s := range shapes {
-		v := make([]float32, s.shape[0]*(func() int64 {
-			if len(s.shape) > 1 {
-				return s.shape[1]
-			}
-			return 1
-		}()))
-		for i := range v {
-			v[i] = float32(rng.NormFloat64())
+		n := int64(1)
+		for _, d := range s.shape {
+			n *= d
 		}
+		v := testweights.Gaussian(rng, int(n))
 		if edit != nil {
 			edit(s.name, v)
 		}
-		b := make([]byte, 4*len(v))
-		for i, f := range v {
-			binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(f))
-		}
+		b := testweights.F32Bytes(v)
 		tensors = append(tensors, convert.WriteTensor{Name: s.name, DType: "F32", Shape: s.shape, Data: b})
 	}
 	src = filepath.Join(dir, "src.safetensors")
