@@ -43,9 +43,10 @@ const DefaultWalkBudget = 128 << 20
 // sum the BLAKE3 of raw and worker in [0, Workers) so that a worker can keep
 // scratch space of its own. raw belongs to the call, and to what it returns,
 // until emit has run; it must not be modified, since the file's hash is
-// taken from the same bytes concurrently. emit(t, result) runs on the caller's goroutine in
-// tensor order, so that what it writes is the same for any worker count.
-// The first error, in tensor order, stops the walk and is returned.
+// taken from the same bytes concurrently. emit(t, result) runs on the
+// caller's goroutine in tensor order, so that what it writes is the same
+// for any worker count. The first error, in tensor order, stops the walk
+// and is returned.
 func WalkOrdered[R any](s *Source, opts WalkOptions,
 	work func(worker int, t *Tensor, raw []byte, sum [32]byte) (R, error),
 	emit func(t *Tensor, r R) error) error {
