@@ -410,9 +410,9 @@ func hashSection(p []byte) manifest.Section {
 func hashSectionKnown(p []byte, sum [32]byte) manifest.Section {
 	s := manifest.Section{Length: int64(len(p)), BLAKE3: manifest.HexHash(sum)}
 	if manifest.NumChunks(s.Length) > 0 {
-		for c := 0; c < len(p); c += manifest.ChunkSize {
-			s.Chunks = append(s.Chunks, manifest.HexHash(blake3.Sum256(p[c:min(c+manifest.ChunkSize, len(p))])))
-		}
+		var c chunkHasher
+		c.Write(p)
+		s.Chunks = c.finish(s.Length)
 	}
 	return s
 }
