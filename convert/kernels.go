@@ -160,9 +160,15 @@ func quantizeBlockGo(v weights, trits []int8, q quantizer, l *laneTotals) {
 		l.nonzero[j] += pos + neg
 		l.tritSum[j] += pos - neg
 		l.clipped[j] += b2i32(abs32(x) >= 1.5)
-		m, nz := abs32(w), float32(pos+neg)
-		l.abs[j] += float32(m * nz)
-		l.maxErr[j] = max(l.maxErr[j], abs32(m-float32(s*nz)))
+		// as the vector unit does it: a mask of the nonzero trits selects
+		// |w| and the scale, and the largest error is e unless the lane
+		// holds a greater value (the same as max, but for a NaN, which
+		// never gets here from Ternarize)
+		m, mask := abs32(w), uint32(-(pos + neg))
+		l.abs[j] += math.Float32frombits(math.Float32bits(m) & mask)
+		if e := abs32(m - math.Float32frombits(math.Float32bits(s)&mask)); !(l.maxErr[j] > e) {
+			l.maxErr[j] = e
+		}
 	}
 }
 

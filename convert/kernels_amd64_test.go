@@ -1,6 +1,8 @@
 package convert
 
 import (
+	"encoding/binary"
+	"math"
 	"math/rand/v2"
 	"testing"
 
@@ -43,4 +45,61 @@ func TestTernarizeSameWithoutVectorKernels(t *testing.T) {
 			}
 		}
 	}
+}
+
+// Any float32 bits (NaN, ±Inf, subnormals included), at any length, give
+// the vector kernels the portable twins' results, bit for bit.
+func FuzzKernelsMatchPortable(f *testing.F) {
+	f.Add([]byte{0, 0, 0x80, 0x3f, 0, 0, 0xc0, 0x7f, 1, 0, 0, 0}, float32(0.02))
+	f.Fuzz(func(t *testing.T, data []byte, gamma float32) {
+		if !useAVX2 {
+			t.Skip("no vector kernels on this machine")
+		}
+		w := make([]float32, len(data)/4)
+		for i := range w {
+			w[i] = math.Float32frombits(binary.LittleEndian.Uint32(data[4*i:]))
+		}
+		raw, _ := bf16Of(w)
+		for _, in := range []weights{{f32: w}, {bf16: raw}} {
+			var s1, q1, s2, q2 [16]float64
+			absLanes16(in, &s1, &q1)
+			absLanes16Go(in, &s2, &q2)
+			requireSameBits(t, s2[:], s1[:])
+			requireSameBits(t, q2[:], q1[:])
+			n := min(in.len(), laneBlock)
+			for _, r := range []Recipe{recipeWith(ScaleReciprocal, TieHalfEven), recipeWith(ScaleQuotient, TieHalfAway)} {
+				q := newQuantizer(r, float64(gamma))
+				got, want := make([]int8, n), make([]int8, n)
+				var lg, lw laneTotals
+				quantizeBlock(in.slice(0, n), got, q, &lg)
+				quantizeBlockGo(in.slice(0, n), want, q, &lw)
+				require.Equal(t, want, got)
+				requireSameBits(t, f64s(lw.abs[:]), f64s(lg.abs[:]))
+				requireSameBits(t, f64s(lw.maxErr[:]), f64s(lg.maxErr[:]))
+				require.Equal(t, [3][8]int32{lw.nonzero, lw.tritSum, lw.clipped}, [3][8]int32{lg.nonzero, lg.tritSum, lg.clipped})
+			}
+		}
+		f1, f2 := make([]float32, len(w)), make([]float32, len(w))
+		require.Equal(t, decodeBF16Go(f2, raw), decodeBF16(f1, raw))
+		requireSameBits(t, f64s(f2), f64s(f1))
+	})
+}
+
+// requireSameBits compares float64 values bit for bit (NaN equal to the
+// same NaN).
+func requireSameBits(t *testing.T, want, got []float64) {
+	t.Helper()
+	require.Len(t, got, len(want))
+	for i := range want {
+		require.Equal(t, math.Float64bits(want[i]), math.Float64bits(got[i]), "value %d: %v, want %v", i, got[i], want[i])
+	}
+}
+
+// f64s widens float32 values exactly, keeping NaN payloads apart.
+func f64s(v []float32) []float64 {
+	out := make([]float64, len(v))
+	for i, x := range v {
+		out[i] = math.Float64frombits(uint64(math.Float32bits(x)))
+	}
+	return out
 }
