@@ -1,0 +1,447 @@
+/* tkart-check: checks ternkit artifacts with the C reader and lists their
+ * tensors; a smoke test for a device.
+ *
+ *   tkart-check FILE...                   check and list; exit 0 ok, 1 invalid, 2 usage or I/O
+ *   tkart-check --json [--trits] FILE...  the outcome as JSON (with --trits: trits, codes, kept
+ *                                         bytes and scales), exit 0 unless a file is unreadable
+ *   tkart-check --rows FILE NAME ROW0 NROWS        trits of those rows as "-0+"
+ *   tkart-check --matvec FILE NAME ROW0 NROWS X    y = W[rows] x, X a file of int8 values
+ *   tkart-check --blake3 FILE             BLAKE3 of the file
+ *   tkart-check --bench                   decode and matvec speed on synthetic trits
+ */
+#include "tkart.h"
+
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+
+static int read_file(const char *path, uint8_t **buf, uint64_t *size)
+{
+	FILE *f = fopen(path, "rb");
+	long n;
+	if (!f)
+		return 0;
+	if (fseek(f, 0, SEEK_END) != 0 || (n = ftell(f)) < 0 || fseek(f, 0, SEEK_SET) != 0) {
+		fclose(f);
+		return 0;
+	}
+	/* an exact-size allocation, so that a sanitizer catches any read past the end */
+	*buf = malloc(n ? (size_t)n : 1);
+	if (!*buf || fread(*buf, 1, (size_t)n, f) != (size_t)n) {
+		free(*buf);
+		fclose(f);
+		return 0;
+	}
+	fclose(f);
+	*size = (uint64_t)n;
+	return 1;
+}
+
+/* One artifact, opened and checked. */
+typedef struct {
+	uint8_t *data;
+	void *arena, *scratch;
+	size_t scratch_len;
+	tkart a;
+	int rc;
+} art;
+
+static int load(art *t, const char *path)
+{
+	size_t i;
+	uint64_t size;
+	memset(t, 0, sizeof *t);
+	if (!read_file(path, &t->data, &size)) {
+		fprintf(stderr, "tkart-check: %s: cannot read the file\n", path);
+		return 0;
+	}
+	t->arena = malloc(tkart_arena_size(t->data, size));
+	if (!t->arena) {
+		fprintf(stderr, "tkart-check: %s: out of memory\n", path);
+		return 0;
+	}
+	t->rc = tkart_open(&t->a, t->data, size, t->arena, tkart_arena_size(t->data, size));
+	if (t->rc == TKART_OK) {
+		for (i = 0; i < t->a.ntensors; i++)
+			if (tkart_scratch_size(&t->a.tensors[i]) > t->scratch_len)
+				t->scratch_len = tkart_scratch_size(&t->a.tensors[i]);
+		t->scratch = malloc(t->scratch_len ? t->scratch_len : 1);
+		if (!t->scratch) {
+			fprintf(stderr, "tkart-check: %s: out of memory\n", path);
+			return 0;
+		}
+		t->rc = tkart_check(&t->a, t->scratch, t->scratch_len);
+	}
+	return 1;
+}
+
+static void unload(art *t)
+{
+	free(t->data);
+	free(t->arena);
+	free(t->scratch);
+}
+
+static void json_str(const char *s)
+{
+	putchar('"');
+	for (; *s; s++) {
+		unsigned char c = (unsigned char)*s;
+		if (c == '"' || c == '\\')
+			printf("\\%c", c);
+		else if (c < 0x20)
+			printf("\\u%04x", c);
+		else
+			putchar(c);
+	}
+	putchar('"');
+}
+
+static void print_shape(const tkart_tensor *t, const char *open, const char *sep, const char *close)
+{
+	int k;
+	printf("%s", open);
+	for (k = 0; k < t->ndim; k++)
+		printf("%s%lld", k ? sep : "", (long long)t->shape[k]);
+	printf("%s", close);
+}
+
+static void hex(const uint8_t *p, uint64_t n)
+{
+	uint64_t i;
+	for (i = 0; i < n; i++)
+		printf("%02x", p[i]);
+}
+
+/* The JSON form of testdata/tkart_read.py, without its digests. */
+static int json_file(const char *path, int with_trits)
+{
+	art f;
+	size_t i;
+	if (!load(&f, path)) {
+		unload(&f);
+		return 0;
+	}
+	printf("{\"file\": ");
+	json_str(path);
+	if (f.rc != TKART_OK) {
+		printf(", \"result\": \"%s\", \"detail\": ", tkart_class(f.rc));
+		json_str(tkart_errmsg(&f.a));
+		printf("}");
+		unload(&f);
+		return 1;
+	}
+	printf(", \"result\": \"ok\", \"version\": \"1.%u\", \"tensors\": [", f.a.minor);
+	for (i = 0; i < f.a.ntensors; i++) {
+		const tkart_tensor *t = &f.a.tensors[i];
+		int rc = TKART_OK;
+		printf("%s\n {\"name\": ", i ? "," : "");
+		json_str(t->name);
+		printf(", \"kind\": \"%s\", \"codec\": \"%s\", \"shape\": ", tkart_kind_name(t->kind), tkart_codec_name(t->codec));
+		print_shape(t, "[", ", ", "]");
+		printf(", \"source_dtype\": ");
+		json_str(t->source_dtype);
+		printf(", \"offset\": %llu, \"length\": %llu", (unsigned long long)t->section.offset,
+		       (unsigned long long)t->section.length);
+		if (t->kind == TKART_KEPT) {
+			const uint8_t *b;
+			uint64_t n;
+			printf(", \"dtype\": ");
+			json_str(t->dtype);
+			rc = tkart_kept_bytes(&f.a, t, &b, &n);
+			if (rc == TKART_OK && with_trits) {
+				printf(", \"hex\": \"");
+				hex(b, n);
+				printf("\"");
+			}
+		} else {
+			printf(", \"granularity\": ");
+			json_str(t->granularity);
+			if (t->exact)
+				printf(", \"exact\": true");
+			if (!t->has_scales)
+				printf(", \"scale\": %.9g", (double)t->scale);
+			if (t->kind == TKART_TERNARY)
+				printf(", \"counts\": [%lld, %lld, %lld]", (long long)t->neg, (long long)t->zero, (long long)t->pos);
+			if (with_trits && t->kind == TKART_TERNARY) {
+				int8_t *tr = malloc(t->n ? (size_t)t->n : 1);
+				int64_t k;
+				rc = tr ? tkart_decode_trits(&f.a, t, 0, t->rows, tr, f.scratch, f.scratch_len) : TKART_E_ARG;
+				if (rc == TKART_OK) {
+					printf(", \"trits\": \"");
+					for (k = 0; k < t->n; k++)
+						putchar("-0+"[tr[k] + 1]);
+					printf("\"");
+				}
+				free(tr);
+			}
+			if (with_trits && t->kind == TKART_INT8) {
+				const int8_t *c;
+				rc = tkart_int8_codes(&f.a, t, &c);
+				if (rc == TKART_OK) {
+					printf(", \"hex\": \"");
+					hex((const uint8_t *)c, (uint64_t)t->n);
+					printf("\"");
+				}
+			}
+			if (rc == TKART_OK && with_trits && t->has_scales) {
+				float *s = malloc(t->nscales ? (size_t)t->nscales * sizeof *s : 1);
+				int64_t k;
+				rc = s ? tkart_read_scales(&f.a, t, s, (size_t)t->nscales) : TKART_E_ARG;
+				if (rc == TKART_OK) {
+					printf(", \"scales\": [");
+					for (k = 0; k < t->nscales; k++)
+						printf("%s%.9g", k ? ", " : "", (double)s[k]);
+					printf("]");
+				}
+				free(s);
+			}
+			if (t->has_scales)
+				printf(", \"scales_offset\": %llu, \"scales_length\": %llu", (unsigned long long)t->scales.offset,
+				       (unsigned long long)t->scales.length);
+		}
+		if (rc != TKART_OK) {
+			printf(", \"error\": ");
+			json_str(tkart_errmsg(&f.a));
+		}
+		printf("}");
+	}
+	printf("]}");
+	unload(&f);
+	return 1;
+}
+
+static int list_file(const char *path)
+{
+	art f;
+	size_t i;
+	int ok;
+	if (!load(&f, path)) {
+		unload(&f);
+		return 2;
+	}
+	if (f.rc != TKART_OK) {
+		printf("%s: invalid [%s]: %s\n", path, tkart_class(f.rc), tkart_errmsg(&f.a));
+		unload(&f);
+		return 1;
+	}
+	printf("%s: ok: format 1.%u, %lu tensors, every section hash and payload checked\n", path, f.a.minor,
+	       (unsigned long)f.a.ntensors);
+	for (i = 0; i < f.a.ntensors; i++) {
+		const tkart_tensor *t = &f.a.tensors[i];
+		printf("  %s  %s %s ", t->name, tkart_kind_name(t->kind), tkart_codec_name(t->codec));
+		print_shape(t, "[", " ", "]");
+		if (t->kind == TKART_KEPT)
+			printf(" %s", t->dtype);
+		else
+			printf(" %s", t->granularity);
+		printf(" from %s  at %llu+%llu", t->source_dtype, (unsigned long long)t->section.offset,
+		       (unsigned long long)t->section.length);
+		if (t->has_scales)
+			printf(" scales at %llu+%llu", (unsigned long long)t->scales.offset, (unsigned long long)t->scales.length);
+		printf("\n");
+	}
+	ok = 0;
+	unload(&f);
+	return ok;
+}
+
+static int rows_or_matvec(int argc, char **argv, int matvec)
+{
+	art f;
+	const tkart_tensor *t;
+	long long row0, nrows, k;
+	int rc = 2;
+	if (argc != (matvec ? 7 : 6)) {
+		fprintf(stderr, "usage: tkart-check %s FILE NAME ROW0 NROWS%s\n", argv[1], matvec ? " XFILE" : "");
+		return 2;
+	}
+	row0 = atoll(argv[4]);
+	nrows = atoll(argv[5]);
+	if (!load(&f, argv[2]))
+		goto out;
+	if (f.rc != TKART_OK) {
+		fprintf(stderr, "tkart-check: %s: invalid [%s]: %s\n", argv[2], tkart_class(f.rc), tkart_errmsg(&f.a));
+		rc = 1;
+		goto out;
+	}
+	t = tkart_find(&f.a, argv[3]);
+	if (!t) {
+		fprintf(stderr, "tkart-check: %s: no tensor named %s\n", argv[2], argv[3]);
+		goto out;
+	}
+	if (!matvec) {
+		int8_t *tr = malloc(nrows > 0 && t->cols > 0 ? (size_t)(nrows * t->cols) : 1);
+		if (!tr)
+			goto out;
+		if (tkart_decode_trits(&f.a, t, row0, nrows, tr, f.scratch, f.scratch_len) != TKART_OK) {
+			fprintf(stderr, "tkart-check: %s\n", tkart_errmsg(&f.a));
+			free(tr);
+			goto out;
+		}
+		for (k = 0; k < nrows * t->cols; k++)
+			putchar("-0+"[tr[k] + 1]);
+		putchar('\n');
+		free(tr);
+	} else {
+		uint8_t *x;
+		uint64_t xn;
+		int32_t *y;
+		if (!read_file(argv[6], &x, &xn) || xn != (uint64_t)t->cols) {
+			fprintf(stderr, "tkart-check: %s: want %lld int8 values\n", argv[6], (long long)t->cols);
+			goto out;
+		}
+		y = malloc(nrows > 0 ? (size_t)nrows * sizeof *y : 1);
+		if (!y || tkart_matvec(&f.a, t, row0, nrows, (const int8_t *)x, y, f.scratch, f.scratch_len) != TKART_OK) {
+			fprintf(stderr, "tkart-check: %s\n", tkart_errmsg(&f.a));
+			free(x);
+			free(y);
+			goto out;
+		}
+		for (k = 0; k < nrows; k++)
+			printf("%ld\n", (long)y[k]);
+		free(x);
+		free(y);
+	}
+	rc = 0;
+out:
+	unload(&f);
+	return rc;
+}
+
+/* ---- bench ------------------------------------------------------------------- */
+
+static uint64_t rng_state = 0x9E3779B97F4A7C15u;
+
+static uint64_t rng(void)
+{
+	/* xorshift64*: common practice for a quick, reproducible generator */
+	rng_state ^= rng_state >> 12;
+	rng_state ^= rng_state << 25;
+	rng_state ^= rng_state >> 27;
+	return rng_state * 2685821657736338717u;
+}
+
+static void encode(int codec, const int8_t *tr, uint64_t n, uint8_t *p)
+{
+	uint64_t i;
+	static const int code[3] = {2, 0, 1};
+	if (codec == TKART_BITS2) {
+		memset(p, 0, (size_t)((n + 3) / 4));
+		for (i = 0; i < n; i++)
+			p[i / 4] |= (uint8_t)(code[tr[i] + 1] << (2 * (i % 4)));
+	} else {
+		static const int pow3[5] = {1, 3, 9, 27, 81};
+		memset(p, 0, (size_t)((n + 4) / 5));
+		for (i = 0; i < n; i++)
+			p[i / 5] = (uint8_t)(p[i / 5] + code[tr[i] + 1] * pow3[i % 5]);
+	}
+}
+
+static int bench(void)
+{
+	const uint64_t rows = 1024, cols = 1024, n = rows * cols;
+	int8_t *tr = malloc((size_t)n), *out = malloc((size_t)n), *x = malloc((size_t)cols);
+	uint8_t *p = malloc((size_t)(n / 4 + 1));
+	int32_t *y = malloc((size_t)rows * sizeof *y);
+	const char *names[2] = {"gaussian", "sparse60"};
+	const double p0s[2] = {0.31, 0.6};
+	int codec, d;
+	uint64_t i;
+	if (!tr || !out || !x || !p || !y)
+		return 2;
+	for (i = 0; i < cols; i++)
+		x[i] = (int8_t)(rng() % 255 - 127);
+	printf("# %llu trits (a %llu x %llu matrix); CPU time of this process (clock()), so per core\n",
+	       (unsigned long long)n, (unsigned long long)rows, (unsigned long long)cols);
+	for (d = 0; d < 2; d++) {
+		/* p(0) = p0, +1 and -1 equally likely */
+		for (i = 0; i < n; i++) {
+			double u = (double)(rng() >> 11) / 9007199254740992.0;
+			tr[i] = (int8_t)(u < p0s[d] ? 0 : u < p0s[d] + (1 - p0s[d]) / 2 ? 1 : -1);
+		}
+		for (codec = TKART_BITS2; codec <= TKART_BASE3; codec++) {
+			uint64_t len = codec == TKART_BITS2 ? (n + 3) / 4 : (n + 4) / 5, iters = 0, mv = 0;
+			clock_t t0;
+			double secs, mvsecs;
+			encode(codec, tr, n, p);
+			t0 = clock();
+			do {
+				if (tkart_unpack_trits(codec, p, len, n, 0, n, out) != TKART_OK)
+					return 1;
+				iters++;
+				secs = (double)(clock() - t0) / CLOCKS_PER_SEC;
+			} while (secs < 1.0);
+			if (memcmp(out, tr, (size_t)n) != 0) {
+				fprintf(stderr, "bench: %s decode differs from the trits\n", tkart_codec_name(codec));
+				return 1;
+			}
+			t0 = clock();
+			do {
+				if (tkart_matvec_packed(codec, p, len, n, cols, 0, rows, x, y) != TKART_OK)
+					return 1;
+				mv++;
+				mvsecs = (double)(clock() - t0) / CLOCKS_PER_SEC;
+			} while (mvsecs < 1.0);
+			printf("%s/%s\tdecode %.3g trits/s\tmatvec %.3g trits/s\n", tkart_codec_name(codec), names[d],
+			       (double)(n * iters) / secs, (double)(n * mv) / mvsecs);
+		}
+	}
+	free(tr);
+	free(out);
+	free(x);
+	free(p);
+	free(y);
+	return 0;
+}
+
+int main(int argc, char **argv)
+{
+	int i, rc = 0;
+	if (argc >= 2 && !strcmp(argv[1], "--bench"))
+		return bench();
+	if (argc >= 2 && !strcmp(argv[1], "--blake3")) {
+		uint8_t *d, h[32];
+		uint64_t n;
+		if (argc != 3 || !read_file(argv[2], &d, &n)) {
+			fprintf(stderr, "usage: tkart-check --blake3 FILE\n");
+			return 2;
+		}
+		tkart_blake3(d, (size_t)n, h);
+		hex(h, 32);
+		printf("\n");
+		free(d);
+		return 0;
+	}
+	if (argc >= 2 && !strcmp(argv[1], "--rows"))
+		return rows_or_matvec(argc, argv, 0);
+	if (argc >= 2 && !strcmp(argv[1], "--matvec"))
+		return rows_or_matvec(argc, argv, 1);
+	if (argc >= 2 && !strcmp(argv[1], "--json")) {
+		int with_trits = argc >= 3 && !strcmp(argv[2], "--trits"), first = 1 + with_trits + 1;
+		if (first >= argc) {
+			fprintf(stderr, "usage: tkart-check --json [--trits] FILE...\n");
+			return 2;
+		}
+		printf("[");
+		for (i = first; i < argc; i++) {
+			if (i > first)
+				printf(",\n");
+			if (!json_file(argv[i], with_trits))
+				return 2;
+		}
+		printf("]\n");
+		return 0;
+	}
+	if (argc < 2 || argv[1][0] == '-') {
+		fprintf(stderr, "usage: tkart-check FILE...  (or --json [--trits] FILE..., --rows, --matvec, --blake3 FILE, --bench)\n");
+		return 2;
+	}
+	for (i = 1; i < argc; i++) {
+		int r = list_file(argv[i]);
+		if (r > rc)
+			rc = r;
+	}
+	return rc;
+}
