@@ -2069,6 +2069,7 @@ int tkart_check(tkart *a, void *scratch, size_t scratch_len)
 			            (unsigned long long)(PREAMBLE_LEN + at));
 		return TKART_OK;
 	}
+	int unsupported = 0;
 	for (i = 0; i < a->ntensors; i++) {
 		const tkart_tensor *t = &a->tensors[i];
 		int s, r;
@@ -2098,6 +2099,11 @@ int tkart_check(tkart *a, void *scratch, size_t scratch_len)
 				int codec;
 				int8_t buf[4096];
 				r = packed_payload(a, t, scratch, scratch_len, &p, &len, &codec);
+				if (r == TKART_E_UNSUPPORTED) {
+					/* the frame rules held; check the rest, then report */
+					unsupported = 1;
+					continue;
+				}
 				for (k = 0; r == 0 && k < (uint64_t)t->n; k += sizeof buf) {
 					uint64_t m = (uint64_t)t->n - k < sizeof buf ? (uint64_t)t->n - k : sizeof buf, q;
 					r = tkart_unpack_trits(codec, p, len, (uint64_t)t->n, k, m, buf);
@@ -2119,6 +2125,8 @@ int tkart_check(tkart *a, void *scratch, size_t scratch_len)
 				return r;
 		}
 	}
+	if (unsupported)
+		return fail(a, TKART_E_UNSUPPORTED, 0, "the entropy codec is not supported by this build (compile with -DTKART_WITH_ZSTD and link libzstd); every other rule holds");
 	a->err = TKART_OK;
 	a->errmsg[0] = 0;
 	return TKART_OK;

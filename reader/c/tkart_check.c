@@ -8,6 +8,8 @@
  *   tkart-check --matvec FILE NAME ROW0 NROWS X    y = W[rows] x, X a file of int8 values
  *   tkart-check --blake3 FILE             BLAKE3 of the file
  *   tkart-check --bench                   decode and matvec speed on synthetic trits
+ *   tkart-check --mutate BUDGET FILE...   about BUDGET truncations and byte flips of each file,
+ *                                         for sanitizer builds
  */
 #include "tkart.h"
 
@@ -310,6 +312,138 @@ out:
 	return rc;
 }
 
+/* ---- mutate -------------------------------------------------------------------
+ * A fuzz-style loop for the sanitizer builds: every truncation and single-
+ * byte flips of a file, each in an allocation of its exact size. Flips
+ * inside the manifest get the trailer hash recomputed, so that the JSON
+ * parser sees them; the payload decoders also run on every opened file's
+ * sections directly, without the hash that would stop them. */
+
+static int run_one(const uint8_t *src, uint64_t n, int patch_hash, uint64_t m)
+{
+	uint8_t *b = malloc(n ? (size_t)n : 1);
+	void *arena, *scratch = NULL;
+	size_t alen, slen = 0, i;
+	tkart a;
+	int rc;
+	if (!b)
+		return -1;
+	memcpy(b, src, (size_t)n);
+	if (patch_hash)
+		tkart_blake3(b + m, (size_t)(n - 64 - m), b + n - 64 + 16);
+	alen = tkart_arena_size(b, n);
+	arena = malloc(alen);
+	if (!arena) {
+		free(b);
+		return -1;
+	}
+	rc = tkart_open(&a, b, n, arena, alen);
+	if (rc == TKART_OK) {
+		for (i = 0; i < a.ntensors; i++)
+			if (tkart_scratch_size(&a.tensors[i]) > slen)
+				slen = tkart_scratch_size(&a.tensors[i]);
+		scratch = malloc(slen ? slen : 1);
+		for (i = 0; i < a.ntensors; i++) {
+			const tkart_tensor *t = &a.tensors[i];
+			int8_t x[64];
+			if (t->kind == TKART_TERNARY && t->codec != TKART_ENTROPY && t->n <= 1 << 20 && t->cols <= 64) {
+				int8_t *tr = malloc(t->n ? (size_t)t->n : 1);
+				int32_t *y = malloc(t->rows ? (size_t)t->rows * sizeof *y : 1);
+				memset(x, 1, sizeof x);
+				if (tr && y) {
+					tkart_unpack_trits(t->codec, b + t->section.offset, t->section.length, (uint64_t)t->n, 0,
+					                   (uint64_t)t->n, tr);
+					tkart_matvec_packed(t->codec, b + t->section.offset, t->section.length, (uint64_t)t->n,
+					                    (uint64_t)t->cols, 0, (uint64_t)t->rows, x, y);
+				}
+				free(tr);
+				free(y);
+			}
+		}
+		rc = tkart_check(&a, scratch, slen);
+	}
+	free(scratch);
+	free(arena);
+	free(b);
+	return rc;
+}
+
+/* About budget runs per file: the truncations and flips are spread evenly
+ * over the file (every byte when budget allows), those in the manifest
+ * twice as densely. */
+static int mutate(const char *path, uint64_t budget)
+{
+	uint8_t *d;
+	uint64_t size, i, m = 0, count[16], stride, mstride;
+	size_t need, len, step;
+	int patchable, k, full;
+	static const uint8_t masks[3] = {0x01, 0x80, 0xff};
+	memset(count, 0, sizeof count);
+	if (!read_file(path, &d, &size)) {
+		fprintf(stderr, "tkart-check: %s: cannot read the file\n", path);
+		return 2;
+	}
+	full = run_one(d, size, 0, 0);
+	/* arenas from 0 bytes up: enough, or TKART_E_ARENA, nothing else */
+	need = tkart_arena_size(d, size);
+	step = need / 97 + 1;
+	for (len = 0;; len += step) {
+		tkart a;
+		void *arena;
+		int rc;
+		if (len > need)
+			len = need;
+		arena = malloc(len ? len : 1);
+		rc = tkart_open(&a, d, size, arena, len);
+		free(arena);
+		if (rc != TKART_E_ARENA && (full == TKART_OK ? rc != TKART_OK : 0)) {
+			fprintf(stderr, "%s: arena of %lu bytes: %s: %s\n", path, (unsigned long)len, tkart_class(rc), a.errmsg);
+			return 1;
+		}
+		if (len == need)
+			break;
+	}
+	{
+		uint64_t mlen;
+		if (size >= 128) {
+			m = 0;
+			for (k = 7; k >= 0; k--)
+				m = m << 8 | d[size - 64 + (uint64_t)k];
+		}
+		patchable = size >= 128 && m >= 64 && m <= size - 64;
+		mlen = patchable ? size - 64 - m : 0;
+		stride = budget < 8 ? size + 1 : (4 * size + budget - 1) / budget;
+		mstride = budget < 8 ? size + 1 : (4 * mlen + budget - 1) / budget;
+		if (stride < 1) stride = 1;
+		if (mstride < 1) mstride = 1;
+	}
+	for (i = 0; i < size; i += stride) {
+		int rc = run_one(d, i, 0, 0);
+		if (rc < 0)
+			return 2;
+		count[rc]++;
+	}
+	for (i = 0; i < size; i++) {
+		int rc, in_manifest = patchable && i >= m && i < size - 64;
+		if (i % (in_manifest ? mstride : stride) != 0)
+			continue;
+		k = (int)(i % 3);
+		d[i] ^= masks[k];
+		rc = run_one(d, size, in_manifest, m);
+		d[i] ^= masks[k];
+		if (rc < 0)
+			return 2;
+		count[rc]++;
+	}
+	printf("%s: whole file %s;", path, tkart_class(full));
+	for (k = 0; k < 16; k++)
+		if (count[k])
+			printf(" %s %llu", tkart_class(k), (unsigned long long)count[k]);
+	printf("\n");
+	free(d);
+	return 0;
+}
+
 /* ---- bench ------------------------------------------------------------------- */
 
 static uint64_t rng_state = 0x9E3779B97F4A7C15u;
@@ -412,6 +546,18 @@ int main(int argc, char **argv)
 		hex(h, 32);
 		printf("\n");
 		free(d);
+		return 0;
+	}
+	if (argc >= 2 && !strcmp(argv[1], "--mutate")) {
+		if (argc < 4) {
+			fprintf(stderr, "usage: tkart-check --mutate BUDGET FILE...\n");
+			return 2;
+		}
+		for (i = 3; i < argc; i++) {
+			int r = mutate(argv[i], (uint64_t)atoll(argv[2]));
+			if (r)
+				return r;
+		}
 		return 0;
 	}
 	if (argc >= 2 && !strcmp(argv[1], "--rows"))

@@ -1,0 +1,654 @@
+package ctest
+
+import (
+	"bytes"
+	"encoding/binary"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"runtime"
+	"strconv"
+	"strings"
+	"sync"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+	"github.com/zeebo/blake3"
+
+	"ternkit/convert"
+	"ternkit/internal/testweights"
+	"ternkit/manifest"
+	"ternkit/pack"
+)
+
+const (
+	cDir         = "../c"
+	vectorsDir   = "../../testdata/vectors"
+	malformedDir = "../../testdata/malformed"
+)
+
+// The C reader is C99 and must compile without a warning under gcc and
+// clang (Debian packages gcc and clang).
+var strictFlags = []string{"-std=c99", "-Wall", "-Wextra", "-Werror"}
+
+// sanitize builds with AddressSanitizer and UndefinedBehaviorSanitizer,
+// stopping at the first report.
+var sanitize = []string{"-O1", "-g", "-fno-omit-frame-pointer", "-fsanitize=address,undefined", "-fno-sanitize-recover=all"}
+
+var withZstd = []string{"-DTKART_WITH_ZSTD"}
+
+// requireTool finds an outside tool: the test skips without it, but fails
+// when CI is set.
+func requireTool(t *testing.T, name, pkg string) string {
+	t.Helper()
+	p, err := exec.LookPath(name)
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatalf("%s not found: CI must install %s (.ci/run)", name, pkg)
+		}
+		t.Skipf("%s not found; install it to run this check (apt-get install %s)", name, pkg)
+	}
+	return p
+}
+
+var (
+	buildMu  sync.Mutex
+	buildDir string
+	built    = map[string]string{}
+)
+
+func TestMain(m *testing.M) {
+	var err error
+	buildDir, err = os.MkdirTemp("", "tkart-c-")
+	if err != nil {
+		fmt.Fprintln(os.Stderr, err)
+		os.Exit(2)
+	}
+	code := m.Run()
+	os.RemoveAll(buildDir)
+	os.Exit(code)
+}
+
+// build compiles tkart-check with compiler cc and flags (once per test
+// binary) and returns its path. With -DTKART_WITH_ZSTD it links libzstd
+// (Debian libzstd-dev), whose absence skips the test outside CI.
+func build(t *testing.T, cc string, flags ...string) string {
+	t.Helper()
+	path := requireTool(t, cc, cc)
+	args := append(append(append([]string{}, strictFlags...), flags...), filepath.Join(cDir, "tkart.c"), filepath.Join(cDir, "tkart_check.c"))
+	zstd := strings.Contains(strings.Join(flags, " "), "TKART_WITH_ZSTD")
+	if zstd {
+		args = append(args, "-lzstd")
+	}
+	key := cc + " " + strings.Join(args, " ")
+	buildMu.Lock()
+	defer buildMu.Unlock()
+	if bin, ok := built[key]; ok {
+		return bin
+	}
+	bin := filepath.Join(buildDir, fmt.Sprintf("tkart-check-%d", len(built)))
+	out, err := exec.Command(path, append(args, "-o", bin)...).CombinedOutput()
+	if err != nil && zstd && bytes.Contains(out, []byte("zstd.h")) {
+		if os.Getenv("CI") != "" {
+			t.Fatalf("zstd.h not found: CI must install libzstd-dev (.ci/run)\n%s", out)
+		}
+		t.Skipf("zstd.h not found; install libzstd-dev to run this check")
+	}
+	require.NoError(t, err, "%s %s\n%s", cc, strings.Join(args, " "), out)
+	require.Empty(t, string(out), "compiler output")
+	built[key] = bin
+	return bin
+}
+
+// sanitized is the reader most tests run: gcc, zstd, sanitizers on.
+func sanitized(t *testing.T) string {
+	t.Helper()
+	return build(t, "gcc", append(append([]string{}, withZstd...), sanitize...)...)
+}
+
+// run runs the C program and requires it to exit 0 with nothing on stderr
+// (a sanitizer report goes there).
+func run(t *testing.T, bin string, args ...string) []byte {
+	t.Helper()
+	cmd := exec.Command(bin, args...)
+	var stdout, stderr bytes.Buffer
+	cmd.Stdout, cmd.Stderr = &stdout, &stderr
+	err := cmd.Run()
+	require.NoError(t, err, "%s %s\n%s", bin, strings.Join(args, " "), stderr.String())
+	require.Empty(t, stderr.String(), "%s %s", bin, strings.Join(args, " "))
+	return stdout.Bytes()
+}
+
+// result is one file's outcome as tkart-check --json --trits prints it.
+type result struct {
+	File    string   `json:"file"`
+	Result  string   `json:"result"`
+	Detail  string   `json:"detail,omitempty"`
+	Version string   `json:"version,omitempty"`
+	Tensors []tensor `json:"tensors,omitempty"`
+}
+
+type tensor struct {
+	Name         string    `json:"name"`
+	Kind         string    `json:"kind"`
+	Codec        string    `json:"codec"`
+	Shape        []int64   `json:"shape"`
+	SourceDType  string    `json:"source_dtype"`
+	Offset       int64     `json:"offset"`
+	Length       int64     `json:"length"`
+	DType        string    `json:"dtype,omitempty"`
+	Granularity  string    `json:"granularity,omitempty"`
+	Exact        bool      `json:"exact,omitempty"`
+	Scale        float32   `json:"scale,omitempty"`
+	Counts       []int64   `json:"counts,omitempty"`
+	Trits        string    `json:"trits,omitempty"`
+	Hex          string    `json:"hex,omitempty"`
+	Scales       []float32 `json:"scales,omitempty"`
+	ScalesOffset int64     `json:"scales_offset,omitempty"`
+	ScalesLength int64     `json:"scales_length,omitempty"`
+	Error        string    `json:"error,omitempty"`
+}
+
+func cRead(t *testing.T, bin string, files ...string) []result {
+	t.Helper()
+	out := run(t, bin, append([]string{"--json", "--trits"}, files...)...)
+	var res []result
+	require.NoError(t, json.Unmarshal(out, &res), "%s", out)
+	require.Len(t, res, len(files))
+	return res
+}
+
+// goRead reads path with the pack package's reader into the C program's
+// output form.
+func goRead(t *testing.T, path string) result {
+	t.Helper()
+	r := result{File: path}
+	a, err := pack.Open(path)
+	if err == nil {
+		defer a.Close()
+		err = a.Check()
+	}
+	if err != nil {
+		r.Result = failureClass(err)
+		return r
+	}
+	major, minor := a.Version()
+	r.Result, r.Version, r.Tensors = "ok", fmt.Sprintf("%d.%d", major, minor), []tensor{}
+	for _, e := range a.Tensors() {
+		tn, err := a.Tensor(e.Name)
+		require.NoError(t, err)
+		rt := tensor{Name: e.Name, Kind: e.Kind, Codec: e.Codec, Shape: e.Shape, SourceDType: e.SourceDType,
+			Offset: e.Section.Offset, Length: e.Section.Length}
+		if rt.Shape == nil {
+			rt.Shape = []int64{}
+		}
+		if e.Kind == manifest.KindKept {
+			p, err := tn.VerifiedPayload()
+			require.NoError(t, err)
+			rt.DType, rt.Hex = e.DType, hex.EncodeToString(p)
+			r.Tensors = append(r.Tensors, rt)
+			continue
+		}
+		rt.Granularity, rt.Exact = e.Granularity.String(), e.Exact
+		if e.Scales != nil {
+			rt.Scales, err = tn.Scales()
+			require.NoError(t, err)
+			rt.ScalesOffset, rt.ScalesLength = e.Scales.Offset, e.Scales.Length
+		} else {
+			rt.Scale = e.Scale
+		}
+		if e.Kind == manifest.KindInt8 {
+			p, err := tn.VerifiedPayload()
+			require.NoError(t, err)
+			rt.Hex = hex.EncodeToString(p)
+		} else {
+			trits := make([]int8, tn.Len())
+			require.NoError(t, tn.DecodeTrits(trits))
+			rt.Trits = tritString(trits)
+			rt.Counts = []int64{e.Trits.Neg, e.Trits.Zero, e.Trits.Pos}
+		}
+		r.Tensors = append(r.Tensors, rt)
+	}
+	return r
+}
+
+func tritString(trits []int8) string {
+	s := make([]byte, len(trits))
+	for i, v := range trits {
+		s[i] = "-0+"[v+1]
+	}
+	return string(s)
+}
+
+// failureClass names a pack reader error by the classes of
+// pack/FORMAT.md, "What a reader must reject".
+func failureClass(err error) string {
+	var fe *pack.FormatError
+	switch {
+	case errors.Is(err, pack.ErrNotArtifact):
+		return "not-artifact"
+	case errors.Is(err, pack.ErrVersion):
+		return "version"
+	case errors.Is(err, pack.ErrHash) && errors.As(err, &fe) && fe.Where == "manifest":
+		return "manifest-hash"
+	case errors.Is(err, pack.ErrHash):
+		return "section-hash"
+	case errors.Is(err, manifest.ErrInvalid):
+		return "manifest"
+	case errors.Is(err, pack.ErrInvalidCode):
+		return "payload"
+	case errors.Is(err, pack.ErrTritCounts):
+		return "counts"
+	case errors.Is(err, pack.ErrStructure):
+		return "structure"
+	}
+	return "error: " + err.Error()
+}
+
+// compare requires the C reader and the Go reader to give the same outcome
+// for every file: class, version, and every tensor's fields, trits, codes,
+// kept bytes and scales.
+func compare(t *testing.T, bin string, files []string) []result {
+	t.Helper()
+	theirs := cRead(t, bin, files...)
+	for i, f := range files {
+		got := theirs[i]
+		got.Detail = ""
+		require.Equal(t, goRead(t, f), got, "%s (C reader said: %s)", f, theirs[i].Detail)
+	}
+	return theirs
+}
+
+type vector struct {
+	File    string `json:"file"`
+	Expect  string `json:"expect"`
+	Version string `json:"version"`
+	Tensors []struct {
+		Name   string    `json:"name"`
+		Trits  string    `json:"trits"`
+		Hex    string    `json:"hex"`
+		Scales []float32 `json:"scales"`
+	} `json:"tensors"`
+}
+
+func vectors(t *testing.T) ([]vector, []string) {
+	t.Helper()
+	b, err := os.ReadFile(filepath.Join(vectorsDir, "vectors.json"))
+	require.NoError(t, err)
+	var vs []vector
+	require.NoError(t, json.Unmarshal(b, &vs))
+	require.NotEmpty(t, vs)
+	files := make([]string, len(vs))
+	for i, v := range vs {
+		files[i] = filepath.Join(vectorsDir, v.File)
+	}
+	return vs, files
+}
+
+// Every test vector: the C reader reports what vectors.json expects, and
+// the same as the Go reader, trit for trit, under the sanitizers.
+func TestVectors(t *testing.T) {
+	bin := sanitized(t)
+	vs, files := vectors(t)
+	res := compare(t, bin, files)
+	for i, v := range vs {
+		require.Equal(t, v.Expect, res[i].Result, "%s: %s", v.File, res[i].Detail)
+		if v.Expect != "ok" {
+			require.Contains(t, res[i].Detail, "FORMAT.md", "%s: the message names the rule", v.File)
+			continue
+		}
+		require.Equal(t, v.Version, res[i].Version, v.File)
+		require.Len(t, res[i].Tensors, len(v.Tensors), v.File)
+		for k, want := range v.Tensors {
+			got := res[i].Tensors[k]
+			require.Equal(t, want.Name, got.Name, v.File)
+			require.Equal(t, want.Trits, got.Trits, "%s %s", v.File, want.Name)
+			require.Equal(t, want.Hex, got.Hex, "%s %s", v.File, want.Name)
+			require.Equal(t, want.Scales, got.Scales, "%s %s", v.File, want.Name)
+		}
+	}
+}
+
+// Built without libzstd, the reader reports entropy payloads as
+// unsupported and reads everything else as before; the frame rules it
+// checks before decoding still reject the broken frames.
+func TestWithoutZstd(t *testing.T) {
+	bin := build(t, "gcc", sanitize...)
+	vs, files := vectors(t)
+	res := cRead(t, bin, files...)
+	for i, v := range vs {
+		want := v.Expect
+		switch v.File {
+		case "ok-entropy.tkart", "ok-auto.tkart", "bad-entropy-content.tkart":
+			want = "unsupported"
+		}
+		require.Equal(t, want, res[i].Result, "%s: %s", v.File, res[i].Detail)
+	}
+}
+
+// ternkitCLI builds the ternkit command into dir.
+func ternkitCLI(t *testing.T, dir string) string {
+	t.Helper()
+	goTool := filepath.Join(runtime.GOROOT(), "bin", "go")
+	bin := filepath.Join(dir, "ternkit")
+	out, err := exec.Command(goTool, "build", "-o", bin, "ternkit/cmd/ternkit").CombinedOutput()
+	require.NoError(t, err, "%s", out)
+	return bin
+}
+
+// The demo artifact in every codec and the malformed artifacts of
+// testdata/malformed: the C reader agrees with the Go reader on each.
+func TestDemoAndMalformed(t *testing.T) {
+	bin := sanitized(t)
+	dir := t.TempDir()
+	cli := ternkitCLI(t, dir)
+	var files []string
+	for _, codec := range []string{"auto", "bits2", "base3", "entropy"} {
+		d := filepath.Join(dir, codec)
+		out, err := exec.Command(cli, "demo", "--dir", d, "--codec", codec).CombinedOutput()
+		require.NoError(t, err, "%s", out)
+		arts, err := filepath.Glob(filepath.Join(d, "*.tkart"))
+		require.NoError(t, err)
+		require.Len(t, arts, 1)
+		files = append(files, arts[0])
+	}
+	res := compare(t, bin, files)
+	for i, r := range res {
+		require.Equal(t, "ok", r.Result, "%s: %s", files[i], r.Detail)
+		kinds := map[string]bool{}
+		for _, tn := range r.Tensors {
+			kinds[tn.Kind+" "+tn.Codec] = true
+		}
+		require.True(t, kinds["int8 raw"] && kinds["kept raw"], "%s: %v", files[i], kinds)
+	}
+
+	bad, err := filepath.Glob(filepath.Join(malformedDir, "*.tkart"))
+	require.NoError(t, err)
+	require.NotEmpty(t, bad)
+	for i, r := range compare(t, bin, bad) {
+		require.NotEqual(t, "ok", r.Result, bad[i])
+	}
+}
+
+// Truncations and single-byte flips of every vector (manifest flips with
+// the trailer hash recomputed, so that the JSON parser sees them), and
+// every arena size up to the one tkart_arena_size gives: no sanitizer
+// report, and every outcome is a class of FORMAT.md.
+func TestMutationsUnderSanitizers(t *testing.T) {
+	bin := sanitized(t)
+	_, files := vectors(t)
+	out := string(run(t, bin, append([]string{"--mutate", "1000"}, files...)...))
+	lines := strings.Split(strings.TrimSpace(out), "\n")
+	require.Len(t, lines, len(files))
+	classes := map[string]bool{}
+	for _, l := range lines {
+		fields := strings.Fields(l[strings.Index(l, ";")+1:])
+		for k := 0; k+1 < len(fields); k += 2 {
+			classes[fields[k]] = true
+			_, err := strconv.Atoi(fields[k+1])
+			require.NoError(t, err, l)
+		}
+	}
+	for _, c := range []string{"ok", "not-artifact", "version", "structure", "manifest-hash", "manifest", "section-hash", "payload"} {
+		require.True(t, classes[c], "no mutation gave %s: %v", c, classes)
+	}
+	for c := range classes {
+		require.NotContains(t, []string{"arena", "argument", "unknown"}, c)
+	}
+}
+
+// BLAKE3 of inputs across the chunk and tree boundaries equals b3sum's
+// (Debian b3sum, the BLAKE3 team's CLI); three values of the BLAKE3 test
+// vectors are checked as published.
+func TestBLAKE3(t *testing.T) {
+	b3sum := requireTool(t, "b3sum", "b3sum")
+	bin := sanitized(t)
+	dir := t.TempDir()
+	// The published test vectors (test_vectors.json in the BLAKE3
+	// repository) hash the bytes i mod 251; these hashes of lengths 0, 1
+	// and 1024 are written from memory and confirmed by b3sum below.
+	published := map[int]string{
+		0:    "af1349b9f5f9a1a6a0404dea36dcc9499bcb25c9adc112b7cc9a93cae41f3262",
+		1:    "2d3adedff11b61f14c886e35afa036736dcd87a74d27b5c1510225d0f592e213",
+		1024: "42214739f095a406f3fc83deb889744ac00df831c10daa55189b5d121c855af7",
+	}
+	for _, n := range []int{0, 1, 63, 64, 65, 127, 128, 1023, 1024, 1025, 2048, 2049, 3072, 3073, 4096, 4097,
+		5120, 5121, 6144, 6145, 7168, 7169, 8192, 8193, 16384, 31744, 102400, 1<<20 + 3} {
+		data := make([]byte, n)
+		for i := range data {
+			data[i] = byte(i % 251)
+		}
+		f := filepath.Join(dir, strconv.Itoa(n))
+		require.NoError(t, os.WriteFile(f, data, 0o644))
+		got := strings.TrimSpace(string(run(t, bin, "--blake3", f)))
+		out, err := exec.Command(b3sum, "--no-names", f).Output()
+		require.NoError(t, err)
+		require.Equal(t, strings.TrimSpace(string(out)), got, "length %d", n)
+		if want, ok := published[n]; ok {
+			require.Equal(t, want, got, "published vector, length %d", n)
+		}
+	}
+}
+
+// manifestEdit rewrites the manifest of an artifact and its trailer
+// (offset, length, BLAKE3), keeping everything before it.
+func manifestEdit(t *testing.T, art []byte, edit func(string) string) []byte {
+	t.Helper()
+	tr := art[len(art)-pack.TrailerLen:]
+	m := binary.LittleEndian.Uint64(tr)
+	body := edit(string(art[m : len(art)-pack.TrailerLen]))
+	out := append(append([]byte{}, art[:m]...), body...)
+	trailer := make([]byte, pack.TrailerLen)
+	binary.LittleEndian.PutUint64(trailer, m)
+	binary.LittleEndian.PutUint64(trailer[8:], uint64(len(body)))
+	sum := blake3.Sum256([]byte(body))
+	copy(trailer[16:], sum[:])
+	copy(trailer[56:], tr[56:])
+	return append(out, trailer...)
+}
+
+// The manifest's JSON rules (FORMAT.md, "Manifest"): RFC 8259 JSON in
+// valid UTF-8 (RFC 3629), exact keys, each once, integers without fraction
+// or exponent in the signed 64-bit range, null as the zero value. Where the
+// Go reader is the reference, it must agree.
+func TestManifestJSON(t *testing.T) {
+	bin := sanitized(t)
+	base, err := os.ReadFile(filepath.Join(vectorsDir, "ok-bits2.tkart"))
+	require.NoError(t, err)
+	sub := func(old, new string) func(string) string {
+		return func(s string) string {
+			require.Contains(t, s, old)
+			return strings.Replace(s, old, new, 1)
+		}
+	}
+	const tool = `"tool":"ternkit vectors"`
+	nested := func(n int) string { return `"tool":` + strings.Repeat("[", n) + strings.Repeat("]", n) }
+	long := `"epsilon":0.00001` + strings.Repeat("0", 300)
+	cases := []struct {
+		name, want string
+		edit       func(string) string
+		goAgrees   bool
+	}{
+		{"unchanged", "ok", func(s string) string { return s }, true},
+		{"escaped key", "ok", sub(`"format":`, `"\u0066ormat":`), true},
+		{"surrogate pair", "ok", sub(tool, `"tool":"ternkit \ud83c\udf31"`), true},
+		{"whitespace", "ok", sub(`,"tool"`, " ,\n\t\"tool\" "), true},
+		{"trailing whitespace", "ok", func(s string) string { return s + "\r\n " }, true},
+		{"null reads as empty", "ok", sub(tool, `"tool":null`), true},
+		{"exponent number", "ok", sub(`"epsilon":0.00001`, `"epsilon":1E-5`), true},
+		{"created", "ok", sub(tool, tool+`,"created":"2024-02-29T23:59:59Z"`), true},
+		// A lone surrogate escape names no character: rejected (RFC 8259
+		// section 8.2 leaves it to the reader; the format rejects it).
+		{"lone high surrogate", "manifest", sub(tool, `"tool":"\ud800"`), false},
+		{"lone low surrogate", "manifest", sub(tool, `"tool":"\udc00x"`), false},
+		{"high surrogate then letter", "manifest", sub(tool, `"tool":"\ud800\u0041"`), false},
+		{"invalid UTF-8", "manifest", sub(tool, "\"tool\":\"a\xffb\""), true},
+		{"overlong UTF-8", "manifest", sub(tool, "\"tool\":\"a\xc0\xafb\""), true},
+		{"UTF-8 surrogate", "manifest", sub(tool, "\"tool\":\"a\xed\xa0\x80b\""), true},
+		{"control character", "manifest", sub(tool, "\"tool\":\"a\x01b\""), true},
+		{"bad escape", "manifest", sub(tool, `"tool":"a\qb"`), true},
+		{"version 1.0", "manifest", sub(`"version":1`, `"version":1.0`), true},
+		{"version 1e0", "manifest", sub(`"version":1`, `"version":1e0`), true},
+		{"version leading zero", "manifest", sub(`"version":1`, `"version":01`), true},
+		{"version +1", "manifest", sub(`"version":1`, `"version":+1`), true},
+		{"fractional dimension", "manifest", sub(`"shape":[2,7]`, `"shape":[2,7.0]`), true},
+		{"integer overflow", "manifest", sub(`"bytes":382`, `"bytes":9223372036854775808`), true},
+		{"duplicate recipe key", "manifest", sub(`"tie":"half-even"`, `"tie":"half-even","tie":"half-even"`), true},
+		{"duplicate metadata key", "manifest", sub(`"scenario":"ternkit format test vector"`, `"scenario":"a","scenario":"b"`), true},
+		{"key case", "manifest", sub(`"format":`, `"Format":`), true},
+		{"unknown key", "manifest", sub(`{"format"`, `{"note":"x","format"`), true},
+		{"data after the object", "manifest", func(s string) string { return s + " {}" }, true},
+		{"byte order mark", "manifest", func(s string) string { return "\ufeff" + s }, true},
+		{"trailing comma", "manifest", sub(`"shape":[2,7]`, `"shape":[2,7,]`), true},
+		{"boolean as number", "manifest", sub(`"exact":true`, `"exact":1`), true},
+		{"NaN", "manifest", sub(`"epsilon":0.00001`, `"epsilon":NaN`), true},
+		{"float64 overflow", "manifest", sub(`"rel_rmse":0.49656424067266913`, `"rel_rmse":1e999`), true},
+		{"float32 overflow", "manifest", sub(`"scale":0.68214285`, `"scale":1e39`), true},
+		{"deep nesting", "manifest", sub(tool, nested(10001)), true},
+		// The Go reader takes minutes on this one (its strict-key walk
+		// slows down with depth); the C reader never follows the nesting.
+		{"deeper nesting", "manifest", sub(tool, nested(1000000)), false},
+		{"empty policy", "manifest", sub(tool, tool+`,"policy":[]`), true},
+		{"invalid date", "manifest", sub(tool, tool+`,"created":"2023-02-29T00:00:00Z"`), true},
+		{"not an object", "manifest", func(string) string { return "[]" }, true},
+		// The Go reader reports an empty manifest without a class.
+		{"empty", "manifest", func(string) string { return "" }, false},
+		// This reader's own limit (FORMAT.md lets a reader document its own).
+		{"number over the reader's limit", "manifest", sub(`"epsilon":0.00001`, long), false},
+	}
+	dir := t.TempDir()
+	files := make([]string, len(cases))
+	for i, c := range cases {
+		files[i] = filepath.Join(dir, fmt.Sprintf("case%02d.tkart", i))
+		require.NoError(t, os.WriteFile(files[i], manifestEdit(t, base, c.edit), 0o644))
+	}
+	res := cRead(t, bin, files...)
+	for i, c := range cases {
+		require.Equal(t, c.want, res[i].Result, "%s: %s", c.name, res[i].Detail)
+		if c.goAgrees {
+			require.Equal(t, c.want, goRead(t, files[i]).Result, "%s: the Go reader", c.name)
+		}
+	}
+}
+
+// matvecRef is the reference of the integer ternary product for the C
+// reader's tkart_matvec: y[r] = Σ_c trit[r][c]·x[c] over the given rows,
+// summed in int32 with two's complement wrap-around. It works from the
+// pack reader's decoded trits; a Go kernel with the same contract (packed
+// trits × int8 → int32) can take its place.
+func matvecRef(trits []int8, cols, row0, nrows int, x []int8) []int32 {
+	y := make([]int32, nrows)
+	for r := range nrows {
+		var acc int32
+		for c, v := range trits[(row0+r)*cols : (row0+r+1)*cols] {
+			acc += int32(v) * int32(x[c])
+		}
+		y[r] = acc
+	}
+	return y
+}
+
+// The matrix-vector product and row-range decoding on random shapes, rows
+// not aligned to the bytes of either codec, against the Go reader.
+func TestMatvec(t *testing.T) {
+	bin := sanitized(t)
+	dir := t.TempDir()
+	rng := rand.New(rand.NewPCG(7, 19))
+	shapes := [][2]int{{1, 1}, {3, 7}, {5, 13}, {2, 2049}, {4, 1500}, {9, 37}, {0, 5}, {6, 1024}}
+	for range 6 {
+		shapes = append(shapes, [2]int{1 + rng.IntN(12), 1 + rng.IntN(300)})
+	}
+	var ws []convert.WriteTensor
+	for i, s := range shapes {
+		w := testweights.Gaussian(rng, s[0]*s[1])
+		data := make([]byte, 4*len(w))
+		for k, v := range w {
+			binary.LittleEndian.PutUint32(data[4*k:], math.Float32bits(v))
+		}
+		ws = append(ws, convert.WriteTensor{Name: fmt.Sprintf("m%d.w", i), DType: "F32", Shape: []int64{int64(s[0]), int64(s[1])}, Data: data})
+	}
+	src := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(src, ws, nil))
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	for _, codec := range pack.Codecs {
+		art := filepath.Join(dir, string(codec)+pack.Extension)
+		_, err := pack.Build(s, art, pack.Options{Codec: codec, Recipe: convert.DefaultRecipe()})
+		require.NoError(t, err)
+		a, err := pack.Open(art)
+		require.NoError(t, err)
+		for i, sh := range shapes {
+			name := fmt.Sprintf("m%d.w", i)
+			tn, err := a.Tensor(name)
+			require.NoError(t, err)
+			require.Equal(t, manifest.KindTernary, tn.Entry.Kind, name)
+			require.Equal(t, string(codec), tn.Entry.Codec, name)
+			trits := make([]int8, tn.Len())
+			require.NoError(t, tn.DecodeTrits(trits))
+			rows, cols := sh[0], sh[1]
+			x := make([]int8, cols)
+			for k := range x {
+				x[k] = int8(rng.IntN(256) - 128) // the whole int8 range, -128 included
+			}
+			xf := filepath.Join(dir, fmt.Sprintf("x%d", i))
+			require.NoError(t, os.WriteFile(xf, int8Bytes(x), 0o644))
+			ranges := [][2]int{{0, rows}}
+			if rows > 0 {
+				r0 := rng.IntN(rows)
+				ranges = append(ranges, [2]int{r0, 1 + rng.IntN(rows-r0)}, [2]int{rows - 1, 1})
+			}
+			for _, rg := range ranges {
+				args := []string{name, strconv.Itoa(rg[0]), strconv.Itoa(rg[1])}
+				out := string(run(t, bin, append([]string{"--rows", art}, args...)...))
+				require.Equal(t, tritString(trits[rg[0]*cols:(rg[0]+rg[1])*cols])+"\n", out, "%s %s rows %v", codec, name, rg)
+				out = string(run(t, bin, append(append([]string{"--matvec", art}, args...), xf)...))
+				var got []int32
+				for _, f := range strings.Fields(out) {
+					v, err := strconv.ParseInt(f, 10, 32)
+					require.NoError(t, err)
+					got = append(got, int32(v))
+				}
+				want := matvecRef(trits, cols, rg[0], rg[1], x)
+				if len(want) == 0 {
+					want = nil
+				}
+				require.Equal(t, want, got, "%s %s rows %v", codec, name, rg)
+			}
+		}
+		require.NoError(t, a.Close())
+	}
+}
+
+func int8Bytes(x []int8) []byte {
+	b := make([]byte, len(x))
+	for i, v := range x {
+		b[i] = byte(v)
+	}
+	return b
+}
+
+// The library and the program compile as C99 without a warning under gcc
+// and clang, with and without the entropy codec.
+func TestStrictCompile(t *testing.T) {
+	// The sanitizer builds of the other tests are gcc builds with these
+	// flags too, with and without zstd.
+	for _, b := range []struct {
+		cc    string
+		flags []string
+	}{
+		{"gcc", []string{"-O2", "-pedantic", "-DTKART_WITH_ZSTD"}},
+		{"clang", []string{"-O2", "-pedantic", "-DTKART_WITH_ZSTD"}},
+		{"clang", nil},
+	} {
+		bin := build(t, b.cc, b.flags...)
+		out := run(t, bin, filepath.Join(vectorsDir, "ok-group.tkart"))
+		require.Contains(t, string(out), "ok: format 1.0", "%s %v", b.cc, b.flags)
+	}
+}
