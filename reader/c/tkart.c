@@ -1730,20 +1730,26 @@ int tkart_verify_tensor(tkart *a, const tkart_tensor *t)
 
 static const int8_t TRIT_OF_CODE[4] = {0, 1, -1, 0};
 
-int tkart_unpack_trits(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t first, uint64_t count,
-                       int8_t *dst)
+/* unpack is tkart_unpack_trits, and sets *bad to the index of an invalid
+ * byte. */
+static int unpack(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t first, uint64_t count,
+                  int8_t *dst, uint64_t *bad)
 {
 	uint64_t i = first, end = first + count;
 	if (first > n || count > n - first)
 		return TKART_E_ARG;
 	if (codec == TKART_BITS2) {
-		if (len != (n + 3) / 4)
+		if (len != (n + 3) / 4) {
+			*bad = len;
 			return TKART_E_PAYLOAD;
+		}
 		while (i < end) {
 			uint8_t b = p[i / 4];
 			unsigned k = (unsigned)(i % 4);
-			if ((b & 0x03) == 0x03 || (b & 0x0C) == 0x0C || (b & 0x30) == 0x30 || (b & 0xC0) == 0xC0)
+			if ((b & 0x03) == 0x03 || (b & 0x0C) == 0x0C || (b & 0x30) == 0x30 || (b & 0xC0) == 0xC0) {
+				*bad = i / 4;
 				return TKART_E_PAYLOAD;
+			}
 			if (k == 0 && end - i >= 4) {
 				dst[i - first] = TRIT_OF_CODE[b & 3];
 				dst[i - first + 1] = TRIT_OF_CODE[b >> 2 & 3];
@@ -1756,19 +1762,25 @@ int tkart_unpack_trits(int codec, const uint8_t *p, uint64_t len, uint64_t n, ui
 				dst[i - first] = TRIT_OF_CODE[b >> (2 * k) & 3];
 		}
 		/* the padding pairs of the last byte, when it was read */
-		if (count && end == n && n % 4 && (p[len - 1] >> (2 * (n % 4))) != 0)
+		if (count && end == n && n % 4 && (p[len - 1] >> (2 * (n % 4))) != 0) {
+			*bad = len - 1;
 			return TKART_E_PAYLOAD;
+		}
 		return TKART_OK;
 	}
 	if (codec == TKART_BASE3) {
 		static const uint8_t pow3[6] = {1, 3, 9, 27, 81, 243};
-		if (len != (n + 4) / 5)
+		if (len != (n + 4) / 5) {
+			*bad = len;
 			return TKART_E_PAYLOAD;
+		}
 		while (i < end) {
 			uint8_t b = p[i / 5];
 			unsigned k = (unsigned)(i % 5);
-			if (b > 242)
+			if (b > 242) {
+				*bad = i / 5;
 				return TKART_E_PAYLOAD;
+			}
 			if (k == 0 && end - i >= 5) {
 				int8_t *d = dst + (i - first);
 				d[0] = TRIT_OF_CODE[b % 3];
@@ -1782,15 +1794,24 @@ int tkart_unpack_trits(int codec, const uint8_t *p, uint64_t len, uint64_t n, ui
 			for (; k < 5 && i < end; k++, i++)
 				dst[i - first] = TRIT_OF_CODE[b / pow3[k] % 3];
 		}
-		if (count && end == n && n % 5 && p[len - 1] >= pow3[n % 5])
+		if (count && end == n && n % 5 && p[len - 1] >= pow3[n % 5]) {
+			*bad = len - 1;
 			return TKART_E_PAYLOAD;
+		}
 		return TKART_OK;
 	}
 	return TKART_E_ARG;
 }
 
-int tkart_matvec_packed(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t cols, uint64_t row0,
-                        uint64_t nrows, const int8_t *x, int32_t *y)
+int tkart_unpack_trits(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t first, uint64_t count,
+                       int8_t *dst)
+{
+	uint64_t bad;
+	return unpack(codec, p, len, n, first, count, dst, &bad);
+}
+
+static int matvec(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t cols, uint64_t row0,
+                  uint64_t nrows, const int8_t *x, int32_t *y, uint64_t *bad)
 {
 	int8_t buf[1024];
 	uint64_t r;
@@ -1806,7 +1827,7 @@ int tkart_matvec_packed(int codec, const uint8_t *p, uint64_t len, uint64_t n, u
 		uint32_t acc = 0; /* wraps like a two's complement int32 */
 		while (c < cols) {
 			uint64_t k, m = cols - c < sizeof buf ? cols - c : sizeof buf;
-			int e = tkart_unpack_trits(codec, p, len, n, start + c, m, buf);
+			int e = unpack(codec, p, len, n, start + c, m, buf, bad);
 			if (e)
 				return e;
 			for (k = 0; k < m; k++)
@@ -1816,6 +1837,13 @@ int tkart_matvec_packed(int codec, const uint8_t *p, uint64_t len, uint64_t n, u
 		y[r] = (int32_t)acc;
 	}
 	return TKART_OK;
+}
+
+int tkart_matvec_packed(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t cols, uint64_t row0,
+                        uint64_t nrows, const int8_t *x, int32_t *y)
+{
+	uint64_t bad;
+	return matvec(codec, p, len, n, cols, row0, nrows, x, y, &bad);
 }
 
 /* ---- entropy ---------------------------------------------------------------- */
@@ -1933,20 +1961,24 @@ static int packed_payload(tkart *a, const tkart_tensor *t, void *scratch, size_t
 #endif
 }
 
-static int payload_error(tkart *a, const tkart_tensor *t, int codec)
+/* An invalid byte at index bad of a packed payload: in the file, or in the
+ * content of an entropy frame. */
+static int payload_error(tkart *a, const tkart_tensor *t, int codec, uint64_t bad)
 {
 	const char *rule = codec == TKART_BITS2 ? "a pair equal to 3 or a nonzero padding pair (FORMAT.md, bits2)"
 	                                        : "a byte above 242 or a last byte not below 3^r (FORMAT.md, base3)";
-	return fail(a, TKART_E_PAYLOAD, t->section.offset, "section \"%.60s\": byte %llu: invalid %s payload: %s%s", t->name,
-	            (unsigned long long)t->section.offset, tkart_codec_name(codec), rule,
-	            t->codec == TKART_ENTROPY ? ", in the entropy frame's content" : "");
+	if (t->codec == TKART_ENTROPY)
+		return fail(a, TKART_E_PAYLOAD, t->section.offset, "section \"%.60s\": byte %llu: entropy frame content byte %llu: invalid %s payload: %s",
+		            t->name, (unsigned long long)t->section.offset, (unsigned long long)bad, tkart_codec_name(codec), rule);
+	return fail(a, TKART_E_PAYLOAD, t->section.offset + bad, "section \"%.60s\": byte %llu: invalid %s payload: %s", t->name,
+	            (unsigned long long)(t->section.offset + bad), tkart_codec_name(codec), rule);
 }
 
 int tkart_decode_trits(tkart *a, const tkart_tensor *t, int64_t row0, int64_t nrows, int8_t *dst, void *scratch,
                        size_t scratch_len)
 {
 	const uint8_t *p;
-	uint64_t len;
+	uint64_t len, bad = 0;
 	int codec, r;
 	if (t->kind != TKART_TERNARY)
 		return fail(a, TKART_E_ARG, 0, "tensor \"%.60s\" is %s, not ternary", t->name, tkart_kind_name(t->kind));
@@ -1956,10 +1988,10 @@ int tkart_decode_trits(tkart *a, const tkart_tensor *t, int64_t row0, int64_t nr
 	r = packed_payload(a, t, scratch, scratch_len, &p, &len, &codec);
 	if (r)
 		return r;
-	r = tkart_unpack_trits(codec, p, len, (uint64_t)t->n, (uint64_t)row0 * (uint64_t)t->cols,
-	                       (uint64_t)nrows * (uint64_t)t->cols, dst);
+	r = unpack(codec, p, len, (uint64_t)t->n, (uint64_t)row0 * (uint64_t)t->cols, (uint64_t)nrows * (uint64_t)t->cols,
+	           dst, &bad);
 	if (r == TKART_E_PAYLOAD)
-		return payload_error(a, t, codec);
+		return payload_error(a, t, codec, bad);
 	if (r)
 		return fail(a, r, 0, "tensor \"%.60s\": bad range", t->name);
 	return TKART_OK;
@@ -1969,7 +2001,7 @@ int tkart_matvec(tkart *a, const tkart_tensor *t, int64_t row0, int64_t nrows, c
                  void *scratch, size_t scratch_len)
 {
 	const uint8_t *p;
-	uint64_t len;
+	uint64_t len, bad = 0;
 	int codec, r;
 	if (t->kind != TKART_TERNARY)
 		return fail(a, TKART_E_ARG, 0, "tensor \"%.60s\" is %s, not ternary", t->name, tkart_kind_name(t->kind));
@@ -1979,9 +2011,9 @@ int tkart_matvec(tkart *a, const tkart_tensor *t, int64_t row0, int64_t nrows, c
 	r = packed_payload(a, t, scratch, scratch_len, &p, &len, &codec);
 	if (r)
 		return r;
-	r = tkart_matvec_packed(codec, p, len, (uint64_t)t->n, (uint64_t)t->cols, (uint64_t)row0, (uint64_t)nrows, x, y);
+	r = matvec(codec, p, len, (uint64_t)t->n, (uint64_t)t->cols, (uint64_t)row0, (uint64_t)nrows, x, y, &bad);
 	if (r == TKART_E_PAYLOAD)
-		return payload_error(a, t, codec);
+		return payload_error(a, t, codec, bad);
 	if (r)
 		return fail(a, r, 0, "tensor \"%.60s\": bad range", t->name);
 	return TKART_OK;
@@ -2095,7 +2127,7 @@ int tkart_check(tkart *a, void *scratch, size_t scratch_len)
 				r = tkart_int8_codes(a, t, &c);
 			} else if (t->kind == TKART_TERNARY) {
 				const uint8_t *p;
-				uint64_t len, k, cnt[3] = {0, 0, 0};
+				uint64_t len, k, bad = 0, cnt[3] = {0, 0, 0};
 				int codec;
 				int8_t buf[4096];
 				r = packed_payload(a, t, scratch, scratch_len, &p, &len, &codec);
@@ -2106,14 +2138,12 @@ int tkart_check(tkart *a, void *scratch, size_t scratch_len)
 				}
 				for (k = 0; r == 0 && k < (uint64_t)t->n; k += sizeof buf) {
 					uint64_t m = (uint64_t)t->n - k < sizeof buf ? (uint64_t)t->n - k : sizeof buf, q;
-					r = tkart_unpack_trits(codec, p, len, (uint64_t)t->n, k, m, buf);
+					r = unpack(codec, p, len, (uint64_t)t->n, k, m, buf, &bad);
 					if (r == TKART_E_PAYLOAD)
-						return payload_error(a, t, codec);
+						return payload_error(a, t, codec, bad);
 					for (q = 0; q < m; q++)
 						cnt[buf[q] + 1]++;
 				}
-				if (r == 0 && t->n == 0 && len != 0)
-					return payload_error(a, t, codec);
 				if (r == 0 && (cnt[0] != (uint64_t)t->neg || cnt[1] != (uint64_t)t->zero || cnt[2] != (uint64_t)t->pos))
 					return fail(a, TKART_E_COUNTS, t->section.offset,
 					            "section \"%.60s\": byte %llu: decoded trits neg %llu zero %llu pos %llu, the manifest records %lld %lld %lld (FORMAT.md, What a reader must reject)",
