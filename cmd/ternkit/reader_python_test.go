@@ -278,7 +278,7 @@ func TestSecondReaderDemo(t *testing.T) {
 	res := compareReaders(t, py, false, files)
 	for i, r := range res {
 		require.Equal(t, "ok", r.Result, files[i])
-		require.Len(t, r.Tensors, 5+9*demoLayers, files[i]) // embed, final norm, head, adapter, step; 9 per block
+		require.Len(t, r.Tensors, 4+9*demoLayers, files[i]) // embed, final norm, head, step; 9 per layer
 		// The demo's policy takes every action, so both readers meet every
 		// kind of tensor and scales section.
 		seen := map[string]bool{}
