@@ -113,6 +113,9 @@ func progressFunc(opts Options, a *pack.Artifact) func(n int64) {
 	for _, e := range a.Tensors() {
 		total += e.StoredBytes()
 	}
+	for _, c := range a.Companions() {
+		total += c.Section.Length
+	}
 	if opts.Source != nil {
 		for _, t := range opts.Source.Tensors {
 			total += t.Length
