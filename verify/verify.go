@@ -175,6 +175,7 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		if err := checkAgainst(rep, a, opts.Source, workers, advance); err != nil {
 			return nil, err
 		}
+		checkCompanionsAgainst(rep, a, opts.Source)
 	}
 	if opts.Budget != nil {
 		checkBudget(rep, a.Manifest(), opts.Budget)
