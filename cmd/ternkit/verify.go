@@ -39,7 +39,7 @@ Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable input
 A passing verify proves bytes and bounds, not task quality.`,
 		Example: `  ternkit verify model.tkart
   ternkit verify model.tkart --against model.safetensors --json
-  ternkit verify model.tkart --max-rel-rmse 0.6 --min-cosine 'blocks.*=0.85'
+  ternkit verify model.tkart --max-rel-rmse 0.6 --min-cosine 'model.layers.*=0.85'
   ternkit verify model.tkart --budget release-budget.toml`,
 		Args:              exactArgs(1),
 		ValidArgsFunction: artifactCompletion,
