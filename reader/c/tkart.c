@@ -828,6 +828,8 @@ typedef struct {
 	uint64_t source_bytes;
 } mfacts;
 
+static int parse_section(jp *j, tkart_section *s, int *present, const char *where);
+
 static const char *const SECTION_KEYS[] = {"offset", "length", "blake3", "chunks", NULL};
 
 static int parse_section(jp *j, tkart_section *s, int *present, const char *where)
@@ -1197,7 +1199,7 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 }
 
 static const char *const MANIFEST_KEYS[] = {"format", "version", "tool", "created", "recipe", "source",
-                                            "policy", "tensors", "totals", NULL};
+                                            "policy", "tensors", "totals", "companions", NULL};
 static const char *const RECIPE_KEYS[] = {"method", "scale_rule", "epsilon", "tie", "sum", NULL};
 static const char *const SOURCE_KEYS[] = {"files", "metadata", NULL};
 static const char *const FILE_KEYS[] = {"name", "bytes", "blake3", NULL};
@@ -1401,6 +1403,102 @@ static int valid_created(const char *s)
 	return h <= 23 && mi <= 59 && se <= 59;
 }
 
+static const char *const COMPANION_KEYS[] = {"name", "section", NULL};
+
+/* The name rules of FORMAT.md, "Companions": a base name. */
+static int valid_companion_name(const char *n)
+{
+	size_t len = strlen(n), i;
+	if (len == 0 || len > 255 || !strcmp(n, ".") || !strcmp(n, ".."))
+		return 0;
+	for (i = 0; i < len; i++) {
+		unsigned char c = (unsigned char)n[i];
+		if (c == '/' || c == '\\' || c < 0x20 || c == 0x7F)
+			return 0;
+	}
+	return 1;
+}
+
+static int ascii_fold_equal(const char *x, const char *y)
+{
+	for (; *x && *y; x++, y++) {
+		char a = *x >= 'A' && *x <= 'Z' ? (char)(*x + 32) : *x;
+		char b = *y >= 'A' && *y <= 'Z' ? (char)(*y + 32) : *y;
+		if (a != b)
+			return 0;
+	}
+	return *x == *y;
+}
+
+/* "companions" (format 1.3): a non-empty array, absent when null; the
+ * entries grow down from the top of the arena like the tensors. */
+static int parse_companions(jp *j)
+{
+	tkart *a = j->a;
+	int open, first = 1, more;
+	size_t n = 0, i, k;
+	tkart_companion *top = NULL;
+	if (jarr_begin(j, &open))
+		return a->err;
+	if (!open)
+		return 0;
+	for (;;) {
+		tkart_companion *c;
+		int o2, f2 = 1, m2, idx, has_section = 0;
+		uint32_t seen = 0;
+		char key[16], where[96];
+		if (jarr_next(j, &first, &more))
+			return a->err;
+		if (!more)
+			break;
+		if (a->arena_hi < sizeof *c || a->arena_hi - sizeof *c < a->arena_lo ||
+		    (top && a->arena + a->arena_hi != (uint8_t *)top))
+			return fail(a, TKART_E_ARENA, j->base, "arena of %lu bytes is too small for the manifest (see tkart_arena_size)",
+			            (unsigned long)a->arena_len);
+		a->arena_hi -= sizeof *c;
+		c = (tkart_companion *)(void *)(a->arena + a->arena_hi);
+		top = c;
+		memset(c, 0, sizeof *c);
+		c->name = "";
+		snprintf(where, sizeof where, "companions[%lu]", (unsigned long)n);
+		if (jobj_begin(j, &o2))
+			return a->err;
+		while (o2) {
+			if (jobj_next(j, &f2, key, sizeof key, &m2))
+				return a->err;
+			if (!m2)
+				break;
+			if (key_index(j, COMPANION_KEYS, key, &seen, &idx, where))
+				return a->err;
+			if (idx == 0 && jstr(j, &c->name, NULL))
+				return a->err;
+			if (idx == 1 && parse_section(j, &c->section, &has_section, where))
+				return a->err;
+		}
+		if (!valid_companion_name(c->name))
+			return jbad(j, "%s: companion name \"%.60s\" is not a base name (FORMAT.md, Companions)", where, c->name);
+		if (!has_section)
+			return jbad(j, "companion \"%.60s\": no section", c->name);
+		n++;
+	}
+	if (n == 0)
+		return jbad(j, "companions is an empty array (leave it out, or list the files)");
+	/* pushed downwards: reverse into file order */
+	for (i = 0; i < n / 2; i++) {
+		tkart_companion tmp = top[i];
+		top[i] = top[n - 1 - i];
+		top[n - 1 - i] = tmp;
+	}
+	for (i = 0; i < n; i++)
+		for (k = 0; k < i; k++)
+			if (ascii_fold_equal(top[i].name, top[k].name))
+				return jbad(j, "companion name \"%.60s\" repeats \"%.60s\", ASCII case ignored (FORMAT.md, Companions)",
+				            top[i].name, top[k].name);
+	a->companions = top;
+	a->ncompanions = n;
+	return 0;
+}
+
 static uint32_t name_hash(const char *s)
 {
 	uint32_t h = 2166136261u; /* FNV-1a: common practice for a small string table */
@@ -1416,6 +1514,7 @@ static int parse_manifest(tkart *a, const uint8_t *body, uint64_t len, mfacts *m
 	uint32_t seen = 0;
 	char key[16];
 	const char *format = "", *created = "";
+	/* keys are short: the longest top-level key, "companions", fits key[] */
 	int64_t version = 0, totals[11];
 	int has_totals_bpw = 0;
 	size_t i, nt = 0;
@@ -1464,6 +1563,7 @@ static int parse_manifest(tkart *a, const uint8_t *body, uint64_t len, mfacts *m
 				nt++;
 			}
 			break;
+		case 9: if (parse_companions(j)) return a->err; break;
 		case 8: {
 			int o3, f3 = 1, m3, i3;
 			uint32_t s3 = 0;
@@ -1518,11 +1618,11 @@ static int parse_manifest(tkart *a, const uint8_t *body, uint64_t len, mfacts *m
 	/* names: unique, through an open-addressing table kept for tkart_find */
 	a->index_slots = 2 * nt + 1;
 	a->index = arena_lo(a, a->index_slots * sizeof *a->index);
-	a->verified = arena_lo(a, 2 * nt + 1);
+	a->verified = arena_lo(a, 2 * nt + a->ncompanions + 1);
 	if (!a->index || !a->verified)
 		return fail(a, TKART_E_ARENA, j->base, "arena of %lu bytes is too small for the manifest (see tkart_arena_size)",
 		            (unsigned long)a->arena_len);
-	memset(a->verified, 0, 2 * nt + 1);
+	memset(a->verified, 0, 2 * nt + a->ncompanions + 1);
 	for (i = 0; i < a->index_slots; i++)
 		a->index[i] = UINT32_MAX;
 	for (i = 0; i < nt; i++) {
@@ -1641,6 +1741,11 @@ int tkart_open(tkart *a, const void *buf, uint64_t size, void *arena, size_t are
 		            a->minor);
 	if (mf.has_sum)
 		used = 2;
+	if (a->ncompanions && a->minor < 3)
+		return fail(a, TKART_E_VERSION, 10, "preamble: byte 10: companions are a key of format 1.3, the preamble says 1.%u (FORMAT.md, Versioning)",
+		            a->minor);
+	if (a->ncompanions)
+		used = 3;
 	if (a->minor != used)
 		return fail(a, TKART_E_STRUCTURE, 10, "preamble: byte 10: preamble says format 1.%u, the manifest uses features of 1.%u only (FORMAT.md, Versioning)",
 		            a->minor, used);
@@ -1659,6 +1764,16 @@ int tkart_open(tkart *a, const void *buf, uint64_t size, void *arena, size_t are
 				            t->name, (unsigned long long)sec->length, (unsigned long long)next, (unsigned long long)m);
 			next = align_up(sec->offset + sec->length);
 		}
+	}
+	for (i = 0; i < a->ncompanions; i++) {
+		const tkart_section *sec = &a->companions[i].section;
+		if (sec->offset != next)
+			return fail(a, TKART_E_STRUCTURE, m, "manifest: companion \"%.60s\": section offset %llu (layout puts it at %llu) (FORMAT.md, Layout)",
+			            a->companions[i].name, (unsigned long long)sec->offset, (unsigned long long)next);
+		if (sec->length > m - next)
+			return fail(a, TKART_E_STRUCTURE, m, "manifest: companion \"%.60s\": section of %llu bytes at %llu runs past the manifest at %llu (FORMAT.md, Layout)",
+			            a->companions[i].name, (unsigned long long)sec->length, (unsigned long long)next, (unsigned long long)m);
+		next = align_up(sec->offset + sec->length);
 	}
 	if (next != m)
 		return fail(a, TKART_E_STRUCTURE, size - TRAILER_LEN, "trailer: manifest offset %llu (layout puts it at %llu) (FORMAT.md, Layout)",
@@ -1692,29 +1807,63 @@ static int tensor_index(const tkart *a, const tkart_tensor *t, size_t *i)
 	return 1;
 }
 
-static int verify_section(tkart *a, const tkart_tensor *t, int scales)
+/* Checks section s (whose verified flag is flag) against its hashes. */
+static int verify_hashes(tkart *a, const tkart_section *s, size_t flag, const char *what, const char *name,
+                         const char *role)
 {
-	const tkart_section *s = scales ? &t->scales : &t->section;
 	const uint8_t *p = a->buf + s->offset;
 	uint8_t h[32];
 	uint64_t k;
-	size_t i;
-	if (!tensor_index(a, t, &i))
-		return fail(a, TKART_E_ARG, 0, "tensor is not one of this artifact's");
-	if (a->verified[2 * i + (size_t)scales])
+	if (a->verified[flag])
 		return TKART_OK;
 	tkart_blake3(p, (size_t)s->length, h);
 	if (memcmp(h, s->blake3, 32) != 0)
-		return fail(a, TKART_E_SECTION_HASH, s->offset, "section \"%.60s\": byte %llu: %s section BLAKE3 differs from the manifest (FORMAT.md, Hashing)",
-		            t->name, (unsigned long long)s->offset, scales ? "scales" : "payload");
+		return fail(a, TKART_E_SECTION_HASH, s->offset, "%s \"%.60s\": byte %llu: %s section BLAKE3 differs from the manifest (FORMAT.md, Hashing)",
+		            what, name, (unsigned long long)s->offset, role);
 	for (k = 0; k < s->nchunks; k++) {
 		uint64_t off = k * CHUNK, n = s->length - off < CHUNK ? s->length - off : CHUNK;
 		tkart_blake3(p + off, (size_t)n, h);
 		if (memcmp(h, s->chunks + 32 * k, 32) != 0)
-			return fail(a, TKART_E_SECTION_HASH, s->offset + off, "section \"%.60s\": byte %llu: %s chunk %llu BLAKE3 differs from the manifest (FORMAT.md, Hashing)",
-			            t->name, (unsigned long long)(s->offset + off), scales ? "scales" : "payload", (unsigned long long)k);
+			return fail(a, TKART_E_SECTION_HASH, s->offset + off, "%s \"%.60s\": byte %llu: %s chunk %llu BLAKE3 differs from the manifest (FORMAT.md, Hashing)",
+			            what, name, (unsigned long long)(s->offset + off), role, (unsigned long long)k);
 	}
-	a->verified[2 * i + (size_t)scales] = 1;
+	a->verified[flag] = 1;
+	return TKART_OK;
+}
+
+static int verify_section(tkart *a, const tkart_tensor *t, int scales)
+{
+	size_t i;
+	if (!tensor_index(a, t, &i))
+		return fail(a, TKART_E_ARG, 0, "tensor is not one of this artifact's");
+	return verify_hashes(a, scales ? &t->scales : &t->section, 2 * i + (size_t)scales, "section", t->name,
+	                     scales ? "scales" : "payload");
+}
+
+static int verify_companion(tkart *a, const tkart_companion *c)
+{
+	if (!a->companions || c < a->companions || c >= a->companions + a->ncompanions)
+		return fail(a, TKART_E_ARG, 0, "companion is not one of this artifact's");
+	return verify_hashes(a, &c->section, 2 * a->ntensors + (size_t)(c - a->companions), "companion", c->name,
+	                     "companion");
+}
+
+const tkart_companion *tkart_find_companion(const tkart *a, const char *name)
+{
+	size_t i;
+	for (i = 0; i < a->ncompanions; i++)
+		if (!strcmp(a->companions[i].name, name))
+			return &a->companions[i];
+	return NULL;
+}
+
+int tkart_companion_bytes(tkart *a, const tkart_companion *c, const uint8_t **bytes, uint64_t *len)
+{
+	int r = verify_companion(a, c);
+	if (r)
+		return r;
+	*bytes = a->buf + c->section.offset;
+	*len = c->section.length;
 	return TKART_OK;
 }
 
@@ -2095,7 +2244,7 @@ int tkart_check(tkart *a, void *scratch, size_t scratch_len)
 {
 	size_t i;
 	uint64_t at;
-	if (a->ntensors == 0) {
+	if (a->ntensors == 0 && a->ncompanions == 0) {
 		if (!all_zero(a->buf + PREAMBLE_LEN, a->manifest_offset - PREAMBLE_LEN, &at))
 			return fail(a, TKART_E_STRUCTURE, PREAMBLE_LEN + at, "padding: byte %llu: padding byte is not 0 (FORMAT.md, Layout)",
 			            (unsigned long long)(PREAMBLE_LEN + at));
@@ -2112,6 +2261,8 @@ int tkart_check(tkart *a, void *scratch, size_t scratch_len)
 				next = t->scales.offset;
 			else if (i + 1 < a->ntensors)
 				next = a->tensors[i + 1].section.offset;
+			else if (a->ncompanions)
+				next = a->companions[0].section.offset;
 			else
 				next = a->manifest_offset;
 			if (next > end && !all_zero(a->buf + end, next - end, &at))
@@ -2154,6 +2305,18 @@ int tkart_check(tkart *a, void *scratch, size_t scratch_len)
 			if (r)
 				return r;
 		}
+	}
+	for (i = 0; i < a->ncompanions; i++) {
+		const tkart_section *sec = &a->companions[i].section;
+		uint64_t end = sec->offset + sec->length,
+		         next = i + 1 < a->ncompanions ? a->companions[i + 1].section.offset : a->manifest_offset;
+		int r;
+		if (next > end && !all_zero(a->buf + end, next - end, &at))
+			return fail(a, TKART_E_STRUCTURE, end + at, "padding: byte %llu: padding byte 0x%02x is not 0 (FORMAT.md, Layout)",
+			            (unsigned long long)(end + at), a->buf[end + at]);
+		r = verify_companion(a, &a->companions[i]);
+		if (r)
+			return r;
 	}
 	if (unsupported)
 		return fail(a, TKART_E_UNSUPPORTED, 0, "the entropy codec is not supported by this build (compile with -DTKART_WITH_ZSTD and link libzstd); every other rule holds");

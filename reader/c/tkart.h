@@ -1,4 +1,4 @@
-/* tkart.h: a C99 reader of ternkit artifacts (.tkart), format 1.0 to 1.2,
+/* tkart.h: a C99 reader of ternkit artifacts (.tkart), format 1.0 to 1.3,
  * written from pack/FORMAT.md.
  *
  * The reader works over a buffer the caller provides (typically the whole
@@ -27,7 +27,7 @@ extern "C" {
 #endif
 
 /* The highest minor version of format 1 this reader implements. */
-#define TKART_MINOR 2
+#define TKART_MINOR 3
 /* The largest manifest this reader accepts (FORMAT.md: a reader documents
  * its own limit). */
 #define TKART_MANIFEST_LIMIT ((uint64_t)256 << 20)
@@ -83,6 +83,12 @@ typedef struct tkart_tensor {
 	int64_t neg, zero, pos; /* ternary: trit counts from the manifest */
 } tkart_tensor;
 
+/* A file carried beside the weights (format 1.3), stored byte for byte. */
+typedef struct tkart_companion {
+	const char *name; /* a base name, in the arena */
+	tkart_section section;
+} tkart_companion;
+
 typedef struct tkart {
 	/* read-only after tkart_open */
 	const uint8_t *buf;
@@ -92,6 +98,8 @@ typedef struct tkart {
 	uint8_t manifest_hash[32];
 	size_t ntensors;
 	const tkart_tensor *tensors;
+	size_t ncompanions;
+	const tkart_companion *companions;
 	/* the last error */
 	int err;
 	uint64_t err_offset; /* byte offset in the file the error concerns */
@@ -101,7 +109,7 @@ typedef struct tkart {
 	size_t arena_len, arena_lo, arena_hi;
 	uint32_t *index;
 	size_t index_slots;
-	uint8_t *verified; /* per section: 1 once its hashes were checked */
+	uint8_t *verified; /* per section (tensors' two, then companions'): 1 once its hashes were checked */
 } tkart;
 
 /* An arena size that suffices for the artifact in buf (read from its
@@ -142,6 +150,11 @@ int tkart_decode_trits(tkart *a, const tkart_tensor *t, int64_t row0, int64_t nr
 /* The tensor's scales: 1 for tensor granularity, else t->nscales; dst
  * holds cap floats. */
 int tkart_read_scales(tkart *a, const tkart_tensor *t, float *dst, size_t cap);
+
+/* A companion's bytes, in place in the buffer, after its hashes are
+ * checked; NULL from find for a name the artifact does not carry. */
+const tkart_companion *tkart_find_companion(const tkart *a, const char *name);
+int tkart_companion_bytes(tkart *a, const tkart_companion *c, const uint8_t **bytes, uint64_t *len);
 
 /* int8 codes (n bytes) and kept bytes, in place in the buffer. */
 int tkart_int8_codes(tkart *a, const tkart_tensor *t, const int8_t **codes);

@@ -209,7 +209,30 @@ static int json_file(const char *path, int with_trits)
 		}
 		printf("}");
 	}
-	printf("]}");
+	printf("]");
+	if (f.a.ncompanions) {
+		printf(", \"companions\": [");
+		for (i = 0; i < f.a.ncompanions; i++) {
+			const tkart_companion *c = &f.a.companions[i];
+			const uint8_t *b;
+			uint64_t n;
+			printf("%s\n {\"name\": ", i ? "," : "");
+			json_str(c->name);
+			printf(", \"offset\": %llu, \"length\": %llu", (unsigned long long)c->section.offset,
+			       (unsigned long long)c->section.length);
+			if (tkart_companion_bytes(&f.a, c, &b, &n) == TKART_OK) {
+				/* the BLAKE3 of the bytes returned, computed again */
+				uint8_t h[32];
+				tkart_blake3(b, (size_t)n, h);
+				printf(", \"blake3\": \"");
+				hex(h, 32);
+				printf("\"");
+			}
+			printf("}");
+		}
+		printf("]");
+	}
+	printf("}");
 	unload(&f);
 	return 1;
 }
@@ -228,8 +251,8 @@ static int list_file(const char *path)
 		unload(&f);
 		return 1;
 	}
-	printf("%s: ok: format 1.%u, %lu tensors, every section hash and payload checked\n", path, f.a.minor,
-	       (unsigned long)f.a.ntensors);
+	printf("%s: ok: format 1.%u, %lu tensors, %lu companions, every section hash and payload checked\n", path,
+	       f.a.minor, (unsigned long)f.a.ntensors, (unsigned long)f.a.ncompanions);
 	for (i = 0; i < f.a.ntensors; i++) {
 		const tkart_tensor *t = &f.a.tensors[i];
 		printf("  %s  %s %s ", t->name, tkart_kind_name(t->kind), tkart_codec_name(t->codec));
@@ -244,6 +267,10 @@ static int list_file(const char *path)
 			printf(" scales at %llu+%llu", (unsigned long long)t->scales.offset, (unsigned long long)t->scales.length);
 		printf("\n");
 	}
+	for (i = 0; i < f.a.ncompanions; i++)
+		printf("  %s  companion at %llu+%llu\n", f.a.companions[i].name,
+		       (unsigned long long)f.a.companions[i].section.offset,
+		       (unsigned long long)f.a.companions[i].section.length);
 	ok = 0;
 	unload(&f);
 	return ok;
