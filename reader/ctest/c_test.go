@@ -87,7 +87,15 @@ func build(t *testing.T, cc string, flags ...string) string {
 	if zstd {
 		args = append(args, "-lzstd")
 	}
+	// The sources' bytes are part of the key (and read here, so that the
+	// go test cache sees them change).
 	key := cc + " " + strings.Join(args, " ")
+	for _, f := range []string{"tkart.h", "tkart.c", "tkart_check.c"} {
+		b, err := os.ReadFile(filepath.Join(cDir, f))
+		require.NoError(t, err)
+		sum := sha256.Sum256(b)
+		key += " " + hex.EncodeToString(sum[:8])
+	}
 	buildMu.Lock()
 	defer buildMu.Unlock()
 	if bin, ok := built[key]; ok {
