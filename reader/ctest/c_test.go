@@ -428,6 +428,39 @@ func TestDemoAndMalformed(t *testing.T) {
 		require.True(t, kinds["int8 raw"] && kinds["kept raw"], "%s: %v", files[i], kinds)
 	}
 
+	// The example of reader/c/README.md compiles and runs one layer of
+	// each demo artifact, and its y[0] is the reference product's.
+	readme, err := os.ReadFile(filepath.Join(cDir, "README.md"))
+	require.NoError(t, err)
+	_, code, ok := strings.Cut(string(readme), "## Example")
+	require.True(t, ok)
+	_, code, _ = strings.Cut(code, "```c\n")
+	code, _, _ = strings.Cut(code, "```")
+	example := filepath.Join(dir, "example")
+	require.NoError(t, os.WriteFile(example+".c", []byte(code), 0o644))
+	gcc := requireTool(t, "gcc", "gcc")
+	out, err := exec.Command(gcc, append(append([]string{}, strictFlags...), "-D_POSIX_C_SOURCE=200809L", "-DTKART_WITH_ZSTD", "-I", cDir,
+		"-o", example, example+".c", filepath.Join(cDir, "tkart.c"), "-lzstd")...).CombinedOutput()
+	require.NoError(t, err, "%s", out)
+	for _, art := range files {
+		out, err := exec.Command(example, art).CombinedOutput()
+		require.NoError(t, err, "%s", out)
+		a, err := pack.Open(art)
+		require.NoError(t, err)
+		tn, err := a.Tensor("model.layers.0.mlp.down_proj.weight")
+		require.NoError(t, err)
+		trits := make([]int8, tn.Len())
+		require.NoError(t, tn.DecodeTrits(trits))
+		cols := int(tn.Entry.Shape[1])
+		x := make([]int8, cols)
+		for c := range x {
+			x[c] = int8(c%7 - 3)
+		}
+		y := matvecRef(trits, cols, 0, 1, x)
+		require.True(t, strings.HasPrefix(string(out), fmt.Sprintf("y[0] = %d, dequantized ", y[0])), "%s: %s", art, out)
+		require.NoError(t, a.Close())
+	}
+
 	bad, err := filepath.Glob(filepath.Join(malformedDir, "*.tkart"))
 	require.NoError(t, err)
 	require.NotEmpty(t, bad)
