@@ -2156,7 +2156,8 @@ static int packed_payload(tkart *a, const tkart_tensor *t, void *scratch, size_t
 		            t->name, (unsigned long)scratch_len, (unsigned long long)b);
 #ifdef TKART_WITH_ZSTD
 	{
-		size_t got = ZSTD_decompress(scratch, (size_t)b, p, (size_t)t->section.length);
+		static uint8_t none[1]; /* a frame of no content may come with no scratch */
+		size_t got = ZSTD_decompress(b ? scratch : none, (size_t)b, p, (size_t)t->section.length);
 		if (ZSTD_isError(got))
 			return fail(a, TKART_E_PAYLOAD, t->section.offset, "section \"%.60s\": byte %llu: entropy frame: %s (FORMAT.md, entropy)",
 			            t->name, (unsigned long long)t->section.offset, ZSTD_getErrorName(got));
@@ -2164,7 +2165,7 @@ static int packed_payload(tkart *a, const tkart_tensor *t, void *scratch, size_t
 			return fail(a, TKART_E_PAYLOAD, t->section.offset, "section \"%.60s\": byte %llu: entropy frame decodes to %lu bytes, want %llu (FORMAT.md, entropy)",
 			            t->name, (unsigned long long)t->section.offset, (unsigned long)got, (unsigned long long)b);
 	}
-	*pp = scratch;
+	*pp = b ? (const uint8_t *)scratch : p; /* nothing is read for b = 0 */
 	*plen = b;
 	*codec = TKART_BASE3;
 	return TKART_OK;

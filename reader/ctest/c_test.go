@@ -626,6 +626,10 @@ func TestManifestJSON(t *testing.T) {
 		{"not an object", "manifest", func(string) string { return "[]" }, true},
 		// The Go reader reports an empty manifest without a class.
 		{"empty", "manifest", func(string) string { return "" }, false},
+		// Many small values: the arena tkart_arena_size gives holds them.
+		{"many dimensions", "ok", sub(`"shape":[0,4]`, `"shape":[0,4`+strings.Repeat(",0", 20000)+`]`), true},
+		{"many metadata keys", "ok", sub(`"scenario":"ternkit format test vector"`, manyKeys(3000)), true},
+		{"many chunks", "manifest", sub(`"length":6,`, `"length":6,"chunks":[`+strings.Repeat(`"`+strings.Repeat("0", 64)+`",`, 999)+`"`+strings.Repeat("0", 64)+`"],`), true},
 		// This reader's own limit (FORMAT.md lets a reader document its own).
 		{"number over the reader's limit", "manifest", sub(`"epsilon":0.00001`, long), false},
 	}
@@ -642,6 +646,15 @@ func TestManifestJSON(t *testing.T) {
 			require.Equal(t, c.want, goRead(t, files[i]).Result, "%s: the Go reader", c.name)
 		}
 	}
+}
+
+// manyKeys is n distinct metadata entries with short keys.
+func manyKeys(n int) string {
+	parts := make([]string, n)
+	for i := range parts {
+		parts[i] = fmt.Sprintf(`"%x":""`, i)
+	}
+	return strings.Join(parts, ",")
 }
 
 // matvecRef is the reference of the integer ternary product for the C
