@@ -236,7 +236,7 @@ void tkart_blake3(const void *data, size_t len, uint8_t out[32])
 static void *arena_lo(tkart *a, size_t n)
 {
 	size_t at = (a->arena_lo + 7) & ~(size_t)7;
-	if (at > a->arena_hi || a->arena_hi - at < n)
+	if (!a->arena || at > a->arena_hi || a->arena_hi - at < n)
 		return NULL;
 	a->arena_lo = at + n;
 	return a->arena + at;
@@ -247,7 +247,7 @@ static void *arena_lo(tkart *a, size_t n)
 static tkart_tensor *arena_push_tensor(tkart *a)
 {
 	size_t n = sizeof(tkart_tensor);
-	if (a->arena_hi < n || a->arena_hi - n < a->arena_lo)
+	if (!a->arena || a->arena_hi < n || a->arena_hi - n < a->arena_lo)
 		return NULL;
 	a->arena_hi -= n;
 	return (tkart_tensor *)(void *)(a->arena + a->arena_hi);
@@ -1673,7 +1673,7 @@ int tkart_open(tkart *a, const void *buf, uint64_t size, void *arena, size_t are
 	memset(a, 0, sizeof *a);
 	a->buf = p;
 	a->size = size;
-	{
+	if (arena) {
 		/* align the arena to 8 bytes at both ends */
 		size_t skip = (8 - (size_t)((uintptr_t)arena & 7)) & 7;
 		if (arena_len < skip)

@@ -420,7 +420,7 @@ static int mutate(const char *path, uint64_t budget)
 		int rc;
 		if (len > need)
 			len = need;
-		arena = malloc(len ? len : 1);
+		arena = len ? malloc(len) : NULL; /* NULL and 0 included */
 		rc = tkart_open(&a, d, size, arena, len);
 		free(arena);
 		if (rc != TKART_E_ARENA && (full == TKART_OK ? rc != TKART_OK : 0)) {
