@@ -1,3 +1,9 @@
+// The race detector has nothing to watch here: the tests drive the C
+// program in subprocesses, one at a time. Skipping them under -race keeps
+// CI from building and running the C reader twice.
+
+//go:build !race
+
 package ctest
 
 import (
