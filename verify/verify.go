@@ -49,7 +49,17 @@ type Report struct {
 	Warnings []string `json:"warnings,omitempty"`
 	Passed   int      `json:"passed"`
 	Failed   int      `json:"failed"`
+	// SHA256 and BLAKE3 of the whole artifact, in lowercase hex, with
+	// Options.Digests.
+	SHA256 string `json:"sha256,omitempty"`
+	BLAKE3 string `json:"blake3,omitempty"`
+
+	manifestHash [32]byte
 }
+
+// ManifestHash is the BLAKE3 of the manifest the report's checks were
+// made against (zero when the artifact could not be read).
+func (r *Report) ManifestHash() [32]byte { return r.manifestHash }
 
 // OK reports whether every check passed.
 func (r *Report) OK() bool { return r.Failed == 0 && r.Passed > 0 }
@@ -102,6 +112,15 @@ type Options struct {
 	// once before the first read and after each section and source tensor.
 	// It runs on Run's goroutine and must return quickly.
 	Progress func(done, total int64)
+	// Signature, when set, requires a valid signature over the manifest,
+	// checked right after the manifest is read, before any section, from
+	// the same open file as every other check.
+	Signature *Signature
+	// Digests, when set, fills the report's SHA256 and BLAKE3 of the whole
+	// artifact, read from the same open file.
+	Digests bool
+
+	afterSignature func() // test hook: runs between the signature and the section checks
 }
 
 // progressFunc returns the function Run calls after reading n bytes.
@@ -148,6 +167,9 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		var fe *pack.FormatError
 		if errors.As(openErr, &fe) {
 			rep.add(CheckStructure, "", false, "%v", openErr)
+			if opts.Signature != nil {
+				rep.add(CheckSignature, "", false, "not checked: the artifact's structure is invalid")
+			}
 			return rep, nil
 		}
 		if errors.Is(openErr, fs.ErrNotExist) || errors.Is(openErr, fs.ErrPermission) {
@@ -157,6 +179,13 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	}
 	defer a.Close()
 	rep.add(CheckStructure, "", true, "")
+	rep.manifestHash = a.ManifestHash()
+	if opts.Signature != nil {
+		checkSignature(rep, rep.manifestHash, opts.Signature)
+	}
+	if opts.afterSignature != nil {
+		opts.afterSignature()
+	}
 	mapped := mapArtifact(a)
 	advance := progressFunc(opts, a)
 	workers := opts.Workers
@@ -164,6 +193,11 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		workers = runtime.NumCPU()
 	}
 	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
+	if opts.Digests {
+		if err := digests(rep, a, mapped); err != nil {
+			return nil, fmt.Errorf("read %s: %w", name, err)
+		}
+	}
 	// the source checks read the artifact by tensor; unmapping first keeps
 	// the mapped pages out of the resident size while the source is read
 	unmapArtifact(mapped)
