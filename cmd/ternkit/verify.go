@@ -152,7 +152,8 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 	} else {
 		fmt.Fprintf(w, "verify: FAILED: %d of %d checks failed: %s\n", rep.Failed, rep.Failed+rep.Passed, what)
 	}
-	if c, ok := rep.Find(verify.CheckSignature, ""); ok && c.OK {
+	// a valid signature is news only when everything else holds too
+	if c, ok := rep.Find(verify.CheckSignature, ""); ok && c.OK && rep.OK() {
 		fmt.Fprintf(w, "signature: valid, %s\n", c.Detail)
 	}
 	for _, warning := range rep.Warnings {
