@@ -192,11 +192,17 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
-	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
+	// the whole file's digests are one sequential pass beside the section
+	// checks, which leave CPUs idle while their last jobs finish
+	digestErr := make(chan error, 1)
 	if opts.Digests {
-		if err := digests(rep, a, mapped); err != nil {
-			return nil, fmt.Errorf("read %s: %w", name, err)
-		}
+		go func() { digestErr <- digests(rep, a, mapped) }()
+	} else {
+		digestErr <- nil
+	}
+	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
+	if err := <-digestErr; err != nil {
+		return nil, fmt.Errorf("read %s: %w", name, err)
 	}
 	// the source checks read the artifact by tensor; unmapping first keeps
 	// the mapped pages out of the resident size while the source is read
