@@ -2,6 +2,7 @@ package main
 
 import (
 	"fmt"
+	"os"
 
 	"github.com/spf13/cobra"
 
@@ -38,12 +39,20 @@ model's quality. ` + caution + `.`,
 			if format != sign.FormText && format != sign.FormSSH {
 				return usagef("--format %q: want %s or %s", format, sign.FormText, sign.FormSSH)
 			}
-			if keyPath == "" && !printMessage {
+			art := args[0]
+			switch {
+			case printMessage && (keyPath != "" || out != ""):
+				return usagef("--print-message writes the message to stdout and signs nothing: drop --key and -o, redirect stdout instead")
+			case printMessage && isTerminal(cmd.OutOrStdout()):
+				return usagef("--print-message writes 52 binary bytes: redirect stdout to a file (ternkit sign %s --print-message > MESSAGE)", art)
+			case keyPath == "" && !printMessage:
 				return usagef("sign needs --key KEY (make one with: ternkit keygen -o NAME), or --print-message")
 			}
-			art := args[0]
 			if out == "" {
 				out = sign.SignaturePath(art)
+			}
+			if sameFile(out, art) || sameFile(out, keyPath) {
+				return usagef("-o %s is an input of this command; write the signature elsewhere", out)
 			}
 			var k *sign.PrivateKey
 			if !printMessage {
@@ -115,4 +124,12 @@ func signatureFlags(cmd *cobra.Command, artifact string) (*verify.Signature, err
 		sigPath = sign.SignaturePath(artifact)
 	}
 	return &verify.Signature{Key: k, Path: sigPath}, nil
+}
+
+// sameFile reports whether a and b name the same existing file (symlinks
+// followed).
+func sameFile(a, b string) bool {
+	sa, errA := os.Stat(a)
+	sb, errB := os.Stat(b)
+	return errA == nil && errB == nil && os.SameFile(sa, sb)
 }

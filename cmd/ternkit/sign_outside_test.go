@@ -214,3 +214,29 @@ func TestDigestsAgainstSHA256Sum(t *testing.T) {
 	}
 	require.Equal(t, field(tool(t, nil, b3sum, art)), got.BLAKE3, "verify --json blake3")
 }
+
+// sign's flags that cannot go together, and outputs that would replace an
+// input, are usage errors that write nothing.
+func TestSignRefusals(t *testing.T) {
+	dir := t.TempDir()
+	_, art := demoArtifact(t, dir)
+	key, _ := keygen(t, dir, "vault")
+	before := readFile(t, art)
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"sign", art, "--key", key, "-o", art}, "is an input"},
+		{[]string{"sign", art, "--key", key, "-o", key}, "is an input"},
+		{[]string{"sign", art, "--print-message", "--key", key}, "drop --key"},
+		{[]string{"sign", art, "--key", key, "--format", "pgp"}, `"pgp"`},
+		{[]string{"sign", art}, "needs --key"},
+	} {
+		code, _, errOut := ternkit(c.args...)
+		require.Equal(t, exitInput, code, "%v", c.args)
+		require.Contains(t, errOut, c.want, "%v", c.args)
+	}
+	require.Equal(t, before, readFile(t, art))
+	_, err := os.Stat(art + ".sig")
+	require.ErrorIs(t, err, os.ErrNotExist)
+}
