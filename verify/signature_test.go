@@ -153,6 +153,15 @@ func TestSignatureAndSectionsFromOneOpenFile(t *testing.T) {
 	swapped := false
 	opts := Options{Signature: &Signature{Key: key.Public(), Path: sign.SignaturePath(art)}}
 	opts.afterSignature = func() {
+		if fds, err := os.ReadDir("/proc/self/fd"); err == nil { // Linux: count the open files of the path
+			open := 0
+			for _, fd := range fds {
+				if target, err := os.Readlink(filepath.Join("/proc/self/fd", fd.Name())); err == nil && target == art {
+					open++
+				}
+			}
+			require.Equal(t, 1, open, "one open file of the artifact")
+		}
 		require.NoError(t, os.Rename(swap, art))
 		swapped = true
 	}
