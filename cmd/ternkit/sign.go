@@ -3,6 +3,7 @@ package main
 import (
 	"fmt"
 	"os"
+	"strings"
 
 	"github.com/spf13/cobra"
 
@@ -34,7 +35,8 @@ model's quality. ` + caution + `.`,
   ternkit sign fernmoss-scout-mini.tkart --key ~/.ssh/id_ed25519 --format ssh
   ternkit sign fernmoss-scout-mini.tkart --print-message > fernmoss-scout-mini.msg
   ternkit verify fernmoss-scout-mini.tkart --key fernmoss-release.pub`,
-		Args: exactArgs(1),
+		Args:              exactArgs(1),
+		ValidArgsFunction: artifactCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if format != sign.FormText && format != sign.FormSSH {
 				return usagef("--format %q: want %s or %s", format, sign.FormText, sign.FormSSH)
@@ -96,6 +98,7 @@ model's quality. ` + caution + `.`,
 	cmd.Flags().StringVar(&format, "format", sign.FormText, "signature form: "+sign.FormText+" (text, sign/FORMAT.md) or "+sign.FormSSH+" (armored SSH signature, namespace "+sign.Namespace+")")
 	cmd.Flags().BoolVar(&printMessage, "print-message", false, "verify ARTIFACT, then write the 52-byte message a signature covers to stdout (to sign or check with ssh-keygen -Y)")
 	_ = cmd.RegisterFlagCompletionFunc("format", fixedCompletions(sign.FormText, sign.FormSSH))
+	_ = cmd.MarkFlagFilename("key")
 	return cmd
 }
 
@@ -103,6 +106,8 @@ model's quality. ` + caution + `.`,
 func registerKeyFlag(cmd *cobra.Command) {
 	cmd.Flags().String("key", "", "public key file (ternkit .pub, SubjectPublicKeyInfo PEM or ssh-ed25519 line): also require a valid signature over the manifest hash")
 	cmd.Flags().String("sig", "", "signature file to check with --key (default ARTIFACT"+sign.SignatureExt+"; ternkit or SSH form)")
+	_ = cmd.MarkFlagFilename("key")
+	_ = cmd.MarkFlagFilename("sig", strings.TrimPrefix(sign.SignatureExt, "."))
 }
 
 // signatureFlags reads the public key --key names and the signature path
