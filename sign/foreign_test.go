@@ -213,6 +213,14 @@ func TestSSHSignatureInterop(t *testing.T) {
 		}
 	}
 
+	// the format's other hash algorithm (ssh-keygen -O hashalg=sha256)
+	out := runTool(t, Message(h), sshKeygen, "-Y", "sign", "-q", "-f", priv, "-n", Namespace, "-O", "hashalg=sha256")
+	s256, err := parseAnySignature("ssh256.sig", out)
+	require.NoError(t, err)
+	require.Equal(t, "sha256", s256.ssh.hash)
+	require.NoError(t, pub.Verify(s256, h))
+	require.ErrorIs(t, pub.Verify(s256, other), ErrBadSignature)
+
 	// ours, verified by ssh-keygen
 	signers := filepath.Join(dir, "allowed_signers")
 	require.NoError(t, os.WriteFile(signers, append([]byte("release@fernmoss "), readAll(t, priv+".pub")...), 0o644))
