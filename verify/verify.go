@@ -202,7 +202,8 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	}
 	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
 	if err := <-digestErr; err != nil {
-		return nil, fmt.Errorf("read %s: %w", name, err)
+		// like a section that cannot be read: the file changed under us
+		rep.add(CheckStructure, "", false, "reading the whole file for its digests: %v", err)
 	}
 	// the source checks read the artifact by tensor; unmapping first keeps
 	// the mapped pages out of the resident size while the source is read
