@@ -537,6 +537,17 @@ func writeVectors(t *testing.T) {
 	add(vector{File: "ok-companions.tkart", Expect: "ok", Version: "1.3", Note: "three companion files after the tensor's section: config.json, LICENSE, and NOTICE of 0 bytes (its section takes no space)", Tensors: wantComp, Companions: comp.wantCompanions()}, okComp)
 	compPath := path("companions", okComp)
 
+	// A valid artifact whose config contradicts its tensors: readers accept
+	// it (companions are opaque to the format); ternkit verify warns.
+	mis := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{
+		{"config.json", []byte(`{"hidden_size": 8, "intermediate_size": 16, "num_hidden_layers": 1, "num_attention_heads": 2, "num_key_value_heads": 2, "head_dim": 4, "vocab_size": 16, "tie_word_embeddings": false}` + "\n")},
+	}}
+	mis.kept("model.embed_tokens.weight", "F16", []int64{12, 8}, make([]byte, 2*12*8))
+	mis.float("model.layers.0.self_attn.q_proj.weight", []int64{8, 8}, testweights.Gaussian(newTestRand(35), 64))
+	mis.kept("lm_head.weight", "F16", []int64{12, 8}, make([]byte, 2*12*8))
+	okMis, wantMis := mis.build(t, Base3)
+	add(vector{File: "ok-config-mismatch.tkart", Expect: "ok", Version: "1.3", Note: "valid, but its config.json says vocab_size 16 where the embedding and the output head have 12 rows: ternkit verify warns (config cross-check), the format does not look inside companions", Tensors: wantMis, Companions: mis.wantCompanions()}, okMis)
+
 	// A section over 2^22 bytes, with piece hashes: a companion of 2^22 +
 	// 5000 bytes of a 256-byte pattern (compressible, small in git).
 	bigData := make([]byte, manifest.ChunkSize+5000)

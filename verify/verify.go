@@ -47,8 +47,10 @@ type Report struct {
 	Source   string   `json:"source,omitempty"`
 	Checks   []Check  `json:"checks"`
 	Warnings []string `json:"warnings,omitempty"`
-	Passed   int      `json:"passed"`
-	Failed   int      `json:"failed"`
+	// Notes say what was not checked and why (not warnings).
+	Notes  []string `json:"notes,omitempty"`
+	Passed int      `json:"passed"`
+	Failed int      `json:"failed"`
 }
 
 // OK reports whether every check passed.
@@ -167,6 +169,7 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		workers = runtime.NumCPU()
 	}
 	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
+	checkConfig(rep, a)
 	// the source checks read the artifact by tensor; unmapping first keeps
 	// the mapped pages out of the resident size while the source is read
 	unmapArtifact(mapped)
