@@ -70,3 +70,14 @@ func TestCheck(t *testing.T) {
 	require.Empty(t, c.Check(other), "another layout: nothing checked")
 	require.True(t, KnownLayout(decoder(2048, 256, 1, 4, 2, 64, 768, true)))
 }
+
+func TestSummary(t *testing.T) {
+	c, err := Parse("config.json", []byte(`{"model_type": "fernmoss-scout", "hidden_size": 256, "intermediate_size": 768, "num_hidden_layers": 4,
+ "num_attention_heads": 4, "num_key_value_heads": 2, "head_dim": 64, "vocab_size": 2048, "max_position_embeddings": 512,
+ "rope_theta": 10000.0, "rms_norm_eps": 1e-05, "hidden_act": "silu", "tie_word_embeddings": false}`))
+	require.NoError(t, err)
+	require.Equal(t, "fernmoss-scout, 4 layers, hidden 256, MLP 768, 4 heads (2 KV) × 64, vocabulary 2048, context 512, rope theta 10000, norm eps 1e-05, silu, untied output head", c.Summary())
+	c, err = Parse("config.json", []byte(`{"hidden_size": 256, "num_attention_heads": 4}`))
+	require.NoError(t, err)
+	require.Equal(t, "hidden 256, 4 heads × 64", c.Summary(), "head dim by the default rule")
+}

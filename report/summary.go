@@ -14,6 +14,7 @@ import (
 
 	"ternkit/convert"
 	"ternkit/manifest"
+	"ternkit/modelconfig"
 	"ternkit/pack"
 )
 
@@ -68,6 +69,12 @@ type Summary struct {
 	ZeroFraction   float64         `json:"zero_fraction"` // zero trits / ternary parameters
 	WeightMemory   WeightMemory    `json:"weight_memory"`
 	Tensors        []Tensor        `json:"tensors"`
+	// Companions are the files carried beside the weights; Architecture is
+	// their config.json when it is a model config (ArchitectureSummary
+	// says it in one line).
+	Companions          []Companion         `json:"companions,omitempty"`
+	Architecture        *modelconfig.Config `json:"architecture,omitempty"`
+	ArchitectureSummary string              `json:"architecture_summary,omitempty"`
 }
 
 // Summarize opens the artifact at path, checks its structure and manifest
@@ -117,6 +124,7 @@ func summarize(path string, a *pack.Artifact, fileSum string) *Summary {
 		s.Tensors = append(s.Tensors, row)
 	}
 	s.ZeroFraction = ratio(zero, t.TernaryParams)
+	addCompanions(s, a)
 	return s
 }
 
