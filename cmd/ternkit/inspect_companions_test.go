@@ -19,6 +19,7 @@ func TestInspectCompanions(t *testing.T) {
 	require.Equal(t, exitOK, code, errOut)
 	require.Contains(t, out, "architecture     fernmoss-scout, 4 layers, hidden 256, MLP 768, 4 heads (2 KV) × 64, vocabulary 2048,")
 	require.Contains(t, out, "companions       config.json (427 B), vocab.json (")
+	require.Contains(t, out, "policy           model.embed_tokens.weight = int8;", "the manifest records the demo's own policy")
 
 	code, out, errOut = ternkit("inspect", art, "--json")
 	require.Equal(t, exitOK, code, errOut)
