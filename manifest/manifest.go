@@ -340,8 +340,8 @@ func (e *Tensor) validate() error {
 	if err := checkHash(e.SourceBLAKE3); err != nil {
 		return fmt.Errorf("source_blake3: %v", err)
 	}
-	if _, ok := convert.DTypeSize(e.SourceDType); !ok && e.Kind != KindKept {
-		return fmt.Errorf("unknown source dtype %q", e.SourceDType)
+	if !floatSource[e.SourceDType] && e.Kind != KindKept {
+		return fmt.Errorf("%s tensor from source dtype %q (only float dtypes are quantized)", e.Kind, e.SourceDType)
 	}
 	switch e.Kind {
 	case KindTernary:

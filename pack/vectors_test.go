@@ -737,6 +737,7 @@ func writeVectors(t *testing.T) {
 	inject("bad-integer-fraction.tkart", failManifest, `shape [2, 7.0]: an integer has no fraction part`, bits2Path, `"shape":[2,7]`, `"shape":[2,7.0]`)
 	inject("bad-integer-exponent.tkart", failManifest, `shape [2, 7e0]: an integer has no exponent`, bits2Path, `"shape":[2,7]`, `"shape":[2,7e0]`)
 	inject("bad-number-range.tkart", failManifest, `stats max_abs_err 1e400, beyond the float64 range`, bits2Path, `"max_abs_err":`, `"max_abs_err":1e400,"x":`)
+	redo("bad-source-dtype.tkart", failManifest, `layer.w ternary from source dtype "I32" (only float dtypes are quantized)`, bits2Path, func(d *draft) { d.m.Tensors[0].SourceDType = "I32" })
 	redo("bad-negative-size.tkart", failManifest, "source file of -1 bytes (totals.source_bytes agreeing)", bits2Path, func(d *draft) { d.m.Source.Files[0].Bytes = -1 })
 	redo("bad-shape-overflow.tkart", failManifest, "empty.w shape [4294967296, 4294967296, 0]: no element, but the nonzero dimensions' product overflows", bits2Path, func(d *draft) {
 		d.m.Tensors[2].Shape = []int64{1 << 32, 1 << 32, 0}

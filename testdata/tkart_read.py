@@ -413,7 +413,7 @@ def parse_tensor(t, i):
         lo, hi = payload_range(codec, n)
         if not lo <= length <= hi:
             raise bad("%s: section length %d, codec %s takes %d to %d" % (p, length, codec, lo, hi))
-        if dtype or source_dtype not in DTYPE_SIZE:
+        if dtype or source_dtype not in FLOAT_DTYPES:
             raise bad("%s: dtype %r, source dtype %r" % (p, dtype, source_dtype))
         tr = t.get("trits")
         if tr is None:
@@ -437,7 +437,7 @@ def parse_tensor(t, i):
             raise bad("%s: int8 tensor with codec %r, section length %d for %d codes" % (p, codec, length, n))
         if gran != "row":
             raise bad("%s: int8 tensor with granularity %r" % (p, gran))
-        if source_dtype not in DTYPE_SIZE or dtype or scale != 0 or exact or t.get("trits") is not None:
+        if source_dtype not in FLOAT_DTYPES or dtype or scale != 0 or exact or t.get("trits") is not None:
             raise bad(p + ": int8 tensor with kept or ternary fields")
         if stats is None or scales is None:
             raise bad(p + ": int8 tensor without stats or scales")
