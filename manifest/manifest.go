@@ -177,19 +177,28 @@ type Totals struct {
 	BitsPerTernaryWeight float64 `json:"bits_per_ternary_weight"`
 }
 
-// NumElements is the product of the shape, or -1 when it overflows int64
-// or a dimension is negative.
+// NumElements is the product of the shape, or -1 when a dimension is
+// negative or the product of the nonzero dimensions overflows int64
+// (pack/FORMAT.md: then every partial product, the row length included,
+// fits, whatever the order; a shape with a 0 has no element).
 func NumElements(shape []int64) int64 {
-	n := uint64(1)
+	n, zero := uint64(1), false
 	for _, d := range shape {
 		if d < 0 {
 			return -1
+		}
+		if d == 0 {
+			zero = true
+			continue
 		}
 		hi, lo := bits.Mul64(n, uint64(d))
 		if hi != 0 || lo > math.MaxInt64 {
 			return -1
 		}
 		n = lo
+	}
+	if zero {
+		return 0
 	}
 	return int64(n)
 }
@@ -273,7 +282,7 @@ func (m *Manifest) Validate() error {
 		return bad("recipe: %v", err)
 	}
 	if m.Created != "" {
-		if t, err := time.Parse(CreatedLayout, m.Created); err != nil || CreatedAt(t) != m.Created {
+		if t, err := time.Parse(CreatedLayout, m.Created); err != nil || CreatedAt(t) != m.Created || t.Year() < 1 {
 			return bad("created %q is not a UTC time like %q", m.Created, CreatedLayout)
 		}
 	}
@@ -286,6 +295,9 @@ func (m *Manifest) Validate() error {
 		}
 	}
 	for _, f := range m.Source.Files {
+		if f.Bytes < 0 {
+			return bad("source file %q has %d bytes", f.Name, f.Bytes)
+		}
 		if err := checkHash(f.BLAKE3); err != nil {
 			return bad("source file %q: %v", f.Name, err)
 		}
@@ -328,8 +340,8 @@ func (e *Tensor) validate() error {
 	if err := checkHash(e.SourceBLAKE3); err != nil {
 		return fmt.Errorf("source_blake3: %v", err)
 	}
-	if _, ok := convert.DTypeSize(e.SourceDType); !ok && e.Kind != KindKept {
-		return fmt.Errorf("unknown source dtype %q", e.SourceDType)
+	if !floatSource[e.SourceDType] && e.Kind != KindKept {
+		return fmt.Errorf("%s tensor from source dtype %q (only float dtypes are quantized)", e.Kind, e.SourceDType)
 	}
 	switch e.Kind {
 	case KindTernary:

@@ -38,6 +38,8 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
 		t = t.Elem()
 	}
 	switch tok {
+	case nil:
+		return fmt.Errorf("%w: %s is null (no key of the format takes null: leave an optional key out)", ErrInvalid, path)
 	case json.Delim('{'):
 		var fields map[string]reflect.Type
 		if t != nil && t.Kind() == reflect.Struct {
@@ -69,8 +71,17 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
 				return err
 			}
 		}
-		_, err = dec.Token() // }
-		return err
+		if _, err := dec.Token(); err != nil { // }
+			return err
+		}
+		if t != nil && t.Kind() == reflect.Struct {
+			for _, key := range requiredKeys(t) {
+				if !seen[key] {
+					return fmt.Errorf("%w: %s: required key %q is missing", ErrInvalid, path, key)
+				}
+			}
+		}
+		return nil
 	case json.Delim('['):
 		var et reflect.Type
 		if t != nil && (t.Kind() == reflect.Slice || t.Kind() == reflect.Array) {
@@ -85,6 +96,24 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
 		return err
 	}
 	return nil
+}
+
+// requiredKeys are the JSON names of t's fields without omitempty: the
+// keys pack/FORMAT.md marks required.
+func requiredKeys(t reflect.Type) []string {
+	var keys []string
+	for i := 0; i < t.NumField(); i++ {
+		f := t.Field(i)
+		name, opts, _ := strings.Cut(f.Tag.Get("json"), ",")
+		if !f.IsExported() || name == "-" || strings.Contains(opts, "omitempty") {
+			continue
+		}
+		if name == "" {
+			name = f.Name
+		}
+		keys = append(keys, name)
+	}
+	return keys
 }
 
 // jsonFields maps the JSON names of t's fields to their types.

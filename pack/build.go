@@ -268,7 +268,7 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 		}
 		row := convert.Granularity{Kind: convert.GranRow}
 		e.Kind, e.Codec, e.Granularity, e.Stats = manifest.KindInt8, manifest.CodecRaw, &row, &stats
-		return sections{payload: append([]byte(nil), int8Bytes(q.codes)...), scales: appendFloat32s(nil, scales)}, nil
+		return sections{payload: append([]byte(nil), int8Bytes(q.codes)...), scales: appendFloat32s([]byte{}, scales)}, nil
 	}
 	// keep:f16, keep:bf16, keep:f32 with a dtype change
 	out, err := convert.EncodeFloat32(nil, target, q.floats)
@@ -303,7 +303,7 @@ func ternary(e *manifest.Tensor, a convert.Action, w convert.Weights, cols int, 
 		e.Scale = res.Scales[0]
 		return sections{payload: payload}, nil
 	}
-	return sections{payload: payload, scales: appendFloat32s(nil, res.Scales)}, nil
+	return sections{payload: payload, scales: appendFloat32s([]byte{}, res.Scales)}, nil
 }
 
 // keptAsIs reports whether action a keeps tensor t's bytes as they are.

@@ -47,8 +47,10 @@ type Report struct {
 	Source   string   `json:"source,omitempty"`
 	Checks   []Check  `json:"checks"`
 	Warnings []string `json:"warnings,omitempty"`
-	Passed   int      `json:"passed"`
-	Failed   int      `json:"failed"`
+	// Notes say what was not checked and why (not warnings).
+	Notes  []string `json:"notes,omitempty"`
+	Passed int      `json:"passed"`
+	Failed int      `json:"failed"`
 	// SHA256 and BLAKE3 of the whole artifact, in lowercase hex, with
 	// Options.Digests.
 	SHA256 string `json:"sha256,omitempty"`
@@ -208,6 +210,7 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		// like a section that cannot be read: the file changed under us
 		rep.add(CheckStructure, "", false, "reading the whole file for its digests: %v", err)
 	}
+	checkConfig(rep, a)
 	// the source checks read the artifact by tensor; unmapping first keeps
 	// the mapped pages out of the resident size while the source is read
 	unmapArtifact(mapped)

@@ -224,5 +224,6 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 	if s.Created != "" {
 		fmt.Fprintf(w, "created          %s by %s\n", s.Created, s.Tool)
 	}
+	printCompanions(w, s)
 	fmt.Fprintf(w, "file BLAKE3      %s\n", s.FileBLAKE3)
 }

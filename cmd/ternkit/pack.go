@@ -210,6 +210,7 @@ func packFile(src, out string, opts pack.Options, comp *companionFlags, warnUnma
 	if opts.Companions, err = comp.find(s); err != nil {
 		return nil, err
 	}
+	warnConfig(stderr, opts.Companions, s.Tensors)
 	if warnUnmatched && opts.Policy != nil {
 		for _, r := range opts.Policy.Unmatched(s.Tensors) {
 			fmt.Fprintf(stderr, "warning: rule %q matches no tensor of %s\n", r.String(), src)

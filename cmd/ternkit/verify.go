@@ -159,6 +159,9 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 	for _, warning := range rep.Warnings {
 		fmt.Fprintf(w, "warning: %s\n", warning)
 	}
+	for _, note := range rep.Notes {
+		fmt.Fprintf(w, "note: %s\n", note)
+	}
 	if c, ok := rep.Find(verify.CheckBound, ""); ok && c.OK {
 		fmt.Fprintf(w, "bound: %s\n", c.Detail)
 	}
