@@ -29,7 +29,8 @@ type Options struct {
 	Budget int64
 	Tool   string // recorded as the manifest's "tool"
 	// PolicyRules describes Policy in words, recorded as the manifest's
-	// "policy"; nil records none.
+	// "policy"; nil records Policy.Describe() (what verify --against reads
+	// back to tie each tensor's action to the source), an empty list none.
 	PolicyRules []string
 	// Created is recorded as the manifest's "created"; the zero time
 	// records none, so that the same inputs give the same bytes.
@@ -59,6 +60,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	policy := opts.Policy
 	if policy == nil {
 		policy = convert.DefaultPolicy()
+	}
+	if opts.PolicyRules == nil {
+		opts.PolicyRules = policy.Describe()
 	}
 	actions := make(map[*convert.Tensor]convert.Action, len(src.Tensors))
 	for _, t := range src.Tensors {

@@ -5,7 +5,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"path"
 	"strconv"
 	"strings"
 
@@ -83,8 +82,8 @@ func (l Limit) validate() error {
 	if l.Match == "" {
 		return fmt.Errorf("%w: %s with an empty glob", ErrBudget, l.Metric)
 	}
-	if _, err := path.Match(l.Match, ""); err != nil {
-		return fmt.Errorf("%w: glob %q: %v", ErrBudget, l.Match, err)
+	if err := convert.CheckGlob(l.Match); err != nil {
+		return fmt.Errorf("%w: %v", ErrBudget, err)
 	}
 	if math.IsNaN(l.Value) || math.IsInf(l.Value, 0) || l.Value < 0 {
 		return fmt.Errorf("%w: %s %v is not a finite number ≥ 0", ErrBudget, l.Metric, l.Value)
@@ -171,7 +170,7 @@ func checkBudget(rep *Report, m *manifest.Manifest, b *Budget) {
 		}
 		var over []string
 		for i, l := range b.Limits {
-			if ok, _ := path.Match(l.Match, e.Name); !ok {
+			if ok, _ := convert.MatchGlob(l.Match, e.Name); !ok {
 				continue
 			}
 			used[i] = true

@@ -5,7 +5,6 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"path"
 	"slices"
 	"strings"
 	"text/tabwriter"
@@ -59,7 +58,7 @@ func (v *inspectView) register(cmd *cobra.Command) {
 // check validates the flags and returns the sort order.
 func (v *inspectView) check() (func(a, b *report.Tensor) int, error) {
 	for _, p := range v.patterns {
-		if _, err := path.Match(p, ""); err != nil {
+		if err := convert.CheckGlob(p); err != nil {
 			return nil, usagef("--tensor %q is not a valid glob: %v", p, err)
 		}
 	}
@@ -78,7 +77,7 @@ func (v *inspectView) apply(s *report.Summary, order func(a, b *report.Tensor) i
 	if len(v.patterns) > 0 {
 		s.Tensors = slices.DeleteFunc(s.Tensors, func(t report.Tensor) bool {
 			for _, p := range v.patterns {
-				if ok, _ := path.Match(p, t.Name); ok {
+				if ok, _ := convert.MatchGlob(p, t.Name); ok {
 					return false
 				}
 			}
