@@ -79,4 +79,3 @@ func ParseDescribedPolicy(rules []string) (*Policy, error) {
 	}
 	return p, nil
 }
-
