@@ -7,12 +7,12 @@ package report
 import (
 	"fmt"
 	"io"
-	"os"
 	"strings"
 
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
@@ -129,7 +129,7 @@ func ratio(a, b int64) float64 {
 }
 
 func fileBLAKE3(path string) (string, error) {
-	f, err := os.Open(path)
+	f, err := inputfile.Open(path)
 	if err != nil {
 		return "", err
 	}

@@ -13,6 +13,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 	"ternkit/manifest"
 	"ternkit/pack"
 	"ternkit/report"
@@ -106,7 +107,7 @@ func (f *recipeFlags) policy() (*convert.Policy, error) {
 	}
 	base := convert.DefaultPolicy()
 	if f.policyFile != "" {
-		data, err := os.ReadFile(f.policyFile)
+		data, err := inputfile.ReadFile(f.policyFile)
 		if err != nil {
 			return nil, err
 		}

@@ -4,12 +4,12 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"os"
 	"runtime"
 	"strings"
 
 	"github.com/spf13/cobra"
 
+	"ternkit/internal/inputfile"
 	"ternkit/pack"
 	"ternkit/verify"
 )
@@ -111,7 +111,7 @@ var metricHelp = map[string]string{
 func readBudget(file string, limits map[string]*[]string) (*verify.Budget, error) {
 	b := &verify.Budget{}
 	if file != "" {
-		data, err := os.ReadFile(file)
+		data, err := inputfile.ReadFile(file)
 		if err != nil {
 			return nil, err
 		}
