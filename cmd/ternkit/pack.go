@@ -201,6 +201,13 @@ func packFile(src, out string, opts pack.Options, warnUnmatched bool, stderr io.
 		return nil, err
 	}
 	defer s.Close()
+	inputs := []string{src, s.Path}
+	for _, f := range s.Files {
+		inputs = append(inputs, f.Path)
+	}
+	if err := checkOutput(out, inputs...); err != nil {
+		return nil, err
+	}
 	if warnUnmatched && opts.Policy != nil {
 		for _, r := range opts.Policy.Unmatched(s.Tensors) {
 			fmt.Fprintf(stderr, "warning: rule %q matches no tensor of %s\n", r.String(), src)

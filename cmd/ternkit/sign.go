@@ -33,6 +33,9 @@ model's quality. ` + caution + `.`,
 			if out == "" {
 				out = sign.SignaturePath(art)
 			}
+			if err := checkOutput(out, art, keyPath); err != nil {
+				return err
+			}
 			k, err := sign.ReadPrivateKeyFile(keyPath)
 			if err != nil {
 				return err

@@ -89,3 +89,96 @@ func TestNamedPipesAreRefused(t *testing.T) {
 		require.NoFileExists(t, out)
 	}
 }
+
+// fileBytes reads a whole file.
+func fileBytes(t *testing.T, path string) []byte {
+	t.Helper()
+	b, err := os.ReadFile(path)
+	require.NoError(t, err)
+	return b
+}
+
+// No command writes its output over one of its inputs, over the source an
+// artifact records, or over something that is not a regular file: each is
+// exit 2 with the inputs unchanged and nothing written.
+func TestOutputsNeverDestroyInputs(t *testing.T) {
+	dir := t.TempDir()
+	src, art := packSmall(t, dir)
+	code, out, errOut := ternkit("keygen", "-o", filepath.Join(dir, "release"))
+	require.Equal(t, exitOK, code, out+errOut)
+	key := filepath.Join(dir, "release.key")
+	link := filepath.Join(dir, "link.tkart")
+	require.NoError(t, os.Symlink(art, link))
+	fifo := filepath.Join(dir, "pipe.tkart")
+	require.NoError(t, syscall.Mkfifo(fifo, 0o600))
+	srcBytes, artBytes, keyBytes := fileBytes(t, src), fileBytes(t, art), fileBytes(t, key)
+	cases := []struct {
+		args []string
+		want string
+	}{
+		{[]string{"pack", src, "-o", src}, "is the same file as an input"},
+		{[]string{"pack", dir, "-o", src}, "is the same file as an input"},
+		{[]string{"pack", src, "-o", "/dev/null"}, "exists and is not a regular file (a character device)"},
+		{[]string{"pack", src, "-o", fifo}, "exists and is not a regular file (a named pipe)"},
+		{[]string{"unpack", art, "-o", art}, "is the same file as an input"},
+		{[]string{"unpack", art, "-o", src}, "the source checkpoint this artifact was packed from"},
+		{[]string{"unpack", link, "-o", art}, "is the same file as an input"},
+		{[]string{"report", art, "-o", art}, "is the same file as an input"},
+		{[]string{"report", art, "-o", link}, "is the same file as an input"},
+		{[]string{"report", art, "-o", fifo}, "(a named pipe)"},
+		{[]string{"sign", art, "--key", key, "-o", art}, "is the same file as an input"},
+		{[]string{"sign", art, "--key", key, "-o", key}, "is the same file as an input"},
+	}
+	for _, c := range cases {
+		within(t, func() {
+			code, stdout, stderr := ternkit(append(c.args, "-q")...)
+			require.Equal(t, exitInput, code, "%v\nstdout:\n%s\nstderr:\n%s", c.args, stdout, stderr)
+			require.Contains(t, stderr, c.want, c.args)
+		})
+		require.Equal(t, srcBytes, fileBytes(t, src), c.args)
+		require.Equal(t, artBytes, fileBytes(t, art), c.args)
+		require.Equal(t, keyBytes, fileBytes(t, key), c.args)
+		fi, err := os.Lstat(fifo)
+		require.NoError(t, err)
+		require.Equal(t, os.ModeNamedPipe, fi.Mode().Type(), "the named pipe is still one")
+		entries, err := os.ReadDir(dir)
+		require.NoError(t, err)
+		for _, e := range entries {
+			require.NotContains(t, e.Name(), ".tmp-", "no temporary file is left")
+		}
+	}
+}
+
+// New outputs take the umask; a replaced output keeps its mode.
+func TestOutputModes(t *testing.T) {
+	dir := t.TempDir()
+	src := smallCheckpoint(t, dir)
+	old := syscall.Umask(0o077)
+	defer syscall.Umask(old)
+	art := filepath.Join(dir, "private.tkart")
+	code, out, errOut := ternkit("pack", src, "-o", art, "-q")
+	require.Equal(t, exitOK, code, out+errOut)
+	mode := func(p string) os.FileMode {
+		fi, err := os.Stat(p)
+		require.NoError(t, err)
+		return fi.Mode().Perm()
+	}
+	require.Equal(t, os.FileMode(0o600), mode(art), "umask 077")
+	page := filepath.Join(dir, "page.html")
+	code, _, errOut = ternkit("report", art, "-o", page)
+	require.Equal(t, exitOK, code, errOut)
+	require.Equal(t, os.FileMode(0o600), mode(page), "umask 077")
+
+	syscall.Umask(0o022)
+	code, _, errOut = ternkit("pack", src, "-o", art, "-q", "--codec", "bits2")
+	require.Equal(t, exitOK, code, errOut)
+	require.Equal(t, os.FileMode(0o600), mode(art), "a 0600 artifact replaced stays 0600")
+	require.NoError(t, os.Chmod(page, 0o640))
+	code, _, errOut = ternkit("report", art, "-o", page)
+	require.Equal(t, exitOK, code, errOut)
+	require.Equal(t, os.FileMode(0o640), mode(page))
+	fresh := filepath.Join(dir, "fresh.tkart")
+	code, _, errOut = ternkit("pack", src, "-o", fresh, "-q")
+	require.Equal(t, exitOK, code, errOut)
+	require.Equal(t, os.FileMode(0o644), mode(fresh), "umask 022")
+}

@@ -44,6 +44,12 @@ Section hashes are checked while reading; the file is written atomically.
 				return err
 			}
 			defer a.Close()
+			if err := checkOutput(out, args[0]); err != nil {
+				return err
+			}
+			if err := checkNotRecordedSource(out, a.Manifest()); err != nil {
+				return err
+			}
 			if err := pack.Unpack(a, out, dt); err != nil {
 				return err
 			}
