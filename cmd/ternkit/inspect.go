@@ -12,6 +12,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/convert"
+	"ternkit/internal/textsafe"
 	"ternkit/manifest"
 	"ternkit/report"
 )
@@ -182,7 +183,7 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 		case t.Lossy():
 			rel = fmt.Sprintf("%.4f", t.RelRMSE)
 		}
-		rows = append(rows, []string{t.Name, report.FormatShape(t.Shape), kind, t.Codec, gran,
+		rows = append(rows, []string{textsafe.Escape(t.Name), report.FormatShape(t.Shape), kind, t.Codec, gran,
 			fmt.Sprintf("%.3f", t.BitsPerWeight), zero, rel, fmt.Sprint(t.Bytes)})
 	}
 	const firstNumeric = 5
@@ -218,10 +219,10 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 	}
 	fmt.Fprintf(w, "recipe           %s/%s eps=%g ties %s, sum %s\n", s.Recipe.Method, s.Recipe.ScaleRule, s.Recipe.Epsilon, s.Recipe.Tie, sum)
 	if len(s.Policy) > 0 {
-		fmt.Fprintf(w, "policy           %s\n", strings.Join(s.Policy, "; "))
+		fmt.Fprintf(w, "policy           %s\n", textsafe.Escape(strings.Join(s.Policy, "; ")))
 	}
 	if s.Created != "" {
-		fmt.Fprintf(w, "created          %s by %s\n", s.Created, s.Tool)
+		fmt.Fprintf(w, "created          %s by %s\n", s.Created, textsafe.Escape(s.Tool))
 	}
 	fmt.Fprintf(w, "file BLAKE3      %s\n", s.FileBLAKE3)
 }

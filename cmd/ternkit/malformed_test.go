@@ -83,7 +83,7 @@ func malformedCases() []malformedCase {
 	shardA := stBytes(`{"a":{"dtype":"U8","shape":[1],"data_offsets":[0,1]}}`, []byte{1})
 	shardB := stBytes(`{"b":{"dtype":"U8","shape":[1],"data_offsets":[0,1]}}`, []byte{2})
 	twoShards := `{"weight_map":{"a":"model-00001-of-00002.safetensors","b":"model-00002-of-00002.safetensors"}}`
-	return []malformedCase{
+	return append([]malformedCase{
 		{"empty.safetensors", "zero bytes", exitInput, "shorter than the 8-byte header length", one("", nil)},
 		{"short-length.safetensors", "three bytes, no full length field", exitInput, "shorter than the 8-byte header length", one("", []byte{1, 2, 3})},
 		{"header-over-cap.safetensors", "header length 100,000,001, over the cap", exitInput, "exceeds the cap of 100000000 bytes", one("", stRaw(100_000_001, "{}", nil))},
@@ -122,7 +122,7 @@ func malformedCases() []malformedCase {
 		})},
 		{"artifact-manifest-byte.tkart", "a manifest byte flipped", exitFailed, "hash mismatch", edited(func(b []byte) []byte { b[len(b)-pack.TrailerLen-2] ^= 1; return b })},
 		{"artifact-section-byte.tkart", "a byte of the first section flipped", exitFailed, "BLAKE3", edited(func(b []byte) []byte { b[pack.PreambleLen] ^= 1; return b })},
-	}
+	}, hostileCases()...)
 }
 
 // goodArtifact packs a small checkpoint with fixed values and no creation

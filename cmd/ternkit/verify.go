@@ -10,6 +10,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/internal/inputfile"
+	"ternkit/internal/textsafe"
 	"ternkit/pack"
 	"ternkit/verify"
 )
@@ -144,17 +145,20 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 		}{rep, rep.OK()})
 	}
 	for _, warning := range rep.Warnings {
-		fmt.Fprintf(w, "warning: %s\n", warning)
+		fmt.Fprintf(w, "warning: %s\n", textsafe.Escape(warning))
 	}
 	if c, ok := rep.Find(verify.CheckBound, ""); ok && c.OK {
 		fmt.Fprintf(w, "bound: %s\n", c.Detail)
 	}
 	for _, c := range rep.Failures() {
 		if c.Tensor != "" {
-			fmt.Fprintf(w, "FAIL %s %q: %s\n", c.Name, c.Tensor, c.Detail)
+			fmt.Fprintf(w, "FAIL %s %q: %s\n", c.Name, c.Tensor, textsafe.Escape(c.Detail))
 		} else {
-			fmt.Fprintf(w, "FAIL %s: %s\n", c.Name, c.Detail)
+			fmt.Fprintf(w, "FAIL %s: %s\n", c.Name, textsafe.Escape(c.Detail))
 		}
+	}
+	if n := budgetNotRecomputed(rep); n > 0 {
+		fmt.Fprintf(w, "budget: %d verdicts on %s\n", n, verify.NotRecomputed)
 	}
 	what := rep.Artifact
 	if rep.Source != "" {
@@ -166,4 +170,16 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 		fmt.Fprintf(w, "verify: FAILED: %d of %d checks failed: %s\n", rep.Failed, rep.Failed+rep.Passed, what)
 	}
 	return nil
+}
+
+// budgetNotRecomputed counts the budget verdicts given on the manifest's
+// own statistics.
+func budgetNotRecomputed(rep *verify.Report) int {
+	n := 0
+	for _, c := range rep.Checks {
+		if c.Name == verify.CheckBudget && c.Recomputed != nil && !*c.Recomputed {
+			n++
+		}
+	}
+	return n
 }
