@@ -182,3 +182,56 @@ func TestOutputModes(t *testing.T) {
 	require.Equal(t, exitOK, code, errOut)
 	require.Equal(t, os.FileMode(0o644), mode(fresh), "umask 022")
 }
+
+// Control characters in tensor names and metadata never reach the
+// terminal raw: inspect, diff and verify's messages show them escaped.
+func TestControlCharactersEscaped(t *testing.T) {
+	dir := t.TempDir()
+	w := make([]byte, 0, 4*64)
+	for i := range 64 {
+		w = binary.LittleEndian.AppendUint32(w, math.Float32bits(float32(i%7)-3.5))
+	}
+	evil := "blocks.0\x1b[2J\rFAKE\u009b.weight"
+	src := filepath.Join(dir, "evil.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: evil, DType: "F32", Shape: []int64{8, 8}, Data: w},
+	}, map[string]string{"note": "\x1b]0;title\x07"}))
+	art := filepath.Join(dir, "evil.tkart")
+	code, out, errOut := ternkit("pack", src, "-o", art, "-q")
+	require.Equal(t, exitOK, code, out+errOut)
+	other := filepath.Join(dir, "other.tkart")
+	code, out, errOut = ternkit("pack", smallCheckpoint(t, dir), "-o", other, "-q")
+	require.Equal(t, exitOK, code, out+errOut)
+	runs := [][]string{
+		{"inspect", art},
+		{"diff", other, art},
+		{"diff", art, other},
+		{"verify", art, "--max-rel-rmse", "0.01"},
+		{"inspect", art, "--tensor", "nothing*"},
+	}
+	for _, args := range runs {
+		_, stdout, stderr := ternkit(args...)
+		for _, s := range []string{stdout, stderr} {
+			for _, c := range []string{"\x1b", "\r", "\u009b", "\x07"} {
+				require.NotContains(t, s, c, "%v printed a raw control character:\n%q", args, s)
+			}
+		}
+		require.Contains(t, stdout+stderr, `\x1b[2J\rFAKE\u009b`, args)
+	}
+}
+
+// An epsilon outside (0, 1e-2] is a usage error: with 1e30 every trit
+// would be 0 and the bound would still "hold".
+func TestPackRefusesEpsilonOutOfRange(t *testing.T) {
+	dir := t.TempDir()
+	src := smallCheckpoint(t, dir)
+	out := filepath.Join(dir, "out.tkart")
+	for _, eps := range []string{"1e30", "0.0101", "0", "-1e-5"} {
+		code, stdout, stderr := ternkit("pack", src, "-o", out, "--epsilon", eps, "-q")
+		require.Equal(t, exitInput, code, stdout)
+		require.Contains(t, stderr, "(0, 0.01]", eps)
+		require.NoFileExists(t, out)
+	}
+	code, _, stderr := ternkit("pack", src, "-o", out, "--epsilon", "1e-2", "-q")
+	require.Equal(t, exitOK, code, stderr)
+}
