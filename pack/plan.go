@@ -1,6 +1,11 @@
 package pack
 
 import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"strings"
+
 	"ternkit/convert"
 	"ternkit/manifest"
 )
@@ -38,4 +43,50 @@ func Plan(t *convert.Tensor, a convert.Action) Planned {
 // PlanOf is the planned part of a manifest entry.
 func PlanOf(e *manifest.Tensor) Planned {
 	return Planned{Name: e.Name, Shape: e.Shape, SourceDType: e.SourceDType, Kind: e.Kind, DType: e.DType, Granularity: e.Granularity}
+}
+
+// ErrManifestTooLarge reports a checkpoint whose manifest would exceed
+// DefaultMaxManifest, the length every reader accepts by default: such an
+// artifact could be written but not read.
+var ErrManifestTooLarge = errors.New("manifest would exceed the reader's limit")
+
+// writeMaxManifest is the longest manifest Build writes (a variable for
+// tests).
+var writeMaxManifest int64 = DefaultMaxManifest
+
+// placeholderHash stands for a BLAKE3 in a manifest estimate: every hash
+// takes 64 hex digits.
+var placeholderHash = strings.Repeat("0", 64)
+
+// manifestLowerBound is a length the manifest of src under actions cannot
+// be shorter than: each tensor's planned entry with its hashes and section,
+// without statistics, trit counts or scale, at offset 0.
+func manifestLowerBound(src *convert.Source, actions map[*convert.Tensor]convert.Action) (int64, error) {
+	var n int64
+	for _, t := range src.Tensors {
+		p := Plan(t, actions[t])
+		e := manifest.Tensor{Name: p.Name, Shape: p.Shape, SourceDType: p.SourceDType, Kind: p.Kind, DType: p.DType,
+			Granularity: p.Granularity, Codec: manifest.CodecRaw, SourceBLAKE3: placeholderHash,
+			Section: manifest.Section{BLAKE3: placeholderHash}}
+		b, err := json.Marshal(&e)
+		if err != nil {
+			return 0, err
+		}
+		n += int64(len(b)) + 1 // and a comma
+	}
+	return n, nil
+}
+
+// checkManifestSize refuses, before anything is written, a source whose
+// manifest would pass the reader's limit.
+func checkManifestSize(src *convert.Source, actions map[*convert.Tensor]convert.Action) error {
+	n, err := manifestLowerBound(src, actions)
+	if err != nil {
+		return err
+	}
+	if n > writeMaxManifest {
+		return &convert.InputError{File: src.Path, Offset: -1, Err: fmt.Errorf("%w: the entries of its %d tensors take at least %d bytes, over %d",
+			ErrManifestTooLarge, len(src.Tensors), n, writeMaxManifest)}
+	}
+	return nil
 }
