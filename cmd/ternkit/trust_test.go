@@ -14,6 +14,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/manifest"
 )
 
 // smallCheckpoint writes a two-tensor F32 checkpoint and returns its path.
@@ -234,4 +235,42 @@ func TestPackRefusesEpsilonOutOfRange(t *testing.T) {
 	}
 	code, _, stderr := ternkit("pack", src, "-o", out, "--epsilon", "1e-2", "-q")
 	require.Equal(t, exitOK, code, stderr)
+}
+
+// rewriteArtifact decodes the artifact's manifest, edits it and writes the
+// artifact back with a consistent trailer.
+func rewriteArtifact(t *testing.T, art string, edit func(m *manifest.Manifest)) string {
+	t.Helper()
+	good := fileBytes(t, art)
+	m, _, off := goodManifest(good)
+	edit(m)
+	body, err := manifest.Encode(m)
+	require.NoError(t, err)
+	out := filepath.Join(t.TempDir(), "forged.tkart")
+	require.NoError(t, os.WriteFile(out, withManifest(good, good[:off], body), 0o644))
+	return out
+}
+
+// Forged manifest fields that every hash still covers pass verify alone
+// and fail verify --against with exit 1, naming tensor and field.
+func TestVerifyAgainstNamesForgedFields(t *testing.T) {
+	dir := t.TempDir()
+	src, art := packSmall(t, dir)
+	cases := []struct {
+		edit func(m *manifest.Manifest)
+		want string
+	}{
+		{func(m *manifest.Manifest) { m.Tensors[1].Shape = []int64{2, 4} }, `FAIL manifest_field "blocks.0.norm.weight": shape: manifest records [2 4]`},
+		{func(m *manifest.Manifest) { m.Tensors[1].SourceDType, m.Tensors[1].DType = "I32", "I32" }, `FAIL manifest_field "blocks.0.norm.weight": source_dtype: manifest records "I32"`},
+		{func(m *manifest.Manifest) { m.Source.Metadata["vault"] = "elsewhere" }, `FAIL manifest_field: source.metadata: key "vault" is "elsewhere"`},
+		{func(m *manifest.Manifest) { m.Source.Files[0].Name = "other.safetensors" }, `FAIL manifest_field: source.files: file 0 is named "other.safetensors"`},
+	}
+	for _, c := range cases {
+		forged := rewriteArtifact(t, art, c.edit)
+		code, out, errOut := ternkit("verify", forged, "-q")
+		require.Equal(t, exitOK, code, "consistent on its own: %s%s", out, errOut)
+		code, out, _ = ternkit("verify", forged, "--against", src, "-q")
+		require.Equal(t, exitFailed, code, out)
+		require.Contains(t, out, c.want)
+	}
 }
