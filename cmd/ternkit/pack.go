@@ -35,7 +35,7 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	d := convert.DefaultRecipe()
 	cmd.Flags().StringVar(&f.codec, "codec", string(pack.Auto), "trit codec: auto (per tensor entropy where the trits leave room for it and it is smaller, else base3), base3 (5 trits/byte, 1.6 bits/weight), entropy (base3 in a zstd frame) or bits2 (4 trits/byte, fastest decode)")
 	cmd.Flags().StringVar(&f.scaleRule, "scale-rule", string(d.ScaleRule), "reciprocal (w × 1/max(gamma, eps), training-code form) or quotient (w / (gamma + eps), paper form)")
-	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule")
+	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule, in (0, 1e-2]")
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
 	cmd.Flags().StringVar(&f.sum, "sum", string(d.Sum), "order of gamma's float64 sum: strided16 (16 partial sums, vector speed) or sequential (index order, the order of artifacts that record none)")
 	cmd.Flags().IntVar(&f.workers, "workers", runtime.NumCPU(), "tensors quantized in parallel (the bytes written are the same for any count)")
