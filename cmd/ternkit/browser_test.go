@@ -79,10 +79,10 @@ func TestReportInBrowser(t *testing.T) {
 		layers := byID(doc, "layer-chart")
 		require.NotNil(t, layers, "layer chart")
 		require.Equal(t, "svg", layers.Data)
-		// embed.tokens, blocks.0 … blocks.3, final_norm, lm_head, adapter.barcode, train
-		require.Len(t, elements(layers, "rect", "bar bits"), demoLayers+5, "a bits bar per layer")
-		// blocks.0 … blocks.3 and adapter.barcode hold ternary tensors
-		require.Len(t, elements(layers, "rect", "bar zero"), demoLayers+1, "a zero bar per layer with ternary tensors")
+		// model.embed_tokens, model.layers.0 … model.layers.3, model.norm, lm_head, train
+		require.Len(t, elements(layers, "rect", "bar bits"), demoLayers+4, "a bits bar per layer")
+		// model.layers.0 … model.layers.3 hold ternary tensors
+		require.Len(t, elements(layers, "rect", "bar zero"), demoLayers, "a zero bar per layer with ternary tensors")
 		errs := byID(doc, "error-chart")
 		require.NotNil(t, errs, "error chart")
 		require.Len(t, elements(errs, "rect", "bar err"), ternary, "an error bar per ternary tensor")

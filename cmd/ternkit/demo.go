@@ -25,7 +25,9 @@ const (
 	demoWidth   = 256
 	demoFFN     = 768
 	demoLayers  = 4
-	demoAdapter = 64
+	demoHeads   = 4
+	demoKVHeads = 2
+	demoHeadDim = demoWidth / demoHeads
 	demoSeed    = 20261202
 )
 
@@ -65,6 +67,12 @@ report beside it. Nothing is downloaded.`,
 			if err := writeDemoCheckpoint(src); err != nil {
 				return err
 			}
+			if err := atomicfile.WriteFile(filepath.Join(dir, "config.json"), demoConfig(), 0o644); err != nil {
+				return err
+			}
+			if err := atomicfile.WriteFile(filepath.Join(dir, demoVocabFile), demoVocabulary(), 0o644); err != nil {
+				return err
+			}
 			fmt.Fprintf(out, "generated %s (%s, Fernmoss Seed Vault scanner assistant, fictional) in %s\n",
 				src, demoModel, time.Since(start).Round(time.Millisecond))
 			if !rf.customPolicy() {
@@ -82,7 +90,7 @@ report beside it. Nothing is downloaded.`,
 			start = time.Now()
 			bar := newProgressBar(cmd, "pack")
 			opts.Progress = bar.callback()
-			m, err := packFile(src, art, opts, true, errOut)
+			m, err := packFile(src, art, opts, &rf.companions, true, errOut)
 			bar.finish()
 			if err != nil {
 				return err
@@ -126,7 +134,7 @@ report beside it. Nothing is downloaded.`,
 const demoPolicy = `# Fernmoss Scout release policy (ternkit demo): the first matching rule wins.
 # The token table ships as per-row int8 (scanners look up a few rows at a time).
 [[rule]]
-match = "embed.tokens.weight"
+match = "model.embed_tokens.weight"
 action = "int8"
 
 # The output head stays in 16-bit floats for the scanners' F16 runtime.
@@ -136,32 +144,32 @@ action = "keep:f16"
 
 # Norm weights were trained in F32; the runtime reads them as BF16 or F16.
 [[rule]]
-match = "blocks.*.attn_norm.weight"
+match = "model.layers.*.input_layernorm.weight"
 action = "keep:bf16"
 
 [[rule]]
-match = "blocks.*.mlp_norm.weight"
+match = "model.layers.*.post_attention_layernorm.weight"
 action = "keep:f16"
 
 [[rule]]
-match = "final_norm.weight"
+match = "model.norm.weight"
 action = "keep:f32"
 
 # Attention projections: one scale per output row.
 [[rule]]
-match = "blocks.*.attn.*.weight"
+match = "model.layers.*.self_attn.*_proj.weight"
 action = "ternary:row"
 
-# MLP projections: one scale per 128 inputs of a row.
+# MLP down projections: one scale per tensor. The last layer's was
+# fine-tuned ternary already, so it is packed losslessly.
 [[rule]]
-match = "blocks.*.mlp.*.weight"
-action = "ternary:group:128"
-
-# The barcode adapter was trained ternary already: packed losslessly.
-[[rule]]
-match = "adapter.*"
-dims = 2
+match = "model.layers.*.mlp.down_proj.weight"
 action = "ternary"
+
+# The other MLP projections: one scale per 128 inputs of a row.
+[[rule]]
+match = "model.layers.*.mlp.*_proj.weight"
+action = "ternary:group:128"
 
 # Everything else (the step counter) as it is.
 [[rule]]
@@ -169,10 +177,12 @@ match = "*"
 action = "keep"
 `
 
-// writeDemoCheckpoint writes the scenario's checkpoint to path: BF16
-// projections with Gaussian latent weights, F32 norm weights near one, an
-// adapter trained ternary already (values exactly c × {-1, 0, +1}) and an
-// integer step counter.
+// writeDemoCheckpoint writes the scenario's checkpoint to path, in the
+// decoder layout most open checkpoints use: BF16 projections with Gaussian
+// latent weights (grouped-query attention: the key and value projections
+// have demoKVHeads heads), F32 norm weights near one, the last layer's MLP
+// down projection trained ternary already (values exactly c × {-1, 0, +1})
+// and an integer step counter.
 func writeDemoCheckpoint(path string) error {
 	rng := rand.New(rand.NewPCG(demoSeed, 0x5eed))
 	gauss := func(n int, std float64) []float32 {
@@ -197,27 +207,30 @@ func writeDemoCheckpoint(path string) error {
 		}
 		tensors = append(tensors, convert.WriteTensor{Name: name, DType: dtype, Shape: shape, Data: data})
 	}
-	add("embed.tokens.weight", "BF16", []int64{demoVocab, demoWidth}, gauss(demoVocab*demoWidth, 1))
+	kvWidth := int64(demoKVHeads * demoHeadDim)
+	add("model.embed_tokens.weight", "BF16", []int64{demoVocab, demoWidth}, gauss(demoVocab*demoWidth, 1))
 	for i := 0; i < demoLayers; i++ {
-		p := fmt.Sprintf("blocks.%d.", i)
-		add(p+"attn_norm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
-		for _, proj := range []string{"q", "k", "v", "o"} {
-			add(p+"attn."+proj+".weight", "BF16", []int64{demoWidth, demoWidth}, gauss(demoWidth*demoWidth, 0.02))
+		p := fmt.Sprintf("model.layers.%d.", i)
+		add(p+"input_layernorm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
+		add(p+"self_attn.q_proj.weight", "BF16", []int64{demoWidth, demoWidth}, gauss(demoWidth*demoWidth, 0.02))
+		add(p+"self_attn.k_proj.weight", "BF16", []int64{kvWidth, demoWidth}, gauss(int(kvWidth)*demoWidth, 0.02))
+		add(p+"self_attn.v_proj.weight", "BF16", []int64{kvWidth, demoWidth}, gauss(int(kvWidth)*demoWidth, 0.02))
+		add(p+"self_attn.o_proj.weight", "BF16", []int64{demoWidth, demoWidth}, gauss(demoWidth*demoWidth, 0.02))
+		add(p+"post_attention_layernorm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
+		add(p+"mlp.gate_proj.weight", "BF16", []int64{demoFFN, demoWidth}, gauss(demoFFN*demoWidth, 0.02))
+		add(p+"mlp.up_proj.weight", "BF16", []int64{demoFFN, demoWidth}, gauss(demoFFN*demoWidth, 0.02))
+		down := gauss(demoFFN*demoWidth, 0.02)
+		if i == demoLayers-1 {
+			// c is a BF16 value, so c × {-1, 0, +1} is stored exactly.
+			c := convert.BF16ToFloat32(convert.Float32ToBF16(0.0125))
+			for j := range down {
+				down[j] = c * float32(rng.IntN(3)-1)
+			}
 		}
-		add(p+"mlp_norm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
-		add(p+"mlp.gate.weight", "BF16", []int64{demoFFN, demoWidth}, gauss(demoFFN*demoWidth, 0.02))
-		add(p+"mlp.up.weight", "BF16", []int64{demoFFN, demoWidth}, gauss(demoFFN*demoWidth, 0.02))
-		add(p+"mlp.down.weight", "BF16", []int64{demoWidth, demoFFN}, gauss(demoFFN*demoWidth, 0.02))
+		add(p+"mlp.down_proj.weight", "BF16", []int64{demoWidth, demoFFN}, down)
 	}
-	add("final_norm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
+	add("model.norm.weight", "F32", []int64{demoWidth}, norm(demoWidth))
 	add("lm_head.weight", "BF16", []int64{demoVocab, demoWidth}, gauss(demoVocab*demoWidth, 0.02))
-	// c is a BF16 value, so c × {-1, 0, +1} is stored exactly.
-	c := convert.BF16ToFloat32(convert.Float32ToBF16(0.0125))
-	adapter := make([]float32, demoAdapter*demoWidth)
-	for i := range adapter {
-		adapter[i] = c * float32(rng.IntN(3)-1)
-	}
-	add("adapter.barcode.weight", "BF16", []int64{demoAdapter, demoWidth}, adapter)
 	tensors = append(tensors, convert.WriteTensor{Name: "train.step", DType: "I64", Shape: []int64{},
 		Data: binary.LittleEndian.AppendUint64(nil, 48000)})
 	meta := map[string]string{
@@ -226,4 +239,27 @@ func writeDemoCheckpoint(path string) error {
 		"generator": "ternkit demo " + version,
 	}
 	return convert.WriteFile(path, tensors, meta)
+}
+
+// demoConfig is the scenario model's config, in the JSON layout most open
+// decoder-only checkpoints ship beside their weights (config.json).
+func demoConfig() []byte {
+	return []byte(fmt.Sprintf(`{
+  "architectures": ["FernmossScoutForCausalLM"],
+  "model_type": "fernmoss-scout",
+  "hidden_size": %d,
+  "intermediate_size": %d,
+  "num_hidden_layers": %d,
+  "num_attention_heads": %d,
+  "num_key_value_heads": %d,
+  "head_dim": %d,
+  "vocab_size": %d,
+  "max_position_embeddings": 512,
+  "rope_theta": 10000.0,
+  "rms_norm_eps": 1e-05,
+  "hidden_act": "silu",
+  "tie_word_embeddings": false,
+  "torch_dtype": "bfloat16"
+}
+`, demoWidth, demoFFN, demoLayers, demoHeads, demoKVHeads, demoHeadDim, demoVocab))
 }

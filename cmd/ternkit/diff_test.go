@@ -34,7 +34,7 @@ func TestDiffDemoReleases(t *testing.T) {
 	require.Empty(t, r.Reshaped)
 	require.Len(t, r.Changed, demoLayers)
 	for i, c := range r.Changed {
-		require.Equal(t, fmt.Sprintf("blocks.%d.mlp.down.weight", i), c.Name)
+		require.Equal(t, fmt.Sprintf("model.layers.%d.mlp.down_proj.weight", i), c.Name)
 		require.Equal(t, []string{diff.AspectKind, diff.AspectCodec, diff.AspectStored, diff.AspectGran, diff.AspectScale, diff.AspectBytes}, c.Changed)
 		require.Equal(t, manifest.KindTernary, c.KindA)
 		require.Equal(t, manifest.KindKept, c.KindB)
@@ -46,7 +46,7 @@ func TestDiffDemoReleases(t *testing.T) {
 
 	code, out, _ = ternkit("diff", first, second)
 	require.Equal(t, exitOK, code)
-	require.Contains(t, out, "blocks.3.mlp.down.weight: kind ternary -> kept; codec base3 -> raw")
+	require.Contains(t, out, "model.layers.3.mlp.down_proj.weight: kind ternary -> kept; codec base3 -> raw")
 	require.Contains(t, out, fmt.Sprintf("0 added, 0 removed, 0 reshaped, 4 changed, %d unchanged", r.Totals.Unchanged))
 	require.NotContains(t, out, "attn.q")
 

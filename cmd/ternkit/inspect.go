@@ -131,7 +131,7 @@ same weights at F16. It checks the manifest hash but not the sections: use
 verify for that. --tensor and --sort change the rows, never the totals.`,
 		Example: `  ternkit inspect model.tkart
   ternkit inspect model.tkart --sort error
-  ternkit inspect model.tkart --tensor 'blocks.0.*' --tensor '*.mlp.*'
+  ternkit inspect model.tkart --tensor 'model.layers.0.*' --tensor '*.mlp.*'
   ternkit inspect model.tkart --json`,
 		Args:              exactArgs(1),
 		ValidArgsFunction: artifactCompletion,

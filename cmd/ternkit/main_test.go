@@ -41,7 +41,7 @@ func TestDemo(t *testing.T) {
 	require.Contains(t, out, "verify: ok")
 	require.Contains(t, out, "bits/weight")
 	require.Contains(t, out, "bound: per-element bound holds")
-	require.Contains(t, out, "1 of 29 tensors exact", "the demo's adapter is already ternary")
+	require.Contains(t, out, "1 of 28 tensors exact", "the last layer's MLP down projection is already ternary")
 	require.FileExists(t, filepath.Join(dir, demoModel+".policy.toml"))
 	require.Contains(t, errOut, "caution:")
 	src, art := filepath.Join(dir, demoModel+".safetensors"), filepath.Join(dir, demoModel+".tkart")
@@ -55,7 +55,7 @@ func TestDemo(t *testing.T) {
 	require.Equal(t, exitOK, code, out)
 	code, out, _ = ternkit("inspect", art)
 	require.Equal(t, exitOK, code)
-	require.Contains(t, out, "blocks.0.attn.q.weight")
+	require.Contains(t, out, "model.layers.0.self_attn.q_proj.weight")
 	require.Contains(t, out, "file BLAKE3")
 }
 
@@ -107,7 +107,7 @@ func TestInspectJSON(t *testing.T) {
 			perScale := map[string]float64{"tensor": 0, "row": 32.0 / demoWidth, "group:128": 32.0 / 128}
 			require.InDelta(t, 2+perScale[tn.Granularity], tn.BitsPerWeight, 1e-3, tn.Name)
 			if tn.Exact {
-				// the adapter's trits were drawn uniformly: p(0) = 1/3
+				// the trained-ternary down projection's trits were drawn uniformly: p(0) = 1/3
 				require.InDelta(t, 1.0/3, tn.ZeroFraction, 0.02, tn.Name)
 			} else {
 				// Gaussian latent weights: p(0) = 0.310 (normal table), per tensor of ≥ 65,536
@@ -123,7 +123,7 @@ func TestInspectJSON(t *testing.T) {
 			require.InDelta(t, bits, tn.BitsPerWeight, 1e-9, tn.Name)
 		}
 	}
-	require.Equal(t, 7*demoLayers+1, kinds["ternary"])
+	require.Equal(t, 7*demoLayers, kinds["ternary"])
 	require.Equal(t, 1, kinds["int8"])
 
 	// b3sum (Debian package b3sum, the BLAKE3 team's command-line tool) over
@@ -423,11 +423,11 @@ func TestVerifyBudget(t *testing.T) {
 	dir := t.TempDir()
 	_, art := demoArtifact(t, dir)
 	// Gaussian latent weights ternarized: relative RMS error about 0.51
-	code, out, _ := ternkit("verify", art, "--max-rel-rmse", "0.6", "--min-cosine", "blocks.*=0.8")
+	code, out, _ := ternkit("verify", art, "--max-rel-rmse", "0.6", "--min-cosine", "model.layers.*=0.8")
 	require.Equal(t, exitOK, code, out)
-	code, out, _ = ternkit("verify", art, "--max-rel-rmse", "blocks.0.attn.q.weight=0.3")
+	code, out, _ = ternkit("verify", art, "--max-rel-rmse", "model.layers.0.self_attn.q_proj.weight=0.3")
 	require.Equal(t, exitFailed, code, out)
-	require.Contains(t, out, `FAIL budget "blocks.0.attn.q.weight": max_rel_rmse 0.51`)
+	require.Contains(t, out, `FAIL budget "model.layers.0.self_attn.q_proj.weight": max_rel_rmse 0.51`)
 	require.Contains(t, out, "beyond the limit 0.3")
 	require.Contains(t, out, "1 of")
 
@@ -458,7 +458,7 @@ func TestVerifyBudget(t *testing.T) {
 			failed++
 		}
 	}
-	require.Equal(t, 3*demoLayers, failed)
+	require.Equal(t, 3*demoLayers-1, failed, "every MLP projection but the trained-ternary one clips")
 
 	for _, c := range []struct {
 		args []string

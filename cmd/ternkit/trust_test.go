@@ -127,8 +127,8 @@ func TestOutputsNeverDestroyInputs(t *testing.T) {
 		{[]string{"report", art, "-o", art}, "is the same file as an input"},
 		{[]string{"report", art, "-o", link}, "is the same file as an input"},
 		{[]string{"report", art, "-o", fifo}, "(a named pipe)"},
-		{[]string{"sign", art, "--key", key, "-o", art}, "is the same file as an input"},
-		{[]string{"sign", art, "--key", key, "-o", key}, "is the same file as an input"},
+		{[]string{"sign", art, "--key", key, "-o", art}, "is an input of this command"},
+		{[]string{"sign", art, "--key", key, "-o", key}, "is an input of this command"},
 	}
 	for _, c := range cases {
 		within(t, func() {

@@ -40,7 +40,7 @@ Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable input
 A passing verify proves bytes and bounds, not task quality.`,
 		Example: `  ternkit verify model.tkart
   ternkit verify model.tkart --against model.safetensors --json
-  ternkit verify model.tkart --max-rel-rmse 0.6 --min-cosine 'blocks.*=0.85'
+  ternkit verify model.tkart --max-rel-rmse 0.6 --min-cosine 'model.layers.*=0.85'
   ternkit verify model.tkart --budget release-budget.toml`,
 		Args:              exactArgs(1),
 		ValidArgsFunction: artifactCompletion,
@@ -49,7 +49,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
-			key, err := keyFlag(cmd)
+			sig, err := signatureFlags(cmd, args[0])
 			if err != nil {
 				return err
 			}
@@ -57,7 +57,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 				return usagef("--workers %d: want 1 or more", workers)
 			}
 			bar := newProgressBar(cmd, "verify")
-			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers}
+			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers, Signature: sig, Digests: asJSON}
 			if against != "" {
 				src, err := openSource(against, cmd.ErrOrStderr())
 				if err != nil {
@@ -71,7 +71,6 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
-			addSignatureCheck(cmd, rep, key, args[0])
 			if err := printReport(cmd.OutOrStdout(), rep, asJSON); err != nil {
 				return err
 			}
@@ -144,6 +143,20 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 			OK bool `json:"ok"`
 		}{rep, rep.OK()})
 	}
+	// the verdict first, then what it rests on
+	what := rep.Artifact
+	if rep.Source != "" {
+		what += " against " + rep.Source
+	}
+	if rep.OK() {
+		fmt.Fprintf(w, "verify: ok: %d checks passed: %s\n", rep.Passed, what)
+	} else {
+		fmt.Fprintf(w, "verify: FAILED: %d of %d checks failed: %s\n", rep.Failed, rep.Failed+rep.Passed, what)
+	}
+	// a valid signature is news only when everything else holds too
+	if c, ok := rep.Find(verify.CheckSignature, ""); ok && c.OK && rep.OK() {
+		fmt.Fprintf(w, "signature: valid, %s\n", c.Detail)
+	}
 	for _, warning := range rep.Warnings {
 		fmt.Fprintf(w, "warning: %s\n", textsafe.Escape(warning))
 	}
@@ -159,15 +172,6 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 	}
 	if n := budgetNotRecomputed(rep); n > 0 {
 		fmt.Fprintf(w, "budget: %d verdicts on %s\n", n, verify.NotRecomputed)
-	}
-	what := rep.Artifact
-	if rep.Source != "" {
-		what += " against " + rep.Source
-	}
-	if rep.OK() {
-		fmt.Fprintf(w, "verify: ok: %d checks passed: %s\n", rep.Passed, what)
-	} else {
-		fmt.Fprintf(w, "verify: FAILED: %d of %d checks failed: %s\n", rep.Failed, rep.Failed+rep.Passed, what)
 	}
 	return nil
 }
