@@ -514,9 +514,20 @@ const (
 	entropyHeadMax  = 4 + 1 + 8
 )
 
+// entropyBlockMinLen is the fewest bytes a block holding content takes: a
+// 3-byte header and at least one byte (an RLE block's byte, a raw block's
+// content, a compressed block's literals section header, RFC 8878
+// section 3.1.1.3.1). A frame holding b content bytes in blocks of at most
+// EntropyBlockMax has at least ⌈b/EntropyBlockMax⌉ such blocks, so it is
+// at least 6 + 4·⌈b/EntropyBlockMax⌉ bytes long: b is at most 32768 times
+// the frame's length, whatever the frame claims.
+const entropyBlockMinLen = 4
+
 // TritPayloadRange is the smallest and largest payload length of n trits
-// in a trit codec: the same for bits2 and base3; for entropy, at most the
-// size of a frame holding the base3 payload in stored blocks.
+// in a trit codec: the same for bits2 and base3; for entropy, at least the
+// shortest frame that can hold the base3 payload (magic, descriptor, a
+// 1-byte content size, and a 4-byte block per 128 KiB of content) and at
+// most the size of a frame holding it in stored blocks.
 func TritPayloadRange(codec string, n int64) (lo, hi int64, ok bool) {
 	if l, ok := TritPayloadLen(codec, n); ok {
 		return l, l, true
@@ -526,7 +537,11 @@ func TritPayloadRange(codec string, n int64) (lo, hi int64, ok bool) {
 	}
 	b := (n + 4) / 5
 	blocks := max(1, (b+EntropyBlockMax-1)/EntropyBlockMax)
-	return EntropyMinLen, entropyHeadMax + 3*blocks + b, true
+	lo = EntropyMinLen
+	if b > 0 {
+		lo = max(lo, 4+1+1+entropyBlockMinLen*blocks)
+	}
+	return lo, entropyHeadMax + 3*blocks + b, true
 }
 
 // HexHash formats a BLAKE3 sum as the manifest writes it.

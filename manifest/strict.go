@@ -22,17 +22,26 @@ func checkStrictJSON(b []byte, t reflect.Type) error {
 	}
 	dec := json.NewDecoder(bytes.NewReader(b))
 	dec.UseNumber()
-	err := walkJSON(dec, t, "manifest")
+	err := walkJSON(dec, t, "manifest", 0)
 	if _, syntax := err.(*json.SyntaxError); syntax {
 		return nil
 	}
 	return err
 }
 
-func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
+// MaxDepth is the deepest nesting of arrays and objects a manifest may
+// have (pack/FORMAT.md, "Manifest"); a manifest nests 4 levels deep. The
+// limit keeps the walk, which builds a path per level, linear in time and
+// memory however deep a hostile manifest nests.
+const MaxDepth = 64
+
+func walkJSON(dec *json.Decoder, t reflect.Type, path string, depth int) error {
 	tok, err := dec.Token()
 	if err != nil {
 		return err
+	}
+	if depth >= MaxDepth && (tok == json.Delim('{') || tok == json.Delim('[')) {
+		return fmt.Errorf("%w: %s: nested more than %d levels deep", ErrInvalid, path, MaxDepth)
 	}
 	for t != nil && t.Kind() == reflect.Pointer {
 		t = t.Elem()
@@ -67,7 +76,7 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
 			case t != nil && t.Kind() == reflect.Map:
 				vt = t.Elem()
 			}
-			if err := walkJSON(dec, vt, path+"."+key); err != nil {
+			if err := walkJSON(dec, vt, path+"."+key, depth+1); err != nil {
 				return err
 			}
 		}
@@ -88,7 +97,7 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
 			et = t.Elem()
 		}
 		for i := 0; dec.More(); i++ {
-			if err := walkJSON(dec, et, fmt.Sprintf("%s[%d]", path, i)); err != nil {
+			if err := walkJSON(dec, et, fmt.Sprintf("%s[%d]", path, i), depth+1); err != nil {
 				return err
 			}
 		}

@@ -11,6 +11,7 @@ import (
 
 	"github.com/zeebo/blake3"
 
+	"ternkit/internal/inputfile"
 	"ternkit/manifest"
 )
 
@@ -135,7 +136,7 @@ func checkCompanions(cs []Companion) error {
 // writeCompanion copies the file into the artifact as a section and
 // returns its manifest entry.
 func (w *atomicWriter) writeCompanion(c Companion) (manifest.Companion, error) {
-	f, err := os.Open(c.Path)
+	f, err := inputfile.Open(c.Path)
 	if err != nil {
 		return manifest.Companion{}, fmt.Errorf("%w: %v", ErrCompanion, err)
 	}

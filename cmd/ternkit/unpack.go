@@ -63,6 +63,12 @@ complete or not at all.
 			if toDir {
 				err = pack.UnpackDir(a, out, dt, shard)
 			} else {
+				if err := checkOutput(out, args[0]); err != nil {
+					return err
+				}
+				if err := checkNotRecordedSource(out, a.Manifest()); err != nil {
+					return err
+				}
 				err = pack.Unpack(a, out, dt)
 			}
 			if err != nil {
