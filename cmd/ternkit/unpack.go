@@ -55,6 +55,12 @@ complete or not at all.
 			if st, err := os.Stat(out); err == nil && st.IsDir() && !toDir {
 				return usagef("-o %q is a directory; give the checkpoint's file name", out)
 			}
+			if st, err := os.Stat(out); err != nil || !st.IsDir() {
+				// a file, in either mode, must not be the artifact read
+				if err := checkOutput(out, args[0]); err != nil {
+					return err
+				}
+			}
 			a, err := pack.Open(args[0])
 			if err != nil {
 				return err
@@ -63,9 +69,6 @@ complete or not at all.
 			if toDir {
 				err = pack.UnpackDir(a, out, dt, shard)
 			} else {
-				if err := checkOutput(out, args[0]); err != nil {
-					return err
-				}
 				if err := checkNotRecordedSource(out, a.Manifest()); err != nil {
 					return err
 				}
