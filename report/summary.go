@@ -5,15 +5,12 @@
 package report
 
 import (
-	"fmt"
-	"io"
-	"os"
 	"strings"
 
-	"github.com/zeebo/blake3"
-
 	"ternkit/convert"
+	"ternkit/internal/filedigest"
 	"ternkit/manifest"
+	"ternkit/modelconfig"
 	"ternkit/pack"
 )
 
@@ -57,6 +54,7 @@ type Summary struct {
 	Artifact       string          `json:"artifact"`
 	Bytes          int64           `json:"bytes"`
 	FileBLAKE3     string          `json:"file_blake3"`
+	SHA256         string          `json:"sha256"` // of the whole file, as sha256sum prints it
 	ManifestBLAKE3 string          `json:"manifest_blake3"`
 	Tool           string          `json:"tool"`
 	Created        string          `json:"created,omitempty"` // set when the build had SOURCE_DATE_EPOCH
@@ -68,6 +66,12 @@ type Summary struct {
 	ZeroFraction   float64         `json:"zero_fraction"` // zero trits / ternary parameters
 	WeightMemory   WeightMemory    `json:"weight_memory"`
 	Tensors        []Tensor        `json:"tensors"`
+	// Companions are the files carried beside the weights; Architecture is
+	// their config.json when it is a model config (ArchitectureSummary
+	// says it in one line).
+	Companions          []Companion         `json:"companions,omitempty"`
+	Architecture        *modelconfig.Config `json:"architecture,omitempty"`
+	ArchitectureSummary string              `json:"architecture_summary,omitempty"`
 }
 
 // Summarize opens the artifact at path, checks its structure and manifest
@@ -78,11 +82,13 @@ func Summarize(path string) (*Summary, error) {
 		return nil, err
 	}
 	defer a.Close()
-	sum, err := fileBLAKE3(path)
+	d, err := filedigest.File(path)
 	if err != nil {
 		return nil, err
 	}
-	return summarize(path, a, sum), nil
+	s := summarize(path, a, d.BLAKE3)
+	s.SHA256 = d.SHA256
+	return s, nil
 }
 
 func summarize(path string, a *pack.Artifact, fileSum string) *Summary {
@@ -117,6 +123,7 @@ func summarize(path string, a *pack.Artifact, fileSum string) *Summary {
 		s.Tensors = append(s.Tensors, row)
 	}
 	s.ZeroFraction = ratio(zero, t.TernaryParams)
+	addCompanions(s, a)
 	return s
 }
 
@@ -126,21 +133,6 @@ func ratio(a, b int64) float64 {
 		return 0
 	}
 	return float64(a) / float64(b)
-}
-
-func fileBLAKE3(path string) (string, error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return "", err
-	}
-	defer f.Close()
-	h := blake3.New()
-	if _, err := io.Copy(h, f); err != nil {
-		return "", fmt.Errorf("read %s: %w", path, err)
-	}
-	var sum [32]byte
-	h.Sum(sum[:0])
-	return manifest.HexHash(sum), nil
 }
 
 // Layer is a group of tensors that belong to one layer of the model:

@@ -83,6 +83,7 @@ report beside it. Nothing is downloaded.`,
 				if opts.Policy, err = convert.ParsePolicy(policyPath, []byte(demoPolicy)); err != nil {
 					return err
 				}
+				opts.PolicyRules = opts.Policy.Describe() // the manifest records the policy used
 				fmt.Fprintf(out, "policy %s: one rule per action\n", policyPath)
 			}
 

@@ -4,12 +4,13 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"os"
 	"runtime"
 	"strings"
 
 	"github.com/spf13/cobra"
 
+	"ternkit/internal/inputfile"
+	"ternkit/internal/textsafe"
 	"ternkit/pack"
 	"ternkit/verify"
 )
@@ -48,7 +49,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
-			key, err := keyFlag(cmd)
+			sig, err := signatureFlags(cmd, args[0])
 			if err != nil {
 				return err
 			}
@@ -56,7 +57,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 				return usagef("--workers %d: want 1 or more", workers)
 			}
 			bar := newProgressBar(cmd, "verify")
-			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers}
+			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers, Signature: sig, Digests: asJSON}
 			if against != "" {
 				src, err := openSource(against, cmd.ErrOrStderr())
 				if err != nil {
@@ -70,7 +71,6 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
-			addSignatureCheck(cmd, rep, key, args[0])
 			if err := printReport(cmd.OutOrStdout(), rep, asJSON); err != nil {
 				return err
 			}
@@ -111,7 +111,7 @@ var metricHelp = map[string]string{
 func readBudget(file string, limits map[string]*[]string) (*verify.Budget, error) {
 	b := &verify.Budget{}
 	if file != "" {
-		data, err := os.ReadFile(file)
+		data, err := inputfile.ReadFile(file)
 		if err != nil {
 			return nil, err
 		}
@@ -143,19 +143,7 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 			OK bool `json:"ok"`
 		}{rep, rep.OK()})
 	}
-	for _, warning := range rep.Warnings {
-		fmt.Fprintf(w, "warning: %s\n", warning)
-	}
-	if c, ok := rep.Find(verify.CheckBound, ""); ok && c.OK {
-		fmt.Fprintf(w, "bound: %s\n", c.Detail)
-	}
-	for _, c := range rep.Failures() {
-		if c.Tensor != "" {
-			fmt.Fprintf(w, "FAIL %s %q: %s\n", c.Name, c.Tensor, c.Detail)
-		} else {
-			fmt.Fprintf(w, "FAIL %s: %s\n", c.Name, c.Detail)
-		}
-	}
+	// the verdict first, then what it rests on
 	what := rep.Artifact
 	if rep.Source != "" {
 		what += " against " + rep.Source
@@ -165,5 +153,40 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 	} else {
 		fmt.Fprintf(w, "verify: FAILED: %d of %d checks failed: %s\n", rep.Failed, rep.Failed+rep.Passed, what)
 	}
+	// a valid signature is news only when everything else holds too
+	if c, ok := rep.Find(verify.CheckSignature, ""); ok && c.OK && rep.OK() {
+		fmt.Fprintf(w, "signature: valid, %s\n", c.Detail)
+	}
+	for _, warning := range rep.Warnings {
+		fmt.Fprintf(w, "warning: %s\n", textsafe.Escape(warning))
+	}
+	for _, note := range rep.Notes {
+		fmt.Fprintf(w, "note: %s\n", note)
+	}
+	if c, ok := rep.Find(verify.CheckBound, ""); ok && c.OK {
+		fmt.Fprintf(w, "bound: %s\n", c.Detail)
+	}
+	for _, c := range rep.Failures() {
+		if c.Tensor != "" {
+			fmt.Fprintf(w, "FAIL %s %q: %s\n", c.Name, c.Tensor, textsafe.Escape(c.Detail))
+		} else {
+			fmt.Fprintf(w, "FAIL %s: %s\n", c.Name, textsafe.Escape(c.Detail))
+		}
+	}
+	if n := budgetNotRecomputed(rep); n > 0 {
+		fmt.Fprintf(w, "budget: %d verdicts on %s\n", n, verify.NotRecomputed)
+	}
 	return nil
+}
+
+// budgetNotRecomputed counts the budget verdicts given on the manifest's
+// own statistics.
+func budgetNotRecomputed(rep *verify.Report) int {
+	n := 0
+	for _, c := range rep.Checks {
+		if c.Name == verify.CheckBudget && c.Recomputed != nil && !*c.Recomputed {
+			n++
+		}
+	}
+	return n
 }
