@@ -314,13 +314,15 @@ static int lit(jp *j, const char *w)
 	return 0;
 }
 
-/* A JSON null where a value is expected: consumed, 1. */
+/* A JSON null where a value is expected: no key of the format takes null
+ * (FORMAT.md, Manifest: an optional key is left out), so it is rejected
+ * (-1); 0 otherwise. The callers' branches for 1 stay unused. */
 static int jnull(jp *j)
 {
 	if (peek(j) == 'n') {
-		if (lit(j, "null"))
-			return -1;
-		return 1;
+		if (lit(j, "null") == 0)
+			jbad(j, "a value is null (no key takes null: an optional key is left out)");
+		return -1;
 	}
 	return 0;
 }
@@ -783,6 +785,16 @@ static int key_index(jp *j, const char *const *keys, const char *key, uint32_t *
 	return jbad(j, "%s: unknown key \"%.60s\"", where, key);
 }
 
+/* Every key of keys whose bit is in required must have been seen. */
+static int need(jp *j, const char *const *keys, uint32_t seen, uint32_t required, const char *where)
+{
+	int i;
+	for (i = 0; keys[i]; i++)
+		if ((required >> i & 1) && !(seen >> i & 1))
+			return jbad(j, "%s: required key \"%s\" is missing", where, keys[i]);
+	return 0;
+}
+
 static int is_hash(const char *s, uint8_t out[32])
 {
 	int i;
@@ -882,8 +894,8 @@ static int parse_section(jp *j, tkart_section *s, int *present, const char *wher
 			break;
 		}
 	}
-	if (!(seen >> 2 & 1))
-		return jbad(j, "%s: section without blake3", where);
+	if (need(j, SECTION_KEYS, seen, 0x7, where))
+		return j->a->err;
 	if (off < 0 || len < 0)
 		return jbad(j, "%s: section offset %lld length %lld", where, (long long)off, (long long)len);
 	s->offset = (uint64_t)off;
@@ -1031,6 +1043,7 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 					if (key_index(j, TRITS_KEYS, k3, &s2, &i3, "trits")) return j->a->err;
 					if (jint(j, c[i3])) return j->a->err;
 				}
+			if (o3 && need(j, TRITS_KEYS, s2, 0x7, "trits")) return j->a->err;
 			break;
 		}
 		case 13: {
@@ -1047,13 +1060,13 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 					if (key_index(j, STATS_KEYS, k3, &s2, &i3, "stats")) return j->a->err;
 					if (jnum(j, &v, NULL)) return j->a->err;
 				}
+			if (o3 && need(j, STATS_KEYS, s2, 0x1F, "stats")) return j->a->err;
 			break;
 		}
 		}
 	}
-	/* source_blake3 missing reads as "", not a hash */
-	if (!(seen >> 11 & 1))
-		return jbad(j, "%s: source_blake3 \"\" is not 64 lowercase hex digits", where);
+	if (need(j, TENSOR_KEYS, seen, 1u << 0 | 1u << 1 | 1u << 2 | 1u << 3 | 1u << 5 | 1u << 10 | 1u << 11, where))
+		return j->a->err;
 	if (!has_section || !(seen >> 10 & 1))
 		return jbad(j, "%s: no section", where);
 	if (t->name[0] == 0)
@@ -1088,8 +1101,8 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 	else if (!strcmp(codec, "base3")) t->codec = TKART_BASE3;
 	else if (!strcmp(codec, "entropy")) t->codec = TKART_ENTROPY;
 	else if (!strcmp(codec, "raw")) t->codec = TKART_RAW;
-	if (t->kind != TKART_KEPT && !dtype_size(t->source_dtype))
-		return jbad(j, "%s: unknown source dtype \"%.40s\"", where, t->source_dtype);
+	if (t->kind != TKART_KEPT && !is_float_dtype(t->source_dtype))
+		return jbad(j, "%s: source dtype \"%.40s\" is not a float dtype (only float tensors are quantized)", where, t->source_dtype);
 	if (has_gran) {
 		if (!strcmp(gran, "tensor")) t->gran = TKART_GRAN_TENSOR;
 		else if (!strcmp(gran, "row")) t->gran = TKART_GRAN_ROW;
@@ -1105,7 +1118,9 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 			else if (t->codec == TKART_ENTROPY) {
 				uint64_t blocks = (b + ENTROPY_BLOCK_MAX - 1) / ENTROPY_BLOCK_MAX;
 				if (blocks < 1) blocks = 1;
-				lo = 9;
+				/* the shortest frame holding b bytes: 4-byte blocks of at
+				 * most 131072 content bytes behind a 6-byte header */
+				lo = b == 0 ? 9 : 6 + 4 * ((b + ENTROPY_BLOCK_MAX - 1) / ENTROPY_BLOCK_MAX);
 				hi = 13 + 3 * blocks + b;
 			} else
 				return jbad(j, "%s: codec \"%.40s\" is not a trit codec", where, codec);
@@ -1233,6 +1248,10 @@ static int parse_recipe(jp *j, mfacts *mf)
 		case 4: if (jstr(j, &sum, NULL)) return j->a->err; break;
 		}
 	}
+	if (!open)
+		return jbad(j, "recipe is not an object");
+	if (need(j, RECIPE_KEYS, seen, 0xF, "recipe"))
+		return j->a->err;
 	if (strcmp(method, "absmean"))
 		return jbad(j, "recipe: method \"%.40s\" (want absmean)", method);
 	if (strcmp(rule, "reciprocal") && strcmp(rule, "quotient"))
@@ -1293,8 +1312,11 @@ static int parse_source(jp *j, mfacts *mf)
 						has_hash = 1;
 					}
 				}
-				if (!has_hash)
-					return jbad(j, "source file without blake3");
+				(void)has_hash;
+				if (need(j, FILE_KEYS, s3, 0x7, "source.files[]"))
+					return j->a->err;
+				if (bytes < 0)
+					return jbad(j, "source file of %lld bytes", (long long)bytes);
 				mf->source_bytes += (uint64_t)bytes;
 			}
 		} else {
@@ -1342,7 +1364,9 @@ static int parse_source(jp *j, mfacts *mf)
 			j->a->arena_hi = top;
 		}
 	}
-	return 0;
+	if (!open)
+		return jbad(j, "source is not an object");
+	return need(j, SOURCE_KEYS, seen, 0x1, "source");
 }
 
 static int parse_policy(jp *j)
@@ -1396,7 +1420,7 @@ static int valid_created(const char *s)
 		y = v[0]; mo = v[1]; d = v[2]; h = v[3]; mi = v[4]; se = v[5];
 	}
 	leap = (y % 4 == 0 && y % 100 != 0) || y % 400 == 0;
-	if (mo < 1 || mo > 12 || d < 1)
+	if (y < 1 || mo < 1 || mo > 12 || d < 1)
 		return 0;
 	if (d > mdays[mo - 1] + (mo == 2 && leap))
 		return 0;
@@ -1475,6 +1499,8 @@ static int parse_companions(jp *j)
 			if (idx == 1 && parse_section(j, &c->section, &has_section, where))
 				return a->err;
 		}
+		if (need(j, COMPANION_KEYS, seen, 0x3, where))
+			return a->err;
 		if (!valid_companion_name(c->name))
 			return jbad(j, "%s: companion name \"%.60s\" is not a base name (FORMAT.md, Companions)", where, c->name);
 		if (!has_section)
@@ -1587,11 +1613,20 @@ static int parse_manifest(tkart *a, const uint8_t *body, uint64_t len, mfacts *m
 					has_totals_bpw = 1;
 				}
 			}
+			if (!o3)
+				return jbad(j, "totals is not an object");
+			if (need(j, TOTALS_KEYS, s3, 0xFFF, "totals"))
+				return a->err;
 			break;
 		}
 		}
 	}
-	(void)has_totals_bpw; /* a top-level null reads as an empty manifest */
+	(void)has_totals_bpw;
+	if (!open)
+		return jbad(j, "the manifest is not an object");
+	/* format0 version1 tool2 recipe4 source5 tensors7 totals8 */
+	if (need(j, MANIFEST_KEYS, seen, 1u << 0 | 1u << 1 | 1u << 2 | 1u << 4 | 1u << 5 | 1u << 7 | 1u << 8, "manifest"))
+		return a->err;
 	if (peek(j) != -1)
 		return jbad(j, "data after the JSON object");
 	if (strcmp(format, "ternkit-artifact"))

@@ -361,6 +361,9 @@ func TestVectors(t *testing.T) {
 			require.Equal(t, want.Name, got.Name, v.File)
 			require.Equal(t, want.Trits, got.Trits, "%s %s", v.File, want.Name)
 			require.Equal(t, want.Hex, got.Hex, "%s %s", v.File, want.Name)
+			if len(got.Scales) == 0 {
+				got.Scales = nil // a scales section of 0 bytes: vectors.json lists none
+			}
 			require.Equal(t, want.Scales, got.Scales, "%s %s", v.File, want.Name)
 		}
 		// Companions: the C reader's bytes hash as the Go reader's (compare
@@ -593,7 +596,10 @@ func TestManifestJSON(t *testing.T) {
 		{"surrogate pair", "ok", sub(tool, `"tool":"ternkit \ud83c\udf31"`), true},
 		{"whitespace", "ok", sub(`,"tool"`, " ,\n\t\"tool\" "), true},
 		{"trailing whitespace", "ok", func(s string) string { return s + "\r\n " }, true},
-		{"null reads as empty", "ok", sub(tool, `"tool":null`), true},
+		{"null", "manifest", sub(tool, `"tool":null`), true},
+		{"null array element", "manifest", sub(`"shape":[2,7]`, `"shape":[2,null]`), true},
+		{"optional key left out", "ok", sub(`,"exact":true`, ``), true},
+		{"required key left out", "manifest", sub(tool+`,`, ``), true},
 		{"exponent number", "ok", sub(`"epsilon":0.00001`, `"epsilon":1E-5`), true},
 		{"created", "ok", sub(tool, tool+`,"created":"2024-02-29T23:59:59Z"`), true},
 		// A lone surrogate escape names no character: rejected (RFC 8259
@@ -624,9 +630,7 @@ func TestManifestJSON(t *testing.T) {
 		{"float64 overflow", "manifest", sub(`"rel_rmse":0.49656424067266913`, `"rel_rmse":1e999`), true},
 		{"float32 overflow", "manifest", sub(`"scale":0.68214285`, `"scale":1e39`), true},
 		{"deep nesting", "manifest", sub(tool, nested(10001)), true},
-		// The Go reader takes minutes on this one (its strict-key walk
-		// slows down with depth); the C reader never follows the nesting.
-		{"deeper nesting", "manifest", sub(tool, nested(1000000)), false},
+		{"deeper nesting", "manifest", sub(tool, nested(1000000)), true},
 		{"empty policy", "manifest", sub(tool, tool+`,"policy":[]`), true},
 		{"invalid date", "manifest", sub(tool, tool+`,"created":"2023-02-29T00:00:00Z"`), true},
 		{"not an object", "manifest", func(string) string { return "[]" }, true},
