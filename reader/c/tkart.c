@@ -2339,6 +2339,128 @@ int tkart_kept_bytes(tkart *a, const tkart_tensor *t, const uint8_t **bytes, uin
 	return TKART_OK;
 }
 
+/* ---- values ------------------------------------------------------------------ */
+
+static float f32_of_bits(uint32_t u)
+{
+	float f;
+	memcpy(&f, &u, 4);
+	return f;
+}
+
+/* IEEE 754 binary16 to binary32, exactly. */
+static float half_to_float(uint16_t h)
+{
+	uint32_t sign = (uint32_t)(h & 0x8000u) << 16, e = (uint32_t)(h >> 10) & 0x1F, m = h & 0x3FFu;
+	if (e == 0x1F)
+		return f32_of_bits(sign | 0x7F800000u | m << 13);
+	if (e == 0) {
+		uint32_t k = 0;
+		if (m == 0)
+			return f32_of_bits(sign);
+		while (!(m & 0x400)) { /* a subnormal: m × 2^-24, normalized */
+			m <<= 1;
+			k++;
+		}
+		return f32_of_bits(sign | (113 - k) << 23 | (m & 0x3FF) << 13);
+	}
+	return f32_of_bits(sign | (e + 112) << 23 | m << 13);
+}
+
+/* F8_E4M3 (FORMAT.md, raw): bias 7, no infinities, S.1111.111 NaN,
+ * exponent 0 the subnormals m × 2^-9. */
+static float e4m3_to_float(uint8_t b)
+{
+	int e = b >> 3 & 0xF, m = b & 7;
+	float v;
+	if (e == 0xF && m == 7)
+		return f32_of_bits(0x7FC00000u);
+	/* normal: (1 + m/8) × 2^(e-7), built from its bits; subnormal: m × 2^-9 */
+	v = e == 0 ? (float)m * (1.0f / 512) : f32_of_bits((uint32_t)(e + 120) << 23 | (uint32_t)m << 20);
+	return b & 0x80 ? -v : v;
+}
+
+int tkart_values(tkart *a, const tkart_tensor *t, int64_t first, int64_t count, float *dst, void *scratch,
+                 size_t scratch_len)
+{
+	int64_t i;
+	int r;
+	if (first < 0 || count < 0 || first > t->n || count > t->n - first)
+		return fail(a, TKART_E_ARG, 0, "tensor \"%.60s\": elements %lld+%lld outside its %lld", t->name,
+		            (long long)first, (long long)count, (long long)t->n);
+	if (t->kind == TKART_KEPT) {
+		const uint8_t *p;
+		uint64_t len;
+		const char *d = t->dtype;
+		int size = dtype_size(d);
+		if (!is_float_dtype(d))
+			return fail(a, TKART_E_ARG, 0, "tensor \"%.60s\": kept dtype %s is not a float dtype", t->name, d);
+		r = tkart_kept_bytes(a, t, &p, &len);
+		if (r)
+			return r;
+		p += (uint64_t)first * (uint64_t)size;
+		for (i = 0; i < count; i++, p += size) {
+			if (!strcmp(d, "F32"))
+				dst[i] = f32_of_bits(le32(p));
+			else if (!strcmp(d, "F64")) {
+				uint64_t u = le64(p);
+				double v;
+				memcpy(&v, &u, 8);
+				dst[i] = (float)v;
+			} else if (!strcmp(d, "F16"))
+				dst[i] = half_to_float((uint16_t)(p[0] | p[1] << 8));
+			else if (!strcmp(d, "BF16"))
+				dst[i] = f32_of_bits((uint32_t)p[0] << 16 | (uint32_t)p[1] << 24);
+			else if (!strcmp(d, "F8_E5M2"))
+				dst[i] = half_to_float((uint16_t)(p[0] << 8));
+			else
+				dst[i] = e4m3_to_float(p[0]);
+		}
+		return TKART_OK;
+	}
+	if (t->has_scales) {
+		r = verify_section(a, t, 1);
+		if (r == TKART_OK)
+			r = check_scales(a, t, NULL, 0);
+		if (r)
+			return r;
+	}
+	if (t->kind == TKART_INT8) {
+		const int8_t *c;
+		const uint8_t *sp = a->buf + t->scales.offset;
+		r = tkart_int8_codes(a, t, &c);
+		if (r)
+			return r;
+		for (i = 0; i < count; i++) {
+			int64_t e = first + i;
+			dst[i] = f32_of_bits(le32(sp + 4 * (e / t->cols))) * (float)c[e];
+		}
+		return TKART_OK;
+	}
+	{
+		const uint8_t *p, *sp = a->buf + t->scales.offset;
+		uint64_t len, bad = 0;
+		int codec;
+		int8_t buf[1024];
+		r = packed_payload(a, t, scratch, scratch_len, &p, &len, &codec);
+		if (r)
+			return r;
+		for (i = 0; i < count; i += (int64_t)sizeof buf) {
+			int64_t m = count - i < (int64_t)sizeof buf ? count - i : (int64_t)sizeof buf, k;
+			r = unpack(codec, p, len, (uint64_t)t->n, (uint64_t)(first + i), (uint64_t)m, buf, &bad);
+			if (r == TKART_E_PAYLOAD)
+				return payload_error(a, t, codec, bad);
+			if (r)
+				return fail(a, r, 0, "tensor \"%.60s\": bad range", t->name);
+			for (k = 0; k < m; k++) {
+				float s = t->has_scales ? f32_of_bits(le32(sp + 4 * ((first + i + k) / t->group))) : t->scale;
+				dst[i + k] = s * (float)buf[k];
+			}
+		}
+	}
+	return TKART_OK;
+}
+
 /* ---- check ------------------------------------------------------------------- */
 
 int tkart_check(tkart *a, void *scratch, size_t scratch_len)

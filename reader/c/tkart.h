@@ -166,6 +166,13 @@ int tkart_kept_bytes(tkart *a, const tkart_tensor *t, const uint8_t **bytes, uin
 int tkart_matvec(tkart *a, const tkart_tensor *t, int64_t row0, int64_t nrows,
                  const int8_t *x, int32_t *y, void *scratch, size_t scratch_len);
 
+/* Values as float32 of elements [first, first+count) in C order (FORMAT.md,
+ * What a reader returns): ternary float32(scale_g × trit), int8
+ * float32(s_row × code), kept float dtypes decoded (F64 rounded to nearest
+ * even, the others exact). A kept tensor of another dtype: TKART_E_ARG. */
+int tkart_values(tkart *a, const tkart_tensor *t, int64_t first, int64_t count, float *dst, void *scratch,
+                 size_t scratch_len);
+
 /* The same over a packed payload (bits2 or base3) of n trits in rows of
  * cols: no hashing, only the codes are checked. */
 int tkart_unpack_trits(int codec, const uint8_t *p, uint64_t len, uint64_t n,

@@ -203,6 +203,33 @@ static int json_file(const char *path, int with_trits)
 				printf(", \"scales_offset\": %llu, \"scales_length\": %llu", (unsigned long long)t->scales.offset,
 				       (unsigned long long)t->scales.length);
 		}
+		if (rc == TKART_OK && (t->kind != TKART_KEPT || !strcmp(t->dtype, "F64") || !strcmp(t->dtype, "F32") ||
+		                       !strcmp(t->dtype, "F16") || !strcmp(t->dtype, "BF16") ||
+		                       !strcmp(t->dtype, "F8_E4M3") || !strcmp(t->dtype, "F8_E5M2"))) {
+			/* the BLAKE3 of the values as little-endian float32, every NaN 0x7FC00000 */
+			float *v = malloc(t->n ? (size_t)t->n * sizeof *v : 1);
+			uint8_t *b = malloc(t->n ? (size_t)t->n * 4 : 1), h[32];
+			int64_t k;
+			rc = v && b ? tkart_values(&f.a, t, 0, t->n, v, f.scratch, f.scratch_len) : TKART_E_ARG;
+			if (rc == TKART_OK) {
+				for (k = 0; k < t->n; k++) {
+					uint32_t u;
+					memcpy(&u, &v[k], 4);
+					if (v[k] != v[k])
+						u = 0x7FC00000u;
+					b[4 * k] = (uint8_t)u;
+					b[4 * k + 1] = (uint8_t)(u >> 8);
+					b[4 * k + 2] = (uint8_t)(u >> 16);
+					b[4 * k + 3] = (uint8_t)(u >> 24);
+				}
+				tkart_blake3(b, (size_t)(4 * t->n), h);
+				printf(", \"values_blake3\": \"");
+				hex(h, 32);
+				printf("\"");
+			}
+			free(v);
+			free(b);
+		}
 		if (rc != TKART_OK) {
 			printf(", \"error\": ");
 			json_str(tkart_errmsg(&f.a));

@@ -177,7 +177,10 @@ type tensor struct {
 	Scales       []float32 `json:"scales,omitempty"`
 	ScalesOffset int64     `json:"scales_offset,omitempty"`
 	ScalesLength int64     `json:"scales_length,omitempty"`
-	Error        string    `json:"error,omitempty"`
+	// ValuesBLAKE3 is the BLAKE3 of the values as little-endian float32,
+	// every NaN written as 0x7FC00000 (FORMAT.md, "What a reader returns").
+	ValuesBLAKE3 string `json:"values_blake3,omitempty"`
+	Error        string `json:"error,omitempty"`
 }
 
 func cRead(t *testing.T, bin string, files ...string) []result {
@@ -213,6 +216,11 @@ func goRead(t *testing.T, path string) result {
 		if rt.Shape == nil {
 			rt.Shape = []int64{}
 		}
+		if e.Kind != manifest.KindKept || floatDTypes[e.DType] {
+			vals := make([]float32, tn.Len())
+			require.NoError(t, tn.DecodeFloat32(vals))
+			rt.ValuesBLAKE3 = float32Digest(vals)
+		}
 		if e.Kind == manifest.KindKept {
 			p, err := tn.VerifiedPayload()
 			require.NoError(t, err)
@@ -247,6 +255,25 @@ func goRead(t *testing.T, path string) result {
 		r.Companions = append(r.Companions, companion{Name: c.Name, Offset: c.Section.Offset, Length: c.Section.Length, BLAKE3: hex.EncodeToString(sum[:])})
 	}
 	return r
+}
+
+// floatDTypes are the kept dtypes whose bytes both readers decode to
+// float32 (pack/FORMAT.md, "raw").
+var floatDTypes = map[string]bool{"F64": true, "F32": true, "F16": true, "BF16": true, "F8_E4M3": true, "F8_E5M2": true}
+
+// float32Digest is the BLAKE3 of little-endian float32 values, every NaN
+// written as 0x7FC00000 (NaN payloads are not part of the result).
+func float32Digest(vals []float32) string {
+	b := make([]byte, 4*len(vals))
+	for i, v := range vals {
+		bits := math.Float32bits(v)
+		if v != v {
+			bits = 0x7FC00000
+		}
+		binary.LittleEndian.PutUint32(b[4*i:], bits)
+	}
+	sum := blake3.Sum256(b)
+	return hex.EncodeToString(sum[:])
 }
 
 func tritString(trits []int8) string {
