@@ -52,7 +52,7 @@ var withZstd = []string{"-DTKART_WITH_ZSTD"}
 
 // requireTool finds an outside tool: the test skips without it, but fails
 // when CI is set.
-func requireTool(t *testing.T, name, pkg string) string {
+func requireTool(t testing.TB, name, pkg string) string {
 	t.Helper()
 	p, err := exec.LookPath(name)
 	if err != nil {
@@ -85,7 +85,7 @@ func TestMain(m *testing.M) {
 // build compiles tkart-check with compiler cc and flags (once per test
 // binary) and returns its path. With -DTKART_WITH_ZSTD it links libzstd
 // (Debian libzstd-dev), whose absence skips the test outside CI.
-func build(t *testing.T, cc string, flags ...string) string {
+func build(t testing.TB, cc string, flags ...string) string {
 	t.Helper()
 	path := requireTool(t, cc, cc)
 	args := append(append(append([]string{}, strictFlags...), flags...), filepath.Join(cDir, "tkart.c"), filepath.Join(cDir, "tkart_check.c"))
@@ -122,14 +122,14 @@ func build(t *testing.T, cc string, flags ...string) string {
 }
 
 // sanitized is the reader most tests run: gcc, zstd, sanitizers on.
-func sanitized(t *testing.T) string {
+func sanitized(t testing.TB) string {
 	t.Helper()
 	return build(t, "gcc", append(append([]string{}, withZstd...), sanitize...)...)
 }
 
 // run runs the C program and requires it to exit 0 with nothing on stderr
 // (a sanitizer report goes there).
-func run(t *testing.T, bin string, args ...string) []byte {
+func run(t testing.TB, bin string, args ...string) []byte {
 	t.Helper()
 	cmd := exec.Command(bin, args...)
 	var stdout, stderr bytes.Buffer
@@ -183,7 +183,7 @@ type tensor struct {
 	Error        string `json:"error,omitempty"`
 }
 
-func cRead(t *testing.T, bin string, files ...string) []result {
+func cRead(t testing.TB, bin string, files ...string) []result {
 	t.Helper()
 	out := run(t, bin, append([]string{"--json", "--trits"}, files...)...)
 	var res []result
@@ -194,7 +194,7 @@ func cRead(t *testing.T, bin string, files ...string) []result {
 
 // goRead reads path with the pack package's reader into the C program's
 // output form.
-func goRead(t *testing.T, path string) result {
+func goRead(t testing.TB, path string) result {
 	t.Helper()
 	r := result{File: path}
 	a, err := pack.Open(path)
@@ -581,7 +581,7 @@ func TestBLAKE3(t *testing.T) {
 
 // manifestEdit rewrites the manifest of an artifact and its trailer
 // (offset, length, BLAKE3), keeping everything before it.
-func manifestEdit(t *testing.T, art []byte, edit func(string) string) []byte {
+func manifestEdit(t testing.TB, art []byte, edit func(string) string) []byte {
 	t.Helper()
 	tr := art[len(art)-pack.TrailerLen:]
 	m := binary.LittleEndian.Uint64(tr)
@@ -808,4 +808,38 @@ func TestStrictCompile(t *testing.T) {
 		out := run(t, bin, filepath.Join(vectorsDir, "ok-group.tkart"))
 		require.Contains(t, string(out), "ok: format 1.0", "%s %v", b.cc, b.flags)
 	}
+}
+
+// FuzzManifestDifferential gives the C reader and the Go reader the same
+// manifest (in the sections of ok-bits2.tkart, with the trailer fixed) and
+// requires the same outcome: the same class, or both valid with the same
+// tensors. Differences allowed: this C reader's documented limits
+// (numbers over 256 bytes, U+0000 in strings) and manifests the Go reader
+// rejects without a class.
+//
+//	go test ./reader/ctest -run '^$' -fuzz FuzzManifestDifferential -fuzztime 60s
+func FuzzManifestDifferential(f *testing.F) {
+	bin := sanitized(f)
+	base, err := os.ReadFile(filepath.Join(vectorsDir, "ok-bits2.tkart"))
+	require.NoError(f, err)
+	tr := base[len(base)-pack.TrailerLen:]
+	m := binary.LittleEndian.Uint64(tr)
+	orig := string(base[m : len(base)-pack.TrailerLen])
+	f.Add([]byte(orig))
+	f.Add([]byte(strings.Replace(orig, `"tool":"ternkit vectors"`, `"tool":"\ud83c\udf31"`, 1)))
+	f.Add([]byte(strings.Replace(orig, `"shape":[2,7]`, `"shape":[2,7.0]`, 1)))
+	f.Add([]byte(strings.Replace(orig, `"created"`, `"created"`, 1) + " "))
+	dir := f.TempDir()
+	f.Fuzz(func(t *testing.T, body []byte) {
+		path := filepath.Join(dir, "fuzz.tkart")
+		require.NoError(t, os.WriteFile(path, manifestEdit(t, base, func(string) string { return string(body) }), 0o644))
+		c := cRead(t, bin, path)[0]
+		g := goRead(t, path)
+		if strings.HasPrefix(g.Result, "error: ") || strings.Contains(c.Detail, "this reader's limit") {
+			return
+		}
+		d := c.Detail
+		c.Detail = ""
+		require.Equal(t, g, c, "C reader said: %s", d)
+	})
 }
