@@ -109,11 +109,11 @@ func build(t testing.TB, cc string, flags ...string) string {
 	}
 	bin := filepath.Join(buildDir, fmt.Sprintf("tkart-check-%d", len(built)))
 	out, err := exec.Command(path, append(args, "-o", bin)...).CombinedOutput()
-	if err != nil && zstd && bytes.Contains(out, []byte("zstd.h")) {
+	if err != nil && zstd && bytes.Contains(out, []byte("zstd")) { // zstd.h or -lzstd missing
 		if os.Getenv("CI") != "" {
-			t.Fatalf("zstd.h not found: CI must install libzstd-dev (.ci/run)\n%s", out)
+			t.Fatalf("libzstd not found: CI must install libzstd-dev (.ci/run)\n%s", out)
 		}
-		t.Skipf("zstd.h not found; install libzstd-dev to run this check")
+		t.Skipf("libzstd not found; install libzstd-dev to run this check\n%s", out)
 	}
 	require.NoError(t, err, "%s %s\n%s", cc, strings.Join(args, " "), out)
 	require.Empty(t, string(out), "compiler output")
