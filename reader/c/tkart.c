@@ -1261,8 +1261,8 @@ static int parse_recipe(jp *j, mfacts *mf)
 	if (sum[0] && strcmp(sum, "strided16") && strcmp(sum, "sequential"))
 		return jbad(j, "recipe: sum \"%.40s\" (want strided16 or sequential)", sum);
 	e32 = (float)eps;
-	if (!(eps > 0) || isinf(eps) || e32 == 0 || isinf(e32))
-		return jbad(j, "recipe: epsilon %g (want a number > 0 whose float32 is finite and nonzero)", eps);
+	if (!(eps > 0) || eps > 0.01 || e32 == 0)
+		return jbad(j, "recipe: epsilon %g (want a number in (0, 0.01] whose float32 is nonzero)", eps);
 	mf->has_sum = sum[0] != 0;
 	return 0;
 }

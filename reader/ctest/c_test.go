@@ -653,6 +653,8 @@ func TestManifestJSON(t *testing.T) {
 		{"byte order mark", "manifest", func(s string) string { return "\ufeff" + s }, true},
 		{"trailing comma", "manifest", sub(`"shape":[2,7]`, `"shape":[2,7,]`), true},
 		{"boolean as number", "manifest", sub(`"exact":true`, `"exact":1`), true},
+		{"epsilon above 0.01", "manifest", sub(`"epsilon":0.00001`, `"epsilon":0.0100001`), true},
+		{"epsilon 0.01", "ok", sub(`"epsilon":0.00001`, `"epsilon":0.01`), true},
 		{"NaN", "manifest", sub(`"epsilon":0.00001`, `"epsilon":NaN`), true},
 		{"float64 overflow", "manifest", sub(`"rel_rmse":0.49656424067266913`, `"rel_rmse":1e999`), true},
 		{"float32 overflow", "manifest", sub(`"scale":0.68214285`, `"scale":1e39`), true},
