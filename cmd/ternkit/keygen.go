@@ -1,7 +1,9 @@
 package main
 
 import (
+	"errors"
 	"fmt"
+	"os"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -31,6 +33,9 @@ file. Keep NAME.key secret; hand NAME.pub to whoever checks your releases.`,
 				return err
 			}
 			keyPath, pubPath, err := sign.WriteKeyPair(name, k)
+			if errors.Is(err, os.ErrExist) {
+				return usagef("%v; keygen never replaces a key file: choose another NAME or move the old files away", err)
+			}
 			if err != nil {
 				return err
 			}
