@@ -46,7 +46,8 @@ report beside it. Nothing is downloaded.`,
   ternkit demo --dir /tmp/scout --codec bits2`,
 		Args: exactArgs(0),
 		RunE: func(cmd *cobra.Command, _ []string) error {
-			opts, err := rf.options()
+			w := newWarnings(cmd)
+			opts, err := rf.options(w)
 			if err != nil {
 				return err
 			}
@@ -57,7 +58,7 @@ report beside it. Nothing is downloaded.`,
 			} else if err := os.MkdirAll(dir, 0o755); err != nil {
 				return err
 			}
-			out, errOut := cmd.OutOrStdout(), cmd.ErrOrStderr()
+			out := textOut(cmd)
 			src := filepath.Join(dir, demoModel+".safetensors")
 			art := filepath.Join(dir, demoModel+".tkart")
 
@@ -75,18 +76,23 @@ report beside it. Nothing is downloaded.`,
 				if opts.Policy, err = convert.ParsePolicy(policyPath, []byte(demoPolicy)); err != nil {
 					return err
 				}
+				w.addAll(opts.Policy.Warnings())
 				fmt.Fprintf(out, "policy %s: one rule per action\n", policyPath)
 			}
 
 			start = time.Now()
 			bar := newProgressBar(cmd, "pack")
 			opts.Progress = bar.callback()
-			m, err := packFile(src, art, opts, true, errOut)
+			userRules := len(opts.Policy.Rules) // the demo's policy file
+			if rf.customPolicy() {
+				userRules = rf.userRules(opts.Policy)
+			}
+			m, err := packFile(src, art, opts, userRules, w)
 			bar.finish()
 			if err != nil {
 				return err
 			}
-			if err := printPackResult(out, errOut, art, m, time.Since(start), false); err != nil {
+			if err := printPackResult(cmd, art, m, time.Since(start), false, w); err != nil {
 				return err
 			}
 
@@ -103,7 +109,8 @@ report beside it. Nothing is downloaded.`,
 				return err
 			}
 			fmt.Fprintf(out, "verify --against: %d checks in %s\n", len(rep.Checks), time.Since(start).Round(time.Millisecond))
-			if err := printReport(out, rep, false); err != nil {
+			w.addAll(rep.Warnings)
+			if err := printReport(out, rep, false, w); err != nil {
 				return err
 			}
 			if !rep.OK() {

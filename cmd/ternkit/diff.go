@@ -33,7 +33,7 @@ verify for that). Exit status 0 whether or not they differ.`,
 			for i, path := range args {
 				a, err := pack.Open(path)
 				if err != nil {
-					return err
+					return artifactError(err, path)
 				}
 				defer a.Close()
 				arts[i] = a

@@ -142,7 +142,7 @@ verify for that. --tensor and --sort change the rows, never the totals.`,
 			}
 			s, err := report.Summarize(args[0])
 			if err != nil {
-				return withHint(err, args[0])
+				return artifactError(err, args[0])
 			}
 			all := len(s.Tensors)
 			if err := view.apply(s, order); err != nil {

@@ -52,7 +52,7 @@ verify for that. The page describes the packing, not task quality.`,
 func writeReport(w io.Writer, art, out string) error {
 	s, err := report.Summarize(art)
 	if err != nil {
-		return withHint(err, art)
+		return artifactError(err, art)
 	}
 	var page bytes.Buffer
 	if err := report.WriteHTML(&page, s); err != nil {

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"errors"
 	"fmt"
 
 	"github.com/spf13/cobra"
@@ -21,7 +22,7 @@ to ARTIFACT.sig (or -o) atomically. It refuses an artifact that fails
 verification (exit 1) and a private key file that group or others may read.
 
 A signature says who released these exact bytes; it says nothing about the
-model's quality. ` + caution + `.`,
+model's quality.`,
 		Example: `  ternkit sign fernmoss-scout-mini.tkart --key fernmoss-release.key
   ternkit verify fernmoss-scout-mini.tkart --key fernmoss-release.pub`,
 		Args: exactArgs(1),
@@ -38,12 +39,15 @@ model's quality. ` + caution + `.`,
 				return err
 			}
 			before, openErr := manifestHash(art)
+			if openErr != nil && (errors.Is(openErr, pack.ErrNotArtifact) || notArtifact(art)) {
+				return notArtifactError(openErr, art)
+			}
 			rep, err := verify.Run(art, verify.Options{})
 			if err != nil {
 				return err
 			}
 			if !rep.OK() {
-				if err := printReport(cmd.OutOrStdout(), rep, false); err != nil {
+				if err := printReport(cmd.OutOrStdout(), rep, false, newWarnings(cmd)); err != nil {
 					return err
 				}
 				fmt.Fprintf(cmd.OutOrStdout(), "sign: refusing to sign %s: it fails verification\n", art)

@@ -1,7 +1,7 @@
 package main
 
 import (
-	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"os"
@@ -44,6 +44,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 		Args:              exactArgs(1),
 		ValidArgsFunction: artifactCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
+			w := newWarnings(cmd)
 			budget, err := readBudget(budgetFile, limits)
 			if err != nil {
 				return err
@@ -58,7 +59,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			bar := newProgressBar(cmd, "verify")
 			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers}
 			if against != "" {
-				src, err := openSource(against, cmd.ErrOrStderr())
+				src, err := openSource(against, w)
 				if err != nil {
 					return checkpointHint(err, against)
 				}
@@ -70,18 +71,28 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
+			if c, ok := rep.Find(verify.CheckStructure, ""); ok && !c.OK {
+				a, err := pack.Open(args[0])
+				if err == nil {
+					a.Close()
+				} else if errors.Is(err, pack.ErrNotArtifact) || notArtifact(args[0]) {
+					// Not an artifact at all is an input error (exit 2), as in every command.
+					return notArtifactError(err, args[0])
+				}
+			}
 			addSignatureCheck(cmd, rep, key, args[0])
-			if err := printReport(cmd.OutOrStdout(), rep, asJSON); err != nil {
+			w.addAll(rep.Warnings)
+			out := textOut(cmd)
+			if quiet(cmd) && !rep.OK() && !asJSON {
+				out = cmd.ErrOrStderr()
+			}
+			if err := printReport(out, rep, asJSON, w); err != nil {
 				return err
 			}
 			if !rep.OK() {
-				if !isArtifact(args[0]) && isCheckpoint(args[0]) {
-					fmt.Fprintf(cmd.ErrOrStderr(), "hint: %s is a safetensors checkpoint; pack it first (ternkit pack %s -o OUT%s), or verify the artifact --against it\n",
-						args[0], args[0], pack.Extension)
-				}
 				return errVerifyFailed
 			}
-			return nil
+			return w.check()
 		},
 	}
 	registerKeyFlag(cmd)
@@ -134,17 +145,19 @@ func readBudget(file string, limits map[string]*[]string) (*verify.Budget, error
 	return b, nil
 }
 
-func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
+// verifyJSON is what verify --json prints: the report, its verdict and
+// every warning of the run (the source's and the budget's).
+type verifyJSON struct {
+	*verify.Report
+	OK       bool     `json:"ok"`
+	Warnings []string `json:"warnings"`
+}
+
+// printReport prints the report; its warnings were printed on stderr as
+// they were added to w.
+func printReport(w io.Writer, rep *verify.Report, asJSON bool, warn *warnings) error {
 	if asJSON {
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(struct {
-			*verify.Report
-			OK bool `json:"ok"`
-		}{rep, rep.OK()})
-	}
-	for _, warning := range rep.Warnings {
-		fmt.Fprintf(w, "warning: %s\n", warning)
+		return writeJSON(w, verifyJSON{rep, rep.OK(), warn.JSON()})
 	}
 	if c, ok := rep.Find(verify.CheckBound, ""); ok && c.OK {
 		fmt.Fprintf(w, "bound: %s\n", c.Detail)

@@ -1,0 +1,64 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"io"
+	"os"
+
+	"github.com/spf13/cobra"
+	"github.com/zeebo/blake3"
+
+	"ternkit/manifest"
+)
+
+// textOut is where a command writes its human-readable result: stdout, or
+// nowhere under --quiet (which prints nothing on success; errors still go
+// to stderr, and --json output is printed all the same).
+func textOut(cmd *cobra.Command) io.Writer {
+	if quiet(cmd) {
+		return io.Discard
+	}
+	return cmd.OutOrStdout()
+}
+
+// writeJSON prints v as indented JSON.
+func writeJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(v)
+}
+
+// cautionKey marks, on the root command of a run, that the caution was
+// printed: it is printed once per run.
+const cautionKey = "ternkit.cautioned"
+
+// printCaution prints the caution on stderr, once per run and never under
+// --quiet.
+func printCaution(cmd *cobra.Command) {
+	root := cmd.Root()
+	if quiet(cmd) || root.Annotations[cautionKey] != "" {
+		return
+	}
+	if root.Annotations == nil {
+		root.Annotations = map[string]string{}
+	}
+	root.Annotations[cautionKey] = "yes"
+	fmt.Fprintln(cmd.ErrOrStderr(), caution)
+}
+
+// fileBLAKE3 is the BLAKE3 of the whole file at path, as b3sum prints it.
+func fileBLAKE3(path string) (string, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return "", err
+	}
+	defer f.Close()
+	h := blake3.New()
+	if _, err := io.Copy(h, f); err != nil {
+		return "", fmt.Errorf("read %s: %w", path, err)
+	}
+	var sum [32]byte
+	h.Sum(sum[:0])
+	return manifest.HexHash(sum), nil
+}
