@@ -56,6 +56,8 @@ func TestSummarize(t *testing.T) {
 	}{
 		{pack.Base3, func(n int64) int64 { return (n + 4) / 5 }},
 		{pack.Bits2, func(n int64) int64 { return (n + 3) / 4 }},
+		// an entropy frame is decoded before use: in memory, base3 digits
+		{pack.Entropy, func(n int64) int64 { return (n + 4) / 5 }},
 	}
 	for _, c := range cases {
 		t.Run(string(c.codec), func(t *testing.T) {
@@ -67,11 +69,14 @@ func TestSummarize(t *testing.T) {
 			require.Equal(t, st.Size(), s.Bytes)
 
 			ternaryParams := int64(64 + 35 + 9)
-			ternaryBytes := c.payload(64) + c.payload(35) + c.payload(9)
+			// three ternary tensors, each payload and its one float32 scale
+			ternaryBytes := c.payload(64) + c.payload(35) + c.payload(9) + 3*4
 			keptBytes := int64(4 * (24 + 8)) // F32 embedding and norm, as stored
 			require.Equal(t, ternaryParams, s.Totals.TernaryParams)
 			require.Equal(t, ternaryBytes+keptBytes, s.WeightMemory.TernaryForm)
-			require.Equal(t, 2*ternaryParams+keptBytes, s.WeightMemory.F16Form, "F16 is 2 bytes per weight (IEEE 754 binary16)")
+			// every tensor is F32 in the source: all 140 values at 2 bytes
+			// (F16 is IEEE 754 binary16)
+			require.Equal(t, int64(2*(24+64+8+35+9)), s.WeightMemory.F16Form)
 
 			srcSize := s.Totals.SourceBytes
 			require.InDelta(t, float64(srcSize)/float64(st.Size()), s.Ratio, 1e-12)

@@ -44,12 +44,46 @@ func (t *Tensor) Lossy() bool { return t.Kind != manifest.KindKept || t.DType !=
 // Ternary reports whether the tensor is stored as trits.
 func (t *Tensor) Ternary() bool { return t.Kind == manifest.KindTernary }
 
-// WeightMemory projects the memory the model's weights take: ternary
-// parameters at the artifact's bits per weight, or at 16 bits each (F16);
-// int8 and kept tensors count as stored in both.
+// WeightMemory is the memory a runtime holds the weights in, against the
+// same model in 16-bit floats.
+//
+// TernaryForm is the artifact's weights as a runtime uses them in place:
+// a ternary tensor at its decodable codec's size (base3 ⌈n/5⌉ or bits2
+// ⌈n/4⌉ bytes; an entropy frame must be decoded first, so it counts at its
+// base3 size) plus 4 bytes per scale (one for a tensor-granularity scale);
+// an int8 tensor at 1 byte per value plus 4 bytes per row scale; a kept
+// tensor as stored. F16Form is every tensor of a float source dtype at 2
+// bytes per value (IEEE 754 binary16), whatever the artifact did with it,
+// and every other tensor (integers, BOOL) as stored.
 type WeightMemory struct {
 	TernaryForm int64 `json:"ternary_form_bytes"`
 	F16Form     int64 `json:"f16_form_bytes"`
+}
+
+// runtimeBytes is a tensor's share of WeightMemory.TernaryForm.
+func runtimeBytes(e *manifest.Tensor) int64 {
+	if e.Kind != manifest.KindTernary {
+		return e.StoredBytes()
+	}
+	n := manifest.NumElements(e.Shape)
+	codec := e.Codec
+	if codec != string(pack.Base3) && codec != string(pack.Bits2) {
+		codec = string(pack.Base3) // entropy: decoded to base3 digits
+	}
+	payload, _ := manifest.TritPayloadLen(codec, n)
+	scales := int64(4)
+	if e.Scales != nil {
+		scales = e.Scales.Length
+	}
+	return payload + scales
+}
+
+// f16Bytes is a tensor's share of WeightMemory.F16Form.
+func f16Bytes(e *manifest.Tensor) int64 {
+	if (&convert.Tensor{DType: e.SourceDType}).IsFloat() {
+		return 2 * manifest.NumElements(e.Shape)
+	}
+	return e.StoredBytes()
 }
 
 // Summary is what an artifact holds, with the totals people ask for.
@@ -91,15 +125,14 @@ func summarize(path string, a *pack.Artifact, fileSum string) *Summary {
 	s := &Summary{
 		Artifact: path, Bytes: a.Size(), FileBLAKE3: fileSum, ManifestBLAKE3: manifest.HexHash(a.ManifestHash()),
 		Tool: m.Tool, Created: m.Created, Recipe: m.Recipe, Policy: m.Policy, Source: m.Source, Totals: t,
-		Ratio: ratio(t.SourceBytes, a.Size()),
-		WeightMemory: WeightMemory{
-			TernaryForm: t.TernarySectionBytes + t.Int8SectionBytes + t.KeptSectionBytes,
-			F16Form:     2*t.TernaryParams + t.Int8SectionBytes + t.KeptSectionBytes,
-		},
+		Ratio:   ratio(t.SourceBytes, a.Size()),
 		Tensors: make([]Tensor, 0, len(m.Tensors)),
 	}
 	var zero int64
-	for _, e := range m.Tensors {
+	for i := range m.Tensors {
+		e := &m.Tensors[i]
+		s.WeightMemory.TernaryForm += runtimeBytes(e)
+		s.WeightMemory.F16Form += f16Bytes(e)
 		n := manifest.NumElements(e.Shape)
 		row := Tensor{Name: e.Name, Shape: e.Shape, Kind: e.Kind, Codec: e.Codec, SourceDType: e.SourceDType,
 			DType: e.DType, Exact: e.Exact, Bytes: e.StoredBytes(), Scale: e.Scale, Cosine: 1, params: n}
