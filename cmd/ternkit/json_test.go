@@ -25,7 +25,7 @@ func documentedKeys(t *testing.T) map[string]map[string]bool {
 	if end := strings.Index(text[3:], "\n## "); end >= 0 {
 		text = text[:end+3]
 	}
-	heading := regexp.MustCompile("^### `ternkit (\\w+) --json`")
+	heading := regexp.MustCompile("^### `ternkit (\\w+(?: --\\w+)?) --json`")
 	row := regexp.MustCompile("^\\| `([a-z0-9_.\\[\\]]+)` \\|")
 	keys := map[string]map[string]bool{}
 	var cmd string
@@ -82,7 +82,7 @@ func jsonPaths(v any, prefix string, opaque map[string]bool, leaves, containers 
 // runs.
 func TestJSONKeysDocumented(t *testing.T) {
 	docs := documentedKeys(t)
-	for _, cmd := range []string{"pack", "verify", "inspect"} {
+	for _, cmd := range []string{"pack", "pack --plan", "verify", "inspect"} {
 		require.NotEmpty(t, docs[cmd], "README documents %s --json", cmd)
 	}
 	for k := range docs["pack"] {
@@ -109,6 +109,7 @@ func TestJSONKeysDocumented(t *testing.T) {
 		"verify": {{"verify", art, "--json"}, {"verify", art, "--against", src, "--json"}, {"verify", bad, "--json"},
 			{"verify", art, "--json", "--min-cosine", "nothing.*=0.5"}},
 		"inspect": {{"inspect", art, "--json"}, {"inspect", dated, "--json"}},
+		"pack --plan": {{"pack", src, "--plan", "--json"}, {"pack", src, "--plan", "--json", "--policy", filepath.Join(dir, demoModel+".policy.toml")}},
 	}
 	opaque := map[string]bool{"source.metadata": true}
 	for cmd, argsList := range runs {

@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"strings"
+	"unicode/utf8"
 
 	"github.com/spf13/cobra"
 	"github.com/zeebo/blake3"
@@ -61,4 +63,36 @@ func fileBLAKE3(path string) (string, error) {
 	var sum [32]byte
 	h.Sum(sum[:0])
 	return manifest.HexHash(sum), nil
+}
+
+// printTable writes rows (the first is the header) in columns two spaces
+// apart; columns from firstNumeric on are right-aligned.
+func printTable(w io.Writer, rows [][]string, firstNumeric int) {
+	if len(rows) == 0 {
+		return
+	}
+	width := make([]int, len(rows[0]))
+	for _, r := range rows {
+		for i, c := range r {
+			width[i] = max(width[i], utf8.RuneCountInString(c))
+		}
+	}
+	for _, r := range rows {
+		var b strings.Builder
+		for i, c := range r {
+			pad := strings.Repeat(" ", width[i]-utf8.RuneCountInString(c))
+			switch {
+			case i >= firstNumeric:
+				b.WriteString(pad + c)
+			case i == len(r)-1:
+				b.WriteString(c)
+			default:
+				b.WriteString(c + pad)
+			}
+			if i < len(r)-1 {
+				b.WriteString("  ")
+			}
+		}
+		fmt.Fprintln(w, b.String())
+	}
 }

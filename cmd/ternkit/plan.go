@@ -2,8 +2,8 @@ package main
 
 import (
 	"fmt"
+	"io"
 	"strings"
-	"text/tabwriter"
 
 	"github.com/spf13/cobra"
 
@@ -56,7 +56,7 @@ type packPlan struct {
 }
 
 const planNote = "projected section bytes: exact for base3, bits2, int8 and kept tensors; " +
-	"auto and entropy are shown at their base3 size, an upper bound (auto stores a smaller frame when the trits leave room for one)"
+	"auto and entropy trits are shown at their base3 size (auto stores base3 unless an entropy frame is smaller, so it is at most this; an entropy frame is usually smaller)"
 
 // makePlan decides every tensor of s with p and projects its bytes.
 func makePlan(s *convert.Source, p *convert.Policy, codec pack.Codec) (*packPlan, error) {
@@ -142,21 +142,24 @@ func runPlan(cmd *cobra.Command, src string, rf *recipeFlags, asJSON bool) error
 	return w.check()
 }
 
-func printPlan(w interface{ Write([]byte) (int, error) }, p *packPlan) {
-	fmt.Fprintf(w, "plan for %s (dry run: headers only, nothing written)\n", p.Source)
-	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
-	fmt.Fprintln(tw, "TENSOR\tSHAPE\tDTYPE\tACTION\tRULE\tGRAN\tCODEC\tSOURCE\tPROJECTED\t")
+func printPlan(w io.Writer, p *packPlan) {
+	fmt.Fprintf(w, "plan for %s (dry run: headers read, no weight read, nothing written)\n", p.Source)
+	rows := [][]string{{"TENSOR", "SHAPE", "DTYPE", "ACTION", "GRAN", "CODEC", "RULE", "SOURCE", "PROJECTED"}}
 	for _, t := range p.Tensors {
-		gran, rule := t.Granularity, fmt.Sprint(t.Rule)
+		gran, rule, action := t.Granularity, fmt.Sprint(t.Rule), t.Action
 		if gran == "" {
 			gran = "-"
 		}
 		if t.Rule == 0 {
 			rule = "-"
 		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\t%s\t%s\t%d\t%d\t\n", t.Name, report.FormatShape(t.Shape), t.SourceDType, t.Action, rule, gran, t.Codec, t.SourceBytes, t.Bytes)
+		if t.Kind == manifest.KindKept && t.DType != t.SourceDType {
+			action = "keep:" + strings.ToLower(t.DType)
+		}
+		rows = append(rows, []string{t.Name, report.FormatShape(t.Shape), t.SourceDType, action, gran, t.Codec, rule,
+			fmt.Sprint(t.SourceBytes), fmt.Sprint(t.Bytes)})
 	}
-	tw.Flush()
+	printTable(w, rows, 6)
 	tot := p.Totals
 	fmt.Fprintln(w)
 	fmt.Fprintf(w, "tensors    %d (%d ternary, %d int8, %d kept)\n", tot.Tensors, tot.TernaryTensors, tot.Int8Tensors, tot.KeptTensors)
