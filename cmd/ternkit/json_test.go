@@ -108,7 +108,7 @@ func TestJSONKeysDocumented(t *testing.T) {
 		"pack": {{"pack", src, "-o", filepath.Join(dir, "again.tkart"), "--json"}},
 		"verify": {{"verify", art, "--json"}, {"verify", art, "--against", src, "--json"}, {"verify", bad, "--json"},
 			{"verify", art, "--json", "--min-cosine", "nothing.*=0.5"}},
-		"inspect": {{"inspect", art, "--json"}, {"inspect", dated, "--json"}},
+		"inspect":     {{"inspect", art, "--json"}, {"inspect", dated, "--json"}},
 		"pack --plan": {{"pack", src, "--plan", "--json"}, {"pack", src, "--plan", "--json", "--policy", filepath.Join(dir, demoModel+".policy.toml")}},
 	}
 	opaque := map[string]bool{"source.metadata": true}
