@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"slices"
 	"strings"
 
 	"github.com/zeebo/blake3"
@@ -40,6 +41,15 @@ type Tensor struct {
 // Lossy reports whether the tensor's stored values differ from the source
 // (ternary, int8, or kept in another dtype): those carry statistics.
 func (t *Tensor) Lossy() bool { return t.Kind != manifest.KindKept || t.DType != t.SourceDType }
+
+// StoredKind is the kind with the stored dtype of a converted kept tensor:
+// "kept:f16" for a tensor kept as F16 from another dtype.
+func (t *Tensor) StoredKind() string {
+	if t.Kind == manifest.KindKept && t.DType != t.SourceDType {
+		return "kept:" + strings.ToLower(t.DType)
+	}
+	return t.Kind
+}
 
 // Ternary reports whether the tensor is stored as trits.
 func (t *Tensor) Ternary() bool { return t.Kind == manifest.KindTernary }
@@ -189,8 +199,23 @@ type Layer struct {
 	Bytes          int64   // all section bytes of the layer
 	BitsPerWeight  float64 // 8 × Bytes / Params, kept tensors included
 	ZeroFraction   float64 // zero trits / ternary parameters; 0 without ternary tensors
-	ternaryParams  int64
-	zero           int64
+	// Quantized are the ternary and int8 tensors: their count, and their
+	// bits per weight (8 × their bytes / their parameters, scales included).
+	Quantized     int
+	QuantizedBits float64
+	// KeptDTypes lists the stored dtypes of the kept tensors, in order of
+	// first appearance.
+	KeptDTypes []string
+	// Exact counts the quantized tensors stored losslessly; the error
+	// summary is over the others (Lossy of them): the smallest, median and
+	// largest relative RMSE.
+	Exact                     int
+	Lossy                     int
+	ErrMin, ErrMedian, ErrMax float64
+	ternaryParams             int64
+	zero                      int64
+	quantParams, quantBytes   int64
+	errs                      []float64
 }
 
 // Layers groups the tensors into layers, in order of first appearance.
@@ -214,11 +239,38 @@ func (s *Summary) Layers() []Layer {
 			l.ternaryParams += t.params
 			l.zero += t.zero
 		}
+		switch {
+		case t.Kind == manifest.KindKept:
+			if !slices.Contains(l.KeptDTypes, t.DType) {
+				l.KeptDTypes = append(l.KeptDTypes, t.DType)
+			}
+		case t.Exact:
+			l.Quantized++
+			l.Exact++
+			l.quantParams += t.params
+			l.quantBytes += t.Bytes
+		default:
+			l.Quantized++
+			l.quantParams += t.params
+			l.quantBytes += t.Bytes
+			l.errs = append(l.errs, t.RelRMSE)
+		}
 	}
 	for i := range layers {
 		l := &layers[i]
 		l.BitsPerWeight = 8 * ratio(l.Bytes, l.Params)
 		l.ZeroFraction = ratio(l.zero, l.ternaryParams)
+		l.QuantizedBits = 8 * ratio(l.quantBytes, l.quantParams)
+		l.Lossy = len(l.errs)
+		if l.Lossy > 0 {
+			e := slices.Sorted(slices.Values(l.errs))
+			l.ErrMin, l.ErrMax = e[0], e[len(e)-1]
+			if n := len(e); n%2 == 1 {
+				l.ErrMedian = e[n/2]
+			} else {
+				l.ErrMedian = (e[n/2-1] + e[n/2]) / 2
+			}
+		}
 	}
 	return layers
 }

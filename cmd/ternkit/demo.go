@@ -12,6 +12,7 @@ import (
 
 	"ternkit/convert"
 	"ternkit/internal/atomicfile"
+	"ternkit/report"
 	"ternkit/verify"
 )
 
@@ -116,7 +117,8 @@ report beside it. Nothing is downloaded.`,
 			if !rep.OK() {
 				return errVerifyFailed
 			}
-			if err := writeReport(out, art, filepath.Join(dir, demoModel+".html")); err != nil {
+			page := report.Page{Verification: verification(rep, verifiedForPage)}
+			if err := writeReport(out, art, filepath.Join(dir, demoModel+".html"), page); err != nil {
 				return err
 			}
 			fmt.Fprintf(out, "next: ternkit inspect %s\n", art)

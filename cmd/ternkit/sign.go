@@ -101,7 +101,7 @@ func addSignatureCheck(cmd *cobra.Command, rep *verify.Report, key *sign.PublicK
 	failed := rep.Failed
 	verify.AddSignatureCheck(rep, artifact, key, sigPath)
 	if asJSON, _ := cmd.Flags().GetBool("json"); rep.Failed == failed && !asJSON {
-		fmt.Fprintf(cmd.OutOrStdout(), "signature: valid, key-id %s (%s)\n", key.ID(), sigPath)
+		fmt.Fprintf(textOut(cmd), "signature: valid, key-id %s (%s)\n", key.ID(), sigPath)
 	}
 }
 

@@ -100,7 +100,13 @@ A passing verify proves bytes and bounds, not task quality.`,
 	cmd.Flags().StringVar(&against, "against", "", "source checkpoint `SRC` to re-quantize and compare (file, sharded set index, or directory)")
 	_ = cmd.MarkFlagFilename("against", "safetensors")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON (keys in README, \"JSON output\")")
-	cmd.Flags().StringVar(&budgetFile, "budget", "", "budget `FILE` (TOML [[budget]] tables: match and limits)")
+	registerBudgetFlags(cmd, &budgetFile, limits)
+	return cmd
+}
+
+// registerBudgetFlags adds --budget FILE and one flag per metric.
+func registerBudgetFlags(cmd *cobra.Command, budgetFile *string, limits map[string]*[]string) {
+	cmd.Flags().StringVar(budgetFile, "budget", "", "budget `FILE` (TOML [[budget]] tables: match and limits)")
 	_ = cmd.MarkFlagFilename("budget", "toml")
 	for _, metric := range verify.Metrics {
 		v := new([]string)
@@ -108,7 +114,6 @@ A passing verify proves bytes and bounds, not task quality.`,
 		flag := strings.ReplaceAll(metric, "_", "-")
 		cmd.Flags().StringArrayVar(v, flag, nil, metricHelp[metric]+" of any tensor with statistics: VALUE for all, or GLOB=VALUE (repeatable)")
 	}
-	return cmd
 }
 
 var metricHelp = map[string]string{
