@@ -312,3 +312,25 @@ func fileSize(t *testing.T, path string) int64 {
 	require.NoError(t, err)
 	return st.Size()
 }
+
+// -q: keygen, sign, inspect, report and diff print nothing on success.
+func TestQuietEverywhere(t *testing.T) {
+	dir := t.TempDir()
+	src := gaussianFixture(t, dir)
+	art := filepath.Join(dir, "a.tkart")
+	key := filepath.Join(dir, "k")
+	for _, args := range [][]string{
+		{"pack", src, "-o", art},
+		{"keygen", "-o", key},
+		{"sign", art, "--key", key + ".key"},
+		{"verify", art, "--key", key + ".pub"},
+		{"inspect", art},
+		{"report", art, "-o", filepath.Join(dir, "a.html"), "--verify"},
+		{"diff", art, art, "--fail-on", "any"},
+	} {
+		code, out, errOut := ternkit(append(args, "-q")...)
+		require.Equal(t, exitOK, code, "%v: %s", args, errOut)
+		require.Empty(t, out, "%v", args)
+		require.Empty(t, errOut, "%v", args)
+	}
+}

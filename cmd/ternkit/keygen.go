@@ -39,7 +39,7 @@ file. Keep NAME.key secret; hand NAME.pub to whoever checks your releases.`,
 			if err != nil {
 				return err
 			}
-			out := cmd.OutOrStdout()
+			out := textOut(cmd)
 			fmt.Fprintf(out, "wrote %s (private key, mode 0600: keep it secret)\n", keyPath)
 			fmt.Fprintf(out, "wrote %s (public key, key-id %s)\n", pubPath, k.Public().ID())
 			return nil

@@ -47,10 +47,14 @@ model's quality.`,
 				return err
 			}
 			if !rep.OK() {
-				if err := printReport(cmd.OutOrStdout(), rep, false, newWarnings(cmd)); err != nil {
+				out := cmd.OutOrStdout()
+				if quiet(cmd) {
+					out = cmd.ErrOrStderr() // failures still show
+				}
+				if err := printReport(out, rep, false, newWarnings(cmd)); err != nil {
 					return err
 				}
-				fmt.Fprintf(cmd.OutOrStdout(), "sign: refusing to sign %s: it fails verification\n", art)
+				fmt.Fprintf(out, "sign: refusing to sign %s: it fails verification\n", art)
 				return errVerifyFailed
 			}
 			if openErr != nil {
@@ -66,7 +70,7 @@ model's quality.`,
 			if err := sign.WriteSignatureFile(out, k.Sign(after)); err != nil {
 				return err
 			}
-			fmt.Fprintf(cmd.OutOrStdout(), "signed %s (manifest BLAKE3 %x) with key %s: wrote %s\n",
+			fmt.Fprintf(textOut(cmd), "signed %s (manifest BLAKE3 %x) with key %s: wrote %s\n",
 				art, after, k.Public().ID(), out)
 			return nil
 		},

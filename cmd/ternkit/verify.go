@@ -35,7 +35,12 @@ tensors, and the per-element error bound. A budget (--budget FILE, or the
 every tensor whose statistics go beyond a limit, naming tensor, metric,
 value and limit.
 
-Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable input.
+A budget limit that matches no tensor, and any other warning, is printed
+on stderr and listed under "warnings" in --json; with --strict (or
+TERNKIT_STRICT=1) a warning makes verify exit 2 after printing its report.
+
+Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable
+input (a file that is not an artifact at all, too).
 A passing verify proves bytes and bounds, not task quality.`,
 		Example: `  ternkit verify model.tkart
   ternkit verify model.tkart --against model.safetensors --json
