@@ -264,3 +264,21 @@ func TestConditions(t *testing.T) {
 	r.Changed[0].ScaleDrift, r.Changed[0].GranB = nil, "row"
 	require.Equal(t, []string{"scale=0.5: q (scales not comparable: granularity tensor -> row)"}, r.Failures([]Condition{{Name: CondScale, Limit: 0.5}}))
 }
+
+// Any text: no panic; a condition that parses writes itself back in a
+// form that parses to the same condition.
+func FuzzParseCondition(f *testing.F) {
+	for _, s := range []string{"trits", "scale=0.01", "rel_rmse=1e-3", "cosine=", "zero_fraction=-1", "any=1", " kind ", "scale=NaN"} {
+		f.Add(s)
+	}
+	f.Fuzz(func(t *testing.T, s string) {
+		c, err := ParseCondition(s)
+		if err != nil {
+			require.ErrorIs(t, err, ErrCondition)
+			return
+		}
+		again, err := ParseCondition(c.String())
+		require.NoError(t, err)
+		require.Equal(t, c, again)
+	})
+}

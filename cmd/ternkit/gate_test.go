@@ -334,3 +334,28 @@ func TestQuietEverywhere(t *testing.T) {
 		require.Empty(t, errOut, "%v", args)
 	}
 }
+
+// inspect: one --tensor pattern of several that matches nothing is a
+// warning (in --json too), an error under --strict.
+func TestInspectPatternWarning(t *testing.T) {
+	dir := t.TempDir()
+	src := gaussianFixture(t, dir)
+	art := filepath.Join(dir, "a.tkart")
+	code, _, errOut := ternkit("pack", src, "-o", art)
+	require.Equal(t, exitOK, code, errOut)
+	code, out, errOut := ternkit("inspect", art, "--tensor", "layer.proj.*", "--tensor", "nothing.*")
+	require.Equal(t, exitOK, code, errOut)
+	require.Contains(t, errOut, `ternkit: warning: --tensor "nothing.*" matches none of the 2 tensors`)
+	require.Contains(t, out, "layer.proj.weight")
+	code, out, _ = ternkit("inspect", art, "--tensor", "layer.proj.*", "--tensor", "nothing.*", "--json")
+	require.Equal(t, exitOK, code)
+	var v struct {
+		Warnings []string `json:"warnings"`
+	}
+	require.NoError(t, json.Unmarshal([]byte(out), &v))
+	require.Len(t, v.Warnings, 1)
+	code, out, errOut = ternkit("inspect", art, "--tensor", "layer.proj.*", "--tensor", "nothing.*", "--strict")
+	require.Equal(t, exitInput, code)
+	require.Empty(t, out)
+	require.Contains(t, errOut, `"nothing.*"`)
+}

@@ -41,6 +41,9 @@ func explainSource(err error, path string) error {
 	head := make([]byte, 4096)
 	n, _ := io.ReadFull(f, head)
 	head = head[:n]
+	for i := 0; i < 3 && n == cap(head) && len(head) > 0 && !utf8.Valid(head); i++ {
+		head = head[:len(head)-1] // a character cut at the end of the read
+	}
 	trimmed := bytes.TrimLeft(head, " \t\r\n\ufeff")
 	switch {
 	case len(trimmed) > 0 && trimmed[0] == '{':
