@@ -33,11 +33,14 @@ type Options struct {
 	Trits bool
 }
 
-// Change is one provenance field that differs.
+// Change is one provenance field that differs. For the policy, the rules
+// only one side has are listed too (the rest moved).
 type Change struct {
-	Field string `json:"field"`
-	A     string `json:"a"`
-	B     string `json:"b"`
+	Field        string   `json:"field"`
+	A            string   `json:"a"`
+	B            string   `json:"b"`
+	RulesAdded   []string `json:"rules_added,omitempty"`
+	RulesRemoved []string `json:"rules_removed,omitempty"`
 }
 
 // Tensor is a tensor present in one artifact only.
@@ -438,7 +441,10 @@ func compareProvenance(a, b *manifest.Manifest) []Change {
 	for _, k := range unionKeys(ra, rb) {
 		add("recipe."+k, fieldString(ra, k), fieldString(rb, k))
 	}
-	add("policy", rulesString(a.Policy), rulesString(b.Policy))
+	if pa, pb := rulesString(a.Policy), rulesString(b.Policy); pa != pb {
+		out = append(out, Change{Field: "policy", A: pa, B: pb,
+			RulesAdded: onlyIn(b.Policy, a.Policy), RulesRemoved: onlyIn(a.Policy, b.Policy)})
+	}
 	fa, fb := a.Source.Files, b.Source.Files
 	for i := range max(len(fa), len(fb)) {
 		add(fmt.Sprintf("source.files[%d]", i), fileString(fa, i), fileString(fb, i))
@@ -446,6 +452,17 @@ func compareProvenance(a, b *manifest.Manifest) []Change {
 	ma, mb := jsonFields(a.Source.Metadata), jsonFields(b.Source.Metadata)
 	for _, k := range unionKeys(ma, mb) {
 		add("source.metadata."+k, fieldString(ma, k), fieldString(mb, k))
+	}
+	return out
+}
+
+// onlyIn lists the rules of x that y does not have, in x's order.
+func onlyIn(x, y []string) []string {
+	var out []string
+	for _, r := range x {
+		if !slices.Contains(y, r) {
+			out = append(out, r)
+		}
 	}
 	return out
 }

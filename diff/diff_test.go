@@ -103,8 +103,8 @@ func TestCompare(t *testing.T) {
 		fields[c.Field] = c
 	}
 	require.Len(t, fields, 3, "%+v", r.Provenance)
-	require.Equal(t, Change{"policy", "default", "keep mlp.up; default"}, fields["policy"], "rules in words, not Go syntax")
-	require.Equal(t, Change{"source.metadata.release", "1", "2"}, fields["source.metadata.release"])
+	require.Equal(t, Change{"policy", "default", "keep mlp.up; default", []string{"keep mlp.up"}, nil}, fields["policy"], "rules in words, not Go syntax")
+	require.Equal(t, Change{Field: "source.metadata.release", A: "1", B: "2"}, fields["source.metadata.release"])
 	require.Contains(t, fields, "source.files[0]", "the source file changed: other name and bytes")
 
 	require.Equal(t, []Tensor{{Name: "blocks.0.new.weight", Shape: []int64{3, 3}, Kind: manifest.KindTernary, Codec: "base3", Bytes: 2}}, r.Added)
@@ -168,7 +168,7 @@ func TestCompareCodecOnly(t *testing.T) {
 	c2 := build(t, t.TempDir(), "a", release{tensors: tensors, codec: pack.Base3, tie: convert.TieHalfAway})
 	r, err = Compare(a, c2)
 	require.NoError(t, err)
-	require.Equal(t, []Change{{"recipe.tie", "half-even", "half-away"}}, r.Provenance)
+	require.Equal(t, []Change{{Field: "recipe.tie", A: "half-even", B: "half-away"}}, r.Provenance)
 
 	same, err := Compare(a, a)
 	require.NoError(t, err)

@@ -148,6 +148,20 @@ func printDiff(w io.Writer, r *diff.Report) {
 	if len(r.Provenance) > 0 {
 		fmt.Fprintln(w, "provenance:")
 		for _, c := range r.Provenance {
+			if c.Field == "policy" {
+				fmt.Fprintln(w, "  policy: the rules differ")
+				for _, rule := range c.RulesRemoved {
+					fmt.Fprintf(w, "    - %s\n", rule)
+				}
+				for _, rule := range c.RulesAdded {
+					fmt.Fprintf(w, "    + %s\n", rule)
+				}
+				if len(c.RulesAdded)+len(c.RulesRemoved) == 0 {
+					fmt.Fprintln(w, "    (the same rules in another order; the first that matches decides)")
+				}
+				fmt.Fprintf(w, "    was: %s\n    now: %s\n", c.A, c.B)
+				continue
+			}
 			fmt.Fprintf(w, "  %s: %s -> %s\n", c.Field, c.A, c.B)
 		}
 	}

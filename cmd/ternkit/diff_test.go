@@ -49,7 +49,7 @@ func TestDiffDemoReleases(t *testing.T) {
 	code, out, _ = ternkit("diff", first, second)
 	require.Equal(t, exitOK, code)
 	require.Contains(t, out, "blocks.3.mlp.down.weight: kind ternary -> kept; codec base3 -> raw; stored dtype none -> BF16; granularity tensor -> none; bytes ")
-	require.Contains(t, out, "  policy: *embed* = keep; *lm_head* = keep; * (2-D, F64|F32|F16|BF16) = ternary; * = keep -> *mlp.down* = keep; *embed*")
+	require.Contains(t, out, "  policy: the rules differ\n    + *mlp.down* = keep\n    was: *embed* = keep; *lm_head* = keep; * (2-D, F64|F32|F16|BF16) = ternary; * = keep\n    now: *mlp.down* = keep; *embed*")
 	require.Contains(t, out, "compared: section bytes (BLAKE3 of each section as read from both files) and the manifests' records; trits not decoded")
 	require.NotContains(t, out, "scale ", "no scale to show when the tensor is no longer ternary")
 	require.Contains(t, out, fmt.Sprintf("0 added, 0 removed, 0 reshaped, 4 changed, %d unchanged", r.Totals.Unchanged))
