@@ -3,6 +3,7 @@ package main
 import (
 	"fmt"
 	"io"
+	"math"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -269,6 +270,9 @@ func orDash(s string) string {
 func scaleChange(c diff.TensorChange) string {
 	if c.ScaleDrift == nil {
 		return ""
+	}
+	if *c.ScaleDrift >= math.MaxFloat64 {
+		return fmt.Sprintf("%s scales changed (a scale was 0 or not a number: unbounded drift)", c.KindA)
 	}
 	if c.ScaleA != 0 && c.ScaleB != 0 {
 		return fmt.Sprintf("scale %.6g -> %.6g (%s drift)", c.ScaleA, c.ScaleB, percent(*c.ScaleDrift))

@@ -359,3 +359,59 @@ func TestInspectPatternWarning(t *testing.T) {
 	require.Empty(t, out)
 	require.Contains(t, errOut, `"nothing.*"`)
 }
+
+// report --verify and --verify-json put the verdicts on the page; a failed
+// verification still writes it and exits 1.
+func TestReportVerdicts(t *testing.T) {
+	dir := t.TempDir()
+	src := gaussianFixture(t, dir)
+	art := filepath.Join(dir, "a.tkart")
+	key := filepath.Join(dir, "release")
+	for _, args := range [][]string{{"pack", src, "-o", art}, {"keygen", "-o", key}, {"sign", art, "--key", key + ".key"}} {
+		code, _, errOut := ternkit(args...)
+		require.Equal(t, exitOK, code, "%v: %s", args, errOut)
+	}
+	page := filepath.Join(dir, "a.html")
+	code, _, errOut := ternkit("report", art, "-o", page, "--verify", "--against", src, "--key", key+".pub", "--max-rel-rmse", "0.9")
+	require.Equal(t, exitOK, code, errOut)
+	html := string(readFile(t, page))
+	require.Contains(t, html, `<span class="verdict-ok">passed</span>`)
+	require.Contains(t, html, `<span class="verdict-ok">valid</span>: signed by key`)
+	require.Contains(t, html, "the artifact against "+src)
+	require.Contains(t, html, ">budget 0.9</text>")
+
+	// a saved verify --json of a corrupt copy: the page says FAILED, exit 1
+	bad := filepath.Join(dir, "bad.tkart")
+	b := readFile(t, art)
+	m := manifestOf(t, art)
+	b[m.Tensors[0].Section.Offset] ^= 1
+	require.NoError(t, os.WriteFile(bad, b, 0o644))
+	_, out, _ := ternkit("verify", bad, "--json")
+	saved := filepath.Join(dir, "verify.json")
+	require.NoError(t, os.WriteFile(saved, []byte(out), 0o644))
+	code, _, errOut = ternkit("report", bad, "-o", page, "--verify-json", saved)
+	require.Equal(t, exitFailed, code, errOut)
+	html = string(readFile(t, page))
+	require.Contains(t, html, `<span class="verdict-fail">FAILED</span>`)
+	require.Contains(t, html, "verify JSON "+saved)
+	require.Contains(t, html, "section_hash "+m.Tensors[0].Name)
+
+	// a verify JSON of another artifact is a warning, an error under --strict
+	code, _, errOut = ternkit("report", art, "-o", page, "--verify-json", saved, "--strict")
+	require.Equal(t, exitInput, code)
+	require.Contains(t, errOut, "checked "+bad)
+
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--verify-json", saved, "--verify"}, "does not go with"},
+		{[]string{"--against", src}, "go with --verify"},
+		{[]string{"--verify-json", src}, "not the output of ternkit verify --json"},
+	} {
+		code, _, errOut := ternkit(append([]string{"report", art, "-o", filepath.Join(dir, "x.html")}, c.args...)...)
+		require.Equal(t, exitInput, code, c.args)
+		require.Contains(t, errOut, c.want, c.args)
+	}
+	require.NoFileExists(t, filepath.Join(dir, "x.html"))
+}
