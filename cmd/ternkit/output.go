@@ -8,7 +8,6 @@ import (
 	"unicode/utf8"
 
 	"github.com/spf13/cobra"
-
 )
 
 // textOut is where a command writes its human-readable result: stdout, or
@@ -45,7 +44,6 @@ func printCaution(cmd *cobra.Command) {
 	root.Annotations[cautionKey] = "yes"
 	fmt.Fprintln(cmd.ErrOrStderr(), caution)
 }
-
 
 // printTable writes rows (the first is the header) in columns two spaces
 // apart; columns from firstNumeric on are right-aligned.
