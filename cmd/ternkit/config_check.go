@@ -1,9 +1,8 @@
 package main
 
 import (
-	"os"
-
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 	"ternkit/modelconfig"
 	"ternkit/pack"
 	"ternkit/verify"
@@ -17,7 +16,7 @@ func warnConfig(warn *warnings, companions []pack.Companion, tensors []*convert.
 		if c.Name != verify.ConfigCompanion {
 			continue
 		}
-		data, err := os.ReadFile(c.Path)
+		data, err := inputfile.ReadFile(c.Path)
 		if err != nil {
 			warn.add("%s: %v", c.Path, err)
 			return

@@ -377,7 +377,7 @@ func TestReportVerdicts(t *testing.T) {
 	require.Equal(t, exitOK, code, errOut)
 	html := string(readFile(t, page))
 	require.Contains(t, html, `<span class="verdict-ok">passed</span>`)
-	require.Contains(t, html, `<span class="verdict-ok">valid</span>: signed by key`)
+	require.Contains(t, html, `<span class="verdict-ok">valid</span>: ternkit signature by key`)
 	require.Contains(t, html, "the artifact against "+src)
 	require.Contains(t, html, ">budget 0.9</text>")
 

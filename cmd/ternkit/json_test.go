@@ -105,11 +105,11 @@ func TestJSONKeysDocumented(t *testing.T) {
 	require.Equal(t, exitOK, code, errOut)
 	t.Setenv("SOURCE_DATE_EPOCH", "")
 	// diff runs: another policy (kept dtypes, int8 and row scales change),
-	// another epsilon (tensor scales change), a byte changed after packing
+	// another scale rule (tensor scales change), a byte changed after packing
 	// (a mismatch), and two small checkpoints (tensors added, removed and
 	// reshaped).
 	plain, eps := filepath.Join(dir, "plain.tkart"), filepath.Join(dir, "eps.tkart")
-	for _, args := range [][]string{{"pack", src, "-o", plain}, {"pack", src, "-o", eps, "--epsilon", "0.05"}} {
+	for _, args := range [][]string{{"pack", src, "-o", plain}, {"pack", src, "-o", eps, "--scale-rule", "quotient"}} {
 		code, _, errOut := ternkit(args...)
 		require.Equal(t, exitOK, code, errOut)
 	}
@@ -130,9 +130,17 @@ func TestJSONKeysDocumented(t *testing.T) {
 	}
 	smallA := small("small-a", map[string][]uint64{"layer.proj.weight": {8, 16}, "layer.old.weight": {4, 4}})
 	smallB := small("small-b", map[string][]uint64{"layer.proj.weight": {16, 8}, "layer.new.weight": {4, 4}})
+	// and a release whose config.json changed (a companion's keys differ)
+	recfg := filepath.Join(t.TempDir(), filepath.Base(src))
+	require.NoError(t, os.WriteFile(recfg, readFile(t, src), 0o644))
+	cfg := strings.Replace(string(readFile(t, filepath.Join(dir, "config.json"))), `"rope_theta": 10000.0`, `"rope_theta": 500000.0`, 1)
+	require.NoError(t, os.WriteFile(filepath.Join(filepath.Dir(recfg), "config.json"), []byte(cfg), 0o644))
+	cfgArt := filepath.Join(dir, "recfg.tkart")
+	code, _, errOut = ternkit("pack", recfg, "-o", cfgArt)
+	require.Equal(t, exitOK, code, errOut)
 	runs := map[string][][]string{
 		"diff": {{"diff", art, plain, "--json", "--fail-on", "kind"}, {"diff", plain, eps, "--json", "--trits"},
-			{"diff", art, bad, "--json"}, {"diff", smallA, smallB, "--json"}},
+			{"diff", art, bad, "--json"}, {"diff", smallA, smallB, "--json"}, {"diff", plain, cfgArt, "--json"}},
 		"pack": {{"pack", src, "-o", filepath.Join(dir, "again.tkart"), "--json"}},
 		"verify": {{"verify", art, "--json"}, {"verify", art, "--against", src, "--json"}, {"verify", bad, "--json"},
 			{"verify", art, "--json", "--min-cosine", "nothing.*=0.5"}, {"verify", art, "--json", "--min-cosine", "0.1"},

@@ -5,10 +5,10 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"os"
 	"unicode/utf8"
 
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 )
 
 // openSource opens the checkpoint at path (a .safetensors file, a sharded
@@ -30,7 +30,7 @@ const sourceExpected = "want a .safetensors file, a sharded set's index (*.safet
 // explainSource adds a hint to an error about a checkpoint argument that
 // is a JSON file without a weight_map (a model config, say) or a text file.
 func explainSource(err error, path string) error {
-	f, oerr := os.Open(path)
+	f, oerr := inputfile.Open(path) // never blocks on a named pipe
 	if oerr != nil {
 		return err
 	}
@@ -48,7 +48,7 @@ func explainSource(err error, path string) error {
 	switch {
 	case len(trimmed) > 0 && trimmed[0] == '{':
 		var obj map[string]json.RawMessage
-		data, rerr := os.ReadFile(path)
+		data, rerr := inputfile.ReadFile(path)
 		if rerr == nil && json.Unmarshal(data, &obj) == nil {
 			if _, ok := obj["weight_map"]; !ok {
 				what := "a JSON file"

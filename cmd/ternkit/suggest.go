@@ -4,13 +4,13 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"os"
 	"strings"
 
 	"github.com/spf13/cobra"
 	"github.com/spf13/pflag"
 
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 	"ternkit/pack"
 )
 
@@ -131,7 +131,7 @@ func checkpointHint(err error, checkpoint string) error {
 // first bytes are not the artifact magic (an empty or unreadable file is
 // not known to be one or the other).
 func notArtifact(path string) bool {
-	f, err := os.Open(path)
+	f, err := inputfile.Open(path) // never blocks on a named pipe
 	if err != nil {
 		return false
 	}
