@@ -192,24 +192,58 @@ func MulInt8(dst []int32, m Matrix, group int, x []int8, ntok int) error {
 	if m.Cols > 0 {
 		groups = m.Cols / group
 	}
-	per := m.Rows * groups
-	if len(dst) != ntok*per {
-		return fmt.Errorf("%w: %d outputs for %d tokens × %d sums", ErrInvalid, len(dst), ntok, per)
+	if len(dst) != ntok*m.Rows*groups {
+		return fmt.Errorf("%w: %d outputs for %d tokens × %d sums", ErrInvalid, len(dst), ntok, m.Rows*groups)
 	}
-	if m.Cols == 0 || m.Rows == 0 {
+	return mulRows(dst, m, group, x, ntok, 0, m.Rows)
+}
+
+// MulInt8Rows is MulInt8 for rows r0 … r1−1 only: dst receives, per token
+// t, (r1−r0)·(Cols/G) sums at dst[t·(r1−r0)·(Cols/G):]. Callers split a
+// matrix's rows among cores with it.
+func MulInt8Rows(dst []int32, m Matrix, group int, x []int8, ntok, r0, r1 int) error {
+	if err := m.Check(); err != nil {
+		return err
+	}
+	if group == 0 {
+		group = m.Cols
+	}
+	if m.Cols > 0 && (group <= 0 || m.Cols%group != 0) {
+		return fmt.Errorf("%w: group size %d does not divide %d columns", ErrInvalid, group, m.Cols)
+	}
+	if r0 < 0 || r1 < r0 || r1 > m.Rows {
+		return fmt.Errorf("%w: rows %d..%d of %d", ErrInvalid, r0, r1, m.Rows)
+	}
+	if ntok < 0 || len(x) != ntok*m.Cols {
+		return fmt.Errorf("%w: %d activations for %d tokens of %d columns", ErrInvalid, len(x), ntok, m.Cols)
+	}
+	groups := 0
+	if m.Cols > 0 {
+		groups = m.Cols / group
+	}
+	if len(dst) != ntok*(r1-r0)*groups {
+		return fmt.Errorf("%w: %d outputs for %d tokens × %d sums", ErrInvalid, len(dst), ntok, (r1-r0)*groups)
+	}
+	return mulRows(dst, m, group, x, ntok, r0, r1)
+}
+
+func mulRows(dst []int32, m Matrix, group int, x []int8, ntok, first, last int) error {
+	if m.Cols == 0 || last == first {
 		return nil
 	}
+	groups := m.Cols / group
+	per := (last - first) * groups
 	rowsPer := max(1, blockTrits/m.Cols)
-	buf := make([]int8, min(rowsPer, m.Rows)*m.Cols)
-	for r0 := 0; r0 < m.Rows; r0 += rowsPer {
-		r1 := min(m.Rows, r0+rowsPer)
+	buf := make([]int8, min(rowsPer, last-first)*m.Cols)
+	for r0 := first; r0 < last; r0 += rowsPer {
+		r1 := min(last, r0+rowsPer)
 		block := buf[:(r1-r0)*m.Cols]
 		if err := Decode(block, m, r0*m.Cols); err != nil {
 			return err
 		}
 		for t := range ntok {
 			xt := x[t*m.Cols : (t+1)*m.Cols]
-			out := dst[t*per+r0*groups : t*per+r1*groups]
+			out := dst[t*per+(r0-first)*groups : t*per+(r1-first)*groups]
 			k := 0
 			for r := range r1 - r0 {
 				row := block[r*m.Cols : (r+1)*m.Cols]

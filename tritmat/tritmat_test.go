@@ -155,3 +155,32 @@ func FuzzDot(f *testing.F) {
 		}
 	})
 }
+
+// TestMulInt8RowsSplit: any split of the rows gives MulInt8's sums.
+func TestMulInt8RowsSplit(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 12))
+	rows, cols, ntok := 37, 23, 2
+	trits := randomTrits(rng, rows*cols)
+	m := Matrix{Codec: Base3, Data: pack.Codec(Base3).Encode(nil, trits), Rows: rows, Cols: cols}
+	x := randomInt8(rng, ntok*cols)
+	whole := make([]int32, ntok*rows)
+	if err := MulInt8(whole, m, 0, x, ntok); err != nil {
+		t.Fatal(err)
+	}
+	for _, split := range []int{0, 1, 18, 36, 37} {
+		for _, part := range [][2]int{{0, split}, {split, rows}} {
+			n := part[1] - part[0]
+			dst := make([]int32, ntok*n)
+			if err := MulInt8Rows(dst, m, 0, x, ntok, part[0], part[1]); err != nil {
+				t.Fatal(err)
+			}
+			for tok := range ntok {
+				for r := range n {
+					if dst[tok*n+r] != whole[tok*rows+part[0]+r] {
+						t.Fatalf("rows %v token %d row %d: %d, want %d", part, tok, r, dst[tok*n+r], whole[tok*rows+part[0]+r])
+					}
+				}
+			}
+		}
+	}
+}
