@@ -27,14 +27,17 @@ type LayerStat struct {
 // negative log-likelihood, in nats, of each sequence's next tokens (only
 // for tokens the user gave: on random ids it means nothing).
 type Result struct {
-	Sequences   int         `json:"sequences"`
-	Positions   int         `json:"positions"`
-	Activations string      `json:"activations"`
+	Sequences   int    `json:"sequences"`
+	Positions   int    `json:"positions"`
+	Activations string `json:"activations"`
+	// Compared is set when the source ran too; the fields after it are
+	// meaningful only then.
+	Compared    bool        `json:"compared"`
 	Layers      []LayerStat `json:"layers,omitempty"`
-	MeanKL      float64     `json:"mean_kl,omitempty"`
-	MaxKL       float64     `json:"max_kl,omitempty"`
-	Top1        float64     `json:"top1_agreement,omitempty"`
-	Top5        float64     `json:"top5_overlap,omitempty"`
+	MeanKL      float64     `json:"mean_kl"`
+	MaxKL       float64     `json:"max_kl"`
+	Top1        float64     `json:"top1_agreement"`
+	Top5        float64     `json:"top5_overlap"`
 	NLLArtifact *float64    `json:"nll_artifact,omitempty"`
 	NLLSource   *float64    `json:"nll_source,omitempty"`
 
@@ -125,6 +128,7 @@ func Run(a *Arch, art, src Weights, seqs [][]int32, opts Options) (*Result, erro
 		res.Top5 += float64(common) / float64(len(ta))
 	}
 	n := float64(sa.N)
+	res.Compared = true
 	res.MeanKL /= n
 	res.Top1 /= n
 	res.Top5 /= n

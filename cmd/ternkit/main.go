@@ -78,7 +78,7 @@ verifies it byte for byte and against its source, and shows what is inside.
 	root.SetFlagErrorFunc(flagError)
 	root.PersistentFlags().BoolP(quietFlag, "q", false, "draw no progress bars (they appear only when stderr is a terminal)")
 	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd(), newReportCmd(),
-		newKeygenCmd(), newSignCmd(), newDiffCmd(), newUnpackCmd())
+		newKeygenCmd(), newSignCmd(), newDiffCmd(), newUnpackCmd(), newProbeCmd())
 	registerProfileFlag(root)
 	finishCommands(root)
 	for _, c := range root.Commands() {
