@@ -7,6 +7,7 @@
 //
 //	go run ./cmd/synthcheckpoint -size 1.5e9 -o /tmp/bulk.safetensors
 //	go run ./cmd/synthcheckpoint -size 3e9 -shards 3 -o /tmp/bulk-set
+//	go run ./cmd/synthcheckpoint -size 4.27e9 -hidden 8192 -ffn 21824 -o /tmp/wide.safetensors
 package main
 
 import (
@@ -63,21 +64,21 @@ func plan(d dims, size float64, shards int) ([][]tensorPlan, int) {
 	vector := func(name string) tensorPlan {
 		return tensorPlan{convert.WriteTensor{Name: name, DType: "BF16", Shape: []int64{hidden}}, 0}
 	}
-	out[0] = append(out[0], matrix("embed.tokens.weight", vocab, hidden, 1))
+	out[0] = append(out[0], matrix("model.embed_tokens.weight", vocab, hidden, 1))
 	for i := range layers {
 		s := i * shards / layers
-		p := fmt.Sprintf("blocks.%d.", i)
-		out[s] = append(out[s], vector(p+"attn_norm.weight"))
+		p := fmt.Sprintf("model.layers.%d.", i)
+		out[s] = append(out[s], vector(p+"input_layernorm.weight"))
 		for _, proj := range []string{"q", "k", "v", "o"} {
-			out[s] = append(out[s], matrix(p+"attn."+proj+".weight", hidden, hidden, 0.02))
+			out[s] = append(out[s], matrix(p+"self_attn."+proj+"_proj.weight", hidden, hidden, 0.02))
 		}
-		out[s] = append(out[s], vector(p+"mlp_norm.weight"),
-			matrix(p+"mlp.gate.weight", ffn, hidden, 0.02),
-			matrix(p+"mlp.up.weight", ffn, hidden, 0.02),
-			matrix(p+"mlp.down.weight", hidden, ffn, 0.02))
+		out[s] = append(out[s], vector(p+"post_attention_layernorm.weight"),
+			matrix(p+"mlp.gate_proj.weight", ffn, hidden, 0.02),
+			matrix(p+"mlp.up_proj.weight", ffn, hidden, 0.02),
+			matrix(p+"mlp.down_proj.weight", hidden, ffn, 0.02))
 	}
 	last := shards - 1
-	out[last] = append(out[last], vector("final_norm.weight"), matrix("lm_head.weight", vocab, hidden, 0.02))
+	out[last] = append(out[last], vector("model.norm.weight"), matrix("lm_head.weight", vocab, hidden, 0.02))
 	return out, layers
 }
 
@@ -120,19 +121,29 @@ func main() {
 	shards := flag.Int("shards", 1, "number of files; more than 1 writes a sharded set with an index into the directory -o")
 	out := flag.String("o", "", "file to write (or directory, with -shards > 1)")
 	seed := flag.Uint64("seed", 20261202, "random seed")
+	d := midSized
+	flag.Int64Var(&d.hidden, "hidden", d.hidden, "hidden width")
+	flag.Int64Var(&d.ffn, "ffn", d.ffn, "MLP width")
+	flag.Int64Var(&d.vocab, "vocab", d.vocab, "vocabulary size")
+	config := flag.String("config", "", "also write the model's config.json to this path")
 	flag.Parse()
-	if *out == "" || *size <= 0 || *shards < 1 || flag.NArg() > 0 {
-		fmt.Fprintln(os.Stderr, "usage: synthcheckpoint -size BYTES [-shards N] -o PATH")
+	if *out == "" || *size <= 0 || *shards < 1 || d.hidden < 1 || d.ffn < 1 || d.vocab < 1 || flag.NArg() > 0 {
+		fmt.Fprintln(os.Stderr, "usage: synthcheckpoint -size BYTES [-shards N] [-hidden H -ffn F -vocab V] [-config PATH] -o PATH")
 		os.Exit(2)
 	}
-	if err := run(*out, midSized, *size, *shards, *seed); err != nil {
+	if err := run(*out, d, *size, *shards, *seed, *config); err != nil {
 		fmt.Fprintf(os.Stderr, "synthcheckpoint: %v\n", err)
 		os.Exit(1)
 	}
 }
 
-func run(out string, d dims, size float64, shards int, seed uint64) error {
+func run(out string, d dims, size float64, shards int, seed uint64, config string) error {
 	files, layers := plan(d, size, shards)
+	if config != "" {
+		if err := writeConfig(config, d, layers); err != nil {
+			return err
+		}
+	}
 	rng := rand.New(rand.NewPCG(seed, 0xb01c))
 	if shards == 1 {
 		n, err := writeShard(out, files[0], rng)
@@ -166,4 +177,28 @@ func run(out string, d dims, size float64, shards int, seed uint64) error {
 	}
 	fmt.Printf("wrote %s: %d shards, %d layers, %d bytes of BF16 tensor data\n", out, len(files), layers, total)
 	return nil
+}
+
+// writeConfig writes the generated model's config.json (the layout most
+// open decoder checkpoints ship; 64-wide attention heads, as is common).
+func writeConfig(path string, d dims, layers int) error {
+	heads := max(1, d.hidden/64)
+	cfg, err := json.MarshalIndent(map[string]any{
+		"model_type":              model,
+		"hidden_size":             d.hidden,
+		"intermediate_size":       d.ffn,
+		"num_hidden_layers":       layers,
+		"num_attention_heads":     heads,
+		"num_key_value_heads":     heads,
+		"vocab_size":              d.vocab,
+		"max_position_embeddings": 4096,
+		"rope_theta":              10000.0,
+		"rms_norm_eps":            1e-5,
+		"hidden_act":              "silu",
+		"tie_word_embeddings":     false,
+	}, "", "  ")
+	if err != nil {
+		return err
+	}
+	return os.WriteFile(path, append(cfg, '\n'), 0o644)
 }

@@ -9,6 +9,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/modelconfig"
 )
 
 // The plan for the measured sizes lands within half a layer of the target
@@ -38,7 +39,7 @@ func TestRunWritesReadableCheckpoints(t *testing.T) {
 	tiny := dims{hidden: 8, ffn: 16, vocab: 32}
 	dir := t.TempDir()
 	set := filepath.Join(dir, "set")
-	require.NoError(t, run(set, tiny, 1e4, 3, 1))
+	require.NoError(t, run(set, tiny, 1e4, 3, 1, ""))
 	s, err := convert.Open(set)
 	require.NoError(t, err)
 	defer s.Close()
@@ -54,12 +55,23 @@ func TestRunWritesReadableCheckpoints(t *testing.T) {
 	require.Equal(t, "fernmoss-scout-bulk", s.Metadata["model"])
 
 	single := filepath.Join(dir, "one.safetensors")
-	require.NoError(t, run(single, tiny, 1e4, 1, 1))
+	require.NoError(t, run(single, tiny, 1e4, 1, 1, filepath.Join(dir, "config.json")))
 	s1, err := convert.Open(single)
 	require.NoError(t, err)
 	defer s1.Close()
 	require.Len(t, s1.Tensors, want)
 	entries, err := os.ReadDir(dir)
 	require.NoError(t, err)
-	require.Len(t, entries, 2)
+	require.Len(t, entries, 3, "the set, the file and its config")
+
+	data, err := os.ReadFile(filepath.Join(dir, "config.json"))
+	require.NoError(t, err)
+	cfg, err := modelconfig.Parse("config.json", data)
+	require.NoError(t, err)
+	require.Equal(t, tiny.hidden, cfg.HiddenSize)
+	require.Equal(t, tiny.ffn, cfg.IntermediateSize)
+	require.Equal(t, tiny.vocab, cfg.VocabSize)
+	require.Equal(t, int64(layers), cfg.NumHiddenLayers)
+	require.Equal(t, cfg.NumAttentionHeads*cfg.HeadDim, cfg.HiddenSize)
+	require.Contains(t, s1.Tensors[0].Name, "model.embed_tokens", "the common decoder layout")
 }
