@@ -42,8 +42,9 @@ func newDemoCmd() *cobra.Command {
 		Long: `demo writes a small transformer-shaped BF16 checkpoint of its own (` + demoModel + `,
 the inventory assistant of the fictional Fernmoss Seed Vault), packs it into
 an artifact, verifies the artifact against the checkpoint, prints sizes,
-bits per weight, zero fraction and timings, and writes the artifact's HTML
-report beside it. Nothing is downloaded.`,
+bits per weight, zero fraction and timings, runs the packed model against
+its source on two probe sequences (ternkit probe --against) and prints the
+comparison, and writes the artifact's HTML report beside it. Nothing is downloaded.`,
 		Example: `  ternkit demo
   ternkit demo --dir /tmp/scout --codec bits2`,
 		Args: exactArgs(0),
@@ -114,6 +115,11 @@ report beside it. Nothing is downloaded.`,
 			if !rep.OK() {
 				return errVerifyFailed
 			}
+			// the behaviour check: the packed model against its source
+			if err := demoProbe(out, art, src, filepath.Join(dir, "config.json")); err != nil {
+				return err
+			}
+			fmt.Fprintln(out, "(the projections are Gaussian, packed after training, except the last layer's down projection; a probe on two random sequences is a smoke test, not an evaluation)")
 			if err := writeReport(out, art, filepath.Join(dir, demoModel+".html")); err != nil {
 				return err
 			}

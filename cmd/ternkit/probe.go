@@ -324,3 +324,43 @@ func printProbeJSON(w io.Writer, art string, f probeFlags, cfgName string, res *
 	enc.SetIndent("", "  ")
 	return enc.Encode(doc)
 }
+
+// demoProbe runs the demo's artifact against its source with the default
+// probe tokens and prints the comparison.
+func demoProbe(out io.Writer, art, src, cfgPath string) error {
+	a, err := pack.Open(art)
+	if err != nil {
+		return err
+	}
+	defer a.Close()
+	data, err := os.ReadFile(cfgPath)
+	if err != nil {
+		return err
+	}
+	cfg, err := modelconfig.Parse(cfgPath, data)
+	if err != nil {
+		return err
+	}
+	arch, err := probe.NewArch(cfg)
+	if err != nil {
+		return fmt.Errorf("%s: %w", cfgPath, err)
+	}
+	aw, err := probe.NewArtifactWeights(a, art, probe.ActInt8)
+	if err != nil {
+		return err
+	}
+	sw, err := probe.OpenSource(src)
+	if err != nil {
+		return err
+	}
+	defer sw.Close()
+	f := probeFlags{against: src, seqs: 2, length: 32, seed: 1}
+	seqs := probe.RandomTokens(f.seqs, f.length, arch.Vocab, f.seed)
+	start := time.Now()
+	res, err := probe.Run(arch, aw, sw, seqs, probe.Options{Activations: probe.ActInt8})
+	if err != nil {
+		return err
+	}
+	printProbe(out, art, f, cfgPath, seqs, res, time.Since(start))
+	return nil
+}
