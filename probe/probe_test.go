@@ -224,3 +224,15 @@ func TestGoldenRoundTrip(t *testing.T) {
 		t.Error("wrong format accepted")
 	}
 }
+
+func TestSourceNonFinite(t *testing.T) {
+	for _, v := range []float32{float32(math.NaN()), float32(math.Inf(-1))} {
+		err := finite("f", "w", 100, 4, []float32{1, 2, v})
+		if err == nil || !strings.Contains(err.Error(), "byte 108") {
+			t.Errorf("%v: %v", v, err)
+		}
+	}
+	if err := finite("f", "w", 0, 4, []float32{3e38, -0, 1e-45}); err != nil {
+		t.Error(err)
+	}
+}

@@ -103,28 +103,6 @@ func parallel(items int, work func(next func() (int, bool)) error) error {
 	return first
 }
 
-// dotF32 is Σ a[i]·b[i] in float32, in eight lanes (element i in lane
-// i mod 8, the lanes added pairwise at the end).
-func dotF32(a, b []float32) float32 {
-	b = b[:len(a)]
-	var s [8]float32
-	i := 0
-	for ; i+8 <= len(a); i += 8 {
-		s[0] += a[i] * b[i]
-		s[1] += a[i+1] * b[i+1]
-		s[2] += a[i+2] * b[i+2]
-		s[3] += a[i+3] * b[i+3]
-		s[4] += a[i+4] * b[i+4]
-		s[5] += a[i+5] * b[i+5]
-		s[6] += a[i+6] * b[i+6]
-		s[7] += a[i+7] * b[i+7]
-	}
-	for ; i < len(a); i++ {
-		s[i%8] += a[i] * b[i]
-	}
-	return ((s[0] + s[4]) + (s[1] + s[5])) + ((s[2] + s[6]) + (s[3] + s[7]))
-}
-
 // matrixDims is rows × columns of a tensor of 2 or more dimensions.
 func matrixDims(shape []int64) (rows, cols int, ok bool) {
 	if len(shape) < 2 {
@@ -214,6 +192,16 @@ func (w *SourceWeights) read(t *convert.Tensor, i0, i1 int, dst []float32) error
 
 // finite reports the first NaN or infinity among weights.
 func finite(file, tensor string, off int64, size int, v []float32) error {
+	// a float32 is NaN or ±Inf exactly when its exponent bits are all set:
+	// one branch-free pass finds whether any is, a second which
+	var bad uint32
+	for _, x := range v {
+		e := ^math.Float32bits(x) & 0x7f800000
+		bad |= (e - 1) & 0x80000000
+	}
+	if bad == 0 {
+		return nil
+	}
 	for i, x := range v {
 		if math.IsNaN(float64(x)) || math.IsInf(float64(x), 0) {
 			return &convert.InputError{File: file, Tensor: tensor, Offset: off + int64(i*size), Err: fmt.Errorf("%w: weight is %v", convert.ErrNonFinite, x)}
