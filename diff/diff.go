@@ -101,13 +101,15 @@ type Report struct {
 	Removed    []Tensor       `json:"removed"`
 	Reshaped   []Reshape      `json:"reshaped"`
 	Changed    []TensorChange `json:"changed"`
-	Totals     Totals         `json:"totals"`
+	// Companions are the companion files added, removed or changed.
+	Companions []CompanionChange `json:"companions"`
+	Totals     Totals            `json:"totals"`
 }
 
 // Same reports whether nothing differs.
 func (r *Report) Same() bool {
 	return len(r.Provenance) == 0 && r.Totals.Added == 0 && r.Totals.Removed == 0 &&
-		r.Totals.Reshaped == 0 && r.Totals.Changed == 0
+		r.Totals.Reshaped == 0 && r.Totals.Changed == 0 && len(r.Companions) == 0
 }
 
 // Compare compares artifact a with b; the report's A and B are left for the
@@ -153,6 +155,10 @@ func Compare(a, b *pack.Artifact) (*Report, error) {
 		if !inA[eb.Name] {
 			r.Added = append(r.Added, summary(eb))
 		}
+	}
+	var err error
+	if r.Companions, err = compareCompanions(a, b); err != nil {
+		return nil, err
 	}
 	t := &r.Totals
 	t.Added, t.Removed, t.Reshaped, t.Changed = len(r.Added), len(r.Removed), len(r.Reshaped), len(r.Changed)

@@ -61,7 +61,10 @@ type Manifest struct {
 	// the caller's rule strings in order; nil when not recorded.
 	Policy  []string `json:"policy,omitempty"`
 	Tensors []Tensor `json:"tensors"`
-	Totals  Totals   `json:"totals"`
+	// Companions are the files carried beside the weights (format 1.3), in
+	// section order after the tensors; nil when there are none.
+	Companions []Companion `json:"companions,omitempty"`
+	Totals     Totals      `json:"totals"`
 }
 
 // Source is the provenance of the artifact.
@@ -300,6 +303,9 @@ func (m *Manifest) Validate() error {
 		if err := e.validate(); err != nil {
 			return bad("tensor %q: %v", e.Name, err)
 		}
+	}
+	if err := m.validateCompanions(); err != nil {
+		return bad("%v", err)
 	}
 	want := *m
 	want.ComputeTotals()

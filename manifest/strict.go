@@ -17,6 +17,9 @@ func checkStrictJSON(b []byte, t reflect.Type) error {
 	if !utf8.Valid(b) {
 		return fmt.Errorf("%w: not valid UTF-8", ErrInvalid)
 	}
+	if err := checkSurrogates(b); err != nil {
+		return err
+	}
 	dec := json.NewDecoder(bytes.NewReader(b))
 	dec.UseNumber()
 	err := walkJSON(dec, t, "manifest")
@@ -102,4 +105,62 @@ func jsonFields(t reflect.Type) map[string]reflect.Type {
 		fields[name] = f.Type
 	}
 	return fields
+}
+
+// checkSurrogates rejects a \u escape of a UTF-16 surrogate (U+D800 to
+// U+DFFF) that is not a high surrogate directly followed by the escape of
+// a low one: such a string has no Unicode text, and JSON decoders differ on
+// it (some replace it with U+FFFD, some keep it).
+func checkSurrogates(b []byte) error {
+	in := false
+	for i := 0; i < len(b); i++ {
+		c := b[i]
+		if !in {
+			in = c == '"'
+			continue
+		}
+		switch c {
+		case '"':
+			in = false
+		case '\\':
+			if i+1 < len(b) && b[i+1] != 'u' {
+				i++
+				continue
+			}
+			r, ok := hex4(b, i+2)
+			if !ok || r < 0xd800 || r > 0xdfff {
+				i++
+				continue
+			}
+			if r <= 0xdbff && i+7 < len(b) && b[i+6] == '\\' && b[i+7] == 'u' {
+				if lo, ok := hex4(b, i+8); ok && lo >= 0xdc00 && lo <= 0xdfff {
+					i += 11
+					continue
+				}
+			}
+			return fmt.Errorf("%w: lone surrogate escape \\u%04x at byte %d", ErrInvalid, r, i)
+		}
+	}
+	return nil
+}
+
+// hex4 reads the 4 hex digits at b[i:].
+func hex4(b []byte, i int) (rune, bool) {
+	if i+4 > len(b) {
+		return 0, false
+	}
+	var r rune
+	for _, c := range b[i : i+4] {
+		switch {
+		case '0' <= c && c <= '9':
+			r = r<<4 | rune(c-'0')
+		case 'a' <= c && c <= 'f':
+			r = r<<4 | rune(c-'a'+10)
+		case 'A' <= c && c <= 'F':
+			r = r<<4 | rune(c-'A'+10)
+		default:
+			return 0, false
+		}
+	}
+	return r, true
 }

@@ -34,6 +34,10 @@ type Options struct {
 	// Created is recorded as the manifest's "created"; the zero time
 	// records none, so that the same inputs give the same bytes.
 	Created time.Time
+	// Companions are files carried beside the weights (format 1.3), in
+	// this order; each is checked by CheckCompanion before anything is
+	// written.
+	Companions []Companion
 	// Progress, when set, is called with the source tensor bytes read so
 	// far and their total: once before the first tensor and after each one.
 	// It runs on Build's goroutine and must return quickly.
@@ -59,6 +63,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	policy := opts.Policy
 	if policy == nil {
 		policy = convert.DefaultPolicy()
+	}
+	if err := checkCompanions(opts.Companions); err != nil {
+		return nil, err
 	}
 	actions := make(map[*convert.Tensor]convert.Action, len(src.Tensors))
 	for _, t := range src.Tensors {
@@ -180,6 +187,13 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 		m.Source.Files = append(m.Source.Files, manifest.SourceFile{
 			Name: filepath.Base(f.Path), Bytes: f.Size, BLAKE3: manifest.HexHash(f.BLAKE3),
 		})
+	}
+	for _, c := range opts.Companions {
+		entry, err := w.writeCompanion(c)
+		if err != nil {
+			return nil, err
+		}
+		m.Companions = append(m.Companions, entry)
 	}
 	m.ComputeTotals()
 	if err := w.finish(m); err != nil {

@@ -33,6 +33,9 @@ func (a *Artifact) Check() error {
 	var trits []int8
 	for i, p := range sections {
 		next := a.manifestOff
+		if len(a.m.Companions) > 0 {
+			next = a.m.Companions[0].Section.Offset
+		}
 		if i+1 < len(sections) {
 			next = sections[i+1].s.Offset
 		}
@@ -57,8 +60,23 @@ func (a *Artifact) Check() error {
 			return err
 		}
 	}
-	if len(sections) == 0 {
-		return a.checkPadding(PreambleLen, a.manifestOff)
+	end := int64(PreambleLen)
+	if len(sections) > 0 {
+		last := sections[len(sections)-1].s
+		end = last.Offset + last.Length
+	}
+	for i := range a.m.Companions {
+		c := &a.m.Companions[i]
+		if err := a.checkPadding(end, c.Section.Offset); err != nil {
+			return err
+		}
+		if _, err := a.verifiedCompanion(c); err != nil {
+			return err
+		}
+		end = c.Section.Offset + c.Section.Length
+	}
+	if len(sections) == 0 || len(a.m.Companions) > 0 {
+		return a.checkPadding(end, a.manifestOff)
 	}
 	return nil
 }

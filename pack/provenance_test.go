@@ -93,8 +93,8 @@ func TestOpenRejectsMinorVersion(t *testing.T) {
 		bad    []uint16
 		wants  []error
 	}{
-		{sequentialRecipe(), 0, []uint16{1, 2, 3}, []error{ErrStructure, ErrStructure, ErrVersion}},
-		{convert.DefaultRecipe(), 2, []uint16{0, 1, 3}, []error{ErrVersion, ErrVersion, ErrVersion}},
+		{sequentialRecipe(), 0, []uint16{1, 2, 3, 4}, []error{ErrStructure, ErrStructure, ErrStructure, ErrVersion}},
+		{convert.DefaultRecipe(), 2, []uint16{0, 1, 3, 4}, []error{ErrVersion, ErrVersion, ErrStructure, ErrVersion}},
 	} {
 		dst := filepath.Join(dir, "p"+Extension)
 		buildWith(t, src, dst, Options{Recipe: r.recipe, PolicyRules: testRules, Created: time.Unix(1_700_000_000, 0)})

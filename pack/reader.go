@@ -109,6 +109,19 @@ func newArtifact(file string, r io.ReaderAt, size int64, opts []ReadOption) (*Ar
 			next = alignUp(s.Offset + s.Length)
 		}
 	}
+	for _, c := range m.Companions {
+		s := c.Section
+		where := fmt.Sprintf("manifest: companion %q", c.Name)
+		if s.Offset != next {
+			return nil, fail(where, t.manifestOffset,
+				fmt.Errorf("%w: section offset %d (layout puts it at %d)", ErrStructure, s.Offset, next))
+		}
+		if s.Length > t.manifestOffset-next {
+			return nil, fail(where, t.manifestOffset,
+				fmt.Errorf("%w: section of %d bytes at %d runs past the manifest at %d", ErrStructure, s.Length, next, t.manifestOffset))
+		}
+		next = alignUp(s.Offset + s.Length)
+	}
 	if next != t.manifestOffset {
 		return nil, fail("trailer", size-TrailerLen,
 			fmt.Errorf("%w: manifest offset %d (layout puts it at %d)", ErrStructure, t.manifestOffset, next))

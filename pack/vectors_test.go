@@ -2,6 +2,7 @@ package pack
 
 import (
 	"bytes"
+	"crypto/sha256"
 	"encoding/binary"
 	"encoding/hex"
 	"encoding/json"
@@ -38,6 +39,15 @@ type vector struct {
 	Version string         `json:"version,omitempty"`
 	Note    string         `json:"note"`
 	Tensors []vectorTensor `json:"tensors,omitempty"`
+	// Companions are the companion files a reader must return (format 1.3).
+	Companions []vectorCompanion `json:"companions,omitempty"`
+}
+
+// vectorCompanion is what a reader must return for one companion file.
+type vectorCompanion struct {
+	Name   string `json:"name"`
+	Length int64  `json:"length"`
+	SHA256 string `json:"sha256"` // of the file's bytes
 }
 
 // vectorTensor is what a reader must decode for one tensor.
@@ -133,6 +143,12 @@ func TestVectors(t *testing.T) {
 			for i, e := range a.Tensors() {
 				checkVectorTensor(t, a, e, v.Tensors[i])
 			}
+			require.Len(t, a.Companions(), len(v.Companions))
+			for i, c := range a.Companions() {
+				b, err := a.Companion(c.Name)
+				require.NoError(t, err)
+				require.Equal(t, v.Companions[i], companionOf(c.Name, b))
+			}
 		})
 	}
 }
@@ -178,6 +194,11 @@ func checkVectorTensor(t *testing.T, a *Artifact, e manifest.Tensor, want vector
 	}
 }
 
+func companionOf(name string, b []byte) vectorCompanion {
+	sum := sha256.Sum256(b)
+	return vectorCompanion{Name: name, Length: int64(len(b)), SHA256: hex.EncodeToString(sum[:])}
+}
+
 func tritString(trits []int8) string {
 	b := make([]byte, len(trits))
 	for i, v := range trits {
@@ -192,7 +213,9 @@ type draft struct {
 	m        *manifest.Manifest
 	payloads [][]byte
 	scales   [][]byte            // nil for a tensor without a scales section
+	comps    [][]byte            // the companions' bytes
 	gap      map[int]int         // extra zero bytes before tensor i's payload
+	compGap  map[int]int         // extra zero bytes before companion i
 	json     func([]byte) []byte // edits the manifest bytes
 }
 
@@ -221,6 +244,11 @@ func readDraft(t *testing.T, path string) *draft {
 		}
 		d.scales = append(d.scales, sc)
 	}
+	for _, c := range m.Companions {
+		b, err := a.Companion(c.Name)
+		require.NoError(t, err)
+		d.comps = append(d.comps, b)
+	}
 	return d
 }
 
@@ -231,6 +259,9 @@ func (d *draft) encode(t *testing.T) []byte {
 	place := func(s *manifest.Section, p []byte, gap int) {
 		out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out))+int64(gap))...)
 		s.Offset, s.Length, s.BLAKE3 = int64(len(out)), int64(len(p)), manifest.HexHash(blake3.Sum256(p))
+		if manifest.NumChunks(s.Length) > 0 {
+			s.Chunks = hashSection(p).Chunks
+		}
 		out = append(out, p...)
 	}
 	for i, p := range d.payloads {
@@ -238,6 +269,9 @@ func (d *draft) encode(t *testing.T) []byte {
 		if d.scales[i] != nil {
 			place(d.m.Tensors[i].Scales, d.scales[i], 0)
 		}
+	}
+	for i, p := range d.comps {
+		place(&d.m.Companions[i].Section, p, d.compGap[i])
 	}
 	d.m.ComputeTotals()
 	out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out)))...)
@@ -261,6 +295,14 @@ type vectorSource struct {
 	// without the sum key (sequential order, format 1.0), as the vectors of
 	// 1.0 and 1.1 were written
 	recipe convert.Recipe
+	// companions are carried in this order
+	companions []vectorFile
+}
+
+// vectorFile is a companion file of a vector's checkpoint.
+type vectorFile struct {
+	name string
+	data []byte
 }
 
 func (s *vectorSource) recipeOrDefault() convert.Recipe {
@@ -306,8 +348,14 @@ func (s *vectorSource) build(t *testing.T, codec Codec) ([]byte, []vectorTensor)
 		require.NoError(t, err)
 		policy.Rules = append(policy.Rules, r)
 	}
+	var comps []Companion
+	for _, c := range s.companions {
+		p := filepath.Join(dir, c.name)
+		require.NoError(t, os.WriteFile(p, c.data, 0o644))
+		comps = append(comps, Companion{Name: c.name, Path: p})
+	}
 	dst := filepath.Join(dir, "v"+Extension)
-	m, err := Build(f, dst, Options{Codec: codec, Recipe: s.recipeOrDefault(), Policy: policy, Tool: "ternkit vectors"})
+	m, err := Build(f, dst, Options{Codec: codec, Recipe: s.recipeOrDefault(), Policy: policy, Tool: "ternkit vectors", Companions: comps})
 	require.NoError(t, err)
 	var want []vectorTensor
 	for i, wt := range s.tensors {
@@ -316,6 +364,15 @@ func (s *vectorSource) build(t *testing.T, codec Codec) ([]byte, []vectorTensor)
 	b, err := os.ReadFile(dst)
 	require.NoError(t, err)
 	return b, want
+}
+
+// wantCompanions is what a reader must return for the source's companions.
+func (s *vectorSource) wantCompanions() []vectorCompanion {
+	var out []vectorCompanion
+	for _, c := range s.companions {
+		out = append(out, companionOf(c.name, c.data))
+	}
+	return out
 }
 
 // writeSafetensors writes tensors in order by the published layout of
@@ -468,6 +525,29 @@ func writeVectors(t *testing.T) {
 	add(vector{File: "ok-strided16.tkart", Expect: "ok", Version: "1.2", Note: `recipe with "sum": "strided16" (gamma summed in 16 strided partial sums), so format 1.2`, Tensors: wantStrided}, okStrided)
 	stridedPath := path("strided", okStrided)
 
+	// Companion files (format 1.3): a model config, a licence and an
+	// empty file, after the tensor's sections.
+	comp := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{
+		{"config.json", []byte(`{"hidden_size": 8, "num_hidden_layers": 1, "vocab_size": 12}` + "\n")},
+		{"LICENSE", []byte("Fernmoss Seed Vault scanner weights. Internal use only.\n")},
+		{"NOTICE", nil},
+	}}
+	comp.float("layer.w", []int64{2, 5}, []float32{0.9, -1.1, 0.05, 0.6, -0.2, 1.7, -0.8, 0.3, 0.0, -0.45})
+	okComp, wantComp := comp.build(t, Base3)
+	add(vector{File: "ok-companions.tkart", Expect: "ok", Version: "1.3", Note: "three companion files after the tensor's section: config.json, LICENSE, and NOTICE of 0 bytes (its section takes no space)", Tensors: wantComp, Companions: comp.wantCompanions()}, okComp)
+	compPath := path("companions", okComp)
+
+	// A section over 2^22 bytes, with piece hashes: a companion of 2^22 +
+	// 5000 bytes of a 256-byte pattern (compressible, small in git).
+	bigData := make([]byte, manifest.ChunkSize+5000)
+	for i := range bigData {
+		bigData[i] = byte(i * 7)
+	}
+	big := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{{"vocab.txt", bigData}}}
+	okBig, _ := big.build(t, Base3)
+	add(vector{File: "ok-chunks.tkart", Expect: "ok", Version: "1.3", Note: "a companion section of 4199304 bytes (2^22 + 5000): two piece hashes, the last piece 5000 bytes", Companions: big.wantCompanions()}, okBig)
+	bigPath := path("big", okBig)
+
 	bits2Path, base3Path, entropyPath := path("bits2", okBits2), path("base3", okBase3), filepath.Join(dir, "entropy")
 	rowPath, int8Path, convPath := path("row", okRow), path("int8", okInt8), path("conv", okConv)
 
@@ -587,6 +667,41 @@ func writeVectors(t *testing.T) {
 	redo("bad-exact-on-kept.tkart", failManifest, `kept tensor with "exact": true`, convPath, func(d *draft) {
 		d.json = func(b []byte) []byte {
 			return bytes.Replace(b, []byte(`{"name":"scale.f8",`), []byte(`{"name":"scale.f8","exact":true,`), 1)
+		}
+	})
+
+	// Companion rules.
+	redo("bad-minor-for-companions.tkart", failVersion, "companions (format 1.3) in a file that says version 1.2", compPath, func(d *draft) { d.minor = 2 })
+	compSecs := readDraft(t, compPath).m.Companions
+	edit("bad-companion-hash.tkart", failSectionHash, "LICENSE: first byte changed, hash not updated", okComp, func(b []byte) []byte {
+		b[compSecs[1].Section.Offset] ^= 1
+		return b
+	})
+	edit("bad-companion-padding.tkart", failStructure, "the padding byte right after config.json is 1", okComp, func(b []byte) []byte {
+		b[compSecs[0].Section.Offset+compSecs[0].Section.Length] = 1
+		return b
+	})
+	redo("bad-companion-offset.tkart", failStructure, "64 zero bytes before LICENSE, which the manifest locates there", compPath, func(d *draft) {
+		d.compGap = map[int]int{1: 64}
+	})
+	redo("bad-companion-name-path.tkart", failManifest, `companion named "../config.json" (names are base names)`, compPath, func(d *draft) { d.m.Companions[0].Name = "../config.json" })
+	redo("bad-companion-name-dotdot.tkart", failManifest, `companion named ".."`, compPath, func(d *draft) { d.m.Companions[2].Name = ".." })
+	redo("bad-companion-name-control.tkart", failManifest, `companion named "NOTICE\u0007" (a control character)`, compPath, func(d *draft) { d.m.Companions[2].Name = "NOTICE\a" })
+	redo("bad-companion-name-case.tkart", failManifest, `companions "LICENSE" and "license" (one file where case is ignored)`, compPath, func(d *draft) { d.m.Companions[2].Name = "license" })
+	redo("bad-companions-empty.tkart", failManifest, `"companions": [] (absent rather than empty)`, stridedPath, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`,"totals":`), []byte(`,"companions":[],"totals":`), 1)
+		}
+	})
+	redo("bad-lone-surrogate.tkart", failManifest, `"tool" holds the escape \ud800 with no low surrogate after it`, bits2Path, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`"ternkit vectors"`), []byte(`"ternkit \ud800vectors"`), 1)
+		}
+	})
+	bigChunks := readDraft(t, bigPath).m.Companions[0].Section.Chunks
+	redo("bad-chunk-hash.tkart", failSectionHash, "vocab.txt: piece hash 1 replaced by piece hash 0 (the section's own BLAKE3 holds)", bigPath, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			return bytes.Replace(b, []byte(`"`+bigChunks[1]+`"`), []byte(`"`+bigChunks[0]+`"`), 1)
 		}
 	})
 

@@ -18,11 +18,18 @@ var codecSince = map[string]uint16{
 // sumKeySince is the minor version that defines the recipe's "sum" key.
 const sumKeySince = 2
 
+// companionsSince is the minor version that defines the manifest's
+// "companions" key and companion sections.
+const companionsSince = 3
+
 // minorVersionFor is the lowest minor version whose features m uses.
 func minorVersionFor(m *manifest.Manifest) uint16 {
 	var v uint16
 	if m.Recipe.Sum != "" {
 		v = sumKeySince
+	}
+	if len(m.Companions) > 0 {
+		v = companionsSince
 	}
 	for _, e := range m.Tensors {
 		v = max(v, codecSince[e.Codec])
@@ -40,6 +47,9 @@ func checkMinorVersion(m *manifest.Manifest, minor uint16) error {
 	}
 	if m.Recipe.Sum != "" && minor < sumKeySince {
 		return fmt.Errorf("%w: the recipe's sum order is a key of format 1.%d, the preamble says 1.%d", ErrVersion, sumKeySince, minor)
+	}
+	if len(m.Companions) > 0 && minor < companionsSince {
+		return fmt.Errorf("%w: companion files are a feature of format 1.%d, the preamble says 1.%d", ErrVersion, companionsSince, minor)
 	}
 	if want := minorVersionFor(m); minor != want {
 		return fmt.Errorf("%w: preamble says format 1.%d, the manifest uses features of 1.%d only", ErrStructure, minor, want)

@@ -14,7 +14,8 @@ codec, shape, stored dtype (kept), granularity and exact flag (ternary,
 int8), scale (ternary at tensor granularity), trit counts, and SHA-256
 digests of its decoded trits (int8 values), int8 codes, kept bytes and
 dequantized or decoded float32 values (little-endian, every NaN written as
-0x7FC00000).
+0x7FC00000); "companions" (format 1.3) gives each companion file's name,
+length and SHA-256.
 --trits adds the trits themselves as a string of "-0+", int8 codes and kept
 bytes as hex, and the scales of a scales section as numbers.
 """
@@ -35,11 +36,12 @@ ALIGN = 64
 PREAMBLE_LEN = 64
 TRAILER_LEN = 64
 MANIFEST_LIMIT = 256 << 20
-READER_MINOR = 2  # the highest minor version of format 1 this reader implements
+READER_MINOR = 3  # the highest minor version of format 1 this reader implements
 
 # Minor version that defines each codec ("Versioning").
 CODEC_SINCE = {"raw": 0, "bits2": 0, "base3": 0, "entropy": 1}
 SUM_KEY_SINCE = 2  # the recipe's "sum" key
+COMPANIONS_SINCE = 3  # the manifest's "companions" key
 TRIT_CODECS = ("bits2", "base3", "entropy")
 DTYPE_SIZE = {
     "F64": 8, "F32": 4, "F16": 2, "BF16": 2, "F8_E4M3": 1, "F8_E5M2": 1,
@@ -55,7 +57,8 @@ CHUNK = 1 << 22
 # adds keys adds them here.
 KEYS = {
     "manifest": {"format", "version", "tool", "created", "recipe", "source", "policy",
-                 "tensors", "totals"},
+                 "tensors", "companions", "totals"},
+    "companion": {"name", "section"},
     "recipe": {"method", "scale_rule", "epsilon", "tie", "sum"},
     "source": {"files", "metadata"},
     "file": {"name", "bytes", "blake3"},
@@ -106,9 +109,26 @@ def parse_json(body):
     except UnicodeDecodeError as e:
         raise bad("not valid UTF-8: %s" % e)
     try:
-        return json.loads(text, object_pairs_hook=pairs, parse_constant=constant)
+        doc = json.loads(text, object_pairs_hook=pairs, parse_constant=constant)
     except json.JSONDecodeError as e:
         raise bad("invalid JSON: %s" % e)
+    no_lone_surrogates(doc)
+    return doc
+
+
+def no_lone_surrogates(v):
+    """A \\u escape of U+D800..U+DFFF that is not a high surrogate followed
+    by a low one decodes to a lone surrogate code point: rejected."""
+    if isinstance(v, str):
+        if any(0xD800 <= ord(c) <= 0xDFFF for c in v):
+            raise bad("string %r holds a lone surrogate escape" % v)
+    elif isinstance(v, dict):
+        for k, x in v.items():
+            no_lone_surrogates(k)
+            no_lone_surrogates(x)
+    elif isinstance(v, list):
+        for x in v:
+            no_lone_surrogates(x)
 
 
 def obj(v, what, path):
@@ -223,6 +243,22 @@ def parse_manifest(body):
         names.add(t["name"])
         tensors.append(t)
 
+    companions = []
+    if m.get("companions") is not None:
+        comps = arr(m.get("companions"), "companions")
+        if not comps:
+            raise bad("companions is an empty array")
+        folded = set()
+        for i, c in enumerate(comps):
+            c = obj(c, "companion", "companions[%d]" % i)
+            name = companion_name(string(c.get("name"), "companions[%d].name" % i))
+            key = "".join(ch.lower() if "A" <= ch <= "Z" else ch for ch in name)
+            if key in folded:
+                raise bad("companion name %r repeats another, ASCII case ignored" % name)
+            folded.add(key)
+            companions.append({"name": name,
+                               "section": parse_section(c.get("section"), "companion %r.section" % name)})
+
     totals = obj(m.get("totals"), "totals", "totals")
     want = {"tensors": len(tensors), "source_bytes": source_bytes}
     for k in ("ternary", "int8", "kept"):
@@ -236,7 +272,15 @@ def parse_manifest(body):
         if integer(totals.get(k), "totals." + k) != v:
             raise bad("totals.%s is %r, the tensors give %d" % (k, totals.get(k), v))
     number(totals.get("bits_per_ternary_weight"), "totals.bits_per_ternary_weight")
-    return tensors, bool(r.get("sum"))  # "" reads as absent, as any zero value
+    return tensors, companions, bool(r.get("sum"))  # "" reads as absent, as any zero value
+
+
+def companion_name(name):
+    """The name rules of "Companions"."""
+    if (not name or len(name.encode("utf-8")) > 255 or name in (".", "..")
+            or "/" in name or "\\" in name or any(ord(c) < 0x20 or ord(c) == 0x7F for c in name)):
+        raise bad("companion name %r" % name)
+    return name
 
 
 def parse_section(v, path):
@@ -505,16 +549,19 @@ def read_artifact(data, with_trits):
     if blake3_hex(body) != tr[16:48].hex():
         raise Reject("manifest-hash", "manifest BLAKE3 differs from the trailer's")
 
-    tensors, has_sum = parse_manifest(body)
+    tensors, companions, has_sum = parse_manifest(body)
     used = max([CODEC_SINCE[t["codec"]] for t in tensors], default=0)
     if has_sum:
         used = max(used, SUM_KEY_SINCE)
+    if companions:
+        used = max(used, COMPANIONS_SINCE)
     if used > minor:
         raise Reject("version", "codecs or keys of format 1.%d in a file of 1.%d" % (used, minor))
     if minor != used:
         raise Reject("structure", "file says 1.%d, its manifest uses 1.%d" % (minor, used))
 
     secs = sections(tensors)
+    secs += [({"name": c["name"], "kind": "companion"}, "companion", c["section"]) for c in companions]
     nxt = PREAMBLE_LEN
     for t, _, s in secs:
         if s["offset"] != nxt:
@@ -525,7 +572,7 @@ def read_artifact(data, with_trits):
     if nxt != m_off:
         raise Reject("structure", "manifest at %d, layout puts it at %d" % (m_off, nxt))
 
-    out, parts = [], {}
+    out, parts, comps = [], {}, []
     for i, (t, role, s) in enumerate(secs):
         end = s["offset"] + s["length"]
         pad_to = secs[i + 1][2]["offset"] if i + 1 < len(secs) else m_off
@@ -537,13 +584,17 @@ def read_artifact(data, with_trits):
         for k, want in enumerate(s["chunks"]):
             if blake3_hex(section[k * CHUNK:(k + 1) * CHUNK]) != want:
                 raise Reject("section-hash", "tensor %r: %s chunk %d BLAKE3 differs" % (t["name"], role, k))
+        if role == "companion":
+            comps.append({"name": t["name"], "length": len(section),
+                          "sha256": hashlib.sha256(section).hexdigest()})
+            continue
         parts[role] = check_contents(t, role, np.frombuffer(section, dtype=np.uint8))
         if i + 1 == len(secs) or secs[i + 1][0] is not t:  # the tensor's last section
             out.append(describe_tensor(t, parts, with_trits))
             parts = {}
     if not secs and any(data[PREAMBLE_LEN:m_off]):
         raise Reject("structure", "nonzero padding before the manifest")
-    return "1.%d" % minor, out
+    return "1.%d" % minor, out, comps
 
 
 def check_contents(t, role, p):
@@ -661,8 +712,11 @@ def main(argv):
         with open(path, "rb") as f:
             data = f.read()
         try:
-            version, tensors = read_artifact(data, with_trits)
-            results.append({"file": path, "result": "ok", "version": version, "tensors": tensors})
+            version, tensors, comps = read_artifact(data, with_trits)
+            r = {"file": path, "result": "ok", "version": version, "tensors": tensors}
+            if comps:
+                r["companions"] = comps
+            results.append(r)
         except Reject as e:
             results.append({"file": path, "result": e.cls, "detail": str(e)})
     json.dump(results, sys.stdout, indent=1)

@@ -58,6 +58,7 @@ func checkSections(rep *Report, a *pack.Artifact, src artifactBytes, workers int
 			all = append(all, placedSection{*e.Scales, e, true})
 		}
 	}
+	all = append(all, companionSections(m)...)
 	var jobs []sectionJob
 	pieces := make([][]pieceOutcome, len(all))
 	for i, p := range all {
@@ -296,6 +297,9 @@ func maxLength(m *manifest.Manifest) int64 {
 		for _, s := range e.Sections() {
 			n = max(n, s.Length)
 		}
+	}
+	for _, c := range m.Companions {
+		n = max(n, c.Section.Length)
 	}
 	return n
 }

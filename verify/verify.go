@@ -113,6 +113,9 @@ func progressFunc(opts Options, a *pack.Artifact) func(n int64) {
 	for _, e := range a.Tensors() {
 		total += e.StoredBytes()
 	}
+	for _, c := range a.Companions() {
+		total += c.Section.Length
+	}
 	if opts.Source != nil {
 		for _, t := range opts.Source.Tensors {
 			total += t.Length
@@ -172,6 +175,7 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		if err := checkAgainst(rep, a, opts.Source, workers, advance); err != nil {
 			return nil, err
 		}
+		checkCompanionsAgainst(rep, a, opts.Source)
 	}
 	if opts.Budget != nil {
 		checkBudget(rep, a.Manifest(), opts.Budget)

@@ -71,6 +71,9 @@ comparison, and writes the artifact's HTML report beside it. Nothing is download
 			if err := atomicfile.WriteFile(filepath.Join(dir, "config.json"), demoConfig(), 0o644); err != nil {
 				return err
 			}
+			if err := atomicfile.WriteFile(filepath.Join(dir, demoVocabFile), demoVocabulary(), 0o644); err != nil {
+				return err
+			}
 			fmt.Fprintf(out, "generated %s (%s, Fernmoss Seed Vault scanner assistant, fictional) in %s\n",
 				src, demoModel, time.Since(start).Round(time.Millisecond))
 			if !rf.customPolicy() {
@@ -87,7 +90,7 @@ comparison, and writes the artifact's HTML report beside it. Nothing is download
 			start = time.Now()
 			bar := newProgressBar(cmd, "pack")
 			opts.Progress = bar.callback()
-			m, err := packFile(src, art, opts, true, errOut)
+			m, err := packFile(src, art, opts, &rf.companions, true, errOut)
 			bar.finish()
 			if err != nil {
 				return err

@@ -85,6 +85,7 @@ func printDiff(w io.Writer, r *diff.Report) {
 	for _, c := range r.Changed {
 		fmt.Fprintf(w, "  %s: %s\n", c.Name, strings.Join(changeParts(c), "; "))
 	}
+	printCompanionChanges(w, r)
 	t := r.Totals
 	fmt.Fprintf(w, "total: %d -> %d tensors (%d added, %d removed, %d reshaped, %d changed, %d unchanged); artifact %d -> %d bytes (%+d)",
 		t.TensorsA, t.TensorsB, t.Added, t.Removed, t.Reshaped, t.Changed, t.Unchanged, t.BytesA, t.BytesB, t.BytesB-t.BytesA)

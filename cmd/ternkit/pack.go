@@ -28,6 +28,7 @@ type recipeFlags struct {
 	policyFile string
 	rules      []string
 	workers    int
+	companions companionFlags
 }
 
 func (f *recipeFlags) register(cmd *cobra.Command) {
@@ -37,6 +38,7 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule")
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
 	cmd.Flags().StringVar(&f.sum, "sum", string(d.Sum), "order of gamma's float64 sum: strided16 (16 partial sums, vector speed) or sequential (index order, the order of artifacts that record none)")
+	f.companions.register(cmd)
 	cmd.Flags().IntVar(&f.workers, "workers", runtime.NumCPU(), "tensors quantized in parallel (the bytes written are the same for any count)")
 	cmd.Flags().StringVar(&f.policyFile, "policy", "", "policy file (TOML [[rule]] tables) replacing the default policy")
 	cmd.Flags().StringArrayVar(&f.rules, "rule", nil, "rule GLOB=ACTION placed before the policy's rules (repeatable); actions: ternary, ternary:row, ternary:group:N, keep, keep:f16, keep:bf16, keep:f32, int8")
@@ -137,7 +139,10 @@ by default every 2-D float tensor except embeddings and the output head
 absmean method, and the rest is kept byte for byte. --policy FILE and
 --rule GLOB=ACTION choose other actions (ternary at tensor, row or group
 granularity, keep, keep:f16/bf16/f32, int8); --print-policy shows the policy
-in effect. The artifact is written to OUT atomically: on any error nothing
+in effect. The checkpoint's companion files (config, tokenizer, licence,
+model card: the default names are in README, "Companion files") are carried
+into the artifact; --companion GLOB adds, --no-companions drops them. The
+artifact is written to OUT atomically: on any error nothing
 is written at OUT.
 
 ` + caution + `.`,
@@ -176,7 +181,7 @@ is written at OUT.
 			start := time.Now()
 			bar := newProgressBar(cmd, "pack")
 			opts.Progress = bar.callback()
-			m, err := packFile(args[0], out, opts, rf.customPolicy(), cmd.ErrOrStderr())
+			m, err := packFile(args[0], out, opts, &rf.companions, rf.customPolicy(), cmd.ErrOrStderr())
 			bar.finish()
 			if err != nil {
 				return checkpointHint(err, args[0])
@@ -192,14 +197,18 @@ is written at OUT.
 	return cmd
 }
 
-// packFile opens src and builds the artifact at out. With warnUnmatched it
-// warns on stderr about rules that match no tensor of the source.
-func packFile(src, out string, opts pack.Options, warnUnmatched bool, stderr io.Writer) (*manifest.Manifest, error) {
+// packFile opens src and builds the artifact at out, carrying the
+// companion files comp selects. With warnUnmatched it warns on stderr about
+// rules that match no tensor of the source.
+func packFile(src, out string, opts pack.Options, comp *companionFlags, warnUnmatched bool, stderr io.Writer) (*manifest.Manifest, error) {
 	s, err := openSource(src, stderr)
 	if err != nil {
 		return nil, err
 	}
 	defer s.Close()
+	if opts.Companions, err = comp.find(s); err != nil {
+		return nil, err
+	}
 	if warnUnmatched && opts.Policy != nil {
 		for _, r := range opts.Policy.Unmatched(s.Tensors) {
 			fmt.Fprintf(stderr, "warning: rule %q matches no tensor of %s\n", r.String(), src)

@@ -39,6 +39,14 @@ type readResult struct {
 	Detail  string       `json:"detail,omitempty"`
 	Version string       `json:"version,omitempty"`
 	Tensors []readTensor `json:"tensors,omitempty"`
+	// Companions are the companion files (format 1.3).
+	Companions []readCompanion `json:"companions,omitempty"`
+}
+
+type readCompanion struct {
+	Name   string `json:"name"`
+	Length int64  `json:"length"`
+	SHA256 string `json:"sha256"`
 }
 
 type readTensor struct {
@@ -166,6 +174,11 @@ func goRead(t *testing.T, path string, withTrits bool) readResult {
 		}
 		r.Tensors = append(r.Tensors, rt)
 	}
+	for _, c := range a.Companions() {
+		b, err := a.Companion(c.Name)
+		require.NoError(t, err)
+		r.Companions = append(r.Companions, readCompanion{Name: c.Name, Length: int64(len(b)), SHA256: sha256Hex(b)})
+	}
 	return r
 }
 
@@ -246,6 +259,7 @@ func TestSecondReaderVectors(t *testing.T) {
 			Hex    string    `json:"hex"`
 			Scales []float32 `json:"scales"`
 		} `json:"tensors"`
+		Companions []readCompanion `json:"companions"`
 	}
 	require.NoError(t, json.Unmarshal(b, &vectors))
 	files := make([]string, len(vectors))
@@ -263,6 +277,7 @@ func TestSecondReaderVectors(t *testing.T) {
 			require.Equal(t, want.Hex, got.Hex, "%s %s", v.File, want.Name)
 			require.Equal(t, want.Scales, got.Scales, "%s %s", v.File, want.Name)
 		}
+		require.Equal(t, v.Companions, res[i].Companions, v.File)
 	}
 }
 

@@ -1,0 +1,67 @@
+package main
+
+import (
+	"fmt"
+	"path/filepath"
+	"strings"
+
+	"github.com/spf13/cobra"
+
+	"ternkit/convert"
+	"ternkit/pack"
+)
+
+// companionFlags choose the files pack carries beside the weights.
+type companionFlags struct {
+	extra []string // --companion GLOB
+	none  bool     // --no-companions
+}
+
+func (f *companionFlags) register(cmd *cobra.Command) {
+	cmd.Flags().StringArrayVar(&f.extra, "companion", nil, "also carry the files of the checkpoint's directory matching `GLOB` (a base-name pattern; repeatable)")
+	cmd.Flags().BoolVar(&f.none, "no-companions", false, "carry no companion files (config, tokenizer, licence, model card)")
+}
+
+// find lists the companions of the checkpoint s: the files of its
+// directory (a single file's own directory, an index's, a directory's)
+// matching the default names and the --companion patterns, each checked
+// as pack will carry it. A pattern with a path separator is a usage error.
+func (f *companionFlags) find(s *convert.Source) ([]pack.Companion, error) {
+	if f.none {
+		if len(f.extra) > 0 {
+			return nil, usagef("--no-companions and --companion %q contradict each other", f.extra[0])
+		}
+		return nil, nil
+	}
+	for _, g := range f.extra {
+		if strings.ContainsAny(g, `/\`) {
+			return nil, usagef("--companion %q: give a base-name pattern, matched in the checkpoint's directory", g)
+		}
+		if _, err := filepath.Match(g, ""); err != nil {
+			return nil, usagef("--companion %q: %v", g, err)
+		}
+	}
+	dir := filepath.Dir(s.Path)
+	cs, err := pack.FindCompanions(dir, append(append([]string{}, pack.DefaultCompanionGlobs...), f.extra...))
+	if err != nil {
+		return nil, err
+	}
+	// the source's own files are its weights, not companions
+	weights := map[string]bool{}
+	for _, sf := range s.Files {
+		weights[filepath.Base(sf.Path)] = true
+	}
+	weights[filepath.Base(s.Path)] = true
+	out := cs[:0]
+	for _, c := range cs {
+		if !weights[c.Name] {
+			out = append(out, c)
+		}
+	}
+	for _, c := range out {
+		if err := pack.CheckCompanion(c); err != nil {
+			return nil, fmt.Errorf("%w (leave it out with --no-companions)", err)
+		}
+	}
+	return out, nil
+}
