@@ -119,7 +119,7 @@ comparison, and writes the artifact's HTML report beside it. Nothing is download
 				return errVerifyFailed
 			}
 			// the behaviour check: the packed model against its source
-			if err := demoProbe(out, art, src, filepath.Join(dir, "config.json")); err != nil {
+			if err := demoProbe(out, art, src); err != nil {
 				return err
 			}
 			fmt.Fprintln(out, "(the projections are Gaussian, packed after training, except the last layer's down projection; a probe on two random sequences is a smoke test, not an evaluation)")

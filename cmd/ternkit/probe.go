@@ -52,8 +52,8 @@ over s; --activations float runs the trits on float32 activations. int8
 tensors are codes × row scale, kept tensors their stored values.
 
 The model config (config.json: widths, heads, rope_theta, hidden_act ...)
-comes from --config FILE, else from the config.json beside the source given
-with --against. Integer and BOOL tensors (a step counter) are not weights
+comes from --config FILE, else from the artifact's config.json companion,
+else from the config.json beside the source given with --against. Integer and BOOL tensors (a step counter) are not weights
 and are ignored; a float tensor the layout cannot place is an error.
 
 Probe tokens: --tokens FILE (token ids from your tokenizer, one sequence
@@ -78,7 +78,7 @@ or a golden check failed, 2 usage or input error.
 	}
 	fl := cmd.Flags()
 	fl.StringVar(&f.against, "against", "", "source checkpoint to compare with (file, index or directory)")
-	fl.StringVar(&f.config, "config", "", "model config (config.json); default: the one beside --against")
+	fl.StringVar(&f.config, "config", "", "model config (config.json); default: the artifact's companion, else the one beside --against")
 	fl.StringVar(&f.tokens, "tokens", "", "file of token ids, one sequence per line")
 	fl.IntVar(&f.seqs, "seqs", 2, "random probe sequences (without --tokens)")
 	fl.IntVar(&f.length, "len", 32, "tokens per random sequence")
@@ -99,23 +99,32 @@ or a golden check failed, 2 usage or input error.
 	return cmd
 }
 
-// probeConfig finds the model config: --config FILE, else config.json
-// beside the source given with --against. It returns the bytes and where
-// they came from.
-func probeConfig(a *pack.Artifact, configFlag, against string) ([]byte, string, error) {
+// probeConfig finds the model config: --config FILE, else the artifact's
+// companion config.json, else config.json beside the source given with
+// --against. It returns the bytes and where they came from.
+func probeConfig(a *pack.Artifact, art, configFlag, against string) ([]byte, string, error) {
+	if configFlag == "" {
+		if c := a.Manifest().Companion(probeConfigName); c != nil {
+			if c.Section.Length > modelconfig.MaxSize {
+				return nil, "", fmt.Errorf("%s: companion %s is %d bytes, above the %d-byte limit", art, probeConfigName, c.Section.Length, modelconfig.MaxSize)
+			}
+			data, err := a.Companion(probeConfigName)
+			return data, art + ":" + probeConfigName, err
+		}
+	}
 	path := configFlag
 	if path == "" && against != "" {
 		dir := against
 		if st, err := os.Stat(against); err == nil && !st.IsDir() {
 			dir = filepath.Dir(against)
 		}
-		path = filepath.Join(dir, "config.json")
+		path = filepath.Join(dir, probeConfigName)
 		if _, err := os.Stat(path); err != nil {
-			return nil, "", usagef("no model config: %s has none beside it; give --config FILE", against)
+			return nil, "", usagef("no model config: %s carries no %s companion and %s has none beside it; give --config FILE", art, probeConfigName, against)
 		}
 	}
 	if path == "" {
-		return nil, "", usagef("no model config: give --config FILE, or --against SRC with config.json beside it")
+		return nil, "", usagef("no model config: %s carries no %s companion; give --config FILE, or --against SRC with %s beside it", art, probeConfigName, probeConfigName)
 	}
 	st, err := os.Stat(path)
 	if err != nil {
@@ -127,6 +136,10 @@ func probeConfig(a *pack.Artifact, configFlag, against string) ([]byte, string, 
 	data, err := os.ReadFile(path)
 	return data, path, err
 }
+
+// probeConfigName is the model config's file name, beside a checkpoint or
+// as an artifact's companion.
+const probeConfigName = "config.json"
 
 func runProbe(cmd *cobra.Command, art string, f probeFlags) error {
 	fl := cmd.Flags()
@@ -165,7 +178,7 @@ func runProbe(cmd *cobra.Command, art string, f probeFlags) error {
 		return err
 	}
 	defer a.Close()
-	cfgBytes, cfgName, err := probeConfig(a, f.config, f.against)
+	cfgBytes, cfgName, err := probeConfig(a, art, f.config, f.against)
 	if err != nil {
 		return err
 	}
@@ -327,13 +340,13 @@ func printProbeJSON(w io.Writer, art string, f probeFlags, cfgName string, res *
 
 // demoProbe runs the demo's artifact against its source with the default
 // probe tokens and prints the comparison.
-func demoProbe(out io.Writer, art, src, cfgPath string) error {
+func demoProbe(out io.Writer, art, src string) error {
 	a, err := pack.Open(art)
 	if err != nil {
 		return err
 	}
 	defer a.Close()
-	data, err := os.ReadFile(cfgPath)
+	data, cfgPath, err := probeConfig(a, art, "", src)
 	if err != nil {
 		return err
 	}

@@ -69,10 +69,22 @@ func TestProbeCommand(t *testing.T) {
 	require.Equal(t, exitFailed, code, out)
 	require.Contains(t, out, "sequence 0 position 2")
 
-	// no config, a config the weights do not fit
-	code, _, errOut = ternkit("probe", art)
+	// the config comes from the artifact's companion by default; an
+	// artifact without one needs --config or a source with one beside it
+	code, out, errOut = ternkit("probe", art, "--seqs", "1", "--len", "4")
+	require.Equal(t, exitOK, code, errOut)
+	require.Contains(t, out, "config "+art+":config.json")
+	bare := filepath.Join(dir, "bare.tkart")
+	code, _, errOut = ternkit("pack", src, "-o", bare, "--no-companions", "-q")
+	require.Equal(t, exitOK, code, errOut)
+	code, _, errOut = ternkit("probe", bare)
 	require.Equal(t, exitInput, code)
 	require.Contains(t, errOut, "no model config")
+	code, out, errOut = ternkit("probe", bare, "--against", src, "--seqs", "1", "--len", "4")
+	require.Equal(t, exitOK, code, errOut)
+	require.Contains(t, out, "config "+cfg)
+
+	// a config the weights do not fit
 	bad := filepath.Join(dir, "bad.json")
 	c, err := os.ReadFile(cfg)
 	require.NoError(t, err)
