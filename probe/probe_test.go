@@ -236,3 +236,25 @@ func TestSourceNonFinite(t *testing.T) {
 		t.Error(err)
 	}
 }
+
+// TestCodecsSameLogits: the codec changes the bytes, never the model: an
+// artifact packed bits2, base3 and entropy gives the same logits.
+func TestCodecsSameLogits(t *testing.T) {
+	m := smallModel
+	m.seed = 5
+	seqs := RandomTokens(1, 10, m.vocab, 2)
+	var first []float32
+	for _, codec := range []pack.Codec{pack.Bits2, pack.Base3, pack.Entropy} {
+		src := m.write(t, t.TempDir())
+		res := probeBoth(t, m, packModel(t, src, codec, "model.layers.*.mlp.*_proj.weight=ternary:group:8"), src, ActInt8, seqs)
+		if first == nil {
+			first = res.Logits
+			continue
+		}
+		for i := range first {
+			if first[i] != res.Logits[i] {
+				t.Fatalf("%s: logit %d is %v, bits2 gave %v", codec, i, res.Logits[i], first[i])
+			}
+		}
+	}
+}
