@@ -76,3 +76,27 @@ func BenchmarkDotF32(b *testing.B) {
 		}
 	})
 }
+
+// BenchmarkFloatLinear is the source's product: a 5632 × 2048 float32
+// matrix times 64 tokens, the rows copied in as a decoder would give them.
+func BenchmarkFloatLinear(b *testing.B) {
+	const rows, cols, ntok = 5632, 2048, 64
+	rng := rand.New(rand.NewPCG(2, 2))
+	w := make([]float32, rows*cols)
+	for i := range w {
+		w[i] = float32(rng.NormFloat64())
+	}
+	x := make([]float32, ntok*cols)
+	for i := range x {
+		x[i] = float32(rng.NormFloat64())
+	}
+	b.SetBytes(rows * cols * ntok)
+	for b.Loop() {
+		if _, err := floatLinear(rows, cols, func(r0, r1 int, dst []float32) error {
+			copy(dst, w[r0*cols:r1*cols])
+			return nil
+		}, x, ntok); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
