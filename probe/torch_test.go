@@ -3,6 +3,7 @@ package probe
 import (
 	"bytes"
 	"encoding/json"
+	"fmt"
 	"math"
 	"os"
 	"os/exec"
@@ -28,39 +29,42 @@ func requireTorch(t *testing.T) string {
 	return py
 }
 
-// torchLogits runs testdata/forward_torch.py.
-func torchLogits(t *testing.T, py, model, config string, seqs [][]int32, ternary []string) []float32 {
+// torchJob is one forward pass for testdata/forward_torch.py.
+type torchJob struct {
+	Model   string    `json:"model"`
+	Config  string    `json:"config"`
+	Tokens  [][]int32 `json:"tokens"`
+	Ternary []string  `json:"ternary"` // nil: float activations everywhere
+}
+
+// torchLogits runs testdata/forward_torch.py once for every job.
+func torchLogits(t *testing.T, py string, jobs []torchJob) [][]float32 {
 	t.Helper()
-	dir := t.TempDir()
-	tok, _ := json.Marshal(seqs)
-	tokPath := filepath.Join(dir, "tokens.json")
-	if err := os.WriteFile(tokPath, tok, 0o644); err != nil {
+	data, _ := json.Marshal(jobs)
+	path := filepath.Join(t.TempDir(), "jobs.json")
+	if err := os.WriteFile(path, data, 0o644); err != nil {
 		t.Fatal(err)
 	}
-	args := []string{"testdata/forward_torch.py", model, config, tokPath}
-	if ternary != nil {
-		names, _ := json.Marshal(ternary)
-		p := filepath.Join(dir, "ternary.json")
-		if err := os.WriteFile(p, names, 0o644); err != nil {
-			t.Fatal(err)
-		}
-		args = append(args, "--int8", p)
-	}
 	var stderr bytes.Buffer
-	cmd := exec.Command(py, args...)
+	cmd := exec.Command(py, "testdata/forward_torch.py", path)
 	cmd.Stderr = &stderr
 	out, err := cmd.Output()
 	if err != nil {
 		t.Fatalf("forward_torch.py: %v\n%s", err, stderr.String())
 	}
-	var rows [][]float64
-	if err := json.Unmarshal(out, &rows); err != nil {
+	var res [][][]float64
+	if err := json.Unmarshal(out, &res); err != nil {
 		t.Fatal(err)
 	}
-	var flat []float32
-	for _, r := range rows {
-		for _, v := range r {
-			flat = append(flat, float32(v))
+	if len(res) != len(jobs) {
+		t.Fatalf("forward_torch.py: %d results for %d jobs", len(res), len(jobs))
+	}
+	flat := make([][]float32, len(res))
+	for j, rows := range res {
+		for _, r := range rows {
+			for _, v := range r {
+				flat[j] = append(flat[j], float32(v))
+			}
 		}
 	}
 	return flat
@@ -125,6 +129,16 @@ func agree(t *testing.T, what string, got, want []float32, vocab int, tol float6
 func TestAgainstTorch(t *testing.T) {
 	py := requireTorch(t)
 	const tol = 1e-4
+	type check struct {
+		what  string
+		vocab int
+		got   []float32
+		top1  bool // the top-1 token must agree everywhere
+	}
+	var (
+		jobs   []torchJob
+		checks []check
+	)
 	for _, m := range []tinyModel{
 		{hidden: 32, inter: 48, layers: 2, heads: 4, kv: 2, headDim: 8, vocab: 64, biases: true, innerNorms: true, seed: 11},
 		{hidden: 32, inter: 64, layers: 2, heads: 4, kv: 1, headDim: 16, vocab: 80, tied: true, act: "gelu_pytorch_tanh", seed: 12},
@@ -139,15 +153,15 @@ func TestAgainstTorch(t *testing.T) {
 		art := packModel(t, src, pack.Base3, "model.layers.*.self_attn.*_proj.weight=ternary:row", "model.layers.*.mlp.*_proj.weight=ternary:group:16")
 		arch := m.arch(t)
 		seqs := RandomTokens(2, 12, m.vocab, m.seed)
-		name := filepath.Base(dir)
+		name := fmt.Sprintf("model %d (%s, tied %v)", m.seed, arch.Act, m.tied)
 
 		sw, err := OpenSource(src)
 		if err != nil {
 			t.Fatal(err)
 		}
-		rel, top1 := agree(t, "source float32", runAlone(t, arch, sw, seqs), torchLogits(t, py, src, cfg, seqs, nil), m.vocab, tol)
+		checks = append(checks, check{name + " source float32", m.vocab, runAlone(t, arch, sw, seqs), false})
+		jobs = append(jobs, torchJob{Model: src, Config: cfg, Tokens: seqs})
 		sw.Close()
-		t.Logf("%s source: relative difference %.2g, top-1 agreement %.3f", name, rel, top1)
 
 		a, err := pack.Open(art)
 		if err != nil {
@@ -157,7 +171,7 @@ func TestAgainstTorch(t *testing.T) {
 		if err := pack.Unpack(a, unpacked, "F32"); err != nil {
 			t.Fatal(err)
 		}
-		var ternary []string
+		ternary := []string{}
 		for _, e := range a.Tensors() {
 			if e.Kind == manifest.KindTernary {
 				ternary = append(ternary, e.Name)
@@ -168,16 +182,21 @@ func TestAgainstTorch(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			var tern []string
+			job := torchJob{Model: unpacked, Config: cfg, Tokens: seqs}
 			if act == ActInt8 {
-				tern = ternary
+				job.Ternary = ternary
 			}
-			rel, top1 := agree(t, "artifact "+act, runAlone(t, arch, aw, seqs), torchLogits(t, py, unpacked, cfg, seqs, tern), m.vocab, tol)
-			t.Logf("%s artifact, %s activations: relative difference %.2g, top-1 agreement %.3f", name, act, rel, top1)
-			if top1 != 1 {
-				t.Errorf("artifact %s: top-1 agrees with torch at %.3f of positions, want all", act, top1)
-			}
+			checks = append(checks, check{name + " artifact, " + act + " activations", m.vocab, runAlone(t, arch, aw, seqs), true})
+			jobs = append(jobs, job)
 		}
 		a.Close()
+	}
+	want := torchLogits(t, py, jobs)
+	for i, c := range checks {
+		rel, top1 := agree(t, c.what, c.got, want[i], c.vocab, tol)
+		t.Logf("%s: relative difference %.2g, top-1 agreement %.3f", c.what, rel, top1)
+		if c.top1 && top1 != 1 {
+			t.Errorf("%s: top-1 agrees with torch at %.3f of positions, want all", c.what, top1)
+		}
 	}
 }

@@ -9,9 +9,12 @@ ternary matrices (Dettmers et al. 2022): s = 127 / max|x|,
 q = clamp(round(x * s), -128, 127) (torch.round rounds half to even),
 y = (q @ W.T) / s with W the dequantized weights (scale * trit).
 
-usage: forward_torch.py MODEL.safetensors CONFIG.json TOKENS.json [--int8 TERNARY.json]
-prints the logits as JSON: one list of vocab values per token, sequences
-one after another. Runs in float32.
+usage: forward_torch.py JOBS.json
+JOBS.json is a list of {"model": MODEL.safetensors, "config": CONFIG.json,
+"tokens": [[ids], ...], "ternary": [names] or null}; with "ternary" the
+named matrices run on 8-bit activations. Prints, as JSON, per job the
+logits: one list of vocab values per token, sequences one after another.
+Runs in float32; one process serves every job (torch starts once).
 """
 import json
 import math
@@ -38,12 +41,15 @@ def read_safetensors(path):
 
 
 def main():
-    w = read_safetensors(sys.argv[1])
-    cfg = json.load(open(sys.argv[2]))
-    seqs = json.load(open(sys.argv[3]))
-    ternary = set()
-    if len(sys.argv) > 5 and sys.argv[4] == "--int8":
-        ternary = set(json.load(open(sys.argv[5])))
+    jobs = json.load(open(sys.argv[1]))
+    json.dump([forward(j) for j in jobs], sys.stdout)
+
+
+def forward(job):
+    w = read_safetensors(job["model"])
+    cfg = json.load(open(job["config"]))
+    seqs = job["tokens"]
+    ternary = set(job["ternary"] or [])
 
     H = cfg["hidden_size"]
     nh = cfg["num_attention_heads"]
@@ -116,7 +122,7 @@ def main():
         x = rmsnorm(x, w["model.norm.weight"])
         head = w["lm_head.weight"] if "lm_head.weight" in w else w["model.embed_tokens.weight"]
         logits.extend((x @ head.T).tolist())
-    json.dump(logits, sys.stdout)
+    return logits
 
 
 if __name__ == "__main__":
