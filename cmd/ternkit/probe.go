@@ -53,8 +53,11 @@ tensors are codes × row scale, kept tensors their stored values.
 
 The model config (config.json: widths, heads, rope_theta, hidden_act ...)
 comes from --config FILE, else from the artifact's config.json companion,
-else from the config.json beside the source given with --against. Integer and BOOL tensors (a step counter) are not weights
-and are ignored; a float tensor the layout cannot place is an error.
+else from the config.json beside the source given with --against. Integer
+and BOOL tensors (a step counter) are not weights and are ignored; a float
+tensor the layout cannot place is an error. Optional tensors:
+self_attn.{q,k,v}_proj.bias, and RMSNorm weights self_attn.inner_norm
+(before o_proj) and mlp.inner_norm (before down_proj).
 
 Probe tokens: --tokens FILE (token ids from your tokenizer, one sequence
 per line), else --seqs N sequences of --len L ids drawn with --seed S.
