@@ -212,17 +212,22 @@ func (w *ArtifactWeights) Linear(name string, x []float32, ntok int) ([]float32,
 // QuantizeInt8 quantizes one token's activations to 8 bits by absmax:
 // s = 127 / max|x| (float32), q = clip(round(x·s), −128, 127), rounding
 // x·s (a float32 product) half to even, as tensor libraries round. An
-// all-zero x gives s = 0 and zero codes.
+// all-zero x, or one so small that s overflows float32 (max|x| below
+// 127 / 3.4e38), gives s = 0 and zero codes: the layer's output is 0; a
+// NaN in x gives s = NaN, so the output is NaN.
 func QuantizeInt8(q []int8, x []float32) (s float32) {
 	var amax float32
 	for _, v := range x {
 		amax = max(amax, float32(math.Abs(float64(v))))
 	}
-	if amax == 0 {
+	s = 127 / amax
+	if amax == 0 || math.IsInf(float64(s), 0) || amax != amax {
 		clear(q)
+		if amax != amax {
+			return amax // NaN in, NaN out: the layer's output is NaN
+		}
 		return 0
 	}
-	s = 127 / amax
 	for i, v := range x {
 		r := math.RoundToEven(float64(v * s))
 		q[i] = int8(max(-128, min(127, r)))

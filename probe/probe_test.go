@@ -76,6 +76,7 @@ func TestQuantizeInt8HandWorked(t *testing.T) {
 		{[]float32{0.5, -1, 0.25, 0.0039}, 127, []int8{64, -127, 32, 0}},
 		{[]float32{0.45, 12.7}, 10, []int8{4, 127}},
 		{[]float32{0, 0}, 0, []int8{0, 0}},
+		{[]float32{1e-40, -1e-41}, 0, []int8{0, 0}}, // 127 / 1e-40 overflows float32
 	} {
 		q := make([]int8, len(c.x))
 		s := QuantizeInt8(q, c.x)
