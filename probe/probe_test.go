@@ -2,10 +2,13 @@ package probe
 
 import (
 	"errors"
+	"fmt"
 	"math"
+	"path/filepath"
 	"strings"
 	"testing"
 
+	"ternkit/convert"
 	"ternkit/pack"
 )
 
@@ -226,15 +229,28 @@ func TestGoldenRoundTrip(t *testing.T) {
 	}
 }
 
+// TestSourceNonFinite: a NaN or infinity in a source block is an error
+// naming the tensor and the element's byte offset in the file.
 func TestSourceNonFinite(t *testing.T) {
-	for _, v := range []float32{float32(math.NaN()), float32(math.Inf(-1))} {
-		err := finite("f", "w", 100, 4, []float32{1, 2, v})
-		if err == nil || !strings.Contains(err.Error(), "byte 108") {
-			t.Errorf("%v: %v", v, err)
-		}
+	path := filepath.Join(t.TempDir(), "bad.safetensors")
+	v := make([]float32, 3*blockElems)
+	v[2*blockElems+5] = float32(math.Inf(-1))
+	data, err := convert.EncodeFloat32(nil, "F32", v)
+	if err != nil {
+		t.Fatal(err)
 	}
-	if err := finite("f", "w", 0, 4, []float32{3e38, -0, 1e-45}); err != nil {
-		t.Error(err)
+	if err := convert.WriteFile(path, []convert.WriteTensor{{Name: "w", DType: "F32", Shape: []int64{3 * blockElems, 1}, Data: data}}, nil); err != nil {
+		t.Fatal(err)
+	}
+	sw, err := OpenSource(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer sw.Close()
+	_, err = sw.Linear("w", []float32{1}, 1)
+	want := fmt.Sprintf("byte %d", sw.byName["w"].Offset+4*int64(2*blockElems+5))
+	if !errors.Is(err, convert.ErrNonFinite) || !strings.Contains(err.Error(), want) {
+		t.Errorf("%v, want ErrNonFinite at %s", err, want)
 	}
 }
 

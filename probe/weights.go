@@ -2,7 +2,6 @@ package probe
 
 import (
 	"fmt"
-	"math"
 	"os"
 	"runtime"
 	"sync"
@@ -184,30 +183,11 @@ func (w *SourceWeights) read(t *convert.Tensor, i0, i1 int, dst []float32) error
 	if _, err := w.files[t.File].ReadAt(raw, off); err != nil {
 		return &convert.InputError{File: t.File, Tensor: t.Name, Offset: off, Err: fmt.Errorf("%w: %w", convert.ErrTruncated, err)}
 	}
-	if err := convert.DecodeFloat32(t.DType, raw, dst); err != nil {
-		return &convert.InputError{File: t.File, Tensor: t.Name, Offset: off, Err: err}
-	}
-	return finite(t.File, t.Name, off, size, dst)
-}
-
-// finite reports the first NaN or infinity among weights.
-func finite(file, tensor string, off int64, size int, v []float32) error {
-	// a float32 is NaN or ±Inf exactly when its exponent bits are all set:
-	// one branch-free pass finds whether any is, a second which
-	var bad uint32
-	for _, x := range v {
-		e := ^math.Float32bits(x) & 0x7f800000
-		bad |= (e - 1) & 0x80000000
-	}
-	if bad == 0 {
-		return nil
-	}
-	for i, x := range v {
-		if math.IsNaN(float64(x)) || math.IsInf(float64(x), 0) {
-			return &convert.InputError{File: file, Tensor: tensor, Offset: off + int64(i*size), Err: fmt.Errorf("%w: weight is %v", convert.ErrNonFinite, x)}
-		}
-	}
-	return nil
+	// DecodeWeights decodes (BF16 by the vector kernel) and reports the
+	// first NaN or infinity with its byte offset, here of this block
+	block := *t
+	block.Offset = off
+	return block.DecodeWeights(raw, dst)
 }
 
 func (w *SourceWeights) Vector(name string) ([]float32, error) {
