@@ -11,7 +11,20 @@ const dotLanes = 32
 func dotF32(a, b []float32) float32 {
 	b = b[:len(a)]
 	var s [dotLanes]float32
-	n := dotBulk(a, b, &s)
+	return dotFinish(a, b, dotBulk(a, b, &s), &s)
+}
+
+// dot2F32 is (dotF32(w, x0), dotF32(w, x1)), bit for bit, with each weight
+// loaded once.
+func dot2F32(w, x0, x1 []float32) (float32, float32) {
+	x0, x1 = x0[:len(w)], x1[:len(w)]
+	var s0, s1 [dotLanes]float32
+	n := dotBulk2(w, x0, x1, &s0, &s1)
+	return dotFinish(w, x0, n, &s0), dotFinish(w, x1, n, &s1)
+}
+
+// dotFinish adds the elements from n on to their lanes, then the lanes.
+func dotFinish(a, b []float32, n int, s *[dotLanes]float32) float32 {
 	for i := n; i < len(a); i++ {
 		s[i%dotLanes] += float32(a[i] * b[i])
 	}

@@ -40,6 +40,17 @@ func TestDotF32MatchesPortable(t *testing.T) {
 			t.Fatalf("length %d: %v, portable %v", n, got, want)
 		}
 	}
+	// two vectors sharing the weights: the same bits as one at a time
+	for n := range 601 {
+		w, x0, x1 := make([]float32, n), make([]float32, n), make([]float32, n)
+		for i := range w {
+			w[i], x0[i], x1[i] = float32(rng.NormFloat64()), float32(rng.NormFloat64()*1e3), float32(rng.NormFloat64())
+		}
+		g0, g1 := dot2F32(w, x0, x1)
+		if w0, w1 := dotPortable(w, x0), dotPortable(w, x1); math.Float32bits(g0) != math.Float32bits(w0) || math.Float32bits(g1) != math.Float32bits(w1) {
+			t.Fatalf("length %d: two at once %v %v, portable %v %v", n, g0, g1, w0, w1)
+		}
+	}
 	// the sum itself, against float64
 	a := []float32{1, 2, 3, 4, 5}
 	if got := dotF32(a, a); got != 55 {

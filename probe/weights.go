@@ -57,7 +57,14 @@ func floatLinear(rows, cols int, dec rowDecoder, x []float32, ntok int) ([]float
 			if err := dec(r0, r1, w); err != nil {
 				return err
 			}
-			for t := range ntok {
+			t := 0
+			for ; t+2 <= ntok; t += 2 {
+				x0, x1 := x[t*cols:(t+1)*cols], x[(t+1)*cols:(t+2)*cols]
+				for r := r0; r < r1; r++ {
+					y[t*rows+r], y[(t+1)*rows+r] = dot2F32(w[(r-r0)*cols:(r-r0+1)*cols], x0, x1)
+				}
+			}
+			if t < ntok {
 				xt := x[t*cols : (t+1)*cols]
 				for r := r0; r < r1; r++ {
 					y[t*rows+r] = dotF32(w[(r-r0)*cols:(r-r0+1)*cols], xt)
