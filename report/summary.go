@@ -5,14 +5,10 @@
 package report
 
 import (
-	"fmt"
-	"io"
-	"os"
 	"strings"
 
-	"github.com/zeebo/blake3"
-
 	"ternkit/convert"
+	"ternkit/internal/filedigest"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
@@ -57,6 +53,7 @@ type Summary struct {
 	Artifact       string          `json:"artifact"`
 	Bytes          int64           `json:"bytes"`
 	FileBLAKE3     string          `json:"file_blake3"`
+	SHA256         string          `json:"sha256"` // of the whole file, as sha256sum prints it
 	ManifestBLAKE3 string          `json:"manifest_blake3"`
 	Tool           string          `json:"tool"`
 	Created        string          `json:"created,omitempty"` // set when the build had SOURCE_DATE_EPOCH
@@ -78,11 +75,13 @@ func Summarize(path string) (*Summary, error) {
 		return nil, err
 	}
 	defer a.Close()
-	sum, err := fileBLAKE3(path)
+	d, err := filedigest.File(path)
 	if err != nil {
 		return nil, err
 	}
-	return summarize(path, a, sum), nil
+	s := summarize(path, a, d.BLAKE3)
+	s.SHA256 = d.SHA256
+	return s, nil
 }
 
 func summarize(path string, a *pack.Artifact, fileSum string) *Summary {
@@ -126,21 +125,6 @@ func ratio(a, b int64) float64 {
 		return 0
 	}
 	return float64(a) / float64(b)
-}
-
-func fileBLAKE3(path string) (string, error) {
-	f, err := os.Open(path)
-	if err != nil {
-		return "", err
-	}
-	defer f.Close()
-	h := blake3.New()
-	if _, err := io.Copy(h, f); err != nil {
-		return "", fmt.Errorf("read %s: %w", path, err)
-	}
-	var sum [32]byte
-	h.Sum(sum[:0])
-	return manifest.HexHash(sum), nil
 }
 
 // Layer is a group of tensors that belong to one layer of the model:

@@ -3,6 +3,7 @@ package sign
 import (
 	"fmt"
 	"io"
+	"io/fs"
 	"os"
 
 	"ternkit/internal/atomicfile"
@@ -43,61 +44,88 @@ func WriteKeyPair(name string, k *PrivateKey) (keyPath, pubPath string, err erro
 	return keyPath, pubPath, nil
 }
 
-// ReadPrivateKeyFile reads a private key file. It refuses, with an error
-// wrapping ErrKeyPermissions, a file that group or others may access.
+// ReadPrivateKeyFile reads a private key file: ternkit's own, PKCS#8 PEM
+// (as openssl genpkey writes it) or an unencrypted OpenSSH private key
+// (as ssh-keygen -t ed25519 -N ” writes it). It refuses, with an error
+// wrapping ErrKeyPermissions, a file that group or others may access, with
+// one wrapping ErrEncryptedKey a passphrase-protected key, and says so
+// when given a public key.
 func ReadPrivateKeyFile(path string) (*PrivateKey, error) {
-	text, err := readSmallFile(path, true)
+	text, st, err := readSmallFile(path)
 	if err != nil {
 		return nil, err
 	}
-	return parsePrivateKey(path, text)
+	if classify(text) != kindPublic {
+		if perm := st.Mode().Perm(); perm&0o077 != 0 {
+			return nil, fmt.Errorf("%w: %s has mode %04o; group and others must have no access (chmod 600 %s)", ErrKeyPermissions, path, perm, path)
+		}
+	}
+	return parseAnyPrivateKey(path, text)
 }
 
-// ReadPublicKeyFile reads a public key file.
+// ReadPublicKeyFile reads a public key file: ternkit's own,
+// SubjectPublicKeyInfo PEM (as openssl pkey -pubout writes it) or an
+// OpenSSH "ssh-ed25519 AAAA... comment" line. Keys that are not a
+// canonical point encoding, or of small order, are refused (ErrWeakKey).
 func ReadPublicKeyFile(path string) (*PublicKey, error) {
-	text, err := readSmallFile(path, false)
+	text, _, err := readSmallFile(path)
 	if err != nil {
 		return nil, err
 	}
-	return parsePublicKey(path, text)
+	return parseAnyPublicKey(path, text)
 }
 
-// WriteSignatureFile writes s to path atomically (mode 0644), replacing
-// an older signature.
+// WriteSignatureFile writes s in its form to path atomically (mode 0644),
+// replacing an older signature.
 func WriteSignatureFile(path string, s *Signature) error {
-	return atomicfile.WriteFile(path, s.marshalText(), PublicKeyMode)
+	text := s.marshalText()
+	if s.ssh != nil {
+		text = s.marshalSSH()
+	}
+	return atomicfile.WriteFile(path, text, PublicKeyMode)
 }
 
-// ReadSignatureFile reads a signature file.
+// ReadSignatureFile reads a signature file, in ternkit's text form or the
+// armored SSH signature form.
 func ReadSignatureFile(path string) (*Signature, error) {
-	text, err := readSmallFile(path, false)
+	text, _, err := readSmallFile(path)
 	if err != nil {
 		return nil, err
 	}
-	return parseSignature(path, text)
+	return parseAnySignature(path, text)
 }
 
-// readSmallFile reads at most maxFileLen+1 bytes of a regular file, so that
-// the parser can reject an oversized one without loading it.
-func readSmallFile(path string, private bool) ([]byte, error) {
+// maxReadLen bounds what a reader loads of a key or signature file; every
+// accepted file is far shorter.
+const maxReadLen = 64 << 10
+
+// readSmallFile reads at most maxReadLen+1 bytes of a regular file, so
+// that the parser can reject an oversized one without loading it.
+func readSmallFile(path string) ([]byte, fs.FileInfo, error) {
+	// a FIFO or device would block the open or the read: refuse it first
+	if st, err := os.Stat(path); err != nil {
+		return nil, nil, err
+	} else if !st.Mode().IsRegular() {
+		return nil, nil, fmt.Errorf("%w: %s is not a regular file", ErrFormat, path)
+	}
 	f, err := os.Open(path)
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	defer f.Close()
 	st, err := f.Stat()
 	if err != nil {
-		return nil, err
+		return nil, nil, err
 	}
 	if !st.Mode().IsRegular() {
-		return nil, fmt.Errorf("%w: %s is not a regular file", ErrFormat, path)
+		return nil, nil, fmt.Errorf("%w: %s is not a regular file", ErrFormat, path)
 	}
-	if perm := st.Mode().Perm(); private && perm&0o077 != 0 {
-		return nil, fmt.Errorf("%w: %s has mode %04o; group and others must have no access (chmod 600 %s)", ErrKeyPermissions, path, perm, path)
-	}
-	text, err := io.ReadAll(io.LimitReader(f, maxFileLen+1))
+	text, err := io.ReadAll(io.LimitReader(f, maxReadLen+1))
 	if err != nil {
-		return nil, fmt.Errorf("read %s: %w", path, err)
+		return nil, nil, fmt.Errorf("read %s: %w", path, err)
 	}
-	return text, nil
+	if len(text) > maxReadLen {
+		return nil, nil, fmt.Errorf("%w: %s is longer than any key or signature file (%d bytes)", ErrFormat, path, maxReadLen)
+	}
+	return text, st, nil
 }

@@ -32,6 +32,12 @@ var (
 	// ErrKeyPermissions reports a private key file that group or others
 	// may access.
 	ErrKeyPermissions = errors.New("private key file permissions too open")
+	// ErrWeakKey reports an ed25519 public key that is not the canonical
+	// encoding of a curve point, or a point of small order.
+	ErrWeakKey = errors.New("unsafe ed25519 public key")
+	// ErrEncryptedKey reports a passphrase-protected private key; ternkit
+	// never prompts for a passphrase.
+	ErrEncryptedKey = errors.New("private key is encrypted")
 )
 
 // PublicKey checks signatures.
@@ -40,11 +46,14 @@ type PublicKey struct{ key ed25519.PublicKey }
 // PrivateKey makes signatures.
 type PrivateKey struct{ key ed25519.PrivateKey }
 
-// Signature is a signature over one manifest hash.
+// Signature is a signature over one manifest hash, in ternkit's text form
+// (Sign) or the SSH signature form (SignSSH).
 type Signature struct {
 	KeyID        string   // ID of the signing key
-	ManifestHash [32]byte // BLAKE3 of the signed manifest
+	ManifestHash [32]byte // BLAKE3 of the signed manifest (text form only; the SSH form does not record it)
 	Ed25519      [ed25519.SignatureSize]byte
+
+	ssh *sshSig // set for the SSH form
 }
 
 // GenerateKey makes a new key pair from rand (crypto/rand.Reader when nil).
@@ -86,6 +95,9 @@ func (k *PrivateKey) Sign(manifestHash [32]byte) *Signature {
 // Verify checks that s is k's signature over manifestHash. It returns an
 // error wrapping ErrWrongKey, ErrManifestChanged or ErrBadSignature.
 func (k *PublicKey) Verify(s *Signature, manifestHash [32]byte) error {
+	if s.ssh != nil {
+		return k.verifySSH(s, manifestHash)
+	}
 	if id := k.ID(); s.KeyID != id {
 		return fmt.Errorf("%w: signed by key %s, checked with key %s", ErrWrongKey, s.KeyID, id)
 	}

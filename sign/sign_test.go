@@ -132,8 +132,12 @@ func TestKeyFiles(t *testing.T) {
 	_, err = ReadPublicKeyFile(keyPath)
 	require.ErrorIs(t, err, ErrFormat)
 	require.Contains(t, err.Error(), "private key file")
+	// A public key where the private one is needed is named as such, not
+	// refused for the permissions a public key file rightly has.
 	_, err = ReadPrivateKeyFile(pubPath)
-	require.ErrorIs(t, err, ErrKeyPermissions, "a .pub file is world-readable")
+	require.ErrorIs(t, err, ErrFormat)
+	require.NotErrorIs(t, err, ErrKeyPermissions)
+	require.Contains(t, err.Error(), pubPath+" is a public key")
 }
 
 // A private key file that group or others may read is refused.

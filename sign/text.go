@@ -107,7 +107,10 @@ func parsePublicKey(what string, text []byte) (*PublicKey, error) {
 	if err != nil {
 		return nil, err
 	}
-	k := &PublicKey{key: ed25519.PublicKey(raw)}
+	k, err := newPublicKey(raw)
+	if err != nil {
+		return nil, fmt.Errorf("%s: %w", what, err)
+	}
 	if err := checkKeyID(what, v[0], k); err != nil {
 		return nil, err
 	}

@@ -83,3 +83,20 @@ func BenchmarkRunHashPeer(b *testing.B) {
 		blake3.Sum256(data)
 	}
 }
+
+// BenchmarkRunDigests is BenchmarkRun with the whole file's SHA-256 and
+// BLAKE3 (verify --json): what the digests add to a verification.
+func BenchmarkRunDigests(b *testing.B) {
+	art := benchArtifact(b)
+	st, err := os.Stat(art)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.SetBytes(st.Size())
+	for b.Loop() {
+		rep, err := Run(art, Options{Digests: true})
+		if err != nil || !rep.OK() || rep.SHA256 == "" {
+			b.Fatalf("verify: %v %+v", err, rep.Failures())
+		}
+	}
+}

@@ -2,8 +2,10 @@ package verify
 
 import (
 	"errors"
+	"io"
 	"io/fs"
 
+	"ternkit/internal/filedigest"
 	"ternkit/pack"
 	"ternkit/sign"
 )
@@ -11,29 +13,46 @@ import (
 // CheckSignature is the check that a key signed the artifact's manifest.
 const CheckSignature = "signature"
 
-// AddSignatureCheck adds to rep the check that key signed the manifest of the
-// artifact at path, with the signature read from sigPath. A missing or
-// malformed signature file, another key's signature, or a manifest changed
-// since signing fails the check; so does an artifact that cannot be opened.
-func AddSignatureCheck(rep *Report, path string, key *sign.PublicKey, sigPath string) {
-	a, err := pack.Open(path)
-	if err != nil {
-		rep.add(CheckSignature, "", false, "not checked: %v", err)
-		return
-	}
-	hash := a.ManifestHash()
-	a.Close()
-	s, err := sign.ReadSignatureFile(sigPath)
+// Signature asks Run for the check that Key signed the artifact's
+// manifest, with the signature (either form of sign/FORMAT.md) read from
+// Path.
+type Signature struct {
+	Key  *sign.PublicKey
+	Path string
+}
+
+// checkSignature adds the signature check for the manifest hash read from
+// the artifact's one open file. A missing or malformed signature file,
+// another key's signature, or a manifest changed since signing fails it.
+func checkSignature(rep *Report, hash [32]byte, opt *Signature) {
+	s, err := sign.ReadSignatureFile(opt.Path)
 	switch {
 	case errors.Is(err, fs.ErrNotExist):
-		rep.add(CheckSignature, "", false, "no signature file %s (want one made by key %s)", sigPath, key.ID())
+		rep.add(CheckSignature, "", false, "no signature file %s (want one made by key %s)", opt.Path, opt.Key.ID())
 	case err != nil:
 		rep.add(CheckSignature, "", false, "%v", err)
 	default:
-		if err := key.Verify(s, hash); err != nil {
-			rep.add(CheckSignature, "", false, "%s: %v", sigPath, err)
+		if err := opt.Key.Verify(s, hash); err != nil {
+			rep.add(CheckSignature, "", false, "%s: %v", opt.Path, err)
 		} else {
-			rep.add(CheckSignature, "", true, "signed by key %s", key.ID())
+			rep.add(CheckSignature, "", true, "%s signature by key %s (%s)", s.Form(), opt.Key.ID(), opt.Path)
 		}
 	}
+}
+
+// digests fills rep's SHA256 and BLAKE3 of the whole artifact in one pass
+// over its bytes: the mapping when there is one, else the open file.
+func digests(rep *Report, a *pack.Artifact, mapped []byte) error {
+	both := filedigest.New()
+	if mapped != nil {
+		err := artifactBytes{a.ReaderAt(), mapped}.guard(func() { both.Write(mapped) })
+		if err != nil {
+			return err
+		}
+	} else if _, err := io.Copy(both, io.NewSectionReader(a.ReaderAt(), 0, a.Size())); err != nil {
+		return err
+	}
+	d := both.Digests()
+	rep.SHA256, rep.BLAKE3 = d.SHA256, d.BLAKE3
+	return nil
 }

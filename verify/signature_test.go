@@ -2,6 +2,8 @@ package verify
 
 import (
 	"bytes"
+	"crypto/sha256"
+	"encoding/hex"
 	"os"
 	"path/filepath"
 	"testing"
@@ -33,9 +35,8 @@ func TestSignatureCheck(t *testing.T) {
 	require.NoError(t, err)
 	sigPath := sign.SignaturePath(art)
 	run := func(k *sign.PublicKey) *Report {
-		rep, err := Run(art, Options{})
+		rep, err := Run(art, Options{Signature: &Signature{Key: k, Path: sigPath}})
 		require.NoError(t, err)
-		AddSignatureCheck(rep, art, k, sigPath)
 		return rep
 	}
 
@@ -66,8 +67,8 @@ func TestSignatureCheck(t *testing.T) {
 	// An unreadable artifact reports the signature as not checked.
 	bad := filepath.Join(dir, "bad.tkart")
 	require.NoError(t, os.WriteFile(bad, []byte("not an artifact"), 0o644))
-	rep = &Report{Artifact: bad}
-	AddSignatureCheck(rep, bad, key.Public(), sigPath)
+	rep, err = Run(bad, Options{Signature: &Signature{Key: key.Public(), Path: sigPath}})
+	require.NoError(t, err)
 	require.False(t, rep.OK())
 	require.Contains(t, signatureCheck(t, rep).Detail, "not checked")
 }
@@ -96,8 +97,113 @@ func TestSignatureCoversEveryManifestByte(t *testing.T) {
 		sum := blake3.Sum256(b[start:end])
 		copy(b[end+16:end+48], sum[:])
 		require.NoError(t, os.WriteFile(bad, b, 0o644))
+		// what Run does first, without the section checks after it
+		a, err := pack.Open(bad)
+		opt := &Signature{Key: key.Public(), Path: sign.SignaturePath(bad)}
 		rep := &Report{Artifact: bad}
-		AddSignatureCheck(rep, bad, key.Public(), sign.SignaturePath(bad))
+		if err != nil {
+			// a manifest the reader refuses: Run stops at the structure
+			// check, and reports the signature as not checked
+			rep, err = Run(bad, Options{Signature: opt})
+			require.NoError(t, err)
+		} else {
+			checkSignature(rep, a.ManifestHash(), opt)
+			a.Close()
+		}
 		require.False(t, signatureCheck(t, rep).OK, "manifest byte %d", i)
 	}
+}
+
+// The signature is checked first, right after the manifest: before any
+// section check in the report.
+func TestSignatureCheckedFirst(t *testing.T) {
+	dir := t.TempDir()
+	_, art := fixture(t, dir, pack.Base3, nil)
+	key, err := sign.GenerateKey(nil)
+	require.NoError(t, err)
+	rep, err := Run(art, Options{Signature: &Signature{Key: key.Public(), Path: sign.SignaturePath(art)}})
+	require.NoError(t, err)
+	require.Equal(t, CheckStructure, rep.Checks[0].Name)
+	require.Equal(t, CheckSignature, rep.Checks[1].Name)
+	require.False(t, rep.Checks[1].OK)
+	require.Greater(t, len(rep.Checks), 2, "the sections are still checked")
+}
+
+// Signature and sections are read from one open file: a file renamed over
+// the artifact's path between the signature check and the section checks
+// changes neither outcome. With two opens of the path, the sections of the
+// replacement (here: damaged) would be checked, against a signature made
+// for the original, or a valid signature would vouch for bytes it never
+// covered.
+func TestSignatureAndSectionsFromOneOpenFile(t *testing.T) {
+	dir := t.TempDir()
+	_, art := fixture(t, dir, pack.Bits2, nil)
+	key, err := sign.GenerateKey(nil)
+	require.NoError(t, err)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	require.NoError(t, sign.WriteSignatureFile(sign.SignaturePath(art), key.Sign(a.ManifestHash())))
+	firstSection := a.Tensors()[0].Sections()[0].Offset
+	a.Close()
+
+	damaged := bytes.Clone(readBytes(t, art))
+	damaged[firstSection] ^= 0xff
+	swap := filepath.Join(dir, "swap.tkart")
+	require.NoError(t, os.WriteFile(swap, damaged, 0o644))
+	swapped := false
+	opts := Options{Signature: &Signature{Key: key.Public(), Path: sign.SignaturePath(art)}}
+	opts.afterSignature = func() {
+		if fds, err := os.ReadDir("/proc/self/fd"); err == nil { // Linux: count the open files of the path
+			open := 0
+			for _, fd := range fds {
+				if target, err := os.Readlink(filepath.Join("/proc/self/fd", fd.Name())); err == nil && target == art {
+					open++
+				}
+			}
+			require.Equal(t, 1, open, "one open file of the artifact")
+		}
+		require.NoError(t, os.Rename(swap, art))
+		swapped = true
+	}
+	rep, err := Run(art, opts)
+	require.NoError(t, err)
+	require.True(t, swapped)
+	require.True(t, rep.OK(), "the checked bytes are the ones opened, which were signed: %+v", rep.Failures())
+	require.True(t, signatureCheck(t, rep).OK)
+
+	// the path now holds the damaged file: a fresh run fails its section
+	rep, err = Run(art, Options{Signature: &Signature{Key: key.Public(), Path: sign.SignaturePath(art)}})
+	require.NoError(t, err)
+	require.False(t, rep.OK())
+	require.True(t, signatureCheck(t, rep).OK, "the manifest is unchanged")
+	require.NotEmpty(t, rep.Failures())
+}
+
+func readBytes(t *testing.T, path string) []byte {
+	t.Helper()
+	b, err := os.ReadFile(path)
+	require.NoError(t, err)
+	return b
+}
+
+// Digests of the whole artifact, read from the open file, equal
+// crypto/sha256 and BLAKE3 over the file's bytes, mapped or not.
+func TestReportDigests(t *testing.T) {
+	dir := t.TempDir()
+	_, art := fixture(t, dir, pack.Base3, nil)
+	b := readBytes(t, art)
+	want256 := sha256.Sum256(b)
+	want3 := blake3.Sum256(b)
+	rep, err := Run(art, Options{Digests: true})
+	require.NoError(t, err)
+	require.True(t, rep.OK())
+	require.Equal(t, hex.EncodeToString(want256[:]), rep.SHA256)
+	require.Equal(t, hex.EncodeToString(want3[:]), rep.BLAKE3)
+	rep, err = RunReaderAt(art, bytes.NewReader(b), int64(len(b)), Options{Digests: true})
+	require.NoError(t, err)
+	require.Equal(t, hex.EncodeToString(want256[:]), rep.SHA256)
+	require.Equal(t, hex.EncodeToString(want3[:]), rep.BLAKE3)
+	rep, err = Run(art, Options{})
+	require.NoError(t, err)
+	require.Empty(t, rep.SHA256)
 }

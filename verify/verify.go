@@ -49,7 +49,17 @@ type Report struct {
 	Warnings []string `json:"warnings,omitempty"`
 	Passed   int      `json:"passed"`
 	Failed   int      `json:"failed"`
+	// SHA256 and BLAKE3 of the whole artifact, in lowercase hex, with
+	// Options.Digests.
+	SHA256 string `json:"sha256,omitempty"`
+	BLAKE3 string `json:"blake3,omitempty"`
+
+	manifestHash [32]byte
 }
+
+// ManifestHash is the BLAKE3 of the manifest the report's checks were
+// made against (zero when the artifact could not be read).
+func (r *Report) ManifestHash() [32]byte { return r.manifestHash }
 
 // OK reports whether every check passed.
 func (r *Report) OK() bool { return r.Failed == 0 && r.Passed > 0 }
@@ -102,6 +112,15 @@ type Options struct {
 	// once before the first read and after each section and source tensor.
 	// It runs on Run's goroutine and must return quickly.
 	Progress func(done, total int64)
+	// Signature, when set, requires a valid signature over the manifest,
+	// checked right after the manifest is read, before any section, from
+	// the same open file as every other check.
+	Signature *Signature
+	// Digests, when set, fills the report's SHA256 and BLAKE3 of the whole
+	// artifact, read from the same open file.
+	Digests bool
+
+	afterSignature func() // test hook: runs between the signature and the section checks
 }
 
 // progressFunc returns the function Run calls after reading n bytes.
@@ -151,6 +170,9 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		var fe *pack.FormatError
 		if errors.As(openErr, &fe) {
 			rep.add(CheckStructure, "", false, "%v", openErr)
+			if opts.Signature != nil {
+				rep.add(CheckSignature, "", false, "not checked: the artifact's structure is invalid")
+			}
 			return rep, nil
 		}
 		if errors.Is(openErr, fs.ErrNotExist) || errors.Is(openErr, fs.ErrPermission) {
@@ -160,13 +182,32 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	}
 	defer a.Close()
 	rep.add(CheckStructure, "", true, "")
+	rep.manifestHash = a.ManifestHash()
+	if opts.Signature != nil {
+		checkSignature(rep, rep.manifestHash, opts.Signature)
+	}
+	if opts.afterSignature != nil {
+		opts.afterSignature()
+	}
 	mapped := mapArtifact(a)
 	advance := progressFunc(opts, a)
 	workers := opts.Workers
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
+	// the whole file's digests are one sequential pass beside the section
+	// checks, which leave CPUs idle while their last jobs finish
+	digestErr := make(chan error, 1)
+	if opts.Digests {
+		go func() { digestErr <- digests(rep, a, mapped) }()
+	} else {
+		digestErr <- nil
+	}
 	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
+	if err := <-digestErr; err != nil {
+		// like a section that cannot be read: the file changed under us
+		rep.add(CheckStructure, "", false, "reading the whole file for its digests: %v", err)
+	}
 	// the source checks read the artifact by tensor; unmapping first keeps
 	// the mapped pages out of the resident size while the source is read
 	unmapArtifact(mapped)

@@ -16,7 +16,11 @@ func newKeygenCmd() *cobra.Command {
 		Short: "Make an ed25519 key pair for signing artifacts",
 		Long: `keygen writes a new private key to NAME.key (mode 0600) and its public key to
 NAME.pub, in the text form of sign/FORMAT.md. It never replaces an existing
-file. Keep NAME.key secret; hand NAME.pub to whoever checks your releases.`,
+file. Keep NAME.key secret; hand NAME.pub to whoever checks your releases.
+
+sign and verify also take ed25519 keys made by openssl (PKCS#8 and
+SubjectPublicKeyInfo PEM) and by ssh-keygen -t ed25519 (see README,
+"Signing").`,
 		Example: `  ternkit keygen -o fernmoss-release
   ternkit sign model.tkart --key fernmoss-release.key
   ternkit verify model.tkart --key fernmoss-release.pub`,

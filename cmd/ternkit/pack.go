@@ -13,6 +13,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/convert"
+	"ternkit/internal/filedigest"
 	"ternkit/manifest"
 	"ternkit/pack"
 	"ternkit/report"
@@ -227,14 +228,19 @@ func printPackResult(stdout, stderr io.Writer, out string, m *manifest.Manifest,
 		size = st.Size()
 	}
 	if asJSON {
+		d, err := filedigest.File(out)
+		if err != nil {
+			return err
+		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
 		return enc.Encode(struct {
 			Artifact string          `json:"artifact"`
 			Bytes    int64           `json:"bytes"`
+			SHA256   string          `json:"sha256"`
 			Seconds  float64         `json:"seconds"`
 			Totals   manifest.Totals `json:"totals"`
-		}{out, size, took.Seconds(), t})
+		}{out, size, d.SHA256, took.Seconds(), t})
 	}
 	fmt.Fprintf(stdout, "packed %s: %d tensors (%d ternary, %d int8, %d kept), %s -> %s (%.2fx smaller) in %s\n",
 		out, t.Tensors, t.TernaryTensors, t.Int8Tensors, t.KeptTensors, humanBytes(t.SourceBytes), humanBytes(size),

@@ -2,42 +2,69 @@ package main
 
 import (
 	"fmt"
+	"os"
+	"strings"
 
 	"github.com/spf13/cobra"
 
-	"ternkit/pack"
 	"ternkit/sign"
 	"ternkit/verify"
 )
 
 func newSignCmd() *cobra.Command {
-	var keyPath, out string
+	var keyPath, out, format string
+	var printMessage bool
 	cmd := &cobra.Command{
-		Use:   "sign ARTIFACT --key NAME.key [-o ARTIFACT.sig]",
+		Use:   "sign ARTIFACT --key KEY [--format ternkit|ssh] [-o ARTIFACT.sig]",
 		Short: "Sign an artifact's manifest hash with a private key",
 		Long: `sign verifies ARTIFACT (structure, manifest hash, every section), then signs
-its manifest hash with the ed25519 key in NAME.key and writes the signature
-to ARTIFACT.sig (or -o) atomically. It refuses an artifact that fails
-verification (exit 1) and a private key file that group or others may read.
+its manifest hash with the ed25519 private key in KEY and writes the
+signature to ARTIFACT.sig (or -o) atomically. It refuses an artifact that
+fails verification (exit 1), a private key file that group or others may
+read, and a passphrase-protected key (it never prompts).
+
+KEY may be a ternkit key (ternkit keygen), a PKCS#8 PEM key (openssl genpkey
+-algorithm ed25519) or an unencrypted OpenSSH key (ssh-keygen -t ed25519).
+--format ssh writes an armored SSH signature in the namespace
+` + sign.Namespace + `, which ssh-keygen -Y verify checks against the
+message --print-message writes (see README, "Signing").
 
 A signature says who released these exact bytes; it says nothing about the
 model's quality. ` + caution + `.`,
 		Example: `  ternkit sign fernmoss-scout-mini.tkart --key fernmoss-release.key
+  ternkit sign fernmoss-scout-mini.tkart --key ~/.ssh/id_ed25519 --format ssh
+  ternkit sign fernmoss-scout-mini.tkart --print-message > fernmoss-scout-mini.msg
   ternkit verify fernmoss-scout-mini.tkart --key fernmoss-release.pub`,
-		Args: exactArgs(1),
+		Args:              exactArgs(1),
+		ValidArgsFunction: artifactCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
-			if keyPath == "" {
-				return usagef("sign needs --key NAME%s (make one with: ternkit keygen -o NAME)", sign.PrivateKeyExt)
+			if format != sign.FormText && format != sign.FormSSH {
+				return usagef("--format %q: want %s or %s", format, sign.FormText, sign.FormSSH)
 			}
 			art := args[0]
+			switch {
+			case printMessage && (keyPath != "" || out != ""):
+				return usagef("--print-message writes the message to stdout and signs nothing: drop --key and -o, redirect stdout instead")
+			case printMessage && isTerminal(cmd.OutOrStdout()):
+				return usagef("--print-message writes 52 binary bytes: redirect stdout to a file (ternkit sign %s --print-message > MESSAGE)", art)
+			case keyPath == "" && !printMessage:
+				return usagef("sign needs --key KEY (make one with: ternkit keygen -o NAME), or --print-message")
+			}
 			if out == "" {
 				out = sign.SignaturePath(art)
 			}
-			k, err := sign.ReadPrivateKeyFile(keyPath)
-			if err != nil {
-				return err
+			if sameFile(out, art) || sameFile(out, keyPath) {
+				return usagef("-o %s is an input of this command; write the signature elsewhere", out)
 			}
-			before, openErr := manifestHash(art)
+			var k *sign.PrivateKey
+			if !printMessage {
+				var err error
+				if k, err = sign.ReadPrivateKeyFile(keyPath); err != nil {
+					return err
+				}
+			}
+			// one open of the artifact: the hash signed is the one of the
+			// manifest whose sections were just verified
 			rep, err := verify.Run(art, verify.Options{})
 			if err != nil {
 				return err
@@ -49,64 +76,65 @@ model's quality. ` + caution + `.`,
 				fmt.Fprintf(cmd.OutOrStdout(), "sign: refusing to sign %s: it fails verification\n", art)
 				return errVerifyFailed
 			}
-			if openErr != nil {
-				return openErr
-			}
-			after, err := manifestHash(art)
-			if err != nil {
+			hash := rep.ManifestHash()
+			if printMessage {
+				_, err := cmd.OutOrStdout().Write(sign.Message(hash))
 				return err
 			}
-			if after != before {
-				return fmt.Errorf("%s changed while it was verified (manifest BLAKE3 %x, then %x); not signed", art, before, after)
+			s := k.Sign(hash)
+			if format == sign.FormSSH {
+				s = k.SignSSH(hash)
 			}
-			if err := sign.WriteSignatureFile(out, k.Sign(after)); err != nil {
+			if err := sign.WriteSignatureFile(out, s); err != nil {
 				return err
 			}
-			fmt.Fprintf(cmd.OutOrStdout(), "signed %s (manifest BLAKE3 %x) with key %s: wrote %s\n",
-				art, after, k.Public().ID(), out)
+			fmt.Fprintf(cmd.OutOrStdout(), "signed %s (manifest BLAKE3 %x) with key %s: wrote %s (%s form)\n",
+				art, hash, k.Public().ID(), out, s.Form())
 			return nil
 		},
 	}
-	cmd.Flags().StringVar(&keyPath, "key", "", "private key file (from ternkit keygen)")
+	cmd.Flags().StringVar(&keyPath, "key", "", "private key file: ternkit (keygen), PKCS#8 PEM or OpenSSH ed25519")
 	cmd.Flags().StringVarP(&out, "output", "o", "", "signature file to write (default ARTIFACT"+sign.SignatureExt+")")
+	cmd.Flags().StringVar(&format, "format", sign.FormText, "signature form: "+sign.FormText+" (text, sign/FORMAT.md) or "+sign.FormSSH+" (armored SSH signature, namespace "+sign.Namespace+")")
+	cmd.Flags().BoolVar(&printMessage, "print-message", false, "verify ARTIFACT, then write the 52-byte message a signature covers to stdout (to sign or check with ssh-keygen -Y)")
+	_ = cmd.RegisterFlagCompletionFunc("format", fixedCompletions(sign.FormText, sign.FormSSH))
+	_ = cmd.MarkFlagFilename("key")
 	return cmd
 }
 
-// registerKeyFlag adds verify's --key flag.
+// registerKeyFlag adds verify's --key and --sig flags.
 func registerKeyFlag(cmd *cobra.Command) {
-	cmd.Flags().String("key", "", "public key file (NAME"+sign.PublicKeyExt+"): also require ARTIFACT"+sign.SignatureExt+
-		" to be its valid signature over the manifest hash")
+	cmd.Flags().String("key", "", "public key file (ternkit .pub, SubjectPublicKeyInfo PEM or ssh-ed25519 line): also require a valid signature over the manifest hash")
+	cmd.Flags().String("sig", "", "signature file to check with --key (default ARTIFACT"+sign.SignatureExt+"; ternkit or SSH form)")
+	_ = cmd.MarkFlagFilename("key")
+	_ = cmd.MarkFlagFilename("sig", strings.TrimPrefix(sign.SignatureExt, "."))
 }
 
-// keyFlag reads the public key --key names, or returns nil without one.
-func keyFlag(cmd *cobra.Command) (*sign.PublicKey, error) {
-	path, err := cmd.Flags().GetString("key")
-	if err != nil || path == "" {
+// signatureFlags reads the public key --key names and the signature path
+// (--sig, or ARTIFACT.sig); nil without --key.
+func signatureFlags(cmd *cobra.Command, artifact string) (*verify.Signature, error) {
+	path, _ := cmd.Flags().GetString("key")
+	sigPath, _ := cmd.Flags().GetString("sig")
+	if path == "" {
+		if sigPath != "" {
+			return nil, usagef("--sig %s needs --key: the public key to check it with", sigPath)
+		}
+		return nil, nil
+	}
+	k, err := sign.ReadPublicKeyFile(path)
+	if err != nil {
 		return nil, err
 	}
-	return sign.ReadPublicKeyFile(path)
+	if sigPath == "" {
+		sigPath = sign.SignaturePath(artifact)
+	}
+	return &verify.Signature{Key: k, Path: sigPath}, nil
 }
 
-// addSignatureCheck checks ARTIFACT.sig against key, when there is one,
-// and says so when the signature is valid.
-func addSignatureCheck(cmd *cobra.Command, rep *verify.Report, key *sign.PublicKey, artifact string) {
-	if key == nil {
-		return
-	}
-	sigPath := sign.SignaturePath(artifact)
-	failed := rep.Failed
-	verify.AddSignatureCheck(rep, artifact, key, sigPath)
-	if asJSON, _ := cmd.Flags().GetBool("json"); rep.Failed == failed && !asJSON {
-		fmt.Fprintf(cmd.OutOrStdout(), "signature: valid, key-id %s (%s)\n", key.ID(), sigPath)
-	}
-}
-
-// manifestHash is the manifest BLAKE3 of the artifact at path.
-func manifestHash(path string) ([32]byte, error) {
-	a, err := pack.Open(path)
-	if err != nil {
-		return [32]byte{}, err
-	}
-	defer a.Close()
-	return a.ManifestHash(), nil
+// sameFile reports whether a and b name the same existing file (symlinks
+// followed).
+func sameFile(a, b string) bool {
+	sa, errA := os.Stat(a)
+	sb, errB := os.Stat(b)
+	return errA == nil && errB == nil && os.SameFile(sa, sb)
 }

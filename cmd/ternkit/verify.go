@@ -48,7 +48,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
-			key, err := keyFlag(cmd)
+			sig, err := signatureFlags(cmd, args[0])
 			if err != nil {
 				return err
 			}
@@ -56,7 +56,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 				return usagef("--workers %d: want 1 or more", workers)
 			}
 			bar := newProgressBar(cmd, "verify")
-			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers}
+			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers, Signature: sig, Digests: asJSON}
 			if against != "" {
 				src, err := openSource(against, cmd.ErrOrStderr())
 				if err != nil {
@@ -70,7 +70,6 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
-			addSignatureCheck(cmd, rep, key, args[0])
 			if err := printReport(cmd.OutOrStdout(), rep, asJSON); err != nil {
 				return err
 			}
@@ -143,6 +142,20 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 			OK bool `json:"ok"`
 		}{rep, rep.OK()})
 	}
+	// the verdict first, then what it rests on
+	what := rep.Artifact
+	if rep.Source != "" {
+		what += " against " + rep.Source
+	}
+	if rep.OK() {
+		fmt.Fprintf(w, "verify: ok: %d checks passed: %s\n", rep.Passed, what)
+	} else {
+		fmt.Fprintf(w, "verify: FAILED: %d of %d checks failed: %s\n", rep.Failed, rep.Failed+rep.Passed, what)
+	}
+	// a valid signature is news only when everything else holds too
+	if c, ok := rep.Find(verify.CheckSignature, ""); ok && c.OK && rep.OK() {
+		fmt.Fprintf(w, "signature: valid, %s\n", c.Detail)
+	}
 	for _, warning := range rep.Warnings {
 		fmt.Fprintf(w, "warning: %s\n", warning)
 	}
@@ -155,15 +168,6 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 		} else {
 			fmt.Fprintf(w, "FAIL %s: %s\n", c.Name, c.Detail)
 		}
-	}
-	what := rep.Artifact
-	if rep.Source != "" {
-		what += " against " + rep.Source
-	}
-	if rep.OK() {
-		fmt.Fprintf(w, "verify: ok: %d checks passed: %s\n", rep.Passed, what)
-	} else {
-		fmt.Fprintf(w, "verify: FAILED: %d of %d checks failed: %s\n", rep.Failed, rep.Failed+rep.Passed, what)
 	}
 	return nil
 }
