@@ -55,6 +55,11 @@ const (
 // gamma (quotient form).
 const DefaultEpsilon = 1e-5
 
+// MaxEpsilon is the largest epsilon a recipe may have (pack/FORMAT.md,
+// "Recipe"): epsilon only keeps an all-zero group from dividing by zero,
+// and a larger one swamps gamma itself (1e30 turns every trit to 0).
+const MaxEpsilon = 1e-2
+
 // Recipe is everything besides the granularity that decides the trits and
 // scales of a tensor. It is recorded in the manifest so that a verifier can
 // redo the work.
@@ -101,8 +106,8 @@ func (r Recipe) Validate() error {
 		return fmt.Errorf("%w: tie rule %q (want %q or %q)", ErrRecipe, r.Tie, TieHalfEven, TieHalfAway)
 	case r.sumOrder() != SumStrided16 && r.sumOrder() != SumSequential:
 		return fmt.Errorf("%w: sum order %q (want %q or %q)", ErrRecipe, r.Sum, SumStrided16, SumSequential)
-	case !(r.Epsilon > 0) || math.IsInf(r.Epsilon, 0) || float32(r.Epsilon) == 0:
-		return fmt.Errorf("%w: epsilon %v (want a positive float32-representable number)", ErrRecipe, r.Epsilon)
+	case !(r.Epsilon > 0) || r.Epsilon > MaxEpsilon || float32(r.Epsilon) == 0:
+		return fmt.Errorf("%w: epsilon %v (want a float32-representable number in (0, %g])", ErrRecipe, r.Epsilon, MaxEpsilon)
 	}
 	return nil
 }

@@ -158,8 +158,15 @@ func TestRecipeValidate(t *testing.T) {
 		{"tie", func(r *Recipe) { r.Tie = "up" }, `"up"`},
 		{"epsilon zero", func(r *Recipe) { r.Epsilon = 0 }, "epsilon 0"},
 		{"epsilon tiny", func(r *Recipe) { r.Epsilon = 1e-60 }, "epsilon 1e-60"},
+		{"epsilon huge", func(r *Recipe) { r.Epsilon = 1e30 }, "epsilon 1e+30"},
+		{"epsilon past the range", func(r *Recipe) { r.Epsilon = 0.0101 }, "epsilon 0.0101"},
+		{"epsilon infinite", func(r *Recipe) { r.Epsilon = math.Inf(1) }, "epsilon +Inf"},
+		{"epsilon NaN", func(r *Recipe) { r.Epsilon = math.NaN() }, "epsilon NaN"},
 	}
 	require.NoError(t, DefaultRecipe().Validate())
+	top := DefaultRecipe()
+	top.Epsilon = MaxEpsilon
+	require.NoError(t, top.Validate(), "the range is closed at its top")
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			r := DefaultRecipe()

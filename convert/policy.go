@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"errors"
 	"fmt"
-	"path"
 	"slices"
 	"strconv"
 	"strings"
@@ -74,7 +73,7 @@ func (a Action) KeptDType(source string) string {
 // Rule maps tensors whose name matches a glob (and, optionally, a number
 // of dimensions and a set of dtypes) to an action.
 type Rule struct {
-	Match  string   // glob over the tensor name: * any run, ? one character, [a-z] a class
+	Match  string   // glob over the tensor name (MatchGlob): * any run, / included, ? one character, [a-z] a class
 	Dims   int      // 0: any number of dimensions
 	DTypes []string // empty: any float dtype
 	Action Action
@@ -101,7 +100,7 @@ func (r Rule) String() string {
 }
 
 func (r Rule) matches(t *Tensor) bool {
-	if ok, _ := path.Match(r.Match, t.Name); !ok {
+	if !matchGlob(r.Match, t.Name) {
 		return false
 	}
 	if r.Dims > 0 && len(t.Shape) != r.Dims {
@@ -114,8 +113,8 @@ func (r Rule) validate() error {
 	if r.Match == "" {
 		return fmt.Errorf("%w: rule %q has an empty glob", ErrPolicy, r.String())
 	}
-	if _, err := path.Match(r.Match, ""); err != nil {
-		return fmt.Errorf("%w: glob %q: %v", ErrPolicy, r.Match, err)
+	if err := CheckGlob(r.Match); err != nil {
+		return fmt.Errorf("%w: %v", ErrPolicy, err)
 	}
 	if r.Dims < 0 {
 		return fmt.Errorf("%w: rule %q: dims %d is negative", ErrPolicy, r.Match, r.Dims)

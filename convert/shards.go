@@ -13,6 +13,8 @@ import (
 	"sort"
 	"strings"
 	"syscall"
+
+	"ternkit/internal/inputfile"
 )
 
 // ErrIndex reports a sharded set that cannot be read as one model: a bad
@@ -246,7 +248,7 @@ func (p *headerParser) skipValue() error {
 // readIndex reads the whole index file, refusing one larger than the
 // header cap before allocating.
 func readIndex(path string, maxBytes int64) ([]byte, error) {
-	f, err := os.Open(path)
+	f, err := inputfile.Open(path)
 	if err != nil {
 		return nil, openError(path, err)
 	}
@@ -350,7 +352,7 @@ func openShard(root *os.Root, index string, e indexEntry) (*os.File, error) {
 	if filepath.IsAbs(e.shard) || !filepath.IsLocal(e.shard) {
 		return nil, fail("shard %q leaves the index's directory", e.shard)
 	}
-	f, err := root.Open(e.shard)
+	f, err := inputfile.OpenInRoot(root, e.shard)
 	if err == nil {
 		return f, nil
 	}

@@ -223,7 +223,7 @@ func TestOpenShardsBadInput(t *testing.T) {
 		{name: "shard is a directory", edit: func(t *testing.T, dir string) {
 			require.NoError(t, os.Remove(filepath.Join(dir, s2)))
 			require.NoError(t, os.Mkdir(filepath.Join(dir, s2), 0o755))
-		}, sentinel: ErrHeader, file: s2, detail: "is a directory"},
+		}, sentinel: ErrIndex, file: idx, tensor: "c", detail: `shard "model-00002-of-00003.safetensors": not a regular file (a directory)`},
 	}
 	for _, c := range tests {
 		t.Run(c.name, func(t *testing.T) {

@@ -9,6 +9,8 @@ import (
 	"os"
 
 	"github.com/zeebo/blake3"
+
+	"ternkit/internal/inputfile"
 )
 
 // Tensor describes one tensor of a source (no data).
@@ -131,7 +133,7 @@ type openFile struct {
 // openSingle parses and validates the header of the safetensors file at
 // path.
 func openSingle(path string, lim Limits) (*Source, error) {
-	f, err := os.Open(path)
+	f, err := inputfile.Open(path)
 	if err != nil {
 		return nil, openError(path, err)
 	}

@@ -177,19 +177,28 @@ type Totals struct {
 	BitsPerTernaryWeight float64 `json:"bits_per_ternary_weight"`
 }
 
-// NumElements is the product of the shape, or -1 when it overflows int64
-// or a dimension is negative.
+// NumElements is the product of the shape, or -1 when a dimension is
+// negative or the product of the nonzero dimensions overflows int64
+// (pack/FORMAT.md: then every partial product, the row length included,
+// fits, whatever the order; a shape with a 0 has no element).
 func NumElements(shape []int64) int64 {
-	n := uint64(1)
+	n, zero := uint64(1), false
 	for _, d := range shape {
 		if d < 0 {
 			return -1
+		}
+		if d == 0 {
+			zero = true
+			continue
 		}
 		hi, lo := bits.Mul64(n, uint64(d))
 		if hi != 0 || lo > math.MaxInt64 {
 			return -1
 		}
 		n = lo
+	}
+	if zero {
+		return 0
 	}
 	return int64(n)
 }
@@ -273,7 +282,7 @@ func (m *Manifest) Validate() error {
 		return bad("recipe: %v", err)
 	}
 	if m.Created != "" {
-		if t, err := time.Parse(CreatedLayout, m.Created); err != nil || CreatedAt(t) != m.Created {
+		if t, err := time.Parse(CreatedLayout, m.Created); err != nil || CreatedAt(t) != m.Created || t.Year() < 1 {
 			return bad("created %q is not a UTC time like %q", m.Created, CreatedLayout)
 		}
 	}
@@ -286,6 +295,9 @@ func (m *Manifest) Validate() error {
 		}
 	}
 	for _, f := range m.Source.Files {
+		if f.Bytes < 0 {
+			return bad("source file %q has %d bytes", f.Name, f.Bytes)
+		}
 		if err := checkHash(f.BLAKE3); err != nil {
 			return bad("source file %q: %v", f.Name, err)
 		}
@@ -328,8 +340,8 @@ func (e *Tensor) validate() error {
 	if err := checkHash(e.SourceBLAKE3); err != nil {
 		return fmt.Errorf("source_blake3: %v", err)
 	}
-	if _, ok := convert.DTypeSize(e.SourceDType); !ok && e.Kind != KindKept {
-		return fmt.Errorf("unknown source dtype %q", e.SourceDType)
+	if !floatSource[e.SourceDType] && e.Kind != KindKept {
+		return fmt.Errorf("%s tensor from source dtype %q (only float dtypes are quantized)", e.Kind, e.SourceDType)
 	}
 	switch e.Kind {
 	case KindTernary:
@@ -502,9 +514,20 @@ const (
 	entropyHeadMax  = 4 + 1 + 8
 )
 
+// entropyBlockMinLen is the fewest bytes a block holding content takes: a
+// 3-byte header and at least one byte (an RLE block's byte, a raw block's
+// content, a compressed block's literals section header, RFC 8878
+// section 3.1.1.3.1). A frame holding b content bytes in blocks of at most
+// EntropyBlockMax has at least ⌈b/EntropyBlockMax⌉ such blocks, so it is
+// at least 6 + 4·⌈b/EntropyBlockMax⌉ bytes long: b is at most 32768 times
+// the frame's length, whatever the frame claims.
+const entropyBlockMinLen = 4
+
 // TritPayloadRange is the smallest and largest payload length of n trits
-// in a trit codec: the same for bits2 and base3; for entropy, at most the
-// size of a frame holding the base3 payload in stored blocks.
+// in a trit codec: the same for bits2 and base3; for entropy, at least the
+// shortest frame that can hold the base3 payload (magic, descriptor, a
+// 1-byte content size, and a 4-byte block per 128 KiB of content) and at
+// most the size of a frame holding it in stored blocks.
 func TritPayloadRange(codec string, n int64) (lo, hi int64, ok bool) {
 	if l, ok := TritPayloadLen(codec, n); ok {
 		return l, l, true
@@ -514,7 +537,11 @@ func TritPayloadRange(codec string, n int64) (lo, hi int64, ok bool) {
 	}
 	b := (n + 4) / 5
 	blocks := max(1, (b+EntropyBlockMax-1)/EntropyBlockMax)
-	return EntropyMinLen, entropyHeadMax + 3*blocks + b, true
+	lo = EntropyMinLen
+	if b > 0 {
+		lo = max(lo, 4+1+1+entropyBlockMinLen*blocks)
+	}
+	return lo, entropyHeadMax + 3*blocks + b, true
 }
 
 // HexHash formats a BLAKE3 sum as the manifest writes it.

@@ -100,7 +100,10 @@ func TestDecodeRejects(t *testing.T) {
 		{"kind", func(m *Manifest) { m.Tensors[0].Kind = "binary" }, `"binary"`},
 		{"codec", func(m *Manifest) { m.Tensors[0].Codec = "raw" }, `codec "raw"`},
 		{"length", func(m *Manifest) { m.Tensors[0].Section.Length = 4 }, "section length 4"},
-		{"entropy too short", func(m *Manifest) { m.Tensors[0].Codec, m.Tensors[0].Section.Length = CodecEntropy, 8 }, "takes 9 to 19 bytes"},
+		{"entropy too short", func(m *Manifest) { m.Tensors[0].Codec, m.Tensors[0].Section.Length = CodecEntropy, 8 }, "takes 10 to 19 bytes"},
+		{"entropy frame claiming more than its blocks can hold", func(m *Manifest) {
+			m.Tensors[0].Codec, m.Tensors[0].Section.Length = CodecEntropy, 9
+		}, "takes 10 to 19 bytes"},
 		{"entropy too long", func(m *Manifest) { m.Tensors[0].Codec, m.Tensors[0].Section.Length = CodecEntropy, 20 }, "section length 20"},
 		{"kept length", func(m *Manifest) { m.Tensors[1].Section.Length = 6 }, "section length 6"},
 		{"hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = "xyz" }, `"xyz"`},
@@ -165,26 +168,30 @@ func TestKeptUnknownDType(t *testing.T) {
 	require.Equal(t, "F4_PACKED", got.Tensors[1].SourceDType)
 }
 
-// An entropy section takes any length from the smallest frame to a frame of
-// stored blocks holding the base3 payload.
+// An entropy section takes any length from the smallest frame that can
+// hold the base3 payload (a 6-byte header, then a 4-byte block per 128 KiB)
+// to a frame of stored blocks holding it.
 func TestEntropyLengthRange(t *testing.T) {
-	for _, length := range []int64{EntropyMinLen, 12, 19} {
+	for _, length := range []int64{10, 12, 19} {
 		m := validManifest()
 		m.Tensors[0].Codec, m.Tensors[0].Section.Length = CodecEntropy, length
 		m.ComputeTotals()
 		require.NoError(t, m.Validate(), "length %d", length)
 	}
 	cases := []struct {
-		n, hi int64
+		n, lo, hi int64
 	}{
-		{0, 13 + 3}, // one empty block
-		{5 * EntropyBlockMax, 13 + 3 + EntropyBlockMax},       // exactly one full block
-		{5*EntropyBlockMax + 1, 13 + 6 + EntropyBlockMax + 1}, // a second block of 1 byte
+		{0, EntropyMinLen, 13 + 3},                                // one empty block
+		{1, 10, 13 + 3 + 1},                                       // one RLE block
+		{5 * EntropyBlockMax, 10, 13 + 3 + EntropyBlockMax},       // exactly one full block
+		{5*EntropyBlockMax + 1, 14, 13 + 6 + EntropyBlockMax + 1}, // a second block of 1 byte
+		{1 << 40, 6 + 4*1677722, 13 + 3*1677722 + (1<<40+4)/5},    // 2^40 trits: no 9-byte frame holds them
+		{5 * 32768 * EntropyBlockMax, 6 + 4*32768, 13 + 3*32768 + 32768*EntropyBlockMax},
 	}
 	for _, c := range cases {
 		lo, hi, ok := TritPayloadRange(CodecEntropy, c.n)
 		require.True(t, ok)
-		require.Equal(t, int64(EntropyMinLen), lo)
+		require.Equal(t, c.lo, lo, "n=%d", c.n)
 		require.Equal(t, c.hi, hi, "n=%d", c.n)
 	}
 	_, _, ok := TritPayloadRange(CodecRaw, 5)

@@ -22,22 +22,33 @@ func checkStrictJSON(b []byte, t reflect.Type) error {
 	}
 	dec := json.NewDecoder(bytes.NewReader(b))
 	dec.UseNumber()
-	err := walkJSON(dec, t, "manifest")
+	err := walkJSON(dec, t, "manifest", 0)
 	if _, syntax := err.(*json.SyntaxError); syntax {
 		return nil
 	}
 	return err
 }
 
-func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
+// MaxDepth is the deepest nesting of arrays and objects a manifest may
+// have (pack/FORMAT.md, "Manifest"); a manifest nests 4 levels deep. The
+// limit keeps the walk, which builds a path per level, linear in time and
+// memory however deep a hostile manifest nests.
+const MaxDepth = 64
+
+func walkJSON(dec *json.Decoder, t reflect.Type, path string, depth int) error {
 	tok, err := dec.Token()
 	if err != nil {
 		return err
+	}
+	if depth >= MaxDepth && (tok == json.Delim('{') || tok == json.Delim('[')) {
+		return fmt.Errorf("%w: %s: nested more than %d levels deep", ErrInvalid, path, MaxDepth)
 	}
 	for t != nil && t.Kind() == reflect.Pointer {
 		t = t.Elem()
 	}
 	switch tok {
+	case nil:
+		return fmt.Errorf("%w: %s is null (no key of the format takes null: leave an optional key out)", ErrInvalid, path)
 	case json.Delim('{'):
 		var fields map[string]reflect.Type
 		if t != nil && t.Kind() == reflect.Struct {
@@ -65,19 +76,28 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
 			case t != nil && t.Kind() == reflect.Map:
 				vt = t.Elem()
 			}
-			if err := walkJSON(dec, vt, path+"."+key); err != nil {
+			if err := walkJSON(dec, vt, path+"."+key, depth+1); err != nil {
 				return err
 			}
 		}
-		_, err = dec.Token() // }
-		return err
+		if _, err := dec.Token(); err != nil { // }
+			return err
+		}
+		if t != nil && t.Kind() == reflect.Struct {
+			for _, key := range requiredKeys(t) {
+				if !seen[key] {
+					return fmt.Errorf("%w: %s: required key %q is missing", ErrInvalid, path, key)
+				}
+			}
+		}
+		return nil
 	case json.Delim('['):
 		var et reflect.Type
 		if t != nil && (t.Kind() == reflect.Slice || t.Kind() == reflect.Array) {
 			et = t.Elem()
 		}
 		for i := 0; dec.More(); i++ {
-			if err := walkJSON(dec, et, fmt.Sprintf("%s[%d]", path, i)); err != nil {
+			if err := walkJSON(dec, et, fmt.Sprintf("%s[%d]", path, i), depth+1); err != nil {
 				return err
 			}
 		}
@@ -85,6 +105,24 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string) error {
 		return err
 	}
 	return nil
+}
+
+// requiredKeys are the JSON names of t's fields without omitempty: the
+// keys pack/FORMAT.md marks required.
+func requiredKeys(t reflect.Type) []string {
+	var keys []string
+	for i := 0; i < t.NumField(); i++ {
+		f := t.Field(i)
+		name, opts, _ := strings.Cut(f.Tag.Get("json"), ",")
+		if !f.IsExported() || name == "-" || strings.Contains(opts, "omitempty") {
+			continue
+		}
+		if name == "" {
+			name = f.Name
+		}
+		keys = append(keys, name)
+	}
+	return keys
 }
 
 // jsonFields maps the JSON names of t's fields to their types.

@@ -14,6 +14,7 @@ import (
 	"fmt"
 	"math"
 	"strconv"
+	"strings"
 )
 
 // MaxSize is the largest config this package reads: configs are a few KiB.
@@ -147,4 +148,46 @@ func number(v json.RawMessage) (json.Number, error) {
 	}
 	err := json.Unmarshal(v, &n)
 	return n, err
+}
+
+// Summary describes the architecture in one line, from the keys the file
+// gives (and the defaults they imply), e.g. "4 layers, hidden 256, MLP 768,
+// 4 heads (2 KV) × 64, vocabulary 2048, context 512, rope theta 10000, norm
+// eps 1e-05, silu, untied output head".
+func (c *Config) Summary() string {
+	var parts []string
+	add := func(key, format string, args ...any) {
+		if c.Has(key) {
+			parts = append(parts, fmt.Sprintf(format, args...))
+		}
+	}
+	if c.ModelType != "" {
+		parts = append(parts, c.ModelType)
+	}
+	add("num_hidden_layers", "%d layers", c.NumHiddenLayers)
+	add("hidden_size", "hidden %d", c.HiddenSize)
+	add("intermediate_size", "MLP %d", c.IntermediateSize)
+	if c.Has("num_attention_heads") {
+		h := fmt.Sprintf("%d heads", c.NumAttentionHeads)
+		if c.NumKeyValueHeads != c.NumAttentionHeads {
+			h += fmt.Sprintf(" (%d KV)", c.NumKeyValueHeads)
+		}
+		if c.HeadDim > 0 {
+			h += fmt.Sprintf(" × %d", c.HeadDim)
+		}
+		parts = append(parts, h)
+	}
+	add("vocab_size", "vocabulary %d", c.VocabSize)
+	add("max_position_embeddings", "context %d", c.MaxPositionEmbeddings)
+	add("rope_theta", "rope theta %g", c.RopeTheta)
+	add("rms_norm_eps", "norm eps %g", c.RMSNormEps)
+	add("hidden_act", "%s", c.HiddenAct)
+	if c.Has("tie_word_embeddings") {
+		if c.TieWordEmbeddings {
+			parts = append(parts, "output head tied to the embeddings")
+		} else {
+			parts = append(parts, "untied output head")
+		}
+	}
+	return strings.Join(parts, ", ")
 }

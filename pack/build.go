@@ -1,9 +1,12 @@
 package pack
 
 import (
+	"bytes"
 	"encoding/binary"
+	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"math"
 	"path/filepath"
 	"runtime"
@@ -29,7 +32,8 @@ type Options struct {
 	Budget int64
 	Tool   string // recorded as the manifest's "tool"
 	// PolicyRules describes Policy in words, recorded as the manifest's
-	// "policy"; nil records none.
+	// "policy"; nil records Policy.Describe() (what verify --against reads
+	// back to tie each tensor's action to the source), an empty list none.
 	PolicyRules []string
 	// Created is recorded as the manifest's "created"; the zero time
 	// records none, so that the same inputs give the same bytes.
@@ -64,6 +68,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if policy == nil {
 		policy = convert.DefaultPolicy()
 	}
+	if opts.PolicyRules == nil {
+		opts.PolicyRules = policy.Describe()
+	}
 	if err := checkCompanions(opts.Companions); err != nil {
 		return nil, err
 	}
@@ -74,6 +81,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 			return nil, &convert.InputError{File: t.File, Tensor: t.Name, Offset: t.Offset, Err: err}
 		}
 		actions[t] = a
+	}
+	if err := checkManifestSize(src, actions); err != nil {
+		return nil, err
 	}
 	w, err := createAtomic(dst)
 	if err != nil {
@@ -268,7 +278,7 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 		}
 		row := convert.Granularity{Kind: convert.GranRow}
 		e.Kind, e.Codec, e.Granularity, e.Stats = manifest.KindInt8, manifest.CodecRaw, &row, &stats
-		return sections{payload: append([]byte(nil), int8Bytes(q.codes)...), scales: appendFloat32s(nil, scales)}, nil
+		return sections{payload: append([]byte(nil), int8Bytes(q.codes)...), scales: appendFloat32s([]byte{}, scales)}, nil
 	}
 	// keep:f16, keep:bf16, keep:f32 with a dtype change
 	out, err := convert.EncodeFloat32(nil, target, q.floats)
@@ -303,7 +313,7 @@ func ternary(e *manifest.Tensor, a convert.Action, w convert.Weights, cols int, 
 		e.Scale = res.Scales[0]
 		return sections{payload: payload}, nil
 	}
-	return sections{payload: payload, scales: appendFloat32s(nil, res.Scales)}, nil
+	return sections{payload: payload, scales: appendFloat32s([]byte{}, res.Scales)}, nil
 }
 
 // keptAsIs reports whether action a keeps tensor t's bytes as they are.
@@ -441,17 +451,17 @@ func (w *atomicWriter) place(p []byte) (int64, error) {
 }
 
 func (w *atomicWriter) finish(m *manifest.Manifest) error {
-	body, err := manifest.Encode(m)
-	if err != nil {
-		return err
-	}
 	if err := w.pad(); err != nil {
 		return err
 	}
-	t := trailer{manifestOffset: w.off, manifestLen: int64(len(body)), manifestHash: blake3.Sum256(body)}
-	if err := w.write(body); err != nil {
+	t := trailer{manifestOffset: w.off}
+	h := blake3.New()
+	n, err := writeManifest(io.MultiWriter(writerFunc(w.write), h), m)
+	if err != nil {
 		return err
 	}
+	t.manifestLen = n
+	h.Sum(t.manifestHash[:0])
 	if err := w.write(t.encode()); err != nil {
 		return err
 	}
@@ -460,6 +470,63 @@ func (w *atomicWriter) finish(m *manifest.Manifest) error {
 		return err
 	}
 	return w.f.Commit()
+}
+
+// writerFunc adapts a write function to io.Writer.
+type writerFunc func(p []byte) error
+
+func (f writerFunc) Write(p []byte) (int, error) {
+	if err := f(p); err != nil {
+		return 0, err
+	}
+	return len(p), nil
+}
+
+// writeManifest writes the bytes manifest.Encode gives for m, one tensor
+// entry at a time, so that the manifest is never held whole in memory; it
+// refuses to go past writeMaxManifest. It returns the length written.
+func writeManifest(out io.Writer, m *manifest.Manifest) (int64, error) {
+	skeleton := *m
+	skeleton.Tensors = nil
+	head, err := manifest.Encode(&skeleton)
+	if err != nil {
+		return 0, err
+	}
+	const hole = `"tensors":null`
+	at := bytes.Index(head, []byte(hole))
+	if at < 0 || bytes.Count(head, []byte(hole)) != 1 {
+		return 0, fmt.Errorf("encode manifest: no single place for the tensors")
+	}
+	var n int64
+	put := func(p []byte) error {
+		if n += int64(len(p)); n > writeMaxManifest {
+			return fmt.Errorf("%w: more than %d bytes", ErrManifestTooLarge, writeMaxManifest)
+		}
+		_, err := out.Write(p)
+		return err
+	}
+	if err := put(append(head[:at:at], `"tensors":[`...)); err != nil {
+		return n, err
+	}
+	var buf bytes.Buffer
+	enc := json.NewEncoder(&buf)
+	enc.SetEscapeHTML(false) // as manifest.Encode
+	for i := range m.Tensors {
+		buf.Reset()
+		if i > 0 {
+			buf.WriteByte(',')
+		}
+		if err := enc.Encode(&m.Tensors[i]); err != nil {
+			return n, fmt.Errorf("encode manifest: %w", err)
+		}
+		if err := put(bytes.TrimSuffix(buf.Bytes(), []byte("\n"))); err != nil {
+			return n, err
+		}
+	}
+	if err := put(append([]byte("]"), head[at+len(hole):]...)); err != nil {
+		return n, err
+	}
+	return n, nil
 }
 
 // abort removes the temporary file unless finish succeeded.

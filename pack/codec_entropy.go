@@ -4,6 +4,7 @@ import (
 	"encoding/binary"
 	"errors"
 	"fmt"
+	"math"
 	"sync"
 
 	"github.com/klauspost/compress/zstd"
@@ -183,19 +184,35 @@ func checkEntropyFrame(p []byte, want int) error {
 // decodeEntropy checks the frame, then decodes it into a buffer of exactly
 // the base3 length (allocated only after the check) and decodes that.
 func decodeEntropy(dst []int8, payload []byte) error {
-	want := (len(dst) + 4) / 5
-	if err := checkEntropyFrame(payload, want); err != nil {
-		return err
-	}
-	content, err := entropyDecoder().DecodeAll(payload, make([]byte, 0, want))
+	content, err := decodeEntropyContent(payload, (int64(len(dst))+4)/5)
 	if err != nil {
-		return fmt.Errorf("%w: %w: %v", ErrInvalidCode, errEntropyFrame, err)
-	}
-	if len(content) != want {
-		return fmt.Errorf("%w: %w: decodes to %d bytes, want %d", ErrInvalidCode, errEntropyFrame, len(content), want)
+		return err
 	}
 	if err := decodeBase3(dst, content); err != nil {
 		return fmt.Errorf("entropy frame content: %w", err)
 	}
 	return nil
+}
+
+// decodeEntropyContent checks the frame against a base3 payload of want
+// bytes, the bound of its length included, and only then decodes it into a
+// buffer of exactly want bytes.
+func decodeEntropyContent(payload []byte, want int64) ([]byte, error) {
+	if want > math.MaxInt {
+		return nil, fmt.Errorf("%w: %w: content of %d bytes is past this reader's limit", ErrInvalidCode, errEntropyFrame, want)
+	}
+	if err := checkEntropyFrame(payload, int(want)); err != nil {
+		return nil, err
+	}
+	if lo, _, _ := manifest.TritPayloadRange(manifest.CodecEntropy, 5*want); int64(len(payload)) < lo {
+		return nil, fmt.Errorf("%w: %w: a frame of %d bytes cannot hold %d bytes of content (it takes at least %d)", ErrInvalidCode, errEntropyFrame, len(payload), want, lo)
+	}
+	content, err := entropyDecoder().DecodeAll(payload, make([]byte, 0, want))
+	if err != nil {
+		return nil, fmt.Errorf("%w: %w: %v", ErrInvalidCode, errEntropyFrame, err)
+	}
+	if int64(len(content)) != want {
+		return nil, fmt.Errorf("%w: %w: decodes to %d bytes, want %d", ErrInvalidCode, errEntropyFrame, len(content), want)
+	}
+	return content, nil
 }

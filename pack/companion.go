@@ -11,6 +11,7 @@ import (
 
 	"github.com/zeebo/blake3"
 
+	"ternkit/internal/inputfile"
 	"ternkit/manifest"
 )
 
@@ -135,7 +136,7 @@ func checkCompanions(cs []Companion) error {
 // writeCompanion copies the file into the artifact as a section and
 // returns its manifest entry.
 func (w *atomicWriter) writeCompanion(c Companion) (manifest.Companion, error) {
-	f, err := os.Open(c.Path)
+	f, err := inputfile.Open(c.Path)
 	if err != nil {
 		return manifest.Companion{}, fmt.Errorf("%w: %v", ErrCompanion, err)
 	}
@@ -179,10 +180,10 @@ func (a *Artifact) Companions() []manifest.Companion { return a.m.Companions }
 // Companion returns the bytes of the named companion after checking them
 // against the BLAKE3 and piece hashes the manifest records. Errors:
 // ErrNoCompanion for a name the artifact does not carry, a *FormatError
-// wrapping ErrHash for bytes that differ. Memory holds the whole file
-// (companions are at most MaxCompanionSize when written by Build; a reader
-// bounds them with the manifest limit of ReadOption only indirectly, so a
-// caller reading untrusted artifacts checks Section.Length first).
+// wrapping ErrHash for bytes that differ. Memory holds the whole file:
+// Build writes none over MaxCompanionSize, but the format bounds a
+// companion only by the file, so a caller reading untrusted artifacts
+// checks the entry's Section.Length (Companions) before asking.
 func (a *Artifact) Companion(name string) ([]byte, error) {
 	c := a.m.Companion(name)
 	if c == nil {

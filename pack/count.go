@@ -12,8 +12,9 @@ import (
 // any size. For bits2 and base3 it holds only a few bytes, so verification
 // streams sections with bounded memory, and it counts without decoding:
 // bits2 by population counts of 64-bit words, base3 by a table of per-byte
-// counts. An entropy payload is one frame, kept until Close decodes it (at
-// most the base3 size of the tensor). Close reports a short payload or bad
+// counts. An entropy payload is one frame, kept until Close checks it and
+// only then decodes it to its base3 content (at most 32768 times the
+// frame's length, pack/FORMAT.md "entropy"), counted as base3. Close reports a short payload or bad
 // padding.
 type TritCounter struct {
 	codec    Codec
@@ -198,11 +199,24 @@ func (tc *TritCounter) Close() (convert.TritCounts, error) {
 		return tc.counts, tc.err
 	}
 	if tc.codec == Entropy {
-		trits := make([]int8, tc.n)
-		if err := decodeEntropy(trits, tc.frame); err != nil {
+		content, err := decodeEntropyContent(tc.frame, (tc.n+4)/5)
+		if err != nil {
 			return tc.counts, err
 		}
-		tc.counts.Count(trits)
+		// count the base3 content as a base3 payload, without decoding it
+		// to trits: memory follows the frame's checked content size
+		base, err := NewTritCounter(Base3, tc.n)
+		if err != nil {
+			return tc.counts, err
+		}
+		if _, err := base.Write(content); err != nil {
+			return tc.counts, fmt.Errorf("entropy frame content: %w", err)
+		}
+		counts, err := base.Close()
+		if err != nil {
+			return tc.counts, fmt.Errorf("entropy frame content: %w", err)
+		}
+		tc.counts = counts
 		return tc.counts, nil
 	}
 	if want := (tc.n + tc.perByte - 1) / tc.perByte; tc.seen != want {

@@ -53,11 +53,11 @@ func TestBuildRecordsProvenance(t *testing.T) {
 		created   string
 		policyLen int
 	}{
-		{"none", Options{Recipe: sequentialRecipe()}, "", 0},
+		{"none", Options{Recipe: sequentialRecipe()}, "", 4}, // the default policy, described
 		{"empty rule list", Options{Recipe: sequentialRecipe(), PolicyRules: []string{}}, "", 0},
 		{"policy", Options{Recipe: sequentialRecipe(), PolicyRules: testRules}, "", 3},
 		// 1,700,000,000 s after the Unix epoch is 2023-11-14 22:13:20 UTC (common practice: date -u -d @1700000000).
-		{"created", Options{Recipe: sequentialRecipe(), Created: time.Unix(1_700_000_000, 0)}, "2023-11-14T22:13:20Z", 0},
+		{"created", Options{Recipe: sequentialRecipe(), PolicyRules: []string{}, Created: time.Unix(1_700_000_000, 0)}, "2023-11-14T22:13:20Z", 0},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

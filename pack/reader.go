@@ -7,11 +7,11 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 	"ternkit/manifest"
 )
 
@@ -32,7 +32,7 @@ type Artifact struct {
 
 // Open opens the artifact at path.
 func Open(path string, opts ...ReadOption) (*Artifact, error) {
-	f, err := os.Open(path)
+	f, err := inputfile.Open(path)
 	if err != nil {
 		return nil, err
 	}

@@ -29,9 +29,15 @@ func Unpack(a *Artifact, dst, dtype string) error {
 	if !slices.Contains(UnpackDTypes, dtype) {
 		return fmt.Errorf("%w: unpack to %q (valid: %v)", convert.ErrDType, dtype, UnpackDTypes)
 	}
+	return unpackTensors(a, dst, dtype, a.Manifest().Tensors)
+}
+
+// unpackTensors writes the given tensors of the artifact, in order, to a
+// safetensors file at dst, as Unpack describes.
+func unpackTensors(a *Artifact, dst, dtype string, tensors []manifest.Tensor) error {
 	m := a.Manifest()
-	layout := make([]convert.WriteTensor, len(m.Tensors))
-	for i, e := range m.Tensors {
+	layout := make([]convert.WriteTensor, len(tensors))
+	for i, e := range tensors {
 		layout[i] = convert.WriteTensor{Name: e.Name, DType: unpackedDType(e, dtype), Shape: e.Shape}
 	}
 	meta := maps.Clone(m.Source.Metadata)
@@ -48,7 +54,7 @@ func Unpack(a *Artifact, dst, dtype string) error {
 		floats []float32
 		out    []byte
 	)
-	for i, e := range m.Tensors {
+	for i, e := range tensors {
 		t := &Tensor{a: a, Entry: e}
 		p, err := t.Payload()
 		if err != nil {

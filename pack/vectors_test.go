@@ -10,8 +10,10 @@ import (
 	"flag"
 	"fmt"
 	"math"
+	"math/big"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -182,9 +184,12 @@ func checkVectorTensor(t *testing.T, a *Artifact, e manifest.Tensor, want vector
 	}
 	scales, err := tn.Scales()
 	require.NoError(t, err)
-	if e.Scales == nil {
+	switch {
+	case e.Scales == nil:
 		require.Equal(t, []float32{want.Scale}, scales)
-	} else {
+	case len(want.Scales) == 0:
+		require.Empty(t, scales, "no groups, no scales")
+	default:
 		require.Equal(t, want.Scales, scales)
 	}
 	vals := make([]float32, tn.Len())
@@ -216,6 +221,7 @@ type draft struct {
 	comps    [][]byte            // the companions' bytes
 	gap      map[int]int         // extra zero bytes before tensor i's payload
 	compGap  map[int]int         // extra zero bytes before companion i
+	manGap   int                 // extra zero bytes before the manifest
 	json     func([]byte) []byte // edits the manifest bytes
 }
 
@@ -274,7 +280,7 @@ func (d *draft) encode(t *testing.T) []byte {
 		place(&d.m.Companions[i].Section, p, d.compGap[i])
 	}
 	d.m.ComputeTotals()
-	out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out)))...)
+	out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out))+int64(d.manGap))...)
 	body, err := manifest.Encode(d.m)
 	require.NoError(t, err)
 	if d.json != nil {
@@ -537,15 +543,26 @@ func writeVectors(t *testing.T) {
 	add(vector{File: "ok-companions.tkart", Expect: "ok", Version: "1.3", Note: "three companion files after the tensor's section: config.json, LICENSE, and NOTICE of 0 bytes (its section takes no space)", Tensors: wantComp, Companions: comp.wantCompanions()}, okComp)
 	compPath := path("companions", okComp)
 
+	// A valid artifact whose config contradicts its tensors: readers accept
+	// it (companions are opaque to the format); ternkit verify warns.
+	mis := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{
+		{"config.json", []byte(`{"hidden_size": 8, "intermediate_size": 16, "num_hidden_layers": 1, "num_attention_heads": 2, "num_key_value_heads": 2, "head_dim": 4, "vocab_size": 16, "tie_word_embeddings": false}` + "\n")},
+	}}
+	mis.kept("model.embed_tokens.weight", "F16", []int64{12, 8}, make([]byte, 2*12*8))
+	mis.float("model.layers.0.self_attn.q_proj.weight", []int64{8, 8}, testweights.Gaussian(newTestRand(35), 64))
+	mis.kept("lm_head.weight", "F16", []int64{12, 8}, make([]byte, 2*12*8))
+	okMis, wantMis := mis.build(t, Base3)
+	add(vector{File: "ok-config-mismatch.tkart", Expect: "ok", Version: "1.3", Note: "valid, but its config.json says vocab_size 16 where the embedding and the output head have 12 rows: ternkit verify warns (config cross-check), the format does not look inside companions", Tensors: wantMis, Companions: mis.wantCompanions()}, okMis)
+
 	// A section over 2^22 bytes, with piece hashes: a companion of 2^22 +
 	// 5000 bytes of a 256-byte pattern (compressible, small in git).
 	bigData := make([]byte, manifest.ChunkSize+5000)
 	for i := range bigData {
 		bigData[i] = byte(i * 7)
 	}
-	big := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{{"vocab.txt", bigData}}}
-	okBig, _ := big.build(t, Base3)
-	add(vector{File: "ok-chunks.tkart", Expect: "ok", Version: "1.3", Note: "a companion section of 4199304 bytes (2^22 + 5000): two piece hashes, the last piece 5000 bytes", Companions: big.wantCompanions()}, okBig)
+	bigSrc := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{{"vocab.txt", bigData}}}
+	okBig, _ := bigSrc.build(t, Base3)
+	add(vector{File: "ok-chunks.tkart", Expect: "ok", Version: "1.3", Note: "a companion section of 4199304 bytes (2^22 + 5000): two piece hashes, the last piece 5000 bytes", Companions: bigSrc.wantCompanions()}, okBig)
 	bigPath := path("big", okBig)
 
 	bits2Path, base3Path, entropyPath := path("bits2", okBits2), path("base3", okBase3), filepath.Join(dir, "entropy")
@@ -704,6 +721,75 @@ func writeVectors(t *testing.T) {
 			return bytes.Replace(b, []byte(`"`+bigChunks[1]+`"`), []byte(`"`+bigChunks[0]+`"`), 1)
 		}
 	})
+
+	// Rules stated per key: required keys, null, integers, numbers.
+	inject := func(file, expect, note, from, old, new string) {
+		redo(file, expect, note, from, func(d *draft) {
+			d.json = func(b []byte) []byte {
+				require.True(t, bytes.Contains(b, []byte(old)), "%s: %s not in the manifest", file, old)
+				return bytes.Replace(b, []byte(old), []byte(new), 1)
+			}
+		})
+	}
+	inject("bad-null-key.tkart", failManifest, `"created": null (no key takes null; an optional key is left out)`, bits2Path, `"tool":`, `"created":null,"tool":`)
+	inject("bad-missing-key.tkart", failManifest, `totals without "kept_params" (required, even where its value would be 0)`, path("row", okRow), `"kept_params":0,`, ``)
+	inject("bad-stats-empty.tkart", failManifest, `layer.w "stats": {} (its five keys are required)`, bits2Path, `"stats":{"zero_fraction"`, `"stats":{},"x":{"zero_fraction"`)
+	inject("bad-integer-fraction.tkart", failManifest, `shape [2, 7.0]: an integer has no fraction part`, bits2Path, `"shape":[2,7]`, `"shape":[2,7.0]`)
+	inject("bad-integer-exponent.tkart", failManifest, `shape [2, 7e0]: an integer has no exponent`, bits2Path, `"shape":[2,7]`, `"shape":[2,7e0]`)
+	inject("bad-number-range.tkart", failManifest, `stats max_abs_err 1e400, beyond the float64 range`, bits2Path, `"max_abs_err":`, `"max_abs_err":1e400,"x":`)
+	redo("bad-source-dtype.tkart", failManifest, `layer.w ternary from source dtype "I32" (only float dtypes are quantized)`, bits2Path, func(d *draft) { d.m.Tensors[0].SourceDType = "I32" })
+	redo("bad-negative-size.tkart", failManifest, "source file of -1 bytes (totals.source_bytes agreeing)", bits2Path, func(d *draft) { d.m.Source.Files[0].Bytes = -1 })
+	redo("bad-shape-overflow.tkart", failManifest, "empty.w shape [4294967296, 4294967296, 0]: no element, but the nonzero dimensions' product overflows", bits2Path, func(d *draft) {
+		d.m.Tensors[2].Shape = []int64{1 << 32, 1 << 32, 0}
+	})
+	redo("bad-created-year-zero.tkart", failManifest, `created "0000-01-01T00:00:00Z" (years are 0001 to 9999)`, bits2Path, func(d *draft) { d.m.Created = "0000-01-01T00:00:00Z" })
+	redo("bad-created-leap-second.tkart", failManifest, `created "2016-12-31T23:59:60Z" (a leap second; seconds are 00 to 59)`, bits2Path, func(d *draft) { d.m.Created = "2016-12-31T23:59:60Z" })
+	redo("bad-manifest-start.tkart", failStructure, "64 zero bytes between the last section's padding and the manifest, the trailer locating the manifest after them", bits2Path, func(d *draft) { d.manGap = 64 })
+	add(vector{File: "bad-tiny-file.tkart", Expect: failStructure, Note: `5 bytes "TKART": shorter than preamble and trailer, whatever its first bytes`}, []byte("TKART"))
+
+	// A scale written as a decimal whose float64 rounding lies on a float32
+	// tie: rounded once, directly, to float32 it is the upper neighbour.
+	bits2Draft := readDraft(t, bits2Path)
+	a32 := bits2Draft.m.Tensors[0].Scale
+	lo, hi := a32, math.Nextafter32(a32, 2)
+	if math.Float32bits(lo)&1 != 0 {
+		lo, hi = math.Nextafter32(a32, 0), a32
+	}
+	mid := (float64(lo) + float64(hi)) / 2 // exact in float64
+	dec := new(big.Float).SetPrec(256).SetFloat64(mid)
+	dec.Add(dec, big.NewFloat(2e-17)) // under half a float64 ulp at this magnitude
+	text := dec.Text('e', 40)
+	f64, _ := strconv.ParseFloat(text, 64)
+	f32, _ := strconv.ParseFloat(text, 32)
+	require.Equal(t, mid, f64, "the decimal rounds to the tie in float64")
+	require.Equal(t, lo, float32(f64), "float64 then float32 gives the even neighbour")
+	require.Equal(t, hi, float32(f32), "directly, the upper one")
+	oldScale, err := json.Marshal(a32)
+	require.NoError(t, err)
+	wantDec := append([]vectorTensor{}, wantBits2...)
+	wantDec[0].Scale = hi
+	redo("ok-scale-decimal.tkart", "ok", "layer.w scale written as "+text+": read directly as float32 it is the upper neighbour of a float64 tie", bits2Path, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			old := []byte(`"scale":` + string(oldScale) + `,`)
+			require.True(t, bytes.Contains(b, old))
+			return bytes.Replace(b, old, []byte(`"scale":`+text+`,`), 1)
+		}
+	})
+	vs[len(vs)-1].Version, vs[len(vs)-1].Tensors = "1.0", wantDec
+
+	// Bytes the format passes through, and edge cases of zero size.
+	edge := &vectorSource{}
+	edge.kept("flags", "BOOL", []int64{3}, []byte{0, 1, 2})
+	edge.floatAs("no-columns", []int64{3, 0}, nil, convert.ActInt8)
+	edge.float("no-rows", []int64{0, 5}, nil)
+	okEdge, wantEdge := edge.build(t, Bits2)
+	add(vector{File: "ok-edge.tkart", Expect: "ok", Version: "1.0", Note: "a BOOL tensor holding bytes 0, 1 and 2 (returned as they are); an int8 tensor of 3 rows of 0 columns (no groups: no scales); a ternary tensor of 0 rows (its scale is the recipe's for gamma 0)", Tensors: wantEdge}, okEdge)
+	wantNegZero := append([]vectorTensor{}, wantInt8...)
+	wantNegZero[0].Scales = []float32{wantInt8[0].Scales[0], float32(math.Copysign(0, -1)), wantInt8[0].Scales[2]}
+	redo("ok-int8-scale-negative-zero.tkart", "ok", "embed: the all-zero row's scale is -0 (int8 scales are ≥ 0, and -0 counts as 0)", int8Path, func(d *draft) {
+		setScale(d, 1, float32(math.Copysign(0, -1)))
+	})
+	vs[len(vs)-1].Version, vs[len(vs)-1].Tensors = "1.0", wantNegZero
 
 	require.NoError(t, os.MkdirAll(vectorsDir, 0o755))
 	old, _ := filepath.Glob(filepath.Join(vectorsDir, "*.tkart"))

@@ -10,6 +10,7 @@ import (
 	"ternkit/convert"
 	"ternkit/internal/filedigest"
 	"ternkit/manifest"
+	"ternkit/modelconfig"
 	"ternkit/pack"
 )
 
@@ -65,6 +66,12 @@ type Summary struct {
 	ZeroFraction   float64         `json:"zero_fraction"` // zero trits / ternary parameters
 	WeightMemory   WeightMemory    `json:"weight_memory"`
 	Tensors        []Tensor        `json:"tensors"`
+	// Companions are the files carried beside the weights; Architecture is
+	// their config.json when it is a model config (ArchitectureSummary
+	// says it in one line).
+	Companions          []Companion         `json:"companions,omitempty"`
+	Architecture        *modelconfig.Config `json:"architecture,omitempty"`
+	ArchitectureSummary string              `json:"architecture_summary,omitempty"`
 }
 
 // Summarize opens the artifact at path, checks its structure and manifest
@@ -116,6 +123,7 @@ func summarize(path string, a *pack.Artifact, fileSum string) *Summary {
 		s.Tensors = append(s.Tensors, row)
 	}
 	s.ZeroFraction = ratio(zero, t.TernaryParams)
+	addCompanions(s, a)
 	return s
 }
 

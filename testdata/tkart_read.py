@@ -21,6 +21,7 @@ bytes as hex, and the scales of a scales section as numbers.
 """
 
 import datetime
+import fractions
 import hashlib
 import json
 import math
@@ -73,6 +74,22 @@ KEYS = {
 }
 
 
+# The keys each object must have ("Manifest": every key not marked
+# optional); optional keys may be left out, and no key may be null.
+REQUIRED = {
+    "manifest": {"format", "version", "tool", "recipe", "source", "tensors", "totals"},
+    "recipe": {"method", "scale_rule", "epsilon", "tie"},
+    "source": {"files"},
+    "file": {"name", "bytes", "blake3"},
+    "tensor": {"name", "shape", "source_dtype", "kind", "codec", "section", "source_blake3"},
+    "section": {"offset", "length", "blake3"},
+    "trits": KEYS["trits"],
+    "stats": KEYS["stats"],
+    "totals": KEYS["totals"],
+    "companion": {"name", "section"},
+}
+
+
 class Reject(Exception):
     """The file breaks a rule; cls is the failure class."""
 
@@ -109,16 +126,31 @@ def parse_json(body):
     except UnicodeDecodeError as e:
         raise bad("not valid UTF-8: %s" % e)
     try:
-        doc = json.loads(text, object_pairs_hook=pairs, parse_constant=constant)
+        doc = json.loads(text, object_pairs_hook=pairs, parse_constant=constant, parse_float=Decimal)
     except json.JSONDecodeError as e:
         raise bad("invalid JSON: %s" % e)
     no_lone_surrogates(doc)
     return doc
 
 
+class Decimal(float):
+    """A JSON number with a fraction or exponent: its float64 value (the
+    nearest binary64, which float() gives) and its text, for the float32
+    keys, which round the decimal directly ("Numbers")."""
+
+    def __new__(cls, text):
+        v = super().__new__(cls, text)
+        v.text = text
+        return v
+
+
 def no_lone_surrogates(v):
     """A \\u escape of U+D800..U+DFFF that is not a high surrogate followed
     by a low one decodes to a lone surrogate code point: rejected."""
+    if v is None:
+        raise bad("a value is null (no key takes null: an optional key is left out)")
+    if isinstance(v, float) and math.isinf(v):
+        raise bad("number %s is beyond the float64 range" % getattr(v, "text", v))
     if isinstance(v, str):
         if any(0xD800 <= ord(c) <= 0xDFFF for c in v):
             raise bad("string %r holds a lone surrogate escape" % v)
@@ -140,6 +172,9 @@ def obj(v, what, path):
     for k in v:
         if k not in KEYS[what]:
             raise bad("%s: unknown key %r" % (path, k))
+    for k in sorted(REQUIRED[what]):
+        if k not in v:
+            raise bad("%s: required key %r is missing" % (path, k))
     return v
 
 
@@ -183,9 +218,26 @@ def hash_hex(v, path):
 
 
 def float32_of(v, path):
-    """A JSON number as float32; out of range becomes inf, judged later."""
+    """A JSON number rounded once, directly, to the nearest float32, ties
+    to even ("Numbers"); out of range becomes inf, judged later."""
+    number(v, path)
+    if v is None:
+        return np.float32(0)
+    text = getattr(v, "text", None) or str(v)
     with np.errstate(over="ignore"):
-        return np.float32(number(v, path))
+        guess = np.float32(float(v))
+    q = fractions.Fraction(text)
+    if q == 0 or np.isinf(guess):
+        return guess
+    best = None
+    for c in (guess, np.nextafter(guess, np.float32(np.inf)), np.nextafter(guess, np.float32(-np.inf))):
+        if not np.isfinite(c):
+            continue
+        d = abs(fractions.Fraction(float(c)) - q)
+        even = int(np.array(c, dtype="<f4").view("<u4")) & 1 == 0
+        if best is None or d < best[0] or (d == best[0] and even):
+            best = (d, c)
+    return best[1]
 
 
 def parse_manifest(body):
@@ -227,7 +279,10 @@ def parse_manifest(body):
     for i, f in enumerate(arr(src.get("files"), "source.files")):
         f = obj(f, "file", "source.files[%d]" % i)
         string(f.get("name"), "source.files[%d].name" % i)
-        source_bytes += integer(f.get("bytes"), "source.files[%d].bytes" % i)
+        size = integer(f.get("bytes"), "source.files[%d].bytes" % i)
+        if size < 0:
+            raise bad("source.files[%d].bytes is %d" % (i, size))
+        source_bytes += size
         hash_hex(f.get("blake3"), "source.files[%d].blake3" % i)
     meta = src.get("metadata")
     if meta is not None:
@@ -328,9 +383,11 @@ def parse_tensor(t, i):
     for d in shape:
         if d < 0:
             raise bad("%s: shape %r" % (p, shape))
-        n *= d
-    if n > INT64_MAX:
+        n *= max(d, 1)
+    if n > INT64_MAX:  # the nonzero dimensions' product ("TENSOR")
         raise bad("%s: shape %r overflows" % (p, shape))
+    if 0 in shape:
+        n = 0
     source_dtype = string(t.get("source_dtype"), p + ".source_dtype")
     kind = string(t.get("kind"), p + ".kind")
     dtype = string(t.get("dtype"), p + ".dtype")
@@ -356,7 +413,7 @@ def parse_tensor(t, i):
         lo, hi = payload_range(codec, n)
         if not lo <= length <= hi:
             raise bad("%s: section length %d, codec %s takes %d to %d" % (p, length, codec, lo, hi))
-        if dtype or source_dtype not in DTYPE_SIZE:
+        if dtype or source_dtype not in FLOAT_DTYPES:
             raise bad("%s: dtype %r, source dtype %r" % (p, dtype, source_dtype))
         tr = t.get("trits")
         if tr is None:
@@ -380,7 +437,7 @@ def parse_tensor(t, i):
             raise bad("%s: int8 tensor with codec %r, section length %d for %d codes" % (p, codec, length, n))
         if gran != "row":
             raise bad("%s: int8 tensor with granularity %r" % (p, gran))
-        if source_dtype not in DTYPE_SIZE or dtype or scale != 0 or exact or t.get("trits") is not None:
+        if source_dtype not in FLOAT_DTYPES or dtype or scale != 0 or exact or t.get("trits") is not None:
             raise bad(p + ": int8 tensor with kept or ternary fields")
         if stats is None or scales is None:
             raise bad(p + ": int8 tensor without stats or scales")

@@ -39,6 +39,7 @@ type tensorVerdict struct {
 // parallel; the checks are reported in source order.
 func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers int, advance func(n int64)) error {
 	m := a.Manifest()
+	derivedBad := checkDerived(rep, m, src)
 	seen := make(map[string]bool, len(m.Tensors))
 	var worst worstBound
 	scratch := make([]redoBuffers, max(1, workers))
@@ -62,13 +63,13 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 		Piece: func(st *convert.Tensor, _ int64, p []byte, sum *[32]byte) error {
 			advance(int64(len(p)))
 			if sum != nil {
-				record(st, checkTensor(a, m.Recipe, st, nil, *sum, &redoBuffers{}))
+				record(st, checkTensor(a, m.Recipe, st, nil, *sum, &redoBuffers{}, derivedBad[st.Name]))
 			}
 			return nil
 		}}
 	err := convert.WalkOrdered(src, walk,
 		func(worker int, st *convert.Tensor, raw []byte, sum [32]byte) (tensorVerdict, error) {
-			return checkTensor(a, m.Recipe, st, raw, sum, &scratch[worker]), nil
+			return checkTensor(a, m.Recipe, st, raw, sum, &scratch[worker], derivedBad[st.Name]), nil
 		},
 		func(st *convert.Tensor, v tensorVerdict) error {
 			record(st, v)
@@ -101,8 +102,10 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 var keptPieceSize int64 = convert.DefaultPieceSize
 
 // checkTensor checks one source tensor against the artifact, with b the
-// worker's scratch space.
-func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, sum [32]byte, b *redoBuffers) tensorVerdict {
+// worker's scratch space. A tensor whose manifest entry differs from the
+// source (skip) is not re-quantized: its entry's claims are not trusted to
+// size buffers.
+func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, sum [32]byte, b *redoBuffers, skip bool) tensorVerdict {
 	v := tensorVerdict{name: st.Name, at: -1}
 	add := func(name string, ok bool, format string, args ...any) {
 		c := Check{Name: name, Tensor: st.Name, OK: ok}
@@ -124,6 +127,9 @@ func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []b
 		return v
 	}
 	add(CheckSourceHash, true, "")
+	if skip {
+		return v
+	}
 	name := CheckRequantize
 	if e.Kind == manifest.KindKept {
 		name = CheckKept

@@ -5,7 +5,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"path"
 	"strconv"
 	"strings"
 
@@ -83,11 +82,18 @@ func (l Limit) validate() error {
 	if l.Match == "" {
 		return fmt.Errorf("%w: %s with an empty glob", ErrBudget, l.Metric)
 	}
-	if _, err := path.Match(l.Match, ""); err != nil {
-		return fmt.Errorf("%w: glob %q: %v", ErrBudget, l.Match, err)
+	if err := convert.CheckGlob(l.Match); err != nil {
+		return fmt.Errorf("%w: %v", ErrBudget, err)
 	}
-	if math.IsNaN(l.Value) || math.IsInf(l.Value, 0) || l.Value < 0 {
-		return fmt.Errorf("%w: %s %v is not a finite number ≥ 0", ErrBudget, l.Metric, l.Value)
+	lo, hi, what := 0.0, math.Inf(1), "a finite number ≥ 0"
+	switch l.Metric {
+	case MinCosine:
+		lo, hi, what = -1, 1, "a cosine, in [-1, 1]"
+	case MaxClipped:
+		hi, what = 1, "a fraction, in [0, 1]"
+	}
+	if !(l.Value >= lo && l.Value <= hi) || math.IsInf(l.Value, 0) {
+		return fmt.Errorf("%w: %s %v is not %s", ErrBudget, l.Metric, l.Value, what)
 	}
 	return nil
 }
@@ -162,32 +168,50 @@ func ParseBudget(name string, data []byte) (*Budget, error) {
 
 // checkBudget applies every limit to every tensor with statistics whose
 // name matches, adding one check per tensor; a limit that matches no such
-// tensor is a warning.
-func checkBudget(rep *Report, m *manifest.Manifest, b *Budget) {
+// tensor, and a tensor with statistics that no limit covers, are warnings.
+// recomputed reports whether a tensor's statistics were recomputed from
+// the source (and matched); a verdict on statistics that were not says so,
+// since the manifest's own are only claims.
+func checkBudget(rep *Report, m *manifest.Manifest, b *Budget, recomputed func(tensor string) bool) {
 	used := make([]bool, len(b.Limits))
+	var uncovered []string
 	for _, e := range m.Tensors {
 		if e.Stats == nil {
 			continue
 		}
 		var over []string
+		covered := false
 		for i, l := range b.Limits {
-			if ok, _ := path.Match(l.Match, e.Name); !ok {
+			if ok, _ := convert.MatchGlob(l.Match, e.Name); !ok {
 				continue
 			}
-			used[i] = true
+			used[i], covered = true, true
 			if v, ok := l.check(*e.Stats); !ok {
 				over = append(over, fmt.Sprintf("%s %.6g beyond the limit %g (%s)", l.Metric, v, l.Value, l.Match))
 			}
 		}
-		if len(over) > 0 {
-			rep.add(CheckBudget, e.Name, false, "%s", strings.Join(over, "; "))
-		} else {
-			rep.add(CheckBudget, e.Name, true, "")
+		if !covered {
+			uncovered = append(uncovered, e.Name)
+			continue
 		}
+		again := recomputed(e.Name)
+		detail := strings.Join(over, "; ")
+		if !again {
+			detail = strings.TrimPrefix(detail+"; "+NotRecomputed, "; ")
+		}
+		rep.add(CheckBudget, e.Name, len(over) == 0, "%s", detail)
+		rep.Checks[len(rep.Checks)-1].Recomputed = &again
 	}
 	for i, l := range b.Limits {
 		if !used[i] {
 			rep.Warnings = append(rep.Warnings, fmt.Sprintf("budget %s matches no tensor with statistics", l))
 		}
 	}
+	for _, name := range uncovered {
+		rep.Warnings = append(rep.Warnings, fmt.Sprintf("tensor %q has statistics that no budget covers", name))
+	}
 }
+
+// NotRecomputed ends the detail of a budget verdict on the manifest's own
+// statistics.
+const NotRecomputed = "statistics as the manifest records them, not recomputed (verify --against SRC recomputes them)"

@@ -1,11 +1,16 @@
 package verify
 
 import (
+	"encoding/json"
+	"math/rand/v2"
+	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/testweights"
 	"ternkit/pack"
 )
 
@@ -38,7 +43,7 @@ func TestBudgetEachMetric(t *testing.T) {
 				require.Contains(t, got.Detail, metric)
 				require.Contains(t, got.Detail, "limit")
 			}
-			require.Empty(t, rep.Warnings)
+			require.Equal(t, []string{`tensor "blocks.0.mlp.down.weight" has statistics that no budget covers`}, rep.Warnings)
 		}
 	}
 }
@@ -48,8 +53,11 @@ func TestBudgetWarnsUnmatched(t *testing.T) {
 	rep, err := Run(art, Options{Budget: &Budget{Limits: []Limit{{Match: "nothing.*", Metric: MaxRelRMSE, Value: 1}}}})
 	require.NoError(t, err)
 	require.True(t, rep.OK())
-	require.Len(t, rep.Warnings, 1)
-	require.Contains(t, rep.Warnings[0], "nothing.*")
+	require.Equal(t, []string{
+		"budget nothing.* max_rel_rmse 1 matches no tensor with statistics",
+		`tensor "blocks.0.attn.q.weight" has statistics that no budget covers`,
+		`tensor "blocks.0.mlp.down.weight" has statistics that no budget covers`,
+	}, rep.Warnings)
 }
 
 func TestParseBudget(t *testing.T) {
@@ -75,7 +83,14 @@ max_clipped = 1
 		{`[[budget]]` + "\nmatch = \"*\"", "sets no limit"},
 		{`[[budget]]` + "\nmatch = \"*\"\nmin_cosine = \"high\"", "must be a number"},
 		{`[[budget]]` + "\nmatch = \"[\"\nmin_cosine = 0.5", `glob "["`},
-		{`[[budget]]` + "\nmatch = \"*\"\nmin_cosine = -1", "min_cosine -1"},
+		{`[[budget]]` + "\nmatch = \"*\"\nmin_cosine = -1.5", "min_cosine -1.5 is not a cosine, in [-1, 1]"},
+		{`[[budget]]` + "\nmatch = \"*\"\nmin_cosine = 2", "min_cosine 2 is not a cosine"},
+		{`[[budget]]` + "\nmatch = \"*\"\nmax_clipped = 1.5", "max_clipped 1.5 is not a fraction, in [0, 1]"},
+		{`[[budget]]` + "\nmatch = \"*\"\nmax_clipped = -0.1", "max_clipped -0.1 is not a fraction"},
+		{`[[budget]]` + "\nmatch = \"*\"\nmax_rel_rmse = -0.1", "max_rel_rmse -0.1 is not a finite number ≥ 0"},
+		{`[[budget]]` + "\nmatch = \"*\"\nmax_abs_err = -1", "max_abs_err -1 is not a finite number ≥ 0"},
+		{`[[budget]]` + "\nmatch = \"*\"\nmax_abs_err = inf", "max_abs_err +Inf"},
+		{`[[budget]]` + "\nmatch = \"*\"\nmax_abs_err = nan", "max_abs_err NaN"},
 		{`other = 1`, `unknown key "other"`},
 		{`# empty`, "no [[budget]]"},
 		{`[[budget]`, "b.toml"},
@@ -117,4 +132,54 @@ func FuzzParseBudget(f *testing.F) {
 			_, _ = l.check(convert.Stats{})
 		}
 	})
+}
+
+// One glob for budgets: '*' crosses '/', so a tensor named like a path is
+// judged by a limit for every tensor; a tensor no limit covers is a
+// warning; a verdict without the source says its statistics were not
+// recomputed, and with the source that they were.
+func TestBudgetCoversPathLikeNames(t *testing.T) {
+	dir := t.TempDir()
+	rng := rand.New(rand.NewPCG(9, 10))
+	src := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "model/dense_1/kernel", DType: "F32", Shape: []int64{8, 16}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 128))},
+		{Name: "model/dense_2/kernel", DType: "F32", Shape: []int64{8, 16}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 128))},
+	}, nil))
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	art := filepath.Join(dir, "a.tkart")
+	_, err = pack.Build(s, art, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe()})
+	require.NoError(t, err)
+
+	all, err := ParseLimit(MaxRelRMSE, "0.1") // ternarized Gaussian weights: about 0.51
+	require.NoError(t, err)
+	rep, err := Run(art, Options{Budget: &Budget{Limits: []Limit{all}}})
+	require.NoError(t, err)
+	require.False(t, rep.OK())
+	for _, name := range []string{"model/dense_1/kernel", "model/dense_2/kernel"} {
+		c, ok := rep.Find(CheckBudget, name)
+		require.True(t, ok, name)
+		require.False(t, c.OK)
+		require.Contains(t, c.Detail, "beyond the limit 0.1")
+		require.True(t, strings.HasSuffix(c.Detail, NotRecomputed), c.Detail)
+		require.NotNil(t, c.Recomputed)
+		require.False(t, *c.Recomputed)
+	}
+
+	one, err := ParseLimit(MaxRelRMSE, "model/*_1/*=0.9")
+	require.NoError(t, err)
+	rep, err = Run(art, Options{Budget: &Budget{Limits: []Limit{one}}, Source: s})
+	require.NoError(t, err)
+	require.True(t, rep.OK(), "%v", rep.Failures())
+	c, ok := rep.Find(CheckBudget, "model/dense_1/kernel")
+	require.True(t, ok)
+	require.True(t, c.OK)
+	require.True(t, *c.Recomputed, "checked against the source")
+	require.Empty(t, c.Detail)
+	require.Equal(t, []string{`tensor "model/dense_2/kernel" has statistics that no budget covers`}, rep.Warnings)
+	b, err := json.Marshal(c)
+	require.NoError(t, err)
+	require.Contains(t, string(b), `"recomputed":true`)
 }

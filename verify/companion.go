@@ -11,6 +11,7 @@ import (
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
@@ -91,7 +92,7 @@ func checkCompanionsAgainst(rep *Report, a *pack.Artifact, src *convert.Source) 
 
 // fileBLAKE3 is the hex BLAKE3 of the file at path, read in a stream.
 func fileBLAKE3(path string) (string, error) {
-	f, err := os.Open(path)
+	f, err := inputfile.Open(path)
 	if err != nil {
 		return "", err
 	}

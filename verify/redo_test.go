@@ -229,9 +229,9 @@ func TestAgainstCatchesChangedSourceWeight(t *testing.T) {
 }
 
 // A source tensor relabelled to another dtype of the same size, its bytes
-// unchanged, is still decoded as recorded: re-quantizing passes, and only
-// the source file's hash differs.
-func TestAgainstDecodesAsRecorded(t *testing.T) {
+// unchanged, fails as a source dtype the manifest does not record (and the
+// source file's hash differs); the entry's claims are not re-quantized.
+func TestAgainstRelabelledSourceDType(t *testing.T) {
 	const name = "blocks.0.mlp.up.weight"
 	src, art, _ := bf16Fixture(t, t.TempDir(), pack.Base3)
 	raw, err := os.ReadFile(src)
@@ -254,14 +254,17 @@ func TestAgainstDecodesAsRecorded(t *testing.T) {
 	}
 	rep, err := Run(art, Options{Source: s})
 	require.NoError(t, err)
-	c, ok := rep.Find(CheckRequantize, name)
+	_, ok := rep.Find(CheckRequantize, name)
+	require.False(t, ok, "an entry that differs from the source is not re-quantized")
+	c, ok := rep.Find(CheckManifestField, name)
 	require.True(t, ok)
-	require.True(t, c.OK, c.Detail)
+	require.False(t, c.OK)
+	require.Equal(t, `source_dtype: manifest records "BF16", the source `+relabelled+` has "F16"`, c.Detail)
 	var failed []string
 	for _, f := range rep.Failures() {
 		failed = append(failed, f.Name)
 	}
-	require.Equal(t, []string{CheckSourceFile}, failed)
+	require.Equal(t, []string{CheckManifestField, CheckSourceFile}, failed)
 }
 
 // failingReaderAt fails every read that touches byte bad.

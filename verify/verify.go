@@ -39,6 +39,9 @@ type Check struct {
 	Tensor string `json:"tensor,omitempty"`
 	OK     bool   `json:"ok"`
 	Detail string `json:"detail,omitempty"`
+	// Recomputed is set on budget checks: whether the statistics judged
+	// were recomputed from the source, or are the manifest's claims.
+	Recomputed *bool `json:"recomputed,omitempty"`
 }
 
 // Report is the outcome of a verification.
@@ -47,8 +50,10 @@ type Report struct {
 	Source   string   `json:"source,omitempty"`
 	Checks   []Check  `json:"checks"`
 	Warnings []string `json:"warnings,omitempty"`
-	Passed   int      `json:"passed"`
-	Failed   int      `json:"failed"`
+	// Notes say what was not checked and why (not warnings).
+	Notes  []string `json:"notes,omitempty"`
+	Passed int      `json:"passed"`
+	Failed int      `json:"failed"`
 	// SHA256 and BLAKE3 of the whole artifact, in lowercase hex, with
 	// Options.Digests.
 	SHA256 string `json:"sha256,omitempty"`
@@ -208,6 +213,7 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		// like a section that cannot be read: the file changed under us
 		rep.add(CheckStructure, "", false, "reading the whole file for its digests: %v", err)
 	}
+	checkConfig(rep, a)
 	// the source checks read the artifact by tensor; unmapping first keeps
 	// the mapped pages out of the resident size while the source is read
 	unmapArtifact(mapped)
@@ -219,7 +225,22 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 		checkCompanionsAgainst(rep, a, opts.Source)
 	}
 	if opts.Budget != nil {
-		checkBudget(rep, a.Manifest(), opts.Budget)
+		checkBudget(rep, a.Manifest(), opts.Budget, recomputedBy(rep, opts.Source != nil))
 	}
 	return rep, nil
+}
+
+// recomputedBy reports, per tensor, whether checking against the source
+// recomputed its statistics and found the manifest's: its requantize or
+// kept check passed.
+func recomputedBy(rep *Report, against bool) func(string) bool {
+	ok := map[string]bool{}
+	if against {
+		for _, c := range rep.Checks {
+			if (c.Name == CheckRequantize || c.Name == CheckKept) && c.Tensor != "" {
+				ok[c.Tensor] = c.OK
+			}
+		}
+	}
+	return func(tensor string) bool { return ok[tensor] }
 }

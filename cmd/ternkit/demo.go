@@ -84,6 +84,7 @@ comparison, and writes the artifact's HTML report beside it. Nothing is download
 				if opts.Policy, err = convert.ParsePolicy(policyPath, []byte(demoPolicy)); err != nil {
 					return err
 				}
+				opts.PolicyRules = opts.Policy.Describe() // the manifest records the policy used
 				fmt.Fprintf(out, "policy %s: one rule per action\n", policyPath)
 			}
 

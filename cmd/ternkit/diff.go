@@ -9,6 +9,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/diff"
+	"ternkit/internal/textsafe"
 	"ternkit/manifest"
 	"ternkit/pack"
 	"ternkit/report"
@@ -61,7 +62,7 @@ func printDiff(w io.Writer, r *diff.Report) {
 	if len(r.Provenance) > 0 {
 		fmt.Fprintln(w, "provenance:")
 		for _, c := range r.Provenance {
-			fmt.Fprintf(w, "  %s: %s -> %s\n", c.Field, c.A, c.B)
+			fmt.Fprintf(w, "  %s: %s -> %s\n", textsafe.Escape(c.Field), textsafe.Escape(c.A), textsafe.Escape(c.B))
 		}
 	}
 	section := func(title string, n int) {
@@ -71,19 +72,19 @@ func printDiff(w io.Writer, r *diff.Report) {
 	}
 	section("added", len(r.Added))
 	for _, t := range r.Added {
-		fmt.Fprintf(w, "  + %s %s %s %s, %d bytes\n", t.Name, report.FormatShape(t.Shape), t.Kind, t.Codec, t.Bytes)
+		fmt.Fprintf(w, "  + %s %s %s %s, %d bytes\n", textsafe.Escape(t.Name), report.FormatShape(t.Shape), t.Kind, t.Codec, t.Bytes)
 	}
 	section("removed", len(r.Removed))
 	for _, t := range r.Removed {
-		fmt.Fprintf(w, "  - %s %s %s %s, %d bytes\n", t.Name, report.FormatShape(t.Shape), t.Kind, t.Codec, t.Bytes)
+		fmt.Fprintf(w, "  - %s %s %s %s, %d bytes\n", textsafe.Escape(t.Name), report.FormatShape(t.Shape), t.Kind, t.Codec, t.Bytes)
 	}
 	section("reshaped", len(r.Reshaped))
 	for _, t := range r.Reshaped {
-		fmt.Fprintf(w, "  ~ %s %s -> %s\n", t.Name, report.FormatShape(t.ShapeA), report.FormatShape(t.ShapeB))
+		fmt.Fprintf(w, "  ~ %s %s -> %s\n", textsafe.Escape(t.Name), report.FormatShape(t.ShapeA), report.FormatShape(t.ShapeB))
 	}
 	section("changed", len(r.Changed))
 	for _, c := range r.Changed {
-		fmt.Fprintf(w, "  %s: %s\n", c.Name, strings.Join(changeParts(c), "; "))
+		fmt.Fprintf(w, "  %s: %s\n", textsafe.Escape(c.Name), strings.Join(changeParts(c), "; "))
 	}
 	printCompanionChanges(w, r)
 	t := r.Totals

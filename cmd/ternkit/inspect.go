@@ -5,7 +5,6 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"path"
 	"slices"
 	"strings"
 	"text/tabwriter"
@@ -13,6 +12,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/convert"
+	"ternkit/internal/textsafe"
 	"ternkit/manifest"
 	"ternkit/report"
 )
@@ -59,7 +59,7 @@ func (v *inspectView) register(cmd *cobra.Command) {
 // check validates the flags and returns the sort order.
 func (v *inspectView) check() (func(a, b *report.Tensor) int, error) {
 	for _, p := range v.patterns {
-		if _, err := path.Match(p, ""); err != nil {
+		if err := convert.CheckGlob(p); err != nil {
 			return nil, usagef("--tensor %q is not a valid glob: %v", p, err)
 		}
 	}
@@ -78,7 +78,7 @@ func (v *inspectView) apply(s *report.Summary, order func(a, b *report.Tensor) i
 	if len(v.patterns) > 0 {
 		s.Tensors = slices.DeleteFunc(s.Tensors, func(t report.Tensor) bool {
 			for _, p := range v.patterns {
-				if ok, _ := path.Match(p, t.Name); ok {
+				if ok, _ := convert.MatchGlob(p, t.Name); ok {
 					return false
 				}
 			}
@@ -183,7 +183,7 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 		case t.Lossy():
 			rel = fmt.Sprintf("%.4f", t.RelRMSE)
 		}
-		rows = append(rows, []string{t.Name, report.FormatShape(t.Shape), kind, t.Codec, gran,
+		rows = append(rows, []string{textsafe.Escape(t.Name), report.FormatShape(t.Shape), kind, t.Codec, gran,
 			fmt.Sprintf("%.3f", t.BitsPerWeight), zero, rel, fmt.Sprint(t.Bytes)})
 	}
 	const firstNumeric = 5
@@ -219,10 +219,11 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 	}
 	fmt.Fprintf(w, "recipe           %s/%s eps=%g ties %s, sum %s\n", s.Recipe.Method, s.Recipe.ScaleRule, s.Recipe.Epsilon, s.Recipe.Tie, sum)
 	if len(s.Policy) > 0 {
-		fmt.Fprintf(w, "policy           %s\n", strings.Join(s.Policy, "; "))
+		fmt.Fprintf(w, "policy           %s\n", textsafe.Escape(strings.Join(s.Policy, "; ")))
 	}
 	if s.Created != "" {
-		fmt.Fprintf(w, "created          %s by %s\n", s.Created, s.Tool)
+		fmt.Fprintf(w, "created          %s by %s\n", s.Created, textsafe.Escape(s.Tool))
 	}
+	printCompanions(w, s)
 	fmt.Fprintf(w, "file BLAKE3      %s\n", s.FileBLAKE3)
 }

@@ -107,7 +107,8 @@ func TestJSONKeysDocumented(t *testing.T) {
 	runs := map[string][][]string{
 		"pack": {{"pack", src, "-o", filepath.Join(dir, "again.tkart"), "--json"}},
 		"verify": {{"verify", art, "--json"}, {"verify", art, "--against", src, "--json"}, {"verify", bad, "--json"},
-			{"verify", art, "--json", "--min-cosine", "nothing.*=0.5"}},
+			{"verify", art, "--json", "--min-cosine", "nothing.*=0.5"}, {"verify", art, "--json", "--min-cosine", "0.1"},
+			{"verify", filepath.Join(vectorsDir, "ok-companions.tkart"), "--json"}}, // a config beside tensors of another layout: a note
 		"inspect": {{"inspect", art, "--json"}, {"inspect", dated, "--json"}},
 	}
 	opaque := map[string]bool{"source.metadata": true}

@@ -9,6 +9,8 @@ import (
 	"os"
 
 	"github.com/spf13/cobra"
+
+	"ternkit/internal/textsafe"
 )
 
 // version is recorded in every manifest this build writes.
@@ -55,7 +57,7 @@ func run(args []string, stdout, stderr io.Writer) int {
 	case errors.Is(err, errVerifyFailed):
 		return exitFailed
 	default:
-		fmt.Fprintf(stderr, "ternkit: %v\n", err)
+		fmt.Fprintf(stderr, "ternkit: %s\n", textsafe.EscapeLines(err.Error()))
 		return exitInput
 	}
 }

@@ -446,7 +446,11 @@ func TestVerifyBudget(t *testing.T) {
 	}
 	require.NoError(t, json.Unmarshal([]byte(out), &rep))
 	require.False(t, rep.OK)
-	require.Len(t, rep.Warnings, 1)
+	require.Contains(t, rep.Warnings, "budget missing.* min_cosine 0.5 matches no tensor with statistics")
+	for _, w := range rep.Warnings[1:] {
+		require.Contains(t, w, "has statistics that no budget covers")
+		require.NotContains(t, w, ".mlp.", "the budget covers these")
+	}
 	failed := 0
 	for _, c := range rep.Checks {
 		if c.Check == "budget" && !c.OK {

@@ -14,6 +14,7 @@ import (
 
 	"ternkit/convert"
 	"ternkit/internal/filedigest"
+	"ternkit/internal/inputfile"
 	"ternkit/manifest"
 	"ternkit/pack"
 	"ternkit/report"
@@ -36,7 +37,7 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	d := convert.DefaultRecipe()
 	cmd.Flags().StringVar(&f.codec, "codec", string(pack.Auto), "trit codec: auto (per tensor entropy where the trits leave room for it and it is smaller, else base3), base3 (5 trits/byte, 1.6 bits/weight), entropy (base3 in a zstd frame) or bits2 (4 trits/byte, fastest decode)")
 	cmd.Flags().StringVar(&f.scaleRule, "scale-rule", string(d.ScaleRule), "reciprocal (w × 1/max(gamma, eps), training-code form) or quotient (w / (gamma + eps), paper form)")
-	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule")
+	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule, in (0, 1e-2]")
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
 	cmd.Flags().StringVar(&f.sum, "sum", string(d.Sum), "order of gamma's float64 sum: strided16 (16 partial sums, vector speed) or sequential (index order, the order of artifacts that record none)")
 	f.companions.register(cmd)
@@ -109,7 +110,7 @@ func (f *recipeFlags) policy() (*convert.Policy, error) {
 	}
 	base := convert.DefaultPolicy()
 	if f.policyFile != "" {
-		data, err := os.ReadFile(f.policyFile)
+		data, err := inputfile.ReadFile(f.policyFile)
 		if err != nil {
 			return nil, err
 		}
@@ -208,6 +209,17 @@ func packFile(src, out string, opts pack.Options, comp *companionFlags, warnUnma
 	}
 	defer s.Close()
 	if opts.Companions, err = comp.find(s); err != nil {
+		return nil, err
+	}
+	warnConfig(stderr, opts.Companions, s.Tensors)
+	inputs := []string{src, s.Path}
+	for _, f := range s.Files {
+		inputs = append(inputs, f.Path)
+	}
+	for _, c := range opts.Companions {
+		inputs = append(inputs, c.Path)
+	}
+	if err := checkOutput(out, inputs...); err != nil {
 		return nil, err
 	}
 	if warnUnmatched && opts.Policy != nil {

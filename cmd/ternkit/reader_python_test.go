@@ -275,7 +275,9 @@ func TestSecondReaderVectors(t *testing.T) {
 			require.Equal(t, want.Name, got.Name, v.File)
 			require.Equal(t, want.Trits, got.Trits, "%s %s", v.File, want.Name)
 			require.Equal(t, want.Hex, got.Hex, "%s %s", v.File, want.Name)
-			require.Equal(t, want.Scales, got.Scales, "%s %s", v.File, want.Name)
+			if len(want.Scales) > 0 || len(got.Scales) > 0 {
+				require.Equal(t, want.Scales, got.Scales, "%s %s", v.File, want.Name)
+			}
 		}
 		require.Equal(t, v.Companions, res[i].Companions, v.File)
 	}

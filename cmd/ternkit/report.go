@@ -39,6 +39,9 @@ verify for that. The page describes the packing, not task quality.`,
 			if st, err := os.Stat(out); err == nil && st.IsDir() {
 				return usagef("-o %q is a directory; give the page's file name, e.g. %s", out, filepath.Join(out, "report.html"))
 			}
+			if err := checkOutput(out, args[0]); err != nil {
+				return err
+			}
 			return writeReport(cmd.OutOrStdout(), args[0], out)
 		},
 	}

@@ -56,6 +56,9 @@ model's quality. ` + caution + `.`,
 			if sameFile(out, art) || sameFile(out, keyPath) {
 				return usagef("-o %s is an input of this command; write the signature elsewhere", out)
 			}
+			if err := checkOutput(out, art, keyPath); err != nil {
+				return err
+			}
 			var k *sign.PrivateKey
 			if !printMessage {
 				var err error

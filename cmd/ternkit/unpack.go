@@ -12,9 +12,9 @@ import (
 )
 
 func newUnpackCmd() *cobra.Command {
-	var out, dtype string
+	var out, dtype, shardSize string
 	cmd := &cobra.Command{
-		Use:   "unpack ARTIFACT -o OUT.safetensors [--dtype f32|f16|bf16]",
+		Use:   "unpack ARTIFACT -o OUT.safetensors|DIR [--dtype f32|f16|bf16] [--shard-size SIZE]",
 		Short: "Write an artifact back out as a float safetensors checkpoint",
 		Long: `unpack writes a safetensors checkpoint with the artifact's tensor names,
 shapes and order, so that an evaluation harness can load the model as it
@@ -24,9 +24,17 @@ other kept tensors keep their bytes and dtype. The source metadata is kept,
 and "` + pack.UnpackedFromKey + `" records the artifact's manifest BLAKE3.
 Section hashes are checked while reading; the file is written atomically.
 
+With -o DIR (any name not ending in .safetensors) unpack writes a complete
+checkpoint directory: the weights as ` + pack.UnpackedWeights + `, or, with
+--shard-size, as shards of at most SIZE tensor bytes and their index
+` + pack.UnpackedIndex + `, plus every companion file (config, tokenizer,
+licence, ...) byte for byte. DIR must not exist or be empty; it appears
+complete or not at all.
+
 ` + caution + `.`,
 		Example: `  ternkit unpack fernmoss-scout-mini.tkart -o scout-eval.safetensors
-  ternkit unpack fernmoss-scout-mini.tkart -o scout-eval.safetensors --dtype bf16`,
+  ternkit unpack fernmoss-scout-mini.tkart -o scout-eval.safetensors --dtype bf16
+  ternkit unpack fernmoss-scout-mini.tkart -o scout-eval/ --shard-size 2MiB`,
 		Args: exactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			dt := strings.ToUpper(dtype)
@@ -34,17 +42,39 @@ Section hashes are checked while reading; the file is written atomically.
 				return usagef("--dtype %q (valid: f32, f16, bf16)", dtype)
 			}
 			if out == "" {
-				return usagef("unpack needs -o OUT.safetensors (the checkpoint to write)")
+				return usagef("unpack needs -o OUT.safetensors or -o DIR (the checkpoint to write)")
 			}
-			if st, err := os.Stat(out); err == nil && st.IsDir() {
+			toDir := !strings.HasSuffix(out, ".safetensors")
+			shard, err := parseByteSize(shardSize)
+			if err != nil {
+				return usagef("--shard-size: %v", err)
+			}
+			if shard > 0 && !toDir {
+				return usagef("--shard-size writes a directory: give -o DIR, not %q", out)
+			}
+			if st, err := os.Stat(out); err == nil && st.IsDir() && !toDir {
 				return usagef("-o %q is a directory; give the checkpoint's file name", out)
+			}
+			if st, err := os.Stat(out); err != nil || !st.IsDir() {
+				// a file, in either mode, must not be the artifact read
+				if err := checkOutput(out, args[0]); err != nil {
+					return err
+				}
 			}
 			a, err := pack.Open(args[0])
 			if err != nil {
 				return err
 			}
 			defer a.Close()
-			if err := pack.Unpack(a, out, dt); err != nil {
+			if toDir {
+				err = pack.UnpackDir(a, out, dt, shard)
+			} else {
+				if err := checkNotRecordedSource(out, a.Manifest()); err != nil {
+					return err
+				}
+				err = pack.Unpack(a, out, dt)
+			}
+			if err != nil {
 				return err
 			}
 			m := a.Manifest()
@@ -53,7 +83,8 @@ Section hashes are checked while reading; the file is written atomically.
 			return nil
 		},
 	}
-	cmd.Flags().StringVarP(&out, "output", "o", "", "safetensors file to write")
+	cmd.Flags().StringVarP(&out, "output", "o", "", "safetensors `FILE` to write, or checkpoint `DIR` (weights and companion files)")
+	cmd.Flags().StringVar(&shardSize, "shard-size", "", "with -o DIR: split the weights into shards of at most `SIZE` bytes (e.g. 500MB, 2GiB) with an index")
 	cmd.Flags().StringVar(&dtype, "dtype", "f32", "float dtype of the written tensors: f32, f16 or bf16")
 	return cmd
 }

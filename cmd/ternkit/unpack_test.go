@@ -69,7 +69,7 @@ func TestUnpackUsage(t *testing.T) {
 	}{
 		{[]string{"unpack", art}, "needs -o"},
 		{[]string{"unpack", art, "-o", filepath.Join(dir, "x.safetensors"), "--dtype", "int8"}, `"int8"`},
-		{[]string{"unpack", art, "-o", dir}, "is a directory"},
+		{[]string{"unpack", art, "-o", dir}, "not empty"},
 		{[]string{"unpack", filepath.Join(dir, "missing.tkart"), "-o", filepath.Join(dir, "x.safetensors")}, "missing.tkart"},
 	}
 	for _, c := range cases {

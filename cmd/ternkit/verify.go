@@ -4,12 +4,13 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
-	"os"
 	"runtime"
 	"strings"
 
 	"github.com/spf13/cobra"
 
+	"ternkit/internal/inputfile"
+	"ternkit/internal/textsafe"
 	"ternkit/pack"
 	"ternkit/verify"
 )
@@ -110,7 +111,7 @@ var metricHelp = map[string]string{
 func readBudget(file string, limits map[string]*[]string) (*verify.Budget, error) {
 	b := &verify.Budget{}
 	if file != "" {
-		data, err := os.ReadFile(file)
+		data, err := inputfile.ReadFile(file)
 		if err != nil {
 			return nil, err
 		}
@@ -157,17 +158,35 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 		fmt.Fprintf(w, "signature: valid, %s\n", c.Detail)
 	}
 	for _, warning := range rep.Warnings {
-		fmt.Fprintf(w, "warning: %s\n", warning)
+		fmt.Fprintf(w, "warning: %s\n", textsafe.Escape(warning))
+	}
+	for _, note := range rep.Notes {
+		fmt.Fprintf(w, "note: %s\n", note)
 	}
 	if c, ok := rep.Find(verify.CheckBound, ""); ok && c.OK {
 		fmt.Fprintf(w, "bound: %s\n", c.Detail)
 	}
 	for _, c := range rep.Failures() {
 		if c.Tensor != "" {
-			fmt.Fprintf(w, "FAIL %s %q: %s\n", c.Name, c.Tensor, c.Detail)
+			fmt.Fprintf(w, "FAIL %s %q: %s\n", c.Name, c.Tensor, textsafe.Escape(c.Detail))
 		} else {
-			fmt.Fprintf(w, "FAIL %s: %s\n", c.Name, c.Detail)
+			fmt.Fprintf(w, "FAIL %s: %s\n", c.Name, textsafe.Escape(c.Detail))
 		}
 	}
+	if n := budgetNotRecomputed(rep); n > 0 {
+		fmt.Fprintf(w, "budget: %d verdicts on %s\n", n, verify.NotRecomputed)
+	}
 	return nil
+}
+
+// budgetNotRecomputed counts the budget verdicts given on the manifest's
+// own statistics.
+func budgetNotRecomputed(rep *verify.Report) int {
+	n := 0
+	for _, c := range rep.Checks {
+		if c.Name == verify.CheckBudget && c.Recomputed != nil && !*c.Recomputed {
+			n++
+		}
+	}
+	return n
 }

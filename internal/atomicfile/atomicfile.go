@@ -16,6 +16,7 @@ import (
 	"errors"
 	"fmt"
 	"io/fs"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -25,7 +26,8 @@ import (
 // File is a file being written; nothing appears at its path until Commit.
 type File struct {
 	path string
-	perm fs.FileMode
+	// keep is the mode of the regular file being replaced, if any
+	keep *fs.FileMode
 	tmp  *os.File
 	bw   *bufio.Writer
 	n    int64
@@ -39,15 +41,22 @@ type File struct {
 // produces the file instead of all waiting for Commit's fsync.
 const writebackStep = 8 << 20
 
-// Create starts writing path. The file gets mode perm on commit (the umask
-// does not apply). Call Abort (typically deferred) to clean up on error.
+// Create starts writing path. A new file gets mode perm less the umask; a
+// file being replaced keeps its mode. A path that exists and is not a
+// regular file (a directory, a named pipe, a device) is refused with an
+// error wrapping ErrNotRegular, before anything is written. Call Abort
+// (typically deferred) to clean up on error.
 func Create(path string, perm fs.FileMode) (*File, error) {
+	keep, err := checkDestination(path)
+	if err != nil {
+		return nil, err
+	}
 	dir, base := filepath.Split(path)
 	if dir == "" {
 		dir = "."
 	}
 	RemoveStale(path)
-	tmp, err := os.CreateTemp(dir, tempPrefix(base)+strconv.Itoa(os.Getpid())+"-*")
+	tmp, err := createTemp(dir, tempPrefix(base)+strconv.Itoa(os.Getpid())+"-", perm)
 	if err != nil {
 		var pe *fs.PathError
 		if errors.As(err, &pe) {
@@ -55,7 +64,21 @@ func Create(path string, perm fs.FileMode) (*File, error) {
 		}
 		return nil, fmt.Errorf("write %s: create a file in %s: %w", path, dir, err)
 	}
-	return &File{path: path, perm: perm, tmp: tmp, bw: bufio.NewWriterSize(tmp, 1<<20)}, nil
+	return &File{path: path, keep: keep, tmp: tmp, bw: bufio.NewWriterSize(tmp, 1<<20)}, nil
+}
+
+// createTemp creates a new file named prefix and a random number in dir,
+// with mode perm less the umask (the kernel applies it, as for any new
+// file).
+func createTemp(dir, prefix string, perm fs.FileMode) (*os.File, error) {
+	for try := 0; ; try++ {
+		name := filepath.Join(dir, prefix+strconv.FormatUint(uint64(rand.Uint32()), 10))
+		f, err := os.OpenFile(name, os.O_RDWR|os.O_CREATE|os.O_EXCL, perm)
+		if errors.Is(err, fs.ErrExist) && try < 100 {
+			continue
+		}
+		return f, err
+	}
 }
 
 // Write buffers p for the temporary file. A large p goes to the kernel in
@@ -121,8 +144,8 @@ func (f *File) commit(place func(tmp string) error) error {
 		return fmt.Errorf("write %s: %w", f.path, errors.New("already committed"))
 	}
 	err := f.bw.Flush()
-	if err == nil {
-		err = f.tmp.Chmod(f.perm)
+	if err == nil && f.keep != nil {
+		err = f.tmp.Chmod(*f.keep)
 	}
 	if err == nil {
 		err = f.tmp.Sync()
@@ -159,13 +182,14 @@ func (f *File) Abort() {
 	os.Remove(f.tmp.Name())
 }
 
-// WriteFile writes data to path atomically with mode perm, replacing what
-// was there.
+// WriteFile writes data to path atomically, replacing what was there (and
+// keeping its mode) or creating it with mode perm less the umask.
 func WriteFile(path string, data []byte, perm fs.FileMode) error {
 	return write(path, data, perm, (*File).Commit)
 }
 
-// WriteNewFile writes data to path atomically with mode perm, and fails
+// WriteNewFile writes data to path atomically with mode perm less the
+// umask, and fails
 // with an error wrapping fs.ErrExist if path exists.
 func WriteNewFile(path string, data []byte, perm fs.FileMode) error {
 	return write(path, data, perm, (*File).CommitNew)

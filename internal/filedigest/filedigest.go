@@ -7,9 +7,10 @@ import (
 	"encoding/hex"
 	"fmt"
 	"io"
-	"os"
 
 	"github.com/zeebo/blake3"
+
+	"ternkit/internal/inputfile"
 )
 
 // Digests are a file's hashes in lowercase hex.
@@ -45,7 +46,7 @@ func (h *Hasher) Digests() Digests {
 
 // File hashes the file at path.
 func File(path string) (Digests, error) {
-	f, err := os.Open(path)
+	f, err := inputfile.Open(path)
 	if err != nil {
 		return Digests{}, err
 	}

@@ -1,0 +1,169 @@
+package pack
+
+import (
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io/fs"
+	"os"
+	"path/filepath"
+	"slices"
+
+	"ternkit/convert"
+	"ternkit/internal/atomicfile"
+	"ternkit/manifest"
+)
+
+// Names of the weights UnpackDir writes (the common checkpoint layout:
+// model.safetensors, or model-0000i-of-0000n.safetensors shards and their
+// index model.safetensors.index.json; common practice).
+const (
+	UnpackedWeights = "model.safetensors"
+	UnpackedIndex   = "model.safetensors.index.json"
+)
+
+// ErrDirNotEmpty reports an UnpackDir destination that already holds files.
+var ErrDirNotEmpty = errors.New("destination directory is not empty")
+
+// UnpackDir writes a complete checkpoint directory at dir: the weights as
+// Unpack writes them, in one file, or, when shardSize > 0, in shards of at
+// most shardSize tensor bytes each (a larger tensor gets a shard of its
+// own) with their index; and every companion file, byte for byte, under
+// its name. dir must not exist or be empty; everything is written into a
+// temporary directory beside it, which is renamed to dir at the end, so
+// that on error nothing is left at dir.
+func UnpackDir(a *Artifact, dir, dtype string, shardSize int64) error {
+	if !slices.Contains(UnpackDTypes, dtype) {
+		return fmt.Errorf("%w: unpack to %q (valid: %v)", convert.ErrDType, dtype, UnpackDTypes)
+	}
+	if shardSize < 0 {
+		return fmt.Errorf("shard size %d is negative", shardSize)
+	}
+	if entries, err := os.ReadDir(dir); err == nil && len(entries) > 0 {
+		return fmt.Errorf("%w: %s", ErrDirNotEmpty, dir)
+	} else if err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return err
+	}
+	shards := planShards(a.Manifest().Tensors, dtype, shardSize)
+	weights := map[string]bool{}
+	if len(shards) <= 1 {
+		weights[UnpackedWeights] = true
+	} else {
+		weights[UnpackedIndex] = true
+		for i := range shards {
+			weights[shardName(i, len(shards))] = true
+		}
+	}
+	for _, c := range a.Companions() {
+		if weights[c.Name] {
+			return fmt.Errorf("%w: companion %q has the name of the unpacked weights", ErrCompanion, c.Name)
+		}
+	}
+	clean := filepath.Clean(dir)
+	tmp, err := os.MkdirTemp(filepath.Dir(clean), "."+filepath.Base(clean)+".tmp-")
+	if err != nil {
+		return err
+	}
+	done := false
+	defer func() {
+		if !done {
+			os.RemoveAll(tmp)
+		}
+	}()
+	if len(shards) <= 1 {
+		if err := unpackTensors(a, filepath.Join(tmp, UnpackedWeights), dtype, a.Manifest().Tensors); err != nil {
+			return err
+		}
+	} else if err := unpackShards(a, tmp, dtype, shards); err != nil {
+		return err
+	}
+	for _, c := range a.Companions() {
+		b, err := a.Companion(c.Name)
+		if err != nil {
+			return err
+		}
+		if err := atomicfile.WriteFile(filepath.Join(tmp, c.Name), b, 0o644); err != nil {
+			return err
+		}
+	}
+	if err := os.Chmod(tmp, 0o755); err != nil {
+		return err
+	}
+	// rename replaces an empty directory (POSIX rename); dir was checked empty
+	if err := os.Rename(tmp, clean); err != nil {
+		return err
+	}
+	done = true
+	return syncDir(filepath.Dir(clean))
+}
+
+// planShards splits the tensors, in order, into runs of at most shardSize
+// unpacked bytes (one run when shardSize is 0).
+func planShards(tensors []manifest.Tensor, dtype string, shardSize int64) [][]manifest.Tensor {
+	if shardSize == 0 || len(tensors) == 0 {
+		return [][]manifest.Tensor{tensors}
+	}
+	var out [][]manifest.Tensor
+	var cur []manifest.Tensor
+	var size int64
+	for _, e := range tensors {
+		n := unpackedBytes(e, dtype)
+		if len(cur) > 0 && size+n > shardSize {
+			out = append(out, cur)
+			cur, size = nil, 0
+		}
+		cur = append(cur, e)
+		size += n
+	}
+	return append(out, cur)
+}
+
+// unpackedBytes is the size of the tensor's data in the unpacked file.
+func unpackedBytes(e manifest.Tensor, dtype string) int64 {
+	size, ok := convert.DTypeSize(unpackedDType(e, dtype))
+	if !ok {
+		return e.Section.Length // an unknown dtype, kept byte for byte
+	}
+	return manifest.NumElements(e.Shape) * int64(size)
+}
+
+func shardName(i, n int) string {
+	return fmt.Sprintf("model-%05d-of-%05d.safetensors", i+1, n)
+}
+
+// unpackShards writes each run of tensors to its shard and the index
+// naming each tensor's shard.
+func unpackShards(a *Artifact, dir, dtype string, shards [][]manifest.Tensor) error {
+	type index struct {
+		Metadata  map[string]int64  `json:"metadata"`
+		WeightMap map[string]string `json:"weight_map"`
+	}
+	idx := index{Metadata: map[string]int64{"total_size": 0}, WeightMap: map[string]string{}}
+	for i, run := range shards {
+		name := shardName(i, len(shards))
+		if err := unpackTensors(a, filepath.Join(dir, name), dtype, run); err != nil {
+			return err
+		}
+		for _, e := range run {
+			idx.WeightMap[e.Name] = name
+			idx.Metadata["total_size"] += unpackedBytes(e, dtype)
+		}
+	}
+	b, err := json.MarshalIndent(idx, "", "  ")
+	if err != nil {
+		return err
+	}
+	return atomicfile.WriteFile(filepath.Join(dir, UnpackedIndex), append(b, '\n'), 0o644)
+}
+
+func syncDir(dir string) error {
+	d, err := os.Open(dir)
+	if err != nil {
+		return err
+	}
+	defer d.Close()
+	if err := d.Sync(); err != nil && !errors.Is(err, os.ErrInvalid) {
+		return err
+	}
+	return nil
+}
