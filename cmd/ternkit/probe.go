@@ -16,6 +16,7 @@ import (
 	"ternkit/modelconfig"
 	"ternkit/pack"
 	"ternkit/probe"
+	"ternkit/verify"
 )
 
 // probeCaution goes with every probe result.
@@ -142,7 +143,7 @@ func probeConfig(a *pack.Artifact, art, configFlag, against string) ([]byte, str
 
 // probeConfigName is the model config's file name, beside a checkpoint or
 // as an artifact's companion.
-const probeConfigName = "config.json"
+const probeConfigName = verify.ConfigCompanion
 
 func runProbe(cmd *cobra.Command, art string, f probeFlags) error {
 	fl := cmd.Flags()
