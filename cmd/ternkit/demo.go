@@ -43,8 +43,9 @@ func newDemoCmd() *cobra.Command {
 		Long: `demo writes a small transformer-shaped BF16 checkpoint of its own (` + demoModel + `,
 the inventory assistant of the fictional Fernmoss Seed Vault), packs it into
 an artifact, verifies the artifact against the checkpoint, prints sizes,
-bits per weight, zero fraction and timings, and writes the artifact's HTML
-report beside it. Nothing is downloaded.`,
+bits per weight, zero fraction and timings, runs the packed model against
+its source on two probe sequences (ternkit probe --against) and prints the
+comparison, and writes the artifact's HTML report beside it. Nothing is downloaded.`,
 		Example: `  ternkit demo
   ternkit demo --dir /tmp/scout --codec bits2`,
 		Args: exactArgs(0),
@@ -126,6 +127,11 @@ report beside it. Nothing is downloaded.`,
 			if !rep.OK() {
 				return errVerifyFailed
 			}
+			// the behaviour check: the packed model against its source
+			if err := demoProbe(out, art, src); err != nil {
+				return err
+			}
+			fmt.Fprintln(out, "(the projections are Gaussian, packed after training, except the last layer's down projection; a probe on two random sequences is a smoke test, not an evaluation)")
 			page := report.Page{Verification: verification(rep, verifiedForPage)}
 			if err := writeReport(out, art, filepath.Join(dir, demoModel+".html"), page); err != nil {
 				return err

@@ -101,7 +101,7 @@ verifies it byte for byte and against its source, and shows what is inside.
 	root.PersistentFlags().BoolP(quietFlag, "q", false, "print nothing on success: no progress bar, result line, warning or caution (errors still go to stderr; --json output is printed)")
 	root.PersistentFlags().Bool(strictFlag, false, "treat every warning as an error (exit 2): unmatched rules, budget limits and patterns, unknown dtype names, statistics no budget covers; also TERNKIT_STRICT=1")
 	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd(), newReportCmd(),
-		newKeygenCmd(), newSignCmd(), newDiffCmd(), newUnpackCmd())
+		newKeygenCmd(), newSignCmd(), newDiffCmd(), newUnpackCmd(), newProbeCmd())
 	registerProfileFlag(root)
 	finishCommands(root)
 	for _, c := range root.Commands() {
