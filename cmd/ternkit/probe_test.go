@@ -99,7 +99,7 @@ func TestProbeCommand(t *testing.T) {
 }
 
 func TestDemoRunsProbe(t *testing.T) {
-	code, out, errOut := ternkit("demo", "--dir", t.TempDir(), "-q")
+	code, out, errOut := ternkit("demo", "--dir", t.TempDir())
 	require.Equal(t, exitOK, code, errOut)
 	require.Regexp(t, `probe \S+\.tkart against \S+\.safetensors: 2 random sequences × 32 tokens`, out)
 	require.Contains(t, out, "logits: mean KL")
