@@ -47,7 +47,7 @@ func ParseAction(s string) (Action, error) {
 		}
 		return Action{Kind: ActTernary, Granularity: gran}, nil
 	}
-	return Action{}, fmt.Errorf("%w: unknown action %q (valid: ternary, ternary:row, ternary:group:N, keep, keep:f16, keep:bf16, keep:f32, int8)", ErrPolicy, s)
+	return Action{}, fmt.Errorf("%w: %w", ErrPolicy, &UnknownActionError{Action: s})
 }
 
 func (a Action) String() string {
@@ -264,7 +264,7 @@ func ParsePolicy(name string, data []byte) (*Policy, error) {
 		if err != nil {
 			return nil, fmt.Errorf("%s: rule %d: %w", name, i+1, err)
 		}
-		r := Rule{Match: fr.Match, Dims: fr.Dims, DTypes: fr.DTypes, Action: a}
+		r := Rule{Match: fr.Match, Dims: fr.Dims, DTypes: canonicalDTypes(fr.DTypes), Action: a}
 		if err := r.validate(); err != nil {
 			return nil, fmt.Errorf("%s: rule %d: %w", name, i+1, err)
 		}

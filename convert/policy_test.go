@@ -202,3 +202,35 @@ func mustRule(t *testing.T, s string) Rule {
 	require.NoError(t, err)
 	return r
 }
+
+// dtype names in a policy are case-insensitive: safetensors headers write
+// them in upper case ("BF16", the format description), and a policy's
+// "bf16" means the same dtype rather than matching nothing.
+func TestPolicyDTypesCaseInsensitive(t *testing.T) {
+	p, err := ParsePolicy("p.toml", []byte("[[rule]]\nmatch = \"*\"\ndims = 2\ndtypes = [\"bf16\", \"F32\"]\naction = \"ternary\"\n"))
+	require.NoError(t, err)
+	require.Equal(t, []string{"BF16", "F32"}, p.Rules[0].DTypes)
+	a, i, err := p.Decide(&Tensor{Name: "w", DType: "BF16", Shape: []int64{4, 4}})
+	require.NoError(t, err)
+	require.Equal(t, 0, i)
+	require.Equal(t, ActTernary, a.Kind)
+	require.Empty(t, p.Warnings())
+}
+
+func TestPolicyWarnings(t *testing.T) {
+	p, err := ParsePolicy("p.toml", []byte("[[rule]]\nmatch = \"*\"\ndtypes = [\"BF61\", \"I8\"]\naction = \"keep\"\n"))
+	require.NoError(t, err)
+	w := p.Warnings()
+	require.Len(t, w, 2)
+	require.Contains(t, w[0], `dtype "BF61" is not one ternkit knows`)
+	require.Contains(t, w[1], `dtype "I8" is never decided by rules`)
+}
+
+func TestUnknownActionError(t *testing.T) {
+	_, err := ParseAction("ternery")
+	var ue *UnknownActionError
+	require.ErrorAs(t, err, &ue)
+	require.Equal(t, "ternery", ue.Action)
+	require.ErrorIs(t, err, ErrPolicy)
+	require.Contains(t, err.Error(), `unknown action "ternery" (valid: ternary, ternary:row, ternary:group:N, keep`)
+}

@@ -18,15 +18,19 @@ const UnpackedFromKey = "ternkit.unpacked_from"
 // UnpackDTypes are the float dtypes Unpack writes.
 var UnpackDTypes = []string{"F32", "F16", "BF16"}
 
+// SourceDType, given to Unpack as the dtype, writes each float tensor in
+// its source dtype (F32 when that is not one of UnpackDTypes).
+const SourceDType = ""
+
 // Unpack writes the artifact's tensors to a safetensors file at dst, with
 // the same names, shapes and order: ternary tensors as scale × trit, kept
 // float tensors converted to dtype (their bytes unchanged when their stored
-// dtype is dtype), other kept tensors byte for byte in their own dtype. The
+// dtype is dtype; dtype SourceDType means each tensor's source dtype), other kept tensors byte for byte in their own dtype. The
 // metadata is the source's, plus UnpackedFromKey. Each section's hash is
 // checked as it is read. The write is atomic: on error nothing is left at
 // dst. Memory holds one tensor at a time.
 func Unpack(a *Artifact, dst, dtype string) error {
-	if !slices.Contains(UnpackDTypes, dtype) {
+	if dtype != SourceDType && !slices.Contains(UnpackDTypes, dtype) {
 		return fmt.Errorf("%w: unpack to %q (valid: %v)", convert.ErrDType, dtype, UnpackDTypes)
 	}
 	return unpackTensors(a, dst, dtype, a.Manifest().Tensors)
@@ -82,7 +86,7 @@ func unpackTensors(a *Artifact, dst, dtype string, tensors []manifest.Tensor) er
 		if err := t.DecodeFloat32(floats); err != nil {
 			return err
 		}
-		if out, err = convert.EncodeFloat32(out[:0], dtype, floats); err != nil {
+		if out, err = convert.EncodeFloat32(out[:0], layout[i].DType, floats); err != nil {
 			return fmt.Errorf("unpack tensor %q: %w", e.Name, err)
 		}
 		if err := w.WriteTensor(out); err != nil {
@@ -98,6 +102,12 @@ func unpackTensors(a *Artifact, dst, dtype string, tensors []manifest.Tensor) er
 func unpackedDType(e manifest.Tensor, dtype string) string {
 	if e.Kind == manifest.KindKept && !(&convert.Tensor{DType: e.DType}).IsFloat() {
 		return e.DType
+	}
+	if dtype == SourceDType {
+		if slices.Contains(UnpackDTypes, e.SourceDType) {
+			return e.SourceDType
+		}
+		return "F32"
 	}
 	return dtype
 }

@@ -33,7 +33,7 @@ var ErrDirNotEmpty = errors.New("destination directory is not empty")
 // temporary directory beside it, which is renamed to dir at the end, so
 // that on error nothing is left at dir.
 func UnpackDir(a *Artifact, dir, dtype string, shardSize int64) error {
-	if !slices.Contains(UnpackDTypes, dtype) {
+	if dtype != SourceDType && !slices.Contains(UnpackDTypes, dtype) {
 		return fmt.Errorf("%w: unpack to %q (valid: %v)", convert.ErrDType, dtype, UnpackDTypes)
 	}
 	if shardSize < 0 {

@@ -20,8 +20,10 @@ const (
 	panelGap     = 28.0
 	valueRoom    = 52.0 // right of each panel, for the value beside the bar
 	labelCharW   = 6.6  // 11px monospace: 0.6 em per character
+	valueCharW   = 6.0  // 10px monospace
 	minLabelRoom = 80.0
 	maxLabelRoom = 330.0
+	markRoom     = 14.0 // below the rows, for the labels of reference lines
 )
 
 type chart struct {
@@ -34,6 +36,7 @@ type chart struct {
 type chartLabel struct {
 	X, Y float64
 	Text string
+	W    float64 // width of the background behind a note (0 for row labels)
 }
 
 type chartPanel struct {
@@ -41,8 +44,9 @@ type chartPanel struct {
 	X, TitleY  float64
 	GridTop    float64
 	GridBottom float64
+	MarkBottom float64 // mark lines run past the grid to their labels
 	Ticks      []chartTick
-	Marks      []chartTick // reference lines
+	Marks      []chartMarkLine // reference lines
 	Bars       []chartBar
 	Notes      []chartLabel // text in place of a bar
 }
@@ -52,19 +56,36 @@ type chartTick struct {
 	Text string
 }
 
+type chartMarkLine struct {
+	X           float64
+	Text, Class string
+	Left        bool // the label goes left of the line (near the panel's right end)
+}
+
 type chartBar struct {
 	Class, Key, Tip, Text string
 	X, Y, W, H            float64
 	TextX, TextY          float64
+	// A range bar also has a span (SpanX to SpanX+SpanW, from the row's
+	// Lo to its value) drawn over the bar from 0, and a tick at MidX.
+	Range        bool
+	Inside       bool // the text is drawn inside the bar
+	SpanX, SpanW float64
+	MidX         float64
 }
 
 // chartRow is one item to draw: its label and one value per panel; a NaN
-// value draws a note instead of a bar.
+// value draws a note instead of a bar. With Lo and Mid (per panel, set
+// when not nil), the bar is a range from Lo to the value with a tick at
+// Mid. Tip, when set, replaces the bar's tooltip.
 type chartRow struct {
 	Key, Label string
 	Values     []float64
+	Lo, Mid    []float64
 	Classes    []string
 	Notes      []string
+	Tip        string
+	Texts      []string // per panel, when set: the text beside (or inside) the bar
 }
 
 // chartAxis describes a panel: its title, the largest value it must show,
@@ -77,14 +98,22 @@ type chartAxis struct {
 	Marks   []chartMark
 }
 
-// chartMark is a reference line at a value.
+// chartMark is a reference line at a value; Class styles it ("" for the
+// plain dashed line, "budget" for a limit).
 type chartMark struct {
 	Value float64
 	Text  string
+	Class string
 }
 
 func newChart(id, title string, axes []chartAxis, rows []chartRow) chart {
 	c := chart{ID: id, Title: title, Width: chartWidth, Height: chartTop + rowHeight*float64(len(rows)) + 8}
+	for _, ax := range axes {
+		if len(ax.Marks) > 0 {
+			c.Height += markRoom // mark labels go below the rows
+			break
+		}
+	}
 	labelRoom := minLabelRoom
 	for _, r := range rows {
 		labelRoom = max(labelRoom, labelCharW*float64(utf8.RuneCountInString(r.Label))+12)
@@ -103,7 +132,12 @@ func newChart(id, title string, axes []chartAxis, rows []chartRow) chart {
 		x0 := labelRoom + float64(p)*(panelW+panelGap)
 		top, step := niceAxis(ax.Max)
 		scale := plotW / top
-		panel := chartPanel{Title: ax.Title, X: at(x0), TitleY: 12, GridTop: chartTop - 6, GridBottom: c.Height - 6}
+		panel := chartPanel{Title: ax.Title, X: at(x0), TitleY: 12, GridTop: chartTop - 6, GridBottom: c.Height - 6, MarkBottom: c.Height - 6}
+		if len(ax.Marks) > 0 {
+			panel.GridBottom = c.Height - 6 - markRoom
+		} else if c.Height > chartTop+rowHeight*float64(len(rows))+8 {
+			panel.GridBottom = c.Height - 6 - markRoom
+		}
 		for v := 0.0; v <= top*(1+1e-9); v += step {
 			text := trimNumber(v)
 			if ax.Percent {
@@ -113,21 +147,38 @@ func newChart(id, title string, axes []chartAxis, rows []chartRow) chart {
 		}
 		for _, m := range ax.Marks {
 			if m.Value <= top {
-				panel.Marks = append(panel.Marks, chartTick{X: at(x0 + m.Value*scale), Text: m.Text})
+				panel.Marks = append(panel.Marks, chartMarkLine{X: at(x0 + m.Value*scale), Text: m.Text, Class: m.Class,
+					Left: m.Value*scale+labelCharW*float64(utf8.RuneCountInString(m.Text)) > panelW})
 			}
 		}
 		for i, r := range rows {
 			y := rowY(i)
 			v := r.Values[p]
 			if math.IsNaN(v) {
-				panel.Notes = append(panel.Notes, chartLabel{X: at(x0 + 4), Y: y + barHeight - 1, Text: r.Notes[p]})
+				panel.Notes = append(panel.Notes, chartLabel{X: at(x0 + 4), Y: y + barHeight - 1, Text: r.Notes[p],
+					W: at(labelCharW*float64(utf8.RuneCountInString(r.Notes[p])) + 4)})
 				continue
 			}
 			w := at(max(v*scale, 1)) // a zero still shows as a hairline
-			panel.Bars = append(panel.Bars, chartBar{
+			bar := chartBar{
 				Class: r.Classes[p], Key: r.Key, Tip: fmt.Sprintf("%s: %s %s", r.Label, ax.Title, ax.Format(v)),
 				Text: ax.Format(v), X: at(x0), Y: y, W: w, H: barHeight, TextX: at(x0 + w + 4), TextY: y + barHeight - 1,
-			})
+			}
+			if r.Tip != "" {
+				bar.Tip = r.Tip
+			}
+			if r.Lo != nil && r.Mid != nil {
+				lo := r.Lo[p] * scale
+				bar.Range, bar.SpanX, bar.SpanW, bar.MidX = true, at(x0+lo), at(max(v*scale-lo, 2)), at(x0+r.Mid[p]*scale)
+			}
+			if r.Texts != nil && r.Texts[p] != "" {
+				bar.Text = r.Texts[p]
+				// A long text goes inside a bar with room for it, else beside.
+				if need := valueCharW*float64(utf8.RuneCountInString(bar.Text)) + 8; w > need+8 {
+					bar.TextX, bar.Inside = at(x0+4), true
+				}
+			}
+			panel.Bars = append(panel.Bars, bar)
 		}
 		c.Panels = append(c.Panels, panel)
 	}

@@ -3,6 +3,7 @@ package report
 import (
 	"bytes"
 	"fmt"
+	"html/template"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -56,6 +57,8 @@ func TestSummarize(t *testing.T) {
 	}{
 		{pack.Base3, func(n int64) int64 { return (n + 4) / 5 }},
 		{pack.Bits2, func(n int64) int64 { return (n + 3) / 4 }},
+		// an entropy frame is decoded before use: in memory, base3 digits
+		{pack.Entropy, func(n int64) int64 { return (n + 4) / 5 }},
 	}
 	for _, c := range cases {
 		t.Run(string(c.codec), func(t *testing.T) {
@@ -67,11 +70,14 @@ func TestSummarize(t *testing.T) {
 			require.Equal(t, st.Size(), s.Bytes)
 
 			ternaryParams := int64(64 + 35 + 9)
-			ternaryBytes := c.payload(64) + c.payload(35) + c.payload(9)
+			// three ternary tensors, each payload and its one float32 scale
+			ternaryBytes := c.payload(64) + c.payload(35) + c.payload(9) + 3*4
 			keptBytes := int64(4 * (24 + 8)) // F32 embedding and norm, as stored
 			require.Equal(t, ternaryParams, s.Totals.TernaryParams)
 			require.Equal(t, ternaryBytes+keptBytes, s.WeightMemory.TernaryForm)
-			require.Equal(t, 2*ternaryParams+keptBytes, s.WeightMemory.F16Form, "F16 is 2 bytes per weight (IEEE 754 binary16)")
+			// every tensor is F32 in the source: all 140 values at 2 bytes
+			// (F16 is IEEE 754 binary16)
+			require.Equal(t, int64(2*(24+64+8+35+9)), s.WeightMemory.F16Form)
 
 			srcSize := s.Totals.SourceBytes
 			require.InDelta(t, float64(srcSize)/float64(st.Size()), s.Ratio, 1e-12)
@@ -137,9 +143,28 @@ func TestLayers(t *testing.T) {
 	require.Equal(t, 32.0, emb.BitsPerWeight)
 	require.Zero(t, emb.ZeroFraction)
 
+	require.Zero(t, emb.Quantized)
+	require.Equal(t, []string{"F32"}, emb.KeptDTypes)
+
 	b0 := layers[1]
 	require.Equal(t, 3, b0.Tensors)
 	require.Equal(t, 2, b0.TernaryTensors)
+	require.Equal(t, 2, b0.Quantized)
+	require.Equal(t, 2, b0.Lossy)
+	// quantized bits: the 13 + 7 payload bytes over the 64 + 35 weights
+	require.InDelta(t, 8*20.0/99, b0.QuantizedBits, 1e-12)
+	var qErr, upErr float64
+	for _, tn := range s.Tensors {
+		switch tn.Name {
+		case "blocks.0.attn.q.weight":
+			qErr = tn.RelRMSE
+		case "blocks.0.mlp.up.weight":
+			upErr = tn.RelRMSE
+		}
+	}
+	require.Equal(t, min(qErr, upErr), b0.ErrMin)
+	require.Equal(t, max(qErr, upErr), b0.ErrMax)
+	require.Equal(t, (qErr+upErr)/2, b0.ErrMedian, "the median of two is their mean")
 	require.Equal(t, int64(64+8+35), b0.Params)
 	// 13 + 7 payload bytes (ceil(64/5), ceil(35/5)) and 32 bytes of F32 norm
 	require.Equal(t, int64(13+7+32), b0.Bytes)
@@ -220,9 +245,13 @@ func TestWriteHTML(t *testing.T) {
 	require.Contains(t, page, "&lt;img src=x onerror=alert(1)&gt;")
 
 	require.Len(t, regexp.MustCompile(`<tr class="[a-z]+" data-tensor=`).FindAllString(page, -1), 5, "one row per tensor")
-	require.Len(t, regexp.MustCompile(`<rect class="bar err"`).FindAllString(page, -1), 3, "one error bar per ternary tensor")
-	require.Len(t, regexp.MustCompile(`<rect class="bar bits`).FindAllString(page, -1), 3, "one bits bar per layer")
+	require.Len(t, regexp.MustCompile(`<rect class="bar err"`).FindAllString(page, -1), 2, "one error summary per layer with ternary tensors")
+	require.Len(t, regexp.MustCompile(`<rect class="span err"`).FindAllString(page, -1), 2, "each with its min-max span")
+	require.Len(t, regexp.MustCompile(`<rect class="bar bits`).FindAllString(page, -1), 2, "a bits bar per layer with ternary tensors")
+	require.Contains(t, page, ">kept (F32, 32 bits)</text>", "the embedding's layer is a label, not a bar")
 	require.Len(t, regexp.MustCompile(`<rect class="bar zero"`).FindAllString(page, -1), 2, "a zero bar per layer with ternary tensors")
+	require.Regexp(t, `>min 0\.\d{4} · median 0\.\d{4} · max 0\.\d{4} \(2 tensors\)</text>`, page)
+	require.Contains(t, page, "blocks.<wbr>0.<wbr>attn.<wbr>q.<wbr>weight", "names wrap at separators")
 	for _, c := range cautions {
 		require.Contains(t, page, strings.ReplaceAll(c, "'", "&#39;"))
 	}
@@ -255,4 +284,74 @@ func BenchmarkWriteHTML(b *testing.B) {
 		}
 	}
 	b.ReportMetric(float64(out.Len()), "page-bytes")
+}
+
+// The page shows what a release review needs: stored dtypes, int8 zero
+// fraction and error, cosine, exact tensors labelled, the policy as
+// applied, the full recipe, the creation time, and the verification's and
+// signature's verdicts with the budget on the error chart.
+func TestWritePage(t *testing.T) {
+	s := &Summary{
+		Artifact: "scout.tkart", Tool: "ternkit test", Created: "2026-12-02T00:00:00Z",
+		Recipe: convert.DefaultRecipe(), Policy: []string{"embed.* = int8", "lm_head.* = keep:f16", "* (2-D) = ternary", "* = keep"},
+		Totals: manifest.Totals{Tensors: 5, TernaryTensors: 2, Int8Tensors: 1, KeptTensors: 2},
+		Tensors: []Tensor{
+			{Name: "embed.tokens.weight", Shape: []int64{8, 4}, Kind: manifest.KindInt8, Codec: manifest.CodecRaw, SourceDType: "BF16", Granularity: "row",
+				Bytes: 64, BitsPerWeight: 16, ZeroFraction: 0.0312, RelRMSE: 0.0071, Cosine: 0.99997, params: 32},
+			{Name: "blocks.0.attn.q.weight", Shape: []int64{4, 4}, Kind: manifest.KindTernary, Codec: manifest.CodecBase3, SourceDType: "BF16", Granularity: "row",
+				Bytes: 20, BitsPerWeight: 10, ZeroFraction: 0.25, RelRMSE: 0.5123, Cosine: 0.8861, params: 16, zero: 4},
+			{Name: "adapter.barcode.weight", Shape: []int64{4, 4}, Kind: manifest.KindTernary, Codec: manifest.CodecBase3, SourceDType: "BF16", Granularity: "tensor",
+				Exact: true, Bytes: 4, BitsPerWeight: 2, ZeroFraction: 0.5, Cosine: 1, params: 16, zero: 8},
+			{Name: "lm_head.weight", Shape: []int64{8, 4}, Kind: manifest.KindKept, Codec: manifest.CodecRaw, SourceDType: "BF16", DType: "F16",
+				Bytes: 64, BitsPerWeight: 16, RelRMSE: 0.0021, Cosine: 0.99999, params: 32},
+			{Name: "final_norm.weight", Shape: []int64{4}, Kind: manifest.KindKept, Codec: manifest.CodecRaw, SourceDType: "F32", DType: "F32",
+				Bytes: 16, BitsPerWeight: 32, Cosine: 1, params: 4},
+		},
+	}
+	var b bytes.Buffer
+	require.NoError(t, WritePage(&b, s, Page{
+		Verification: &Verification{From: "verify JSON v.json", Source: "scout.safetensors", OK: false, Passed: 40, Failed: 1,
+			Failures: []string{"budget blocks.0.attn.q.weight: rel_rmse 0.5123 above 0.5"}, Signature: "signed by key abc123", SignatureOK: true},
+		Budget: []BudgetLine{{Match: "*", Value: 0.5}, {Match: "blocks.*", Value: 0.55}},
+	}))
+	page := b.String()
+	row := func(name string) string {
+		m := regexp.MustCompile(`<tr class="[a-z0-9]+" data-tensor="` + regexp.QuoteMeta(name) + `">.*</tr>`).FindString(page)
+		require.NotEmpty(t, m, name)
+		return m
+	}
+	require.Contains(t, row("lm_head.weight"), "<td>kept:f16</td>", "a converted kept tensor shows its stored dtype")
+	require.Contains(t, row("final_norm.weight"), "<td>kept</td>")
+	emb := row("embed.tokens.weight")
+	for _, want := range []string{"<td>int8</td>", "<td>row</td>", ">3.1%<", ">0.0071<", ">1.0000<"} {
+		require.Contains(t, emb, want, "int8: zero fraction, error and cosine")
+	}
+	require.Contains(t, row("blocks.0.attn.q.weight"), ">0.8861<", "cosine")
+	require.Equal(t, 2, strings.Count(row("adapter.barcode.weight"), ">exact<"), "error and cosine of an exact tensor")
+	require.Contains(t, page, `<text class="note-text" x="115" y="`, "a note in the error chart")
+	require.Regexp(t, `<text class="note-text"[^>]*>exact</text>`, page, "the exact layer is labelled exact")
+	for _, rule := range s.Policy {
+		require.Contains(t, page, "<li><code>"+template.HTMLEscapeString(rule)+"</code></li>")
+	}
+	require.Contains(t, page, "<dt>sum</dt><dd>strided16")
+	require.Contains(t, page, "created 2026-12-02T00:00:00Z")
+	require.Contains(t, page, `<span class="verdict-fail">FAILED</span>: 40 checks passed, 1 failed`)
+	require.Contains(t, page, "budget blocks.0.attn.q.weight: rel_rmse 0.5123 above 0.5")
+	require.Contains(t, page, `<span class="verdict-ok">valid</span>: signed by key abc123`)
+	require.Contains(t, page, `class="mark-label budget"`)
+	require.Contains(t, page, ">budget 0.5</text>")
+	require.Contains(t, page, ">budget 0.55 (blocks.*)</text>")
+
+	// Without a verification the page says none was run.
+	b.Reset()
+	require.NoError(t, WriteHTML(&b, s))
+	require.Contains(t, b.String(), `<div class="big">not run</div>`)
+	require.NotContains(t, b.String(), `id="verification"`)
+	require.NotContains(t, b.String(), "mark budget")
+}
+
+func TestWrapName(t *testing.T) {
+	require.Equal(t, template.HTML("model.<wbr>layers.<wbr>12.<wbr>self_<wbr>attn.<wbr>q_<wbr>proj.<wbr>weight"), wrapName("model.layers.12.self_attn.q_proj.weight"))
+	require.Equal(t, template.HTML("a&lt;b&gt;.<wbr>c"), wrapName("a<b>.c"))
+	require.Equal(t, template.HTML("plain"), wrapName("plain"))
 }

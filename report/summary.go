@@ -5,6 +5,7 @@
 package report
 
 import (
+	"slices"
 	"strings"
 
 	"ternkit/convert"
@@ -38,15 +39,58 @@ type Tensor struct {
 // (ternary, int8, or kept in another dtype): those carry statistics.
 func (t *Tensor) Lossy() bool { return t.Kind != manifest.KindKept || t.DType != t.SourceDType }
 
+// StoredKind is the kind with the stored dtype of a converted kept tensor:
+// "kept:f16" for a tensor kept as F16 from another dtype.
+func (t *Tensor) StoredKind() string {
+	if t.Kind == manifest.KindKept && t.DType != t.SourceDType {
+		return "kept:" + strings.ToLower(t.DType)
+	}
+	return t.Kind
+}
+
 // Ternary reports whether the tensor is stored as trits.
 func (t *Tensor) Ternary() bool { return t.Kind == manifest.KindTernary }
 
-// WeightMemory projects the memory the model's weights take: ternary
-// parameters at the artifact's bits per weight, or at 16 bits each (F16);
-// int8 and kept tensors count as stored in both.
+// WeightMemory is the memory a runtime holds the weights in, against the
+// same model in 16-bit floats.
+//
+// TernaryForm is the artifact's weights as a runtime uses them in place:
+// a ternary tensor at its decodable codec's size (base3 ⌈n/5⌉ or bits2
+// ⌈n/4⌉ bytes; an entropy frame must be decoded first, so it counts at its
+// base3 size) plus 4 bytes per scale (one for a tensor-granularity scale);
+// an int8 tensor at 1 byte per value plus 4 bytes per row scale; a kept
+// tensor as stored. F16Form is every tensor of a float source dtype at 2
+// bytes per value (IEEE 754 binary16), whatever the artifact did with it,
+// and every other tensor (integers, BOOL) as stored.
 type WeightMemory struct {
 	TernaryForm int64 `json:"ternary_form_bytes"`
 	F16Form     int64 `json:"f16_form_bytes"`
+}
+
+// runtimeBytes is a tensor's share of WeightMemory.TernaryForm.
+func runtimeBytes(e *manifest.Tensor) int64 {
+	if e.Kind != manifest.KindTernary {
+		return e.StoredBytes()
+	}
+	n := manifest.NumElements(e.Shape)
+	codec := e.Codec
+	if codec != string(pack.Base3) && codec != string(pack.Bits2) {
+		codec = string(pack.Base3) // entropy: decoded to base3 digits
+	}
+	payload, _ := manifest.TritPayloadLen(codec, n)
+	scales := int64(4)
+	if e.Scales != nil {
+		scales = e.Scales.Length
+	}
+	return payload + scales
+}
+
+// f16Bytes is a tensor's share of WeightMemory.F16Form.
+func f16Bytes(e *manifest.Tensor) int64 {
+	if (&convert.Tensor{DType: e.SourceDType}).IsFloat() {
+		return 2 * manifest.NumElements(e.Shape)
+	}
+	return e.StoredBytes()
 }
 
 // Summary is what an artifact holds, with the totals people ask for.
@@ -97,15 +141,14 @@ func summarize(path string, a *pack.Artifact, fileSum string) *Summary {
 	s := &Summary{
 		Artifact: path, Bytes: a.Size(), FileBLAKE3: fileSum, ManifestBLAKE3: manifest.HexHash(a.ManifestHash()),
 		Tool: m.Tool, Created: m.Created, Recipe: m.Recipe, Policy: m.Policy, Source: m.Source, Totals: t,
-		Ratio: ratio(t.SourceBytes, a.Size()),
-		WeightMemory: WeightMemory{
-			TernaryForm: t.TernarySectionBytes + t.Int8SectionBytes + t.KeptSectionBytes,
-			F16Form:     2*t.TernaryParams + t.Int8SectionBytes + t.KeptSectionBytes,
-		},
+		Ratio:   ratio(t.SourceBytes, a.Size()),
 		Tensors: make([]Tensor, 0, len(m.Tensors)),
 	}
 	var zero int64
-	for _, e := range m.Tensors {
+	for i := range m.Tensors {
+		e := &m.Tensors[i]
+		s.WeightMemory.TernaryForm += runtimeBytes(e)
+		s.WeightMemory.F16Form += f16Bytes(e)
 		n := manifest.NumElements(e.Shape)
 		row := Tensor{Name: e.Name, Shape: e.Shape, Kind: e.Kind, Codec: e.Codec, SourceDType: e.SourceDType,
 			DType: e.DType, Exact: e.Exact, Bytes: e.StoredBytes(), Scale: e.Scale, Cosine: 1, params: n}
@@ -148,8 +191,23 @@ type Layer struct {
 	Bytes          int64   // all section bytes of the layer
 	BitsPerWeight  float64 // 8 × Bytes / Params, kept tensors included
 	ZeroFraction   float64 // zero trits / ternary parameters; 0 without ternary tensors
-	ternaryParams  int64
-	zero           int64
+	// Quantized are the ternary and int8 tensors: their count, and their
+	// bits per weight (8 × their bytes / their parameters, scales included).
+	Quantized     int
+	QuantizedBits float64
+	// KeptDTypes lists the stored dtypes of the kept tensors, in order of
+	// first appearance.
+	KeptDTypes []string
+	// Exact counts the quantized tensors stored losslessly; the error
+	// summary is over the others (Lossy of them): the smallest, median and
+	// largest relative RMSE.
+	Exact                     int
+	Lossy                     int
+	ErrMin, ErrMedian, ErrMax float64
+	ternaryParams             int64
+	zero                      int64
+	quantParams, quantBytes   int64
+	errs                      []float64
 }
 
 // Layers groups the tensors into layers, in order of first appearance.
@@ -173,11 +231,38 @@ func (s *Summary) Layers() []Layer {
 			l.ternaryParams += t.params
 			l.zero += t.zero
 		}
+		switch {
+		case t.Kind == manifest.KindKept:
+			if !slices.Contains(l.KeptDTypes, t.DType) {
+				l.KeptDTypes = append(l.KeptDTypes, t.DType)
+			}
+		case t.Exact:
+			l.Quantized++
+			l.Exact++
+			l.quantParams += t.params
+			l.quantBytes += t.Bytes
+		default:
+			l.Quantized++
+			l.quantParams += t.params
+			l.quantBytes += t.Bytes
+			l.errs = append(l.errs, t.RelRMSE)
+		}
 	}
 	for i := range layers {
 		l := &layers[i]
 		l.BitsPerWeight = 8 * ratio(l.Bytes, l.Params)
 		l.ZeroFraction = ratio(l.zero, l.ternaryParams)
+		l.QuantizedBits = 8 * ratio(l.quantBytes, l.quantParams)
+		l.Lossy = len(l.errs)
+		if l.Lossy > 0 {
+			e := slices.Sorted(slices.Values(l.errs))
+			l.ErrMin, l.ErrMax = e[0], e[len(e)-1]
+			if n := len(e); n%2 == 1 {
+				l.ErrMedian = e[n/2]
+			} else {
+				l.ErrMedian = (e[n/2-1] + e[n/2]) / 2
+			}
+		}
 	}
 	return layers
 }

@@ -1,6 +1,7 @@
 package sign
 
 import (
+	"errors"
 	"fmt"
 	"io"
 	"io/fs"
@@ -31,17 +32,28 @@ func SignaturePath(artifact string) string { return artifact + SignatureExt }
 // both alone.
 func WriteKeyPair(name string, k *PrivateKey) (keyPath, pubPath string, err error) {
 	keyPath, pubPath = name+PrivateKeyExt, name+PublicKeyExt
-	if _, err := os.Lstat(pubPath); err == nil {
-		return "", "", fmt.Errorf("write %s: %w", pubPath, os.ErrExist)
+	for _, p := range []string{keyPath, pubPath} {
+		if _, err := os.Lstat(p); err == nil {
+			return "", "", fmt.Errorf("write %s: %w", p, os.ErrExist)
+		}
 	}
 	if err := atomicfile.WriteNewFile(keyPath, k.marshalText(), PrivateKeyMode); err != nil {
-		return "", "", err
+		return "", "", existError(keyPath, err)
 	}
 	if err := atomicfile.WriteNewFile(pubPath, k.Public().marshalText(), PublicKeyMode); err != nil {
 		os.Remove(keyPath)
-		return "", "", err
+		return "", "", existError(pubPath, err)
 	}
 	return keyPath, pubPath, nil
+}
+
+// existError names the destination, not the temporary file, when a file
+// appeared at path while it was being written.
+func existError(path string, err error) error {
+	if errors.Is(err, os.ErrExist) {
+		return fmt.Errorf("write %s: %w", path, os.ErrExist)
+	}
+	return err
 }
 
 // ReadPrivateKeyFile reads a private key file: ternkit's own, PKCS#8 PEM

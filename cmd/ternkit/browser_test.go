@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"context"
+	"fmt"
 	"image"
 	"image/png"
 	"net/url"
@@ -50,16 +51,16 @@ func runChromium(t *testing.T, chromium, page string, extra ...string) string {
 func TestReportInBrowser(t *testing.T) {
 	chromium := requireTool(t, "chromium")
 	dir := t.TempDir()
-	_, art := demoArtifact(t, dir)
-	page := filepath.Join(dir, demoModel+".html") // written by the demo
+	src, art := demoArtifact(t, dir)
+	page := filepath.Join(dir, demoModel+".html") // written by the demo, with its verify --against
 	again := filepath.Join(dir, "again.html")
-	code, _, errOut := ternkit("report", art, "-o", again)
+	code, _, errOut := ternkit("report", art, "-o", again, "--verify", "--against", src)
 	require.Equal(t, exitOK, code, errOut)
 	a, err := os.ReadFile(page)
 	require.NoError(t, err)
 	b, err := os.ReadFile(again)
 	require.NoError(t, err)
-	require.Equal(t, a, b, "report writes the page the demo wrote")
+	require.Equal(t, a, b, "report --verify --against writes the page the demo wrote")
 
 	ar, err := pack.Open(art)
 	require.NoError(t, err)
@@ -79,13 +80,37 @@ func TestReportInBrowser(t *testing.T) {
 		layers := byID(doc, "layer-chart")
 		require.NotNil(t, layers, "layer chart")
 		require.Equal(t, "svg", layers.Data)
-		// model.embed_tokens, model.layers.0 … model.layers.3, model.norm, lm_head, train
-		require.Len(t, elements(layers, "rect", "bar bits"), demoLayers+4, "a bits bar per layer")
+		// model.embed_tokens (int8) and model.layers.0 … model.layers.3 have
+		// bars; model.norm, lm_head and train (kept) have labels instead
+		require.Len(t, elements(layers, "rect", "bar bits"), demoLayers+1, "a bits bar per layer with ternary or int8 tensors")
+		require.Len(t, elements(layers, "rect", "bar bits int8"), 1, "the int8 token table's layer")
+		var notes []string
+		for _, n := range elements(layers, "text", "note-text") {
+			notes = append(notes, n.FirstChild.Data)
+		}
+		require.True(t, slices.ContainsFunc(notes, func(n string) bool { return strings.HasPrefix(n, "kept (I64, 64 bits)") }),
+			"the step counter's layer is a label, not a 64-bit bar: %q", notes)
 		// model.layers.0 … model.layers.3 hold ternary tensors
 		require.Len(t, elements(layers, "rect", "bar zero"), demoLayers, "a zero bar per layer with ternary tensors")
 		errs := byID(doc, "error-chart")
 		require.NotNil(t, errs, "error chart")
-		require.Len(t, elements(errs, "rect", "bar err"), ternary, "an error bar per ternary tensor")
+		require.Len(t, elements(errs, "rect", "bar err"), demoLayers+1, "an error summary per layer with lossy tensors (and the int8 token table)")
+		require.Less(t, demoLayers+1, ternary, "fewer bars than tensors")
+		// the last layer's MLP down projection was trained ternary: its
+		// row reads "exact" for the error and the cosine
+		exact := 0
+		for _, tr := range elements(byID(doc, "tensor-rows"), "tr", "") {
+			if attr(tr, "data-tensor") != fmt.Sprintf("model.layers.%d.mlp.down_proj.weight", demoLayers-1) {
+				continue
+			}
+			for _, td := range elements(tr, "td", "num") {
+				if td.FirstChild != nil && td.FirstChild.Data == "exact" {
+					exact++
+				}
+			}
+		}
+		require.Equal(t, 2, exact, "the trained-ternary tensor's error and cosine cells")
+		require.NotNil(t, byID(doc, "verification"), "the verification's verdicts")
 		rows := byID(doc, "tensor-rows")
 		require.NotNil(t, rows, "tensor table")
 		var got []string
@@ -124,8 +149,8 @@ func TestReportInBrowser(t *testing.T) {
 		}
 		require.Greater(t, len(colours), 100, "text and charts give many colours (antialiasing)")
 		require.Less(t, most, all*3/4, "no single colour covers three quarters of the page")
-		// The error chart is the only large area in the bar colour #b04a36:
-		// 28 bars of 11 px by some 500 px, far more than the 4 px card border.
+		// The error chart is the only large area in the light bar colour
+		// #e6c3b9: 4 layers' bars of 11 px by some 500 px.
 		near := func(c [3]uint8, want [3]int) bool {
 			for i := range c {
 				if d := int(c[i]) - want[i]; d < -6 || d > 6 {
@@ -134,14 +159,53 @@ func TestReportInBrowser(t *testing.T) {
 			}
 			return true
 		}
-		rust := 0
+		light := 0
 		for c, n := range colours {
-			if near(c, [3]int{0xb0, 0x4a, 0x36}) {
-				rust += n
+			if near(c, [3]int{0xe6, 0xc3, 0xb9}) {
+				light += n
 			}
 		}
-		require.Greater(t, rust, 50_000, "the error chart's bars are painted")
+		require.Greater(t, light, 15_000, "the error chart's bars are painted")
 	})
+}
+
+// The page of a 24-layer decoder with the common tensor names, verified
+// against its source under a budget: one error summary per layer (not 168
+// bars), the budget line, names that wrap at their separators. To look at
+// it: TERNKIT_KEEP_SCREENSHOT24=/tmp/report24.png go test ./cmd/ternkit -run Browser24
+func TestReportInBrowser24(t *testing.T) {
+	chromium := requireTool(t, "chromium")
+	dir := t.TempDir()
+	src := writeDecoder(t, dir, 24, 64, 192, 512)
+	art, page := filepath.Join(dir, "deep.tkart"), filepath.Join(dir, "deep.html")
+	code, _, errOut := ternkit("pack", src, "-o", art, "--rule", "*embed_tokens*=int8", "--rule", "lm_head.weight=keep:f16",
+		"--rule", "*.self_attn.*=ternary:row", "--rule", "*.mlp.*=ternary:group:64")
+	require.Equal(t, exitOK, code, errOut)
+	code, _, errOut = ternkit("report", art, "-o", page, "--verify", "--against", src, "--max-rel-rmse", "0.6")
+	require.Equal(t, exitOK, code, errOut)
+
+	doc, err := html.Parse(strings.NewReader(runChromium(t, chromium, page, "--dump-dom")))
+	require.NoError(t, err)
+	errs := byID(doc, "error-chart")
+	require.Len(t, elements(errs, "rect", "bar err"), 24+1, "one summary per layer, and the int8 token table")
+	require.Len(t, elements(errs, "line", "mark budget"), 1, "the budget line")
+	rows := elements(byID(doc, "tensor-rows"), "tr", "")
+	require.Len(t, rows, 2+24*9+1)
+	name := elements(rows[3], "td", "name")[0]
+	require.Len(t, elements(name, "wbr", ""), 7, "model.|layers.|0.|self_|attn.|q_|proj.|weight breaks at its separators")
+
+	shot := filepath.Join(t.TempDir(), "deep.png")
+	runChromium(t, chromium, page, "--screenshot="+shot, "--window-size=1100,2400")
+	if dst := os.Getenv("TERNKIT_KEEP_SCREENSHOT24"); dst != "" {
+		data, _ := os.ReadFile(shot)
+		require.NoError(t, os.WriteFile(dst, data, 0o644))
+	}
+	f, err := os.Open(shot)
+	require.NoError(t, err)
+	defer f.Close()
+	img, err := png.Decode(f)
+	require.NoError(t, err)
+	require.Equal(t, image.Rect(0, 0, 1100, 2400), img.Bounds())
 }
 
 // byID finds the element with the id under n.

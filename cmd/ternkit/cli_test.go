@@ -50,7 +50,7 @@ func TestErrorsSuggestTheFix(t *testing.T) {
 		{[]string{"report", src, "-o", html}, exitInput, []string{"hint: " + src + " is a safetensors checkpoint"}},
 		{[]string{"pack", art, "-o", filepath.Join(dir, "again.tkart")}, exitInput, []string{"hint: " + art + " is already a ternkit artifact; to see inside it: ternkit inspect " + art}},
 		{[]string{"verify", art, "--against", art}, exitInput, []string{"hint: " + art + " is already a ternkit artifact"}},
-		{[]string{"verify", src}, exitFailed, []string{"hint: " + src + " is a safetensors checkpoint; pack it first"}},
+		{[]string{"verify", src}, exitInput, []string{"not a ternkit artifact", "hint: " + src + " is a safetensors checkpoint; pack it first"}},
 		{[]string{"report", art}, exitInput, []string{"report needs -o OUT.html"}},
 		{[]string{"report", art, "-o", dir}, exitInput, []string{"is a directory", filepath.Join(dir, "report.html")}},
 	}

@@ -50,6 +50,7 @@ func finishCommands(root *cobra.Command) {
 			c.Example = "  ternkit help pack\n  ternkit pack --help"
 		case "completion":
 			c.Example = completionExamples("")
+			c.RunE = completionUsage
 			for _, shell := range c.Commands() {
 				shell.Example = completionExamples(shell.Name())
 			}
@@ -68,4 +69,19 @@ func completionExamples(shell string) string {
 		return ex[shell]
 	}
 	return ex["bash"] + "\n" + ex["zsh"] + "\n" + ex["fish"]
+}
+
+// completionUsage runs for `completion` without a known shell: a usage
+// error (exit 2) naming the shells, not the help text with exit 0.
+func completionUsage(cmd *cobra.Command, args []string) error {
+	var shells []string
+	for _, c := range cmd.Commands() {
+		if c.IsAvailableCommand() {
+			shells = append(shells, c.Name())
+		}
+	}
+	if len(args) == 0 {
+		return usagef("completion needs a shell: %s", strings.Join(shells, ", "))
+	}
+	return usagef("completion: unknown shell %q%s (valid: %s)", args[0], didYouMean(args[0], shells), strings.Join(shells, ", "))
 }

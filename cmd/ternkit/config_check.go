@@ -1,27 +1,24 @@
 package main
 
 import (
-	"fmt"
-	"io"
-	"os"
-
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 	"ternkit/modelconfig"
 	"ternkit/pack"
 	"ternkit/verify"
 )
 
 // warnConfig cross-checks the config.json among the companions against the
-// source's tensors and prints each mismatch as a warning on stderr (and a
-// note when nothing could be checked).
-func warnConfig(stderr io.Writer, companions []pack.Companion, tensors []*convert.Tensor) {
+// source's tensors and adds each mismatch to warn (and a note when nothing
+// could be checked).
+func warnConfig(warn *warnings, companions []pack.Companion, tensors []*convert.Tensor) {
 	for _, c := range companions {
 		if c.Name != verify.ConfigCompanion {
 			continue
 		}
-		data, err := os.ReadFile(c.Path)
+		data, err := inputfile.ReadFile(c.Path)
 		if err != nil {
-			fmt.Fprintf(stderr, "warning: %s: %v\n", c.Path, err)
+			warn.add("%s: %v", c.Path, err)
 			return
 		}
 		shapes := make([]modelconfig.Tensor, len(tensors))
@@ -30,9 +27,9 @@ func warnConfig(stderr io.Writer, companions []pack.Companion, tensors []*conver
 		}
 		for _, w := range verify.ConfigWarnings(c.Name, data, shapes) {
 			if w.Note {
-				fmt.Fprintf(stderr, "note: %s\n", w.Text)
+				warn.note("%s", w.Text)
 			} else {
-				fmt.Fprintf(stderr, "warning: %s\n", w.Text)
+				warn.add("%s", w.Text)
 			}
 		}
 		return

@@ -12,6 +12,7 @@ import (
 
 	"ternkit/convert"
 	"ternkit/internal/atomicfile"
+	"ternkit/report"
 	"ternkit/verify"
 )
 
@@ -42,13 +43,15 @@ func newDemoCmd() *cobra.Command {
 		Long: `demo writes a small transformer-shaped BF16 checkpoint of its own (` + demoModel + `,
 the inventory assistant of the fictional Fernmoss Seed Vault), packs it into
 an artifact, verifies the artifact against the checkpoint, prints sizes,
-bits per weight, zero fraction and timings, and writes the artifact's HTML
-report beside it. Nothing is downloaded.`,
+bits per weight, zero fraction and timings, runs the packed model against
+its source on two probe sequences (ternkit probe --against) and prints the
+comparison, and writes the artifact's HTML report beside it. Nothing is downloaded.`,
 		Example: `  ternkit demo
   ternkit demo --dir /tmp/scout --codec bits2`,
 		Args: exactArgs(0),
 		RunE: func(cmd *cobra.Command, _ []string) error {
-			opts, err := rf.options()
+			w := newWarnings(cmd)
+			opts, err := rf.options(w)
 			if err != nil {
 				return err
 			}
@@ -59,7 +62,7 @@ report beside it. Nothing is downloaded.`,
 			} else if err := os.MkdirAll(dir, 0o755); err != nil {
 				return err
 			}
-			out, errOut := cmd.OutOrStdout(), cmd.ErrOrStderr()
+			out := textOut(cmd)
 			src := filepath.Join(dir, demoModel+".safetensors")
 			art := filepath.Join(dir, demoModel+".tkart")
 
@@ -84,18 +87,23 @@ report beside it. Nothing is downloaded.`,
 					return err
 				}
 				opts.PolicyRules = opts.Policy.Describe() // the manifest records the policy used
+				w.addAll(opts.Policy.Warnings())
 				fmt.Fprintf(out, "policy %s: one rule per action\n", policyPath)
 			}
 
 			start = time.Now()
 			bar := newProgressBar(cmd, "pack")
 			opts.Progress = bar.callback()
-			m, err := packFile(src, art, opts, &rf.companions, true, errOut)
+			userRules := len(opts.Policy.Rules) // the demo's policy file
+			if rf.customPolicy() {
+				userRules = rf.userRules(opts.Policy)
+			}
+			m, err := packFile(src, art, opts, &rf.companions, userRules, w)
 			bar.finish()
 			if err != nil {
 				return err
 			}
-			if err := printPackResult(out, errOut, art, m, time.Since(start), false); err != nil {
+			if err := printPackResult(cmd, art, m, time.Since(start), false, w); err != nil {
 				return err
 			}
 
@@ -112,13 +120,20 @@ report beside it. Nothing is downloaded.`,
 				return err
 			}
 			fmt.Fprintf(out, "verify --against: %d checks in %s\n", len(rep.Checks), time.Since(start).Round(time.Millisecond))
-			if err := printReport(out, rep, false); err != nil {
+			w.addAll(rep.Warnings)
+			if err := printReport(out, rep, false, w); err != nil {
 				return err
 			}
 			if !rep.OK() {
 				return errVerifyFailed
 			}
-			if err := writeReport(out, art, filepath.Join(dir, demoModel+".html")); err != nil {
+			// the behaviour check: the packed model against its source
+			if err := demoProbe(out, art, src); err != nil {
+				return err
+			}
+			fmt.Fprintln(out, "(the projections are Gaussian, packed after training, except the last layer's down projection; a probe on two random sequences is a smoke test, not an evaluation)")
+			page := report.Page{Verification: verification(rep, verifiedForPage)}
+			if err := writeReport(out, art, filepath.Join(dir, demoModel+".html"), page); err != nil {
 				return err
 			}
 			fmt.Fprintf(out, "next: ternkit inspect %s\n", art)

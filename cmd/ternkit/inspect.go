@@ -2,7 +2,7 @@ package main
 
 import (
 	"cmp"
-	"encoding/json"
+
 	"fmt"
 	"io"
 	"slices"
@@ -72,9 +72,15 @@ func (v *inspectView) check() (func(a, b *report.Tensor) int, error) {
 }
 
 // apply filters and orders the summary's tensors; it is an input error
-// when patterns match no tensor.
-func (v *inspectView) apply(s *report.Summary, order func(a, b *report.Tensor) int) error {
+// when the patterns match no tensor, and a warning when one of several
+// does not.
+func (v *inspectView) apply(s *report.Summary, order func(a, b *report.Tensor) int, w *warnings) error {
 	all, example := len(s.Tensors), exampleName(s)
+	for _, p := range v.patterns {
+		if len(v.patterns) > 1 && !slices.ContainsFunc(s.Tensors, func(t report.Tensor) bool { ok, _ := convert.MatchGlob(p, t.Name); return ok }) {
+			w.add("--tensor %q matches none of the %d tensors in %s", p, all, s.Artifact)
+		}
+	}
 	if len(v.patterns) > 0 {
 		s.Tensors = slices.DeleteFunc(s.Tensors, func(t report.Tensor) bool {
 			for _, p := range v.patterns {
@@ -124,10 +130,12 @@ func newInspectCmd() *cobra.Command {
 		Use:   "inspect ARTIFACT",
 		Short: "Show what an artifact holds",
 		Long: `inspect reads an artifact's manifest and prints one row per tensor (shape,
-kind, codec, bits per weight, zero fraction, relative error, bytes) and the
+kind, codec, granularity, bits per weight, zero fraction, relative error,
+cosine, bytes) and the
 totals: source and artifact size, ratio, ternary parameters, bits per
-ternary weight and the projected weight memory in ternary form against the
-same weights at F16. It checks the manifest hash but not the sections: use
+ternary weight and the weight memory a runtime holds (ternary tensors in
+their decodable codec with their scales, int8 and kept tensors as stored)
+against every float tensor at F16. It checks the manifest hash but not the sections: use
 verify for that. --tensor and --sort change the rows, never the totals.`,
 		Example: `  ternkit inspect model.tkart
   ternkit inspect model.tkart --sort error
@@ -140,20 +148,22 @@ verify for that. --tensor and --sort change the rows, never the totals.`,
 			if err != nil {
 				return err
 			}
+			w := newWarnings(cmd)
 			s, err := report.Summarize(args[0])
 			if err != nil {
-				return withHint(err, args[0])
+				return artifactError(err, args[0])
 			}
 			all := len(s.Tensors)
-			if err := view.apply(s, order); err != nil {
+			if err := view.apply(s, order, w); err != nil {
+				return err
+			}
+			if err := w.check(); err != nil {
 				return err
 			}
 			if asJSON {
-				enc := json.NewEncoder(cmd.OutOrStdout())
-				enc.SetIndent("", "  ")
-				return enc.Encode(s)
+				return writeJSON(cmd.OutOrStdout(), inspectJSON{s, w.JSON()})
 			}
-			printInspect(cmd.OutOrStdout(), s, all)
+			printInspect(textOut(cmd), s, all)
 			return nil
 		},
 	}
@@ -162,12 +172,19 @@ verify for that. --tensor and --sort change the rows, never the totals.`,
 	return cmd
 }
 
+// inspectJSON is what inspect --json prints: the summary and the run's
+// warnings.
+type inspectJSON struct {
+	*report.Summary
+	Warnings []string `json:"warnings"`
+}
+
 // printInspect writes the table and the totals; all is the artifact's
 // tensor count before filtering. Numeric columns are right-aligned.
 func printInspect(w io.Writer, s *report.Summary, all int) {
-	rows := [][]string{{"TENSOR", "SHAPE", "KIND", "CODEC", "GRAN", "BITS/W", "ZERO%", "REL.ERR", "BYTES"}}
+	rows := [][]string{{"TENSOR", "SHAPE", "KIND", "CODEC", "GRAN", "BITS/W", "ZERO%", "REL.ERR", "COSINE", "BYTES"}}
 	for _, t := range s.Tensors {
-		kind, gran, zero, rel := t.Kind, "-", "-", "-"
+		kind, gran, zero, rel, cos := t.Kind, "-", "-", "-", "-"
 		if t.Kind == manifest.KindKept && t.DType != t.SourceDType {
 			kind = "kept:" + strings.ToLower(t.DType)
 		}
@@ -179,12 +196,12 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 		}
 		switch {
 		case t.Exact:
-			rel = "exact"
+			rel, cos = "exact", "exact"
 		case t.Lossy():
-			rel = fmt.Sprintf("%.4f", t.RelRMSE)
+			rel, cos = fmt.Sprintf("%.4f", t.RelRMSE), fmt.Sprintf("%.4f", t.Cosine)
 		}
 		rows = append(rows, []string{textsafe.Escape(t.Name), report.FormatShape(t.Shape), kind, t.Codec, gran,
-			fmt.Sprintf("%.3f", t.BitsPerWeight), zero, rel, fmt.Sprint(t.Bytes)})
+			fmt.Sprintf("%.3f", t.BitsPerWeight), zero, rel, cos, fmt.Sprint(t.Bytes)})
 	}
 	const firstNumeric = 5
 	width := make([]int, len(rows[0]))
@@ -211,7 +228,7 @@ func printInspect(w io.Writer, s *report.Summary, all int) {
 		report.FormatBytes(tot.SourceBytes), report.FormatBytes(s.Bytes), report.FormatSizeChange(s.Ratio))
 	fmt.Fprintf(w, "ternary weights  %s at %.3f bits/weight (scales included), %.1f%% zero\n",
 		report.FormatCount(tot.TernaryParams), tot.BitsPerTernaryWeight, 100*s.ZeroFraction)
-	fmt.Fprintf(w, "weight memory    %s in ternary form vs %s at F16 (int8 and kept tensors as stored in both)\n",
+	fmt.Fprintf(w, "weight memory    %s as a runtime holds it (ternary in place with scales, int8 and kept as stored) vs %s with every float tensor at F16\n",
 		report.FormatBytes(s.WeightMemory.TernaryForm), report.FormatBytes(s.WeightMemory.F16Form))
 	sum := s.Recipe.Sum
 	if sum == "" {

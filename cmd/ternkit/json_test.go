@@ -25,7 +25,7 @@ func documentedKeys(t *testing.T) map[string]map[string]bool {
 	if end := strings.Index(text[3:], "\n## "); end >= 0 {
 		text = text[:end+3]
 	}
-	heading := regexp.MustCompile("^### `ternkit (\\w+) --json`")
+	heading := regexp.MustCompile("^### `ternkit (\\w+(?: --\\w+)?) --json`")
 	row := regexp.MustCompile("^\\| `([a-z0-9_.\\[\\]]+)` \\|")
 	keys := map[string]map[string]bool{}
 	var cmd string
@@ -82,7 +82,7 @@ func jsonPaths(v any, prefix string, opaque map[string]bool, leaves, containers 
 // runs.
 func TestJSONKeysDocumented(t *testing.T) {
 	docs := documentedKeys(t)
-	for _, cmd := range []string{"pack", "verify", "inspect"} {
+	for _, cmd := range []string{"pack", "pack --plan", "verify", "inspect", "diff"} {
 		require.NotEmpty(t, docs[cmd], "README documents %s --json", cmd)
 	}
 	for k := range docs["pack"] {
@@ -104,12 +104,49 @@ func TestJSONKeysDocumented(t *testing.T) {
 	code, _, errOut := ternkit("pack", src, "-o", dated)
 	require.Equal(t, exitOK, code, errOut)
 	t.Setenv("SOURCE_DATE_EPOCH", "")
+	// diff runs: another policy (kept dtypes, int8 and row scales change),
+	// another scale rule (tensor scales change), a byte changed after packing
+	// (a mismatch), and two small checkpoints (tensors added, removed and
+	// reshaped).
+	plain, eps := filepath.Join(dir, "plain.tkart"), filepath.Join(dir, "eps.tkart")
+	for _, args := range [][]string{{"pack", src, "-o", plain}, {"pack", src, "-o", eps, "--scale-rule", "quotient"}} {
+		code, _, errOut := ternkit(args...)
+		require.Equal(t, exitOK, code, errOut)
+	}
+	small := func(name string, tensors map[string][]uint64) string {
+		values := map[string][]float32{}
+		for n, shape := range tensors {
+			v := make([]float32, shape[0]*max(1, shape[len(shape)-1]))
+			for i := range v {
+				v[i] = float32(i%5) - 2.1
+			}
+			values[n] = v
+		}
+		src := writeFixture(t, t.TempDir(), values, tensors)
+		art := filepath.Join(dir, name+".tkart")
+		code, _, errOut := ternkit("pack", src, "-o", art)
+		require.Equal(t, exitOK, code, errOut)
+		return art
+	}
+	smallA := small("small-a", map[string][]uint64{"layer.proj.weight": {8, 16}, "layer.old.weight": {4, 4}})
+	smallB := small("small-b", map[string][]uint64{"layer.proj.weight": {16, 8}, "layer.new.weight": {4, 4}})
+	// and a release whose config.json changed (a companion's keys differ)
+	recfg := filepath.Join(t.TempDir(), filepath.Base(src))
+	require.NoError(t, os.WriteFile(recfg, readFile(t, src), 0o644))
+	cfg := strings.Replace(string(readFile(t, filepath.Join(dir, "config.json"))), `"rope_theta": 10000.0`, `"rope_theta": 500000.0`, 1)
+	require.NoError(t, os.WriteFile(filepath.Join(filepath.Dir(recfg), "config.json"), []byte(cfg), 0o644))
+	cfgArt := filepath.Join(dir, "recfg.tkart")
+	code, _, errOut = ternkit("pack", recfg, "-o", cfgArt)
+	require.Equal(t, exitOK, code, errOut)
 	runs := map[string][][]string{
+		"diff": {{"diff", art, plain, "--json", "--fail-on", "kind"}, {"diff", plain, eps, "--json", "--trits"},
+			{"diff", art, bad, "--json"}, {"diff", smallA, smallB, "--json"}, {"diff", plain, cfgArt, "--json"}},
 		"pack": {{"pack", src, "-o", filepath.Join(dir, "again.tkart"), "--json"}},
 		"verify": {{"verify", art, "--json"}, {"verify", art, "--against", src, "--json"}, {"verify", bad, "--json"},
 			{"verify", art, "--json", "--min-cosine", "nothing.*=0.5"}, {"verify", art, "--json", "--min-cosine", "0.1"},
 			{"verify", filepath.Join(vectorsDir, "ok-companions.tkart"), "--json"}}, // a config beside tensors of another layout: a note
-		"inspect": {{"inspect", art, "--json"}, {"inspect", dated, "--json"}},
+		"inspect":     {{"inspect", art, "--json"}, {"inspect", dated, "--json"}},
+		"pack --plan": {{"pack", src, "--plan", "--json"}, {"pack", src, "--plan", "--json", "--policy", filepath.Join(dir, demoModel+".policy.toml")}},
 	}
 	opaque := map[string]bool{"source.metadata": true}
 	for cmd, argsList := range runs {

@@ -1,7 +1,9 @@
 package main
 
 import (
+	"errors"
 	"fmt"
+	"os"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -35,10 +37,13 @@ SubjectPublicKeyInfo PEM) and by ssh-keygen -t ed25519 (see README,
 				return err
 			}
 			keyPath, pubPath, err := sign.WriteKeyPair(name, k)
+			if errors.Is(err, os.ErrExist) {
+				return usagef("%v; keygen never replaces a key file: choose another NAME or move the old files away", err)
+			}
 			if err != nil {
 				return err
 			}
-			out := cmd.OutOrStdout()
+			out := textOut(cmd)
 			fmt.Fprintf(out, "wrote %s (private key, mode 0600: keep it secret)\n", keyPath)
 			fmt.Fprintf(out, "wrote %s (public key, key-id %s)\n", pubPath, k.Public().ID())
 			return nil

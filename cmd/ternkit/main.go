@@ -11,6 +11,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"ternkit/internal/textsafe"
+	"ternkit/pack"
 )
 
 // version is recorded in every manifest this build writes.
@@ -30,6 +31,22 @@ const caution = "caution: ternarizing a model that was not trained for ternary w
 // errVerifyFailed marks a run whose checks failed (exit 1); the report has
 // already been printed.
 var errVerifyFailed = errors.New("verification failed")
+
+// corruptError marks an artifact found corrupt while reading it (exit 1,
+// like a failed verification).
+type corruptError struct{ err error }
+
+func (e corruptError) Error() string { return e.err.Error() }
+func (e corruptError) Unwrap() error { return e.err }
+
+// asCorrupt marks errors that say the artifact's bytes are wrong (a hash
+// mismatch, an invalid code) as corruptError; others pass unchanged.
+func asCorrupt(err error) error {
+	if errors.Is(err, pack.ErrHash) || errors.Is(err, pack.ErrInvalidCode) || errors.Is(err, pack.ErrStructure) {
+		return corruptError{err}
+	}
+	return err
+}
 
 // usageError marks a problem with the command line (exit 2).
 type usageError struct{ err error }
@@ -56,6 +73,9 @@ func run(args []string, stdout, stderr io.Writer) int {
 		return exitOK
 	case errors.Is(err, errVerifyFailed):
 		return exitFailed
+	case errors.As(err, new(corruptError)):
+		fmt.Fprintf(stderr, "ternkit: %v\n", err)
+		return exitFailed
 	default:
 		fmt.Fprintf(stderr, "ternkit: %s\n", textsafe.EscapeLines(err.Error()))
 		return exitInput
@@ -78,9 +98,10 @@ verifies it byte for byte and against its source, and shows what is inside.
 	root.SetOut(stdout)
 	root.SetErr(stderr)
 	root.SetFlagErrorFunc(flagError)
-	root.PersistentFlags().BoolP(quietFlag, "q", false, "draw no progress bars (they appear only when stderr is a terminal)")
+	root.PersistentFlags().BoolP(quietFlag, "q", false, "print nothing on success: no progress bar, result line, warning or caution (errors still go to stderr; --json output is printed)")
+	root.PersistentFlags().Bool(strictFlag, false, "treat every warning as an error (exit 2): unmatched rules, budget limits and patterns, unknown dtype names, statistics no budget covers; also TERNKIT_STRICT=1")
 	root.AddCommand(newPackCmd(), newVerifyCmd(), newInspectCmd(), newDemoCmd(), newReportCmd(),
-		newKeygenCmd(), newSignCmd(), newDiffCmd(), newUnpackCmd())
+		newKeygenCmd(), newSignCmd(), newDiffCmd(), newUnpackCmd(), newProbeCmd())
 	registerProfileFlag(root)
 	finishCommands(root)
 	for _, c := range root.Commands() {

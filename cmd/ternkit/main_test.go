@@ -265,7 +265,7 @@ func TestVerifyCorruptExitsOne(t *testing.T) {
 	src, art := demoArtifact(t, dir)
 	b, err := os.ReadFile(art)
 	require.NoError(t, err)
-	for _, off := range []int{0, 70, len(b) / 2, len(b) - 100, len(b) - 1} {
+	for _, off := range []int{12, 70, len(b) / 2, len(b) - 100, len(b) - 1} {
 		c := append([]byte(nil), b...)
 		c[off] ^= 0x04
 		bad := filepath.Join(dir, "bad.tkart")
@@ -276,6 +276,15 @@ func TestVerifyCorruptExitsOne(t *testing.T) {
 		code, _, _ = ternkit("verify", bad, "--against", src)
 		require.Equal(t, exitFailed, code, "flip at %d with --against", off)
 	}
+	// A first byte changed leaves no magic: not an artifact, an input
+	// error (exit 2) as in every command.
+	c := append([]byte(nil), b...)
+	c[0] ^= 0x04
+	bad := filepath.Join(dir, "bad.tkart")
+	require.NoError(t, os.WriteFile(bad, c, 0o644))
+	code, _, errOut := ternkit("verify", bad)
+	require.Equal(t, exitInput, code)
+	require.Contains(t, errOut, "not a ternkit artifact")
 }
 
 func TestUsageErrors(t *testing.T) {

@@ -112,7 +112,7 @@ func malformedCases() []malformedCase {
 		{"index-wrong-shard", "weight_map puts a tensor in the wrong shard", exitInput, `"b"`, sharded(strings.Replace(twoShards, `"b":"model-00002`, `"b":"model-00001`, 1), shardA, shardB)},
 		{"index-duplicate-tensor", "two shards hold the same tensor", exitInput, `"a"`, sharded(twoShards, shardA, stBytes(`{"a":{"dtype":"U8","shape":[1],"data_offsets":[0,1]},"b":{"dtype":"U8","shape":[1],"data_offsets":[1,2]}}`, []byte{1, 2}))},
 		{"artifact-empty.tkart", "zero bytes", exitFailed, "shorter than preamble and trailer", edited(func([]byte) []byte { return nil })},
-		{"artifact-bad-magic.tkart", "first byte changed", exitFailed, "not a ternkit artifact", edited(func(b []byte) []byte { b[0] ^= 0xff; return b })},
+		{"artifact-bad-magic.tkart", "first byte changed: not an artifact, an input error", exitInput, "not a ternkit artifact", edited(func(b []byte) []byte { b[0] ^= 0xff; return b })},
 		{"artifact-major-version.tkart", "major version 9", exitFailed, "major version 9", edited(func(b []byte) []byte { b[8] = 9; return b })},
 		{"artifact-truncated.tkart", "last byte cut off", exitFailed, "trailer", edited(func(b []byte) []byte { return b[:len(b)-1] })},
 		{"artifact-trailer-length.tkart", "trailer's manifest length off by one", exitFailed, "manifest length", edited(func(b []byte) []byte {
@@ -223,10 +223,8 @@ func TestMalformedCorpus(t *testing.T) {
 			}
 			code, stdout, stderr := ternkit(args...)
 			require.Equal(t, c.code, code, "stdout:\n%s\nstderr:\n%s", stdout, stderr)
+			require.Empty(t, stdout, "--quiet: a failure is reported on stderr")
 			msg := stderr
-			if c.code == exitFailed {
-				msg = stdout
-			}
 			require.Contains(t, msg, c.fragment)
 			require.Contains(t, msg, c.name, "the message names the file")
 			require.Contains(t, msg, "byte ", "the message gives the byte offset")

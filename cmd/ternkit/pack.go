@@ -1,7 +1,7 @@
 package main
 
 import (
-	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"os"
@@ -64,8 +64,9 @@ func codecNames() []string {
 	return names
 }
 
-// options checks the flags; it reads the policy file, if any.
-func (f *recipeFlags) options() (pack.Options, error) {
+// options checks the flags; it reads the policy file, if any, and adds
+// what the policy warns about to w.
+func (f *recipeFlags) options(w *warnings) (pack.Options, error) {
 	codec, err := pack.ParseCodec(f.codec)
 	if err != nil {
 		return pack.Options{}, usagef("--codec: %w%s", err, didYouMean(f.codec, codecNames()))
@@ -88,6 +89,7 @@ func (f *recipeFlags) options() (pack.Options, error) {
 	if err != nil {
 		return pack.Options{}, err
 	}
+	w.addAll(p.Warnings())
 	created, err := sourceDateEpoch()
 	if err != nil {
 		return pack.Options{}, usageError{err}
@@ -95,7 +97,7 @@ func (f *recipeFlags) options() (pack.Options, error) {
 	if f.workers < 1 {
 		return pack.Options{}, usagef("--workers %d: want 1 or more", f.workers)
 	}
-	return pack.Options{Codec: codec, Recipe: r, Policy: p, PolicyRules: p.Describe(), Tool: "ternkit " + version, Created: created, Workers: f.workers}, nil
+	return pack.Options{Codec: codec, Recipe: r, Policy: p, Tool: "ternkit " + version, Created: created, Workers: f.workers}, nil
 }
 
 // policy assembles the --rule flags and the --policy file (or the default).
@@ -104,7 +106,7 @@ func (f *recipeFlags) policy() (*convert.Policy, error) {
 	for _, s := range f.rules {
 		r, err := convert.ParseRule(s)
 		if err != nil {
-			return nil, usageError{fmt.Errorf("--rule: %w", err)}
+			return nil, usageError{fmt.Errorf("--rule: %w%s", err, actionHint(err))}
 		}
 		rules = append(rules, r)
 	}
@@ -115,14 +117,33 @@ func (f *recipeFlags) policy() (*convert.Policy, error) {
 			return nil, err
 		}
 		if base, err = convert.ParsePolicy(f.policyFile, data); err != nil {
-			return nil, err
+			return nil, usageError{fmt.Errorf("%w%s", err, actionHint(err))}
 		}
 	}
 	return &convert.Policy{Rules: append(rules, base.Rules...)}, nil
 }
 
+// actionHint suggests the action closest to an unknown one.
+func actionHint(err error) string {
+	var ue *convert.UnknownActionError
+	if !errors.As(err, &ue) {
+		return ""
+	}
+	valid := slices.DeleteFunc(slices.Clone(convert.ActionNames), func(a string) bool { return strings.HasSuffix(a, ":N") })
+	return didYouMean(ue.Action, valid)
+}
+
 // customPolicy reports whether the user gave rules of their own.
 func (f *recipeFlags) customPolicy() bool { return f.policyFile != "" || len(f.rules) > 0 }
+
+// userRules is the number of leading rules of the policy the user wrote:
+// the --rule flags and the --policy file's rules, not the default policy's.
+func (f *recipeFlags) userRules(p *convert.Policy) int {
+	if f.policyFile != "" {
+		return len(p.Rules)
+	}
+	return len(f.rules)
+}
 
 func newPackCmd() *cobra.Command {
 	var (
@@ -130,6 +151,7 @@ func newPackCmd() *cobra.Command {
 		out         string
 		asJSON      bool
 		printPolicy bool
+		plan        bool
 	)
 	cmd := &cobra.Command{
 		Use:   "pack SRC -o OUT",
@@ -147,13 +169,20 @@ into the artifact; --companion GLOB adds, --no-companions drops them. The
 artifact is written to OUT atomically: on any error nothing
 is written at OUT.
 
-` + caution + `.`,
+--plan reads SRC's headers only and prints, per tensor, the action the
+policy takes, its granularity, codec and projected bytes, with totals; it
+reads no weight and writes nothing.
+
+A rule or a dtype filter that matches nothing is a warning; with --strict
+(or TERNKIT_STRICT=1) every warning is an error (exit 2) and nothing is
+written.`,
 		Example: `  ternkit pack model.safetensors -o model.tkart
   ternkit pack model.safetensors.index.json -o model.tkart
   ternkit pack model.safetensors -o model.tkart --rule '*.mlp.*=ternary:group:128' --rule '*embed*=int8'
+  ternkit pack model.safetensors --plan --rule '*embed*=int8'   # what would be done, without doing it
   ternkit pack --print-policy > policy.toml
   ternkit pack model.safetensors -o model.tkart --policy policy.toml --codec bits2
-  ternkit pack model.safetensors -o model.tkart --json --quiet   # in a pipeline`,
+  ternkit pack model.safetensors -o model.tkart --json --quiet --strict   # in a pipeline`,
 		Args: func(cmd *cobra.Command, args []string) error {
 			if printPolicy {
 				return exactArgs(0)(cmd, args)
@@ -163,6 +192,9 @@ is written at OUT.
 		ValidArgsFunction: checkpointCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			if printPolicy {
+				if plan {
+					return usagef("--print-policy and --plan do not go together (--plan SRC shows the policy applied to SRC)")
+				}
 				p, err := rf.policy()
 				if err != nil {
 					return err
@@ -170,25 +202,32 @@ is written at OUT.
 				_, err = io.WriteString(cmd.OutOrStdout(), p.TOML())
 				return err
 			}
+			if plan {
+				if out != "" {
+					return usagef("--plan writes nothing; drop -o %q", out)
+				}
+				return runPlan(cmd, args[0], &rf, asJSON)
+			}
 			if out == "" {
 				return usagef("pack needs -o OUT (the artifact to write)")
 			}
 			if st, err := os.Stat(out); err == nil && st.IsDir() {
 				return usagef("-o %q is a directory; give the artifact's file name", out)
 			}
-			opts, err := rf.options()
+			w := newWarnings(cmd)
+			opts, err := rf.options(w)
 			if err != nil {
 				return err
 			}
 			start := time.Now()
 			bar := newProgressBar(cmd, "pack")
 			opts.Progress = bar.callback()
-			m, err := packFile(args[0], out, opts, &rf.companions, rf.customPolicy(), cmd.ErrOrStderr())
+			m, err := packFile(args[0], out, opts, &rf.companions, rf.userRules(opts.Policy), w)
 			bar.finish()
 			if err != nil {
 				return checkpointHint(err, args[0])
 			}
-			return printPackResult(cmd.OutOrStdout(), cmd.ErrOrStderr(), out, m, time.Since(start), asJSON)
+			return printPackResult(cmd, out, m, time.Since(start), asJSON, w)
 		},
 	}
 	rf.register(cmd)
@@ -196,14 +235,18 @@ is written at OUT.
 	_ = cmd.MarkFlagFilename("output", strings.TrimPrefix(pack.Extension, "."))
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print the result as JSON (keys in README, \"JSON output\")")
 	cmd.Flags().BoolVar(&printPolicy, "print-policy", false, "print the policy in effect (TOML) and exit")
+	cmd.Flags().BoolVar(&plan, "plan", false, "dry run: read SRC's headers only and print what each tensor would become, and the projected sizes; write nothing")
 	return cmd
 }
 
 // packFile opens src and builds the artifact at out, carrying the
-// companion files comp selects. With warnUnmatched it warns on stderr about
-// rules that match no tensor of the source.
-func packFile(src, out string, opts pack.Options, comp *companionFlags, warnUnmatched bool, stderr io.Writer) (*manifest.Manifest, error) {
-	s, err := openSource(src, stderr)
+// companion files comp selects. It warns about each of the first userRules
+// rules that matches no tensor of the source, and about a config companion
+// that disagrees with the tensors. The manifest records the rules of
+// opts.Policy, the ones applied, whatever route set them. Under strict mode
+// a warning stops it before anything is written.
+func packFile(src, out string, opts pack.Options, comp *companionFlags, userRules int, w *warnings) (*manifest.Manifest, error) {
+	s, err := openSource(src, w)
 	if err != nil {
 		return nil, err
 	}
@@ -211,7 +254,7 @@ func packFile(src, out string, opts pack.Options, comp *companionFlags, warnUnma
 	if opts.Companions, err = comp.find(s); err != nil {
 		return nil, err
 	}
-	warnConfig(stderr, opts.Companions, s.Tensors)
+	warnConfig(w, opts.Companions, s.Tensors)
 	inputs := []string{src, s.Path}
 	for _, f := range s.Files {
 		inputs = append(inputs, f.Path)
@@ -222,44 +265,65 @@ func packFile(src, out string, opts pack.Options, comp *companionFlags, warnUnma
 	if err := checkOutput(out, inputs...); err != nil {
 		return nil, err
 	}
-	if warnUnmatched && opts.Policy != nil {
-		for _, r := range opts.Policy.Unmatched(s.Tensors) {
-			fmt.Fprintf(stderr, "warning: rule %q matches no tensor of %s\n", r.String(), src)
-		}
+	if opts.Policy == nil {
+		opts.Policy = convert.DefaultPolicy()
+	}
+	opts.PolicyRules = opts.Policy.Describe()
+	warnUnmatched(opts.Policy, userRules, s, src, w)
+	if err := w.check(); err != nil {
+		return nil, err
 	}
 	return pack.Build(s, out, opts)
 }
 
-func printPackResult(stdout, stderr io.Writer, out string, m *manifest.Manifest, took time.Duration, asJSON bool) error {
+// warnUnmatched warns about each of the first userRules rules of p that
+// matches no tensor of s.
+func warnUnmatched(p *convert.Policy, userRules int, s *convert.Source, src string, w *warnings) {
+	user := &convert.Policy{Rules: p.Rules[:min(userRules, len(p.Rules))]}
+	for _, r := range user.Unmatched(s.Tensors) {
+		w.add("rule %q matches no tensor of %s", r.String(), src)
+	}
+}
+
+// packJSON is what pack --json prints (keys in README, "JSON output").
+type packJSON struct {
+	Artifact string          `json:"artifact"`
+	Bytes    int64           `json:"bytes"`
+	BLAKE3   string          `json:"blake3"`
+	SHA256   string          `json:"sha256"`
+	Seconds  float64         `json:"seconds"`
+	Totals   manifest.Totals `json:"totals"`
+	Warnings []string        `json:"warnings"`
+}
+
+func printPackResult(cmd *cobra.Command, out string, m *manifest.Manifest, took time.Duration, asJSON bool, w *warnings) error {
 	t := m.Totals
 	if needsCaution(m) {
-		defer fmt.Fprintln(stderr, caution)
+		defer printCaution(cmd)
 	}
-	var size int64
-	if st, err := os.Stat(out); err == nil {
-		size = st.Size()
+	st, err := os.Stat(out)
+	if err != nil {
+		return err
 	}
+	size := st.Size()
 	if asJSON {
 		d, err := filedigest.File(out)
 		if err != nil {
 			return err
 		}
-		enc := json.NewEncoder(stdout)
-		enc.SetIndent("", "  ")
-		return enc.Encode(struct {
-			Artifact string          `json:"artifact"`
-			Bytes    int64           `json:"bytes"`
-			SHA256   string          `json:"sha256"`
-			Seconds  float64         `json:"seconds"`
-			Totals   manifest.Totals `json:"totals"`
-		}{out, size, d.SHA256, took.Seconds(), t})
+		return writeJSON(cmd.OutOrStdout(), packJSON{Artifact: out, Bytes: size, BLAKE3: d.BLAKE3, SHA256: d.SHA256, Seconds: took.Seconds(), Totals: t, Warnings: w.JSON()})
 	}
-	fmt.Fprintf(stdout, "packed %s: %d tensors (%d ternary, %d int8, %d kept), %s -> %s (%.2fx smaller) in %s\n",
+	stdout := textOut(cmd)
+	fmt.Fprintf(stdout, "packed %s: %d tensors (%d ternary, %d int8, %d kept), %s -> %s (%s) in %s\n",
 		out, t.Tensors, t.TernaryTensors, t.Int8Tensors, t.KeptTensors, humanBytes(t.SourceBytes), humanBytes(size),
-		ratio(t.SourceBytes, size), took.Round(time.Millisecond))
+		report.FormatSizeChange(ratio(t.SourceBytes, size)), took.Round(time.Millisecond))
 	if t.TernaryTensors > 0 {
-		fmt.Fprintf(stdout, "ternary: %d weights at %.3f bits/weight (scales included), %.1f%% zeros, %d of %d tensors exact\n",
-			t.TernaryParams, t.BitsPerTernaryWeight, 100*zeroFraction(m), exactCount(m), t.TernaryTensors)
+		exact := ""
+		if n := exactCount(m); n > 0 {
+			exact = fmt.Sprintf(", %d of %d tensors exact", n, t.TernaryTensors)
+		}
+		fmt.Fprintf(stdout, "ternary: %d weights at %.3f bits/weight (scales included), %.1f%% zeros%s\n",
+			t.TernaryParams, t.BitsPerTernaryWeight, 100*zeroFraction(m), exact)
 	}
 	return nil
 }

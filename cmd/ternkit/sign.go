@@ -30,7 +30,7 @@ KEY may be a ternkit key (ternkit keygen), a PKCS#8 PEM key (openssl genpkey
 message --print-message writes (see README, "Signing").
 
 A signature says who released these exact bytes; it says nothing about the
-model's quality. ` + caution + `.`,
+model's quality.`,
 		Example: `  ternkit sign fernmoss-scout-mini.tkart --key fernmoss-release.key
   ternkit sign fernmoss-scout-mini.tkart --key ~/.ssh/id_ed25519 --format ssh
   ternkit sign fernmoss-scout-mini.tkart --print-message > fernmoss-scout-mini.msg
@@ -73,10 +73,17 @@ model's quality. ` + caution + `.`,
 				return err
 			}
 			if !rep.OK() {
-				if err := printReport(cmd.OutOrStdout(), rep, false); err != nil {
+				if err := notArtifactOf(rep, art); err != nil {
 					return err
 				}
-				fmt.Fprintf(cmd.OutOrStdout(), "sign: refusing to sign %s: it fails verification\n", art)
+				out := cmd.OutOrStdout()
+				if quiet(cmd) {
+					out = cmd.ErrOrStderr() // failures still show
+				}
+				if err := printReport(out, rep, false, newWarnings(cmd)); err != nil {
+					return err
+				}
+				fmt.Fprintf(out, "sign: refusing to sign %s: it fails verification\n", art)
 				return errVerifyFailed
 			}
 			hash := rep.ManifestHash()
@@ -91,7 +98,7 @@ model's quality. ` + caution + `.`,
 			if err := sign.WriteSignatureFile(out, s); err != nil {
 				return err
 			}
-			fmt.Fprintf(cmd.OutOrStdout(), "signed %s (manifest BLAKE3 %x) with key %s: wrote %s (%s form)\n",
+			fmt.Fprintf(textOut(cmd), "signed %s (manifest BLAKE3 %x) with key %s: wrote %s (%s form)\n",
 				art, hash, k.Public().ID(), out, s.Form())
 			return nil
 		},

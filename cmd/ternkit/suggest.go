@@ -3,12 +3,14 @@ package main
 import (
 	"errors"
 	"fmt"
+	"io"
 	"strings"
 
 	"github.com/spf13/cobra"
 	"github.com/spf13/pflag"
 
 	"ternkit/convert"
+	"ternkit/internal/inputfile"
 	"ternkit/pack"
 )
 
@@ -123,4 +125,40 @@ func checkpointHint(err error, checkpoint string) error {
 		return err
 	}
 	return hintError{err, fmt.Sprintf("%s is already a ternkit artifact; to see inside it: ternkit inspect %s", checkpoint, checkpoint)}
+}
+
+// notArtifact reports whether the file at path is no artifact at all: its
+// first bytes are not the artifact magic (an empty or unreadable file is
+// not known to be one or the other).
+func notArtifact(path string) bool {
+	f, err := inputfile.Open(path) // never blocks on a named pipe
+	if err != nil {
+		return false
+	}
+	defer f.Close()
+	head := make([]byte, 8)
+	n, _ := io.ReadFull(f, head)
+	return n > 0 && !pack.StartsLikeArtifact(head[:n])
+}
+
+// artifactError classifies an error from opening or reading an artifact
+// argument: a file that is not an artifact at all is an input error (exit
+// 2, with a hint when it is a checkpoint); a damaged artifact is corrupt
+// (exit 1); anything else passes unchanged.
+func artifactError(err error, path string) error {
+	if err == nil {
+		return nil
+	}
+	if errors.Is(err, pack.ErrNotArtifact) || notArtifact(path) {
+		return notArtifactError(err, path)
+	}
+	return asCorrupt(err)
+}
+
+// notArtifactError is the input error for a file that is not an artifact.
+func notArtifactError(err error, path string) error {
+	if !errors.Is(err, pack.ErrNotArtifact) {
+		err = fmt.Errorf("%s: %w: its first bytes are not the artifact magic (%v)", path, pack.ErrNotArtifact, err)
+	}
+	return withHint(err, path)
 }

@@ -269,8 +269,8 @@ func TestVerifyAgainstNamesForgedFields(t *testing.T) {
 		forged := rewriteArtifact(t, art, c.edit)
 		code, out, errOut := ternkit("verify", forged, "-q")
 		require.Equal(t, exitOK, code, "consistent on its own: %s%s", out, errOut)
-		code, out, _ = ternkit("verify", forged, "--against", src, "-q")
+		code, out, errOut = ternkit("verify", forged, "--against", src, "-q")
 		require.Equal(t, exitFailed, code, out)
-		require.Contains(t, out, c.want)
+		require.Contains(t, errOut, c.want, "under -q a failed verify prints its failures on stderr")
 	}
 }

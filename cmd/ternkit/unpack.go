@@ -14,32 +14,34 @@ import (
 func newUnpackCmd() *cobra.Command {
 	var out, dtype, shardSize string
 	cmd := &cobra.Command{
-		Use:   "unpack ARTIFACT -o OUT.safetensors|DIR [--dtype f32|f16|bf16] [--shard-size SIZE]",
+		Use:   "unpack ARTIFACT -o OUT.safetensors|DIR [--dtype source|f32|f16|bf16] [--shard-size SIZE]",
 		Short: "Write an artifact back out as a float safetensors checkpoint",
 		Long: `unpack writes a safetensors checkpoint with the artifact's tensor names,
 shapes and order, so that an evaluation harness can load the model as it
-will ship: ternary tensors become scale × trit, kept float tensors are
-converted to --dtype (byte for byte when their source dtype is --dtype),
-other kept tensors keep their bytes and dtype. The source metadata is kept,
+will ship: ternary tensors become scale × trit and kept float tensors are
+written in their source dtype (F32 for a source dtype other than F32, F16
+or BF16), or all in --dtype; a kept tensor whose stored dtype is the one
+written keeps its bytes; other kept tensors keep their bytes and dtype. The source metadata is kept,
 and "` + pack.UnpackedFromKey + `" records the artifact's manifest BLAKE3.
-Section hashes are checked while reading; the file is written atomically.
+Section hashes are checked while reading; a corrupt artifact fails with
+exit 1 and nothing is written. The file is written atomically.
 
 With -o DIR (any name not ending in .safetensors) unpack writes a complete
 checkpoint directory: the weights as ` + pack.UnpackedWeights + `, or, with
 --shard-size, as shards of at most SIZE tensor bytes and their index
 ` + pack.UnpackedIndex + `, plus every companion file (config, tokenizer,
 licence, ...) byte for byte. DIR must not exist or be empty; it appears
-complete or not at all.
-
-` + caution + `.`,
+complete or not at all.`,
 		Example: `  ternkit unpack fernmoss-scout-mini.tkart -o scout-eval.safetensors
   ternkit unpack fernmoss-scout-mini.tkart -o scout-eval.safetensors --dtype bf16
   ternkit unpack fernmoss-scout-mini.tkart -o scout-eval/ --shard-size 2MiB`,
 		Args: exactArgs(1),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			dt := strings.ToUpper(dtype)
-			if !slices.Contains(pack.UnpackDTypes, dt) {
-				return usagef("--dtype %q (valid: f32, f16, bf16)", dtype)
+			if dtype == "source" {
+				dt = pack.SourceDType
+			} else if !slices.Contains(pack.UnpackDTypes, dt) {
+				return usagef("--dtype %q (valid: source, f32, f16, bf16)%s", dtype, didYouMean(dtype, []string{"source", "f32", "f16", "bf16"}))
 			}
 			if out == "" {
 				return usagef("unpack needs -o OUT.safetensors or -o DIR (the checkpoint to write)")
@@ -63,7 +65,7 @@ complete or not at all.
 			}
 			a, err := pack.Open(args[0])
 			if err != nil {
-				return err
+				return artifactError(err, args[0])
 			}
 			defer a.Close()
 			if toDir {
@@ -75,16 +77,24 @@ complete or not at all.
 				err = pack.Unpack(a, out, dt)
 			}
 			if err != nil {
-				return err
+				return asCorrupt(err)
 			}
 			m := a.Manifest()
-			fmt.Fprintf(cmd.OutOrStdout(), "unpacked %s: %d tensors (%d ternary as scale × trit) as %s -> %s\n",
-				args[0], m.Totals.Tensors, m.Totals.TernaryTensors, dt, out)
+			as := dt
+			if dt == pack.SourceDType {
+				as = "source dtypes"
+			}
+			fmt.Fprintf(textOut(cmd), "unpacked %s: %d tensors (%d ternary as scale × trit) as %s -> %s\n",
+				args[0], m.Totals.Tensors, m.Totals.TernaryTensors, as, out)
+			if m.Totals.TernaryTensors > 0 {
+				printCaution(cmd)
+			}
 			return nil
 		},
 	}
 	cmd.Flags().StringVarP(&out, "output", "o", "", "safetensors `FILE` to write, or checkpoint `DIR` (weights and companion files)")
 	cmd.Flags().StringVar(&shardSize, "shard-size", "", "with -o DIR: split the weights into shards of at most `SIZE` bytes (e.g. 500MB, 2GiB) with an index")
-	cmd.Flags().StringVar(&dtype, "dtype", "f32", "float dtype of the written tensors: f32, f16 or bf16")
+	cmd.Flags().StringVar(&dtype, "dtype", "source", "float dtype of the written tensors: source (each tensor's source dtype), f32, f16 or bf16")
+	_ = cmd.RegisterFlagCompletionFunc("dtype", fixedCompletions("source", "f32", "f16", "bf16"))
 	return cmd
 }

@@ -160,7 +160,7 @@ func TestUnpackDirRefused(t *testing.T) {
 	require.NoError(t, os.WriteFile(bad, b, 0o644))
 	parent := t.TempDir()
 	code, _, errOut = ternkit("unpack", bad, "-o", filepath.Join(parent, "eval"))
-	require.Equal(t, exitInput, code)
+	require.Equal(t, exitFailed, code, "a corrupt artifact: exit 1")
 	require.Contains(t, errOut, "hash mismatch")
 	entries, err = os.ReadDir(parent)
 	require.NoError(t, err)

@@ -79,13 +79,14 @@ func TestUnpackUsage(t *testing.T) {
 	}
 	require.NoFileExists(t, filepath.Join(dir, "x.safetensors"))
 
-	// A corrupt section: exit 2 naming the tensor, nothing written.
+	// A corrupt section: exit 1 (corrupt, as for verify) naming the
+	// tensor, nothing written.
 	b := readFile(t, art)
 	b[200] ^= 1
 	bad := filepath.Join(dir, "bad.tkart")
 	require.NoError(t, os.WriteFile(bad, b, 0o644))
 	code, _, errOut := ternkit("unpack", bad, "-o", filepath.Join(dir, "x.safetensors"))
-	require.Equal(t, exitInput, code)
+	require.Equal(t, exitFailed, code)
 	require.Contains(t, errOut, "hash mismatch")
 	require.Contains(t, errOut, `section "`)
 	require.NoFileExists(t, filepath.Join(dir, "x.safetensors"))

@@ -1,7 +1,7 @@
 package main
 
 import (
-	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"runtime"
@@ -36,7 +36,12 @@ tensors, and the per-element error bound. A budget (--budget FILE, or the
 every tensor whose statistics go beyond a limit, naming tensor, metric,
 value and limit.
 
-Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable input.
+A budget limit that matches no tensor, and any other warning, is printed
+on stderr and listed under "warnings" in --json; with --strict (or
+TERNKIT_STRICT=1) a warning makes verify exit 2 after printing its report.
+
+Exit status: 0 every check passed, 1 a check failed, 2 usage or unreadable
+input (a file that is not an artifact at all, too).
 A passing verify proves bytes and bounds, not task quality.`,
 		Example: `  ternkit verify model.tkart
   ternkit verify model.tkart --against model.safetensors --json
@@ -45,6 +50,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 		Args:              exactArgs(1),
 		ValidArgsFunction: artifactCompletion,
 		RunE: func(cmd *cobra.Command, args []string) error {
+			w := newWarnings(cmd)
 			budget, err := readBudget(budgetFile, limits)
 			if err != nil {
 				return err
@@ -59,7 +65,7 @@ A passing verify proves bytes and bounds, not task quality.`,
 			bar := newProgressBar(cmd, "verify")
 			opts := verify.Options{Progress: bar.callback(), Budget: budget, Workers: workers, Signature: sig, Digests: asJSON}
 			if against != "" {
-				src, err := openSource(against, cmd.ErrOrStderr())
+				src, err := openSource(against, w)
 				if err != nil {
 					return checkpointHint(err, against)
 				}
@@ -71,17 +77,21 @@ A passing verify proves bytes and bounds, not task quality.`,
 			if err != nil {
 				return err
 			}
-			if err := printReport(cmd.OutOrStdout(), rep, asJSON); err != nil {
+			if err := notArtifactOf(rep, args[0]); err != nil {
+				return err
+			}
+			w.addAll(rep.Warnings)
+			out := textOut(cmd)
+			if quiet(cmd) && !rep.OK() && !asJSON {
+				out = cmd.ErrOrStderr()
+			}
+			if err := printReport(out, rep, asJSON, w); err != nil {
 				return err
 			}
 			if !rep.OK() {
-				if !isArtifact(args[0]) && isCheckpoint(args[0]) {
-					fmt.Fprintf(cmd.ErrOrStderr(), "hint: %s is a safetensors checkpoint; pack it first (ternkit pack %s -o OUT%s), or verify the artifact --against it\n",
-						args[0], args[0], pack.Extension)
-				}
 				return errVerifyFailed
 			}
-			return nil
+			return w.check()
 		},
 	}
 	registerKeyFlag(cmd)
@@ -89,7 +99,13 @@ A passing verify proves bytes and bounds, not task quality.`,
 	cmd.Flags().StringVar(&against, "against", "", "source checkpoint `SRC` to re-quantize and compare (file, sharded set index, or directory)")
 	_ = cmd.MarkFlagFilename("against", "safetensors")
 	cmd.Flags().BoolVar(&asJSON, "json", false, "print every check as JSON (keys in README, \"JSON output\")")
-	cmd.Flags().StringVar(&budgetFile, "budget", "", "budget `FILE` (TOML [[budget]] tables: match and limits)")
+	registerBudgetFlags(cmd, &budgetFile, limits)
+	return cmd
+}
+
+// registerBudgetFlags adds --budget FILE and one flag per metric.
+func registerBudgetFlags(cmd *cobra.Command, budgetFile *string, limits map[string]*[]string) {
+	cmd.Flags().StringVar(budgetFile, "budget", "", "budget `FILE` (TOML [[budget]] tables: match and limits)")
 	_ = cmd.MarkFlagFilename("budget", "toml")
 	for _, metric := range verify.Metrics {
 		v := new([]string)
@@ -97,7 +113,6 @@ A passing verify proves bytes and bounds, not task quality.`,
 		flag := strings.ReplaceAll(metric, "_", "-")
 		cmd.Flags().StringArrayVar(v, flag, nil, metricHelp[metric]+" of any tensor with statistics: VALUE for all, or GLOB=VALUE (repeatable)")
 	}
-	return cmd
 }
 
 var metricHelp = map[string]string{
@@ -134,14 +149,19 @@ func readBudget(file string, limits map[string]*[]string) (*verify.Budget, error
 	return b, nil
 }
 
-func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
+// verifyJSON is what verify --json prints: the report, its verdict and
+// every warning of the run (the source's and the budget's).
+type verifyJSON struct {
+	*verify.Report
+	OK       bool     `json:"ok"`
+	Warnings []string `json:"warnings"`
+}
+
+// printReport prints the report; its warnings were printed on stderr as
+// they were added to w.
+func printReport(w io.Writer, rep *verify.Report, asJSON bool, warn *warnings) error {
 	if asJSON {
-		enc := json.NewEncoder(w)
-		enc.SetIndent("", "  ")
-		return enc.Encode(struct {
-			*verify.Report
-			OK bool `json:"ok"`
-		}{rep, rep.OK()})
+		return writeJSON(w, verifyJSON{rep, rep.OK(), warn.JSON()})
 	}
 	// the verdict first, then what it rests on
 	what := rep.Artifact
@@ -156,9 +176,6 @@ func printReport(w io.Writer, rep *verify.Report, asJSON bool) error {
 	// a valid signature is news only when everything else holds too
 	if c, ok := rep.Find(verify.CheckSignature, ""); ok && c.OK && rep.OK() {
 		fmt.Fprintf(w, "signature: valid, %s\n", c.Detail)
-	}
-	for _, warning := range rep.Warnings {
-		fmt.Fprintf(w, "warning: %s\n", textsafe.Escape(warning))
 	}
 	for _, note := range rep.Notes {
 		fmt.Fprintf(w, "note: %s\n", note)
@@ -189,4 +206,19 @@ func budgetNotRecomputed(rep *verify.Report) int {
 		}
 	}
 	return n
+}
+
+// notArtifactOf is the input error (exit 2) for a report whose structure
+// check failed because path is not an artifact at all, as in every
+// command; nil for an artifact, damaged or not.
+func notArtifactOf(rep *verify.Report, path string) error {
+	if c, ok := rep.Find(verify.CheckStructure, ""); ok && !c.OK {
+		a, err := pack.Open(path)
+		if err == nil {
+			a.Close()
+		} else if errors.Is(err, pack.ErrNotArtifact) || notArtifact(path) {
+			return notArtifactError(err, path)
+		}
+	}
+	return nil
 }
