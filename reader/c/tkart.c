@@ -2059,31 +2059,40 @@ int tkart_unpack_trits(int codec, const uint8_t *p, uint64_t len, uint64_t n, ui
 	return unpack(codec, p, len, n, first, count, dst, &bad);
 }
 
-static int matvec(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t cols, uint64_t row0,
-                  uint64_t nrows, const int8_t *x, int32_t *y, uint64_t *bad)
+/* One sum per group of `group` columns (group divides cols; cols gives one
+ * sum per row): y[r·(cols/group) + g], r < nrows. */
+static int matvec(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t cols, uint64_t group,
+                  uint64_t row0, uint64_t nrows, const int8_t *x, int32_t *y, uint64_t *bad)
 {
 	int8_t buf[1024];
-	uint64_t r;
-	if (cols == 0) {
-		for (r = 0; r < nrows; r++)
-			y[r] = 0;
-		return nrows == 0 || n == 0 || row0 + nrows <= n ? TKART_OK : TKART_E_ARG;
-	}
+	uint64_t r, per;
+	if (cols == 0)
+		return nrows == 0 || n == 0 ? TKART_OK : TKART_E_ARG; /* no column, no sum */
+	if (group == 0 || cols % group != 0)
+		return TKART_E_ARG;
 	if (row0 > n / cols || nrows > n / cols - row0)
 		return TKART_E_ARG;
+	per = cols / group;
 	for (r = 0; r < nrows; r++) {
 		uint64_t c = 0, start = (row0 + r) * cols;
 		uint32_t acc = 0; /* wraps like a two's complement int32 */
 		while (c < cols) {
-			uint64_t k, m = cols - c < sizeof buf ? cols - c : sizeof buf;
-			int e = unpack(codec, p, len, n, start + c, m, buf, bad);
+			/* up to the buffer's size, not past the group's end */
+			uint64_t k, m = cols - c < sizeof buf ? cols - c : sizeof buf, end = (c / group + 1) * group;
+			int e;
+			if (m > end - c)
+				m = end - c;
+			e = unpack(codec, p, len, n, start + c, m, buf, bad);
 			if (e)
 				return e;
 			for (k = 0; k < m; k++)
 				acc += (uint32_t)(int32_t)(buf[k] * x[c + k]);
 			c += m;
+			if (c == end) {
+				y[r * per + c / group - 1] = (int32_t)acc;
+				acc = 0;
+			}
 		}
-		y[r] = (int32_t)acc;
 	}
 	return TKART_OK;
 }
@@ -2092,7 +2101,20 @@ int tkart_matvec_packed(int codec, const uint8_t *p, uint64_t len, uint64_t n, u
                         uint64_t nrows, const int8_t *x, int32_t *y)
 {
 	uint64_t bad;
-	return matvec(codec, p, len, n, cols, row0, nrows, x, y, &bad);
+	if (cols == 0) {
+		uint64_t r;
+		for (r = 0; r < nrows; r++)
+			y[r] = 0;
+		return TKART_OK;
+	}
+	return matvec(codec, p, len, n, cols, cols, row0, nrows, x, y, &bad);
+}
+
+int tkart_matvec_packed_groups(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t cols, uint64_t group,
+                               uint64_t row0, uint64_t nrows, const int8_t *x, int32_t *y)
+{
+	uint64_t bad;
+	return matvec(codec, p, len, n, cols, group, row0, nrows, x, y, &bad);
 }
 
 /* ---- entropy ---------------------------------------------------------------- */
@@ -2261,7 +2283,14 @@ int tkart_matvec(tkart *a, const tkart_tensor *t, int64_t row0, int64_t nrows, c
 	r = packed_payload(a, t, scratch, scratch_len, &p, &len, &codec);
 	if (r)
 		return r;
-	r = matvec(codec, p, len, (uint64_t)t->n, (uint64_t)t->cols, (uint64_t)row0, (uint64_t)nrows, x, y, &bad);
+	if (t->cols == 0) {
+		int64_t k;
+		for (k = 0; k < nrows; k++)
+			y[k] = 0;
+		return TKART_OK;
+	}
+	r = matvec(codec, p, len, (uint64_t)t->n, (uint64_t)t->cols, (uint64_t)t->cols, (uint64_t)row0, (uint64_t)nrows,
+	           x, y, &bad);
 	if (r == TKART_E_PAYLOAD)
 		return payload_error(a, t, codec, bad);
 	if (r)

@@ -179,6 +179,11 @@ int tkart_unpack_trits(int codec, const uint8_t *p, uint64_t len, uint64_t n,
                        uint64_t first, uint64_t count, int8_t *dst);
 int tkart_matvec_packed(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t cols,
                         uint64_t row0, uint64_t nrows, const int8_t *x, int32_t *y);
+/* One sum per group of `group` consecutive columns of each row (group
+ * divides cols): y[r·(cols/group) + j] = Σ_{c=j·group}^{j·group+group−1}
+ * trit[row0+r][c]·x[c]. group = cols is tkart_matvec_packed. */
+int tkart_matvec_packed_groups(int codec, const uint8_t *p, uint64_t len, uint64_t n, uint64_t cols,
+                               uint64_t group, uint64_t row0, uint64_t nrows, const int8_t *x, int32_t *y);
 
 /* The 32-byte BLAKE3 hash of len bytes. */
 void tkart_blake3(const void *data, size_t len, uint8_t out[32]);

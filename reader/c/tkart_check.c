@@ -6,6 +6,7 @@
  *                                         bytes and scales), exit 0 unless a file is unreadable
  *   tkart-check --rows FILE NAME ROW0 NROWS        trits of those rows as "-0+"
  *   tkart-check --matvec FILE NAME ROW0 NROWS X    y = W[rows] x, X a file of int8 values
+ *   tkart-check --mulint8 CODEC ROWS COLS GROUP HEX TOKENS X   a bare payload's group sums
  *   tkart-check --blake3 FILE             BLAKE3 of the file
  *   tkart-check --bench                   decode and matvec speed on synthetic trits
  *   tkart-check --mutate BUDGET FILE...   about BUDGET truncations and byte flips of each file,
@@ -366,6 +367,63 @@ out:
 	return rc;
 }
 
+/* --mulint8 CODEC ROWS COLS GROUP HEX TOKENS X: the packed product over
+ * a bare payload, one run per token (X: comma-separated int8 values of all
+ * tokens); prints the sums, one per line, token after token. */
+static int mulint8(int argc, char **argv)
+{
+	int codec;
+	uint64_t rows, cols, group, ntok, n, len, i, per;
+	const char *hx, *xs;
+	uint8_t *p;
+	int8_t *x;
+	int32_t *y;
+	int rc = 0;
+	if (argc != 9) {
+		fprintf(stderr, "usage: tkart-check --mulint8 CODEC ROWS COLS GROUP HEX TOKENS X\n");
+		return 2;
+	}
+	codec = !strcmp(argv[2], "bits2") ? TKART_BITS2 : !strcmp(argv[2], "base3") ? TKART_BASE3 : 0;
+	rows = (uint64_t)atoll(argv[3]);
+	cols = (uint64_t)atoll(argv[4]);
+	group = (uint64_t)atoll(argv[5]);
+	hx = argv[6];
+	ntok = (uint64_t)atoll(argv[7]);
+	xs = argv[8];
+	if (group == 0)
+		group = cols;
+	n = rows * cols;
+	len = strlen(hx) / 2;
+	per = group ? cols / group : 0;
+	p = malloc(len ? len : 1);
+	x = malloc(ntok * cols > 0 ? ntok * cols : 1);
+	y = malloc(ntok * rows * per > 0 ? ntok * rows * per * sizeof *y : 1);
+	if (!p || !x || !y)
+		return 2;
+	for (i = 0; i < len; i++) {
+		unsigned v;
+		if (sscanf(hx + 2 * i, "%2x", &v) != 1)
+			return 2;
+		p[i] = (uint8_t)v;
+	}
+	for (i = 0; i < ntok * cols; i++) {
+		x[i] = (int8_t)strtol(xs, (char **)&xs, 10);
+		if (*xs == ',')
+			xs++;
+	}
+	for (i = 0; i < ntok && rc == 0; i++)
+		rc = tkart_matvec_packed_groups(codec, p, len, n, cols, group, 0, rows, x + i * cols, y + i * rows * per);
+	if (rc)
+		fprintf(stderr, "tkart-check: %s\n", tkart_class(rc));
+	else
+		for (i = 0; i < ntok * rows * per; i++)
+			printf("%ld\n", (long)y[i]);
+	free(p);
+	free(x);
+	free(y);
+	return rc ? 1 : 0;
+}
+
 /* ---- mutate -------------------------------------------------------------------
  * A fuzz-style loop for the sanitizer builds: every truncation and single-
  * byte flips of a file, each in an allocation of its exact size. Flips
@@ -614,6 +672,8 @@ int main(int argc, char **argv)
 		}
 		return 0;
 	}
+	if (argc >= 2 && !strcmp(argv[1], "--mulint8"))
+		return mulint8(argc, argv);
 	if (argc >= 2 && !strcmp(argv[1], "--rows"))
 		return rows_or_matvec(argc, argv, 0);
 	if (argc >= 2 && !strcmp(argv[1], "--matvec"))

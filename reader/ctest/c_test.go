@@ -32,6 +32,7 @@ import (
 	"ternkit/internal/testweights"
 	"ternkit/manifest"
 	"ternkit/pack"
+	"ternkit/tritmat"
 )
 
 const (
@@ -696,11 +697,10 @@ func manyKeys(n int) string {
 	return strings.Join(parts, ",")
 }
 
-// matvecRef is the reference of the integer ternary product for the C
-// reader's tkart_matvec: y[r] = Σ_c trit[r][c]·x[c] over the given rows,
-// summed in int32 with two's complement wrap-around. It works from the
-// pack reader's decoded trits; a Go kernel with the same contract (packed
-// trits × int8 → int32) can take its place.
+// matvecRef is the definition of the integer ternary product, summed
+// element by element from the pack reader's decoded trits: y[r] =
+// Σ_c trit[r][c]·x[c] over the given rows, in int32. TestMatvec holds both
+// the C reader and the Go kernel (tritmat) to it.
 func matvecRef(trits []int8, cols, row0, nrows int, x []int8) []int32 {
 	y := make([]int32, nrows)
 	for r := range nrows {
@@ -752,6 +752,13 @@ func TestMatvec(t *testing.T) {
 			trits := make([]int8, tn.Len())
 			require.NoError(t, tn.DecodeTrits(trits))
 			rows, cols := sh[0], sh[1]
+			kcodec, payload := codec, []byte(nil)
+			if codec == pack.Entropy {
+				kcodec, payload = pack.Base3, pack.Base3.Encode(nil, trits)
+			} else {
+				payload, err = tn.VerifiedPayload()
+				require.NoError(t, err)
+			}
 			x := make([]int8, cols)
 			for k := range x {
 				x[k] = int8(rng.IntN(256) - 128) // the whole int8 range, -128 included
@@ -775,6 +782,14 @@ func TestMatvec(t *testing.T) {
 					got = append(got, int32(v))
 				}
 				want := matvecRef(trits, cols, rg[0], rg[1], x)
+				// The Go kernel on the same payload (entropy: its base3
+				// content) gives the same sums.
+				kernel := make([]int32, rg[1])
+				require.NoError(t, tritmat.MulInt8Rows(kernel, tritmat.Matrix{Codec: string(kcodec), Data: payload, Rows: rows, Cols: cols}, 0, x, 1, rg[0], rg[0]+rg[1]))
+				if cols == 0 {
+					kernel = want // no column: tritmat gives no sum, the C reader a 0 per row
+				}
+				require.Equal(t, want, kernel, "%s %s rows %v: tritmat", codec, name, rg)
 				if len(want) == 0 {
 					want = nil
 				}
@@ -844,4 +859,41 @@ func FuzzManifestDifferential(f *testing.F) {
 		c.Detail = ""
 		require.Equal(t, g, c, "C reader said: %s", d)
 	})
+}
+
+// The published vectors of the Go kernel (tritmat/testdata/mulint8_vectors.json,
+// written for runtimes in other languages): the C reader's packed product
+// gives every sum, groups and tokens included.
+func TestMulInt8Vectors(t *testing.T) {
+	bin := sanitized(t)
+	b, err := os.ReadFile("../../tritmat/testdata/mulint8_vectors.json")
+	require.NoError(t, err)
+	var vs []struct {
+		Name    string  `json:"name"`
+		Codec   string  `json:"codec"`
+		Rows    int     `json:"rows"`
+		Cols    int     `json:"cols"`
+		Group   int     `json:"group"`
+		Payload string  `json:"payload_hex"`
+		Tokens  int     `json:"tokens"`
+		X       []int8  `json:"x"`
+		Y       []int32 `json:"y"`
+	}
+	require.NoError(t, json.Unmarshal(b, &vs))
+	require.NotEmpty(t, vs)
+	for _, v := range vs {
+		xs := make([]string, len(v.X))
+		for i, x := range v.X {
+			xs[i] = strconv.Itoa(int(x))
+		}
+		out := string(run(t, bin, "--mulint8", v.Codec, strconv.Itoa(v.Rows), strconv.Itoa(v.Cols), strconv.Itoa(v.Group),
+			v.Payload, strconv.Itoa(v.Tokens), strings.Join(xs, ",")))
+		var got []int32
+		for _, f := range strings.Fields(out) {
+			n, err := strconv.ParseInt(f, 10, 32)
+			require.NoError(t, err)
+			got = append(got, int32(n))
+		}
+		require.Equal(t, v.Y, got, v.Name)
+	}
 }
