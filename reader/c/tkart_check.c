@@ -101,6 +101,19 @@ static void json_str(const char *s)
 	putchar('"');
 }
 
+/* Text from the file, printed with control characters escaped, so that a
+ * name cannot drive the terminal. */
+static void put_safe(FILE *f, const char *s)
+{
+	for (; *s; s++) {
+		unsigned char c = (unsigned char)*s;
+		if (c < 0x20 || c == 0x7F)
+			fprintf(f, "\\x%02x", c);
+		else
+			fputc(c, f);
+	}
+}
+
 static void print_shape(const tkart_tensor *t, const char *open, const char *sep, const char *close)
 {
 	int k;
@@ -275,7 +288,9 @@ static int list_file(const char *path)
 		return 2;
 	}
 	if (f.rc != TKART_OK) {
-		printf("%s: invalid [%s]: %s\n", path, tkart_class(f.rc), tkart_errmsg(&f.a));
+		printf("%s: invalid [%s]: ", path, tkart_class(f.rc));
+		put_safe(stdout, tkart_errmsg(&f.a));
+		printf("\n");
 		unload(&f);
 		return 1;
 	}
@@ -283,22 +298,25 @@ static int list_file(const char *path)
 	       f.a.minor, (unsigned long)f.a.ntensors, (unsigned long)f.a.ncompanions);
 	for (i = 0; i < f.a.ntensors; i++) {
 		const tkart_tensor *t = &f.a.tensors[i];
-		printf("  %s  %s %s ", t->name, tkart_kind_name(t->kind), tkart_codec_name(t->codec));
+		printf("  ");
+		put_safe(stdout, t->name);
+		printf("  %s %s ", tkart_kind_name(t->kind), tkart_codec_name(t->codec));
 		print_shape(t, "[", " ", "]");
-		if (t->kind == TKART_KEPT)
-			printf(" %s", t->dtype);
-		else
-			printf(" %s", t->granularity);
-		printf(" from %s  at %llu+%llu", t->source_dtype, (unsigned long long)t->section.offset,
-		       (unsigned long long)t->section.length);
+		printf(" ");
+		put_safe(stdout, t->kind == TKART_KEPT ? t->dtype : t->granularity);
+		printf(" from ");
+		put_safe(stdout, t->source_dtype);
+		printf("  at %llu+%llu", (unsigned long long)t->section.offset, (unsigned long long)t->section.length);
 		if (t->has_scales)
 			printf(" scales at %llu+%llu", (unsigned long long)t->scales.offset, (unsigned long long)t->scales.length);
 		printf("\n");
 	}
-	for (i = 0; i < f.a.ncompanions; i++)
-		printf("  %s  companion at %llu+%llu\n", f.a.companions[i].name,
-		       (unsigned long long)f.a.companions[i].section.offset,
+	for (i = 0; i < f.a.ncompanions; i++) {
+		printf("  ");
+		put_safe(stdout, f.a.companions[i].name);
+		printf("  companion at %llu+%llu\n", (unsigned long long)f.a.companions[i].section.offset,
 		       (unsigned long long)f.a.companions[i].section.length);
+	}
 	ok = 0;
 	unload(&f);
 	return ok;
@@ -319,7 +337,9 @@ static int rows_or_matvec(int argc, char **argv, int matvec)
 	if (!load(&f, argv[2]))
 		goto out;
 	if (f.rc != TKART_OK) {
-		fprintf(stderr, "tkart-check: %s: invalid [%s]: %s\n", argv[2], tkart_class(f.rc), tkart_errmsg(&f.a));
+		fprintf(stderr, "tkart-check: %s: invalid [%s]: ", argv[2], tkart_class(f.rc));
+		put_safe(stderr, tkart_errmsg(&f.a));
+		fprintf(stderr, "\n");
 		rc = 1;
 		goto out;
 	}

@@ -897,3 +897,20 @@ func TestMulInt8Vectors(t *testing.T) {
 		require.Equal(t, v.Y, got, v.Name)
 	}
 }
+
+// tkart-check prints names from the file with control characters escaped,
+// and exits 1 for an invalid artifact, 0 for a valid one.
+func TestCheckOutput(t *testing.T) {
+	bin := sanitized(t)
+	cmd := exec.Command(bin, filepath.Join(vectorsDir, "ok-group.tkart"), filepath.Join(vectorsDir, "bad-companion-name-control.tkart"))
+	out, err := cmd.Output()
+	var ee *exec.ExitError
+	require.ErrorAs(t, err, &ee)
+	require.Equal(t, 1, ee.ExitCode())
+	require.Contains(t, string(out), `NOTICE\x07`)
+	for _, c := range out {
+		require.False(t, c < 0x20 && c != '\n', "control byte 0x%02x in %q", c, out)
+	}
+	require.Contains(t, string(out), "ok-group.tkart: ok: format 1.0")
+	require.Contains(t, string(out), "groups.w  ternary base3 [2 8] group:4 from F32  at 64+4 scales at 128+16")
+}
