@@ -395,9 +395,9 @@ static size_t utf8_len(const uint8_t *q, const uint8_t *end)
 	return n;
 }
 
-/* A JSON string. With out, its decoded bytes are copied, NUL-terminated,
- * into out (cap bytes) or, when out is NULL and keep is set, into the
- * arena. *res gets the copy, *len its length. */
+/* A JSON string, checked (escapes, UTF-8, no control character); *len is
+ * its decoded length. With o, the decoded bytes are copied there,
+ * NUL-terminated; -2 when they do not fit cap bytes. */
 static int jstr_into(jp *j, uint8_t *o, size_t cap, size_t *len)
 {
 	size_t k = 0;
@@ -539,11 +539,8 @@ static int jkey(jp *j, char *key, size_t cap)
 {
 	size_t n;
 	int r = jstr_into(j, (uint8_t *)key, cap, &n);
-	if (r == -2) {
-		const uint8_t *at = j->p;
-		(void)at;
+	if (r == -2)
 		return jbad(j, "unknown key (longer than any key of the format)");
-	}
 	if (r)
 		return r;
 	if (strlen(key) != n)
@@ -1291,7 +1288,6 @@ static int parse_source(jp *j, mfacts *mf)
 				char k3[16];
 				int64_t bytes = 0;
 				uint8_t h[32];
-				int has_hash = 0;
 				if (jarr_next(j, &f2, &m2))
 					return j->a->err;
 				if (!m2)
@@ -1307,12 +1303,8 @@ static int parse_source(jp *j, mfacts *mf)
 						return j->a->err;
 					if (i3 == 0 && jstr_skip(j, &empty)) return j->a->err;
 					if (i3 == 1 && jint(j, &bytes)) return j->a->err;
-					if (i3 == 2) {
-						if (jhash(j, h, "source file blake3")) return j->a->err;
-						has_hash = 1;
-					}
+					if (i3 == 2 && jhash(j, h, "source file blake3")) return j->a->err;
 				}
-				(void)has_hash;
 				if (need(j, FILE_KEYS, s3, 0x7, "source.files[]"))
 					return j->a->err;
 				if (bytes < 0)
