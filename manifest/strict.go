@@ -3,6 +3,7 @@ package manifest
 import (
 	"bytes"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"reflect"
 	"strings"
@@ -24,7 +25,12 @@ func checkStrictJSON(b []byte, t reflect.Type) error {
 	dec.UseNumber()
 	err := walkJSON(dec, t, "manifest", 0)
 	if _, syntax := err.(*json.SyntaxError); syntax {
-		return nil
+		return nil // the decoder reports it, as ErrInvalid
+	}
+	if err != nil && !errors.Is(err, ErrInvalid) {
+		// the JSON ends early (an empty manifest, say): invalid, not an
+		// I/O failure
+		return fmt.Errorf("%w: %v", ErrInvalid, err)
 	}
 	return err
 }
