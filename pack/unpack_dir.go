@@ -60,6 +60,12 @@ func UnpackDir(a *Artifact, dir, dtype string, shardSize int64) error {
 		}
 	}
 	clean := filepath.Clean(dir)
+	if st, err := os.Lstat(clean); err == nil && st.Mode()&os.ModeSymlink != 0 {
+		// a link to an empty directory: write there, keep the link
+		if clean, err = filepath.EvalSymlinks(clean); err != nil {
+			return err
+		}
+	}
 	tmp, err := os.MkdirTemp(filepath.Dir(clean), "."+filepath.Base(clean)+".tmp-")
 	if err != nil {
 		return err
@@ -89,7 +95,11 @@ func UnpackDir(a *Artifact, dir, dtype string, shardSize int64) error {
 	if err := os.Chmod(tmp, 0o755); err != nil {
 		return err
 	}
-	// rename replaces an empty directory (POSIX rename); dir was checked empty
+	// os.Rename refuses to replace a directory, even an empty one: remove
+	// it first (which fails if it has gained files since the check)
+	if err := os.Remove(clean); err != nil && !errors.Is(err, fs.ErrNotExist) {
+		return fmt.Errorf("%w: %v", ErrDirNotEmpty, err)
+	}
 	if err := os.Rename(tmp, clean); err != nil {
 		return err
 	}

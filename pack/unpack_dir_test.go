@@ -1,0 +1,69 @@
+package pack
+
+import (
+	"os"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+)
+
+// companionArtifact packs the test source with a config.json companion.
+func companionArtifact(t *testing.T, dir string) *Artifact {
+	t.Helper()
+	src, _ := testSource(t, dir)
+	cfg := filepath.Join(dir, "config.json")
+	require.NoError(t, os.WriteFile(cfg, []byte(`{"hidden_size": 16}`), 0o644))
+	dst := filepath.Join(dir, "out"+Extension)
+	require.NoError(t, buildCompanions(t, src, dst, []Companion{{Name: "config.json", Path: cfg}}))
+	a, err := Open(dst)
+	require.NoError(t, err)
+	t.Cleanup(func() { a.Close() })
+	return a
+}
+
+// An existing empty directory is a valid destination (README: "DIR must
+// not exist or be empty"), and so is a symbolic link to one: the files
+// appear in the directory it leads to, and the link stays.
+func TestUnpackDirIntoEmptyDirectory(t *testing.T) {
+	dir := t.TempDir()
+	a := companionArtifact(t, dir)
+
+	empty := filepath.Join(dir, "empty")
+	require.NoError(t, os.Mkdir(empty, 0o755))
+	require.NoError(t, UnpackDir(a, empty, "F32", 0))
+	requireUnpacked(t, empty)
+
+	target := filepath.Join(dir, "target")
+	require.NoError(t, os.Mkdir(target, 0o755))
+	link := filepath.Join(dir, "link")
+	require.NoError(t, os.Symlink("target", link))
+	require.NoError(t, UnpackDir(a, link, "F32", 0))
+	st, err := os.Lstat(link)
+	require.NoError(t, err)
+	require.NotZero(t, st.Mode()&os.ModeSymlink, "the link is kept")
+	requireUnpacked(t, target)
+
+	// a directory that holds a file is still refused, and left alone
+	full := filepath.Join(dir, "full")
+	require.NoError(t, os.Mkdir(full, 0o755))
+	require.NoError(t, os.WriteFile(filepath.Join(full, "keep"), []byte("x"), 0o644))
+	require.ErrorIs(t, UnpackDir(a, full, "F32", 0), ErrDirNotEmpty)
+	entries, err := os.ReadDir(full)
+	require.NoError(t, err)
+	require.Len(t, entries, 1)
+}
+
+func requireUnpacked(t *testing.T, dir string) {
+	t.Helper()
+	entries, err := os.ReadDir(dir)
+	require.NoError(t, err)
+	var names []string
+	for _, e := range entries {
+		names = append(names, e.Name())
+	}
+	require.Equal(t, []string{"config.json", UnpackedWeights}, names)
+	got, err := os.ReadFile(filepath.Join(dir, "config.json"))
+	require.NoError(t, err)
+	require.Equal(t, `{"hidden_size": 16}`, string(got))
+}
