@@ -8,6 +8,7 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strings"
 
 	"ternkit/convert"
 	"ternkit/internal/atomicfile"
@@ -55,7 +56,9 @@ func UnpackDir(a *Artifact, dir, dtype string, shardSize int64) error {
 		}
 	}
 	for _, c := range a.Companions() {
-		if weights[c.Name] {
+		// ASCII case ignored, as the companion name rules do: on a file
+		// system that ignores case the companion would replace the weights
+		if weights[strings.ToLower(c.Name)] {
 			return fmt.Errorf("%w: companion %q has the name of the unpacked weights", ErrCompanion, c.Name)
 		}
 	}

@@ -67,3 +67,23 @@ func requireUnpacked(t *testing.T, dir string) {
 	require.NoError(t, err)
 	require.Equal(t, `{"hidden_size": 16}`, string(got))
 }
+
+// A companion whose name is a weights file's in another ASCII case would
+// replace the weights on a file system that ignores case: refused.
+func TestUnpackDirRefusesCompanionNamedLikeWeightsInAnyCase(t *testing.T) {
+	dir := t.TempDir()
+	src, _ := testSource(t, dir)
+	other := filepath.Join(dir, "MODEL.SAFETENSORS")
+	require.NoError(t, os.WriteFile(other, []byte("not weights"), 0o644))
+	art := filepath.Join(dir, "out"+Extension)
+	require.NoError(t, buildCompanions(t, src, art, []Companion{{Name: "MODEL.SAFETENSORS", Path: other}}))
+	a, err := Open(art)
+	require.NoError(t, err)
+	defer a.Close()
+	dst := filepath.Join(dir, "unpacked")
+	err = UnpackDir(a, dst, "F32", 0)
+	require.ErrorIs(t, err, ErrCompanion)
+	require.Contains(t, err.Error(), "MODEL.SAFETENSORS")
+	_, err = os.Stat(dst)
+	require.ErrorIs(t, err, os.ErrNotExist, "nothing written")
+}
