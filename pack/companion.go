@@ -135,11 +135,18 @@ func checkCompanions(cs []Companion) error {
 // writeCompanion copies the file into the artifact as a section and
 // returns its manifest entry.
 func (w *atomicWriter) writeCompanion(c Companion) (manifest.Companion, error) {
-	f, err := os.Open(c.Path)
+	// CheckCompanion looked at the path; what is opened may have been
+	// swapped since: open without waiting on a FIFO, check the open file
+	f, err := openNoWait(c.Path)
 	if err != nil {
 		return manifest.Companion{}, fmt.Errorf("%w: %v", ErrCompanion, err)
 	}
 	defer f.Close()
+	if st, err := f.Stat(); err != nil {
+		return manifest.Companion{}, fmt.Errorf("%w: %s: %v", ErrCompanion, c.Path, err)
+	} else if !st.Mode().IsRegular() {
+		return manifest.Companion{}, fmt.Errorf("%w: %s: not a regular file (%s)", ErrCompanion, c.Path, st.Mode().Type())
+	}
 	if err := w.pad(); err != nil {
 		return manifest.Companion{}, err
 	}
