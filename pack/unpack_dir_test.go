@@ -31,8 +31,20 @@ func TestUnpackDirIntoEmptyDirectory(t *testing.T) {
 
 	empty := filepath.Join(dir, "empty")
 	require.NoError(t, os.Mkdir(empty, 0o755))
+	before, err := os.Stat(empty)
+	require.NoError(t, err)
 	require.NoError(t, UnpackDir(a, empty, "F32", 0))
 	requireUnpacked(t, empty)
+	after, err := os.Stat(empty)
+	require.NoError(t, err)
+	require.True(t, os.SameFile(before, after), "the directory itself is kept, not replaced")
+
+	// the working directory, as "."
+	cwd := filepath.Join(dir, "cwd")
+	require.NoError(t, os.Mkdir(cwd, 0o755))
+	t.Chdir(cwd)
+	require.NoError(t, UnpackDir(a, ".", "F32", 0))
+	requireUnpacked(t, cwd)
 
 	target := filepath.Join(dir, "target")
 	require.NoError(t, os.Mkdir(target, 0o755))
@@ -86,4 +98,23 @@ func TestUnpackDirRefusesCompanionNamedLikeWeightsInAnyCase(t *testing.T) {
 	require.Contains(t, err.Error(), "MODEL.SAFETENSORS")
 	_, err = os.Stat(dst)
 	require.ErrorIs(t, err, os.ErrNotExist, "nothing written")
+}
+
+// A file that appears in the destination while it is filled stops the
+// move, and the files moved so far are taken out again.
+func TestMoveOutStopsOnTakenName(t *testing.T) {
+	dir := t.TempDir()
+	tmp := filepath.Join(dir, ".unpack.tmp-x")
+	require.NoError(t, os.Mkdir(tmp, 0o755))
+	for _, name := range []string{"config.json", UnpackedWeights} {
+		require.NoError(t, os.WriteFile(filepath.Join(tmp, name), []byte(name), 0o644))
+	}
+	require.NoError(t, os.WriteFile(filepath.Join(dir, UnpackedWeights), []byte("someone else's"), 0o644))
+	err := moveOut(tmp, dir, map[string]bool{UnpackedWeights: true})
+	require.ErrorIs(t, err, ErrDirNotEmpty)
+	_, err = os.Stat(filepath.Join(dir, "config.json"))
+	require.ErrorIs(t, err, os.ErrNotExist, "the companion moved first is removed again")
+	got, err := os.ReadFile(filepath.Join(dir, UnpackedWeights))
+	require.NoError(t, err)
+	require.Equal(t, "someone else's", string(got), "the other file is left alone")
 }
