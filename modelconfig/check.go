@@ -126,6 +126,11 @@ func (c *Config) Check(tensors []Tensor) []Mismatch {
 		switch m[3] + m[4] {
 		case "q":
 			dimClaim(qKey, q, t, 0, "rows")
+			if h := c.NumAttentionHeads; h > 0 && !c.Has("head_dim") && len(t.Shape) == 2 && t.Shape[0]%h != 0 {
+				// no head_dim to derive (hidden_size is not a multiple of the
+				// heads, or absent): the query rows still split into heads
+				add("num_attention_heads", t.Name, strconv.FormatInt(h, 10), fmt.Sprintf("%d rows, not a multiple of it", t.Shape[0]))
+			}
 			dim("hidden_size", c.HiddenSize, t, 1, "columns")
 		case "k", "v":
 			dimClaim(kvKey, kv, t, 0, "rows")

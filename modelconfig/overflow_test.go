@@ -33,3 +33,29 @@ func TestCheckProductOverflow(t *testing.T) {
 		require.Equal(t, tc.want, got, tc.config)
 	}
 }
+
+// Without head_dim, a head count that does not divide the query rows is a
+// mismatch, even when hidden_size / heads gives no head dim to compare.
+func TestCheckHeadsNotDividingQueryRows(t *testing.T) {
+	tensors := decoder(2048, 256, 2, 4, 2, 64, 768, true)
+	for _, tc := range []struct {
+		config string
+		want   []string
+	}{
+		{`{"hidden_size": 256, "num_attention_heads": 3}`, []string{
+			`config num_attention_heads = 3, but tensor "model.layers.0.self_attn.q_proj.weight" has 256 rows, not a multiple of it (and 1 more tensors)`}},
+		{`{"num_attention_heads": 3}`, []string{
+			`config num_attention_heads = 3, but tensor "model.layers.0.self_attn.q_proj.weight" has 256 rows, not a multiple of it (and 1 more tensors)`}},
+		{`{"hidden_size": 256, "num_attention_heads": 8}`, nil}, // 8 × 32: the shapes cannot tell
+		{`{"hidden_size": 256, "num_attention_heads": 3, "head_dim": 64}`, []string{ // head_dim given: the product speaks
+			`config num_attention_heads × head_dim = 192, but tensor "model.layers.0.self_attn.q_proj.weight" has 256 rows (and 3 more tensors)`}},
+	} {
+		c, err := Parse("config.json", []byte(tc.config))
+		require.NoError(t, err)
+		var got []string
+		for _, m := range c.Check(tensors) {
+			got = append(got, m.String())
+		}
+		require.Equal(t, tc.want, got, tc.config)
+	}
+}
