@@ -56,6 +56,8 @@ report beside it. Nothing is downloaded.`,
 				if dir, err = os.MkdirTemp("", "ternkit-demo-"); err != nil {
 					return err
 				}
+			} else if err := checkDemoCompanions(dir); err != nil {
+				return err
 			} else if err := os.MkdirAll(dir, 0o755); err != nil {
 				return err
 			}
