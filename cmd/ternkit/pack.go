@@ -210,6 +210,7 @@ func packFile(src, out string, opts pack.Options, comp *companionFlags, warnUnma
 	if opts.Companions, err = comp.find(s); err != nil {
 		return nil, err
 	}
+	comp.warnUnmatched(stderr, s, opts.Companions)
 	warnConfig(stderr, opts.Companions, s.Tensors)
 	if warnUnmatched && opts.Policy != nil {
 		for _, r := range opts.Policy.Unmatched(s.Tensors) {
