@@ -58,8 +58,14 @@ func UnpackDir(a *Artifact, dir, dtype string, shardSize int64) error {
 	for _, c := range a.Companions() {
 		// ASCII case ignored, as the companion name rules do: on a file
 		// system that ignores case the companion would replace the weights
-		if weights[strings.ToLower(c.Name)] {
+		lower := strings.ToLower(c.Name)
+		if weights[lower] {
 			return fmt.Errorf("%w: companion %q has the name of the unpacked weights", ErrCompanion, c.Name)
+		}
+		// a second weights file or index would make the directory
+		// ambiguous to a loader, which reads its one index or weights file
+		if strings.HasSuffix(lower, ".safetensors") || strings.HasSuffix(lower, ".safetensors.index.json") {
+			return fmt.Errorf("%w: companion %q would be read as weights in the unpacked directory (unpack -o FILE.safetensors writes the weights alone)", ErrCompanion, c.Name)
 		}
 	}
 	clean := filepath.Clean(dir)

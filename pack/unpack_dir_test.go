@@ -118,3 +118,28 @@ func TestMoveOutStopsOnTakenName(t *testing.T) {
 	require.NoError(t, err)
 	require.Equal(t, "someone else's", string(got), "the other file is left alone")
 }
+
+// A companion named like weights or an index of any name would make the
+// unpacked directory ambiguous to a loader (a directory is read through
+// its one index, or its one weights file): refused, nothing written.
+func TestUnpackDirRefusesCompanionNamedLikeWeightsOrIndex(t *testing.T) {
+	for _, name := range []string{"model.safetensors.index.json", "draft.safetensors", "Adapter.SafeTensors"} {
+		t.Run(name, func(t *testing.T) {
+			dir := t.TempDir()
+			src, _ := testSource(t, dir)
+			other := filepath.Join(dir, "other")
+			require.NoError(t, os.WriteFile(other, []byte("{}"), 0o644))
+			art := filepath.Join(dir, "out"+Extension)
+			require.NoError(t, buildCompanions(t, src, art, []Companion{{Name: name, Path: other}}))
+			a, err := Open(art)
+			require.NoError(t, err)
+			defer a.Close()
+			dst := filepath.Join(dir, "unpacked")
+			err = UnpackDir(a, dst, "F32", 0)
+			require.ErrorIs(t, err, ErrCompanion)
+			require.Contains(t, err.Error(), name)
+			_, err = os.Stat(dst)
+			require.ErrorIs(t, err, os.ErrNotExist, "nothing written")
+		})
+	}
+}
