@@ -70,10 +70,15 @@ model's quality. ` + caution + `.`,
 				return err
 			}
 			if !rep.OK() {
-				if err := printReport(cmd.OutOrStdout(), rep, false); err != nil {
+				// with --print-message stdout is the message file: say it on stderr
+				w := cmd.OutOrStdout()
+				if printMessage {
+					w = cmd.ErrOrStderr()
+				}
+				if err := printReport(w, rep, false); err != nil {
 					return err
 				}
-				fmt.Fprintf(cmd.OutOrStdout(), "sign: refusing to sign %s: it fails verification\n", art)
+				fmt.Fprintf(w, "sign: refusing to sign %s: it fails verification\n", art)
 				return errVerifyFailed
 			}
 			hash := rep.ManifestHash()
