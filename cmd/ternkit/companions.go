@@ -78,3 +78,18 @@ func (f *companionFlags) warnUnmatched(stderr io.Writer, s *convert.Source, cs [
 		}
 	}
 }
+
+// noteCompanionsLeftOut tells on stderr that unpack -o FILE.safetensors
+// wrote the weights without the artifact's companions, and how to get them.
+func noteCompanionsLeftOut(stderr io.Writer, a *pack.Artifact) {
+	cs := a.Companions()
+	if len(cs) == 0 {
+		return
+	}
+	names := make([]string, len(cs))
+	for i, c := range cs {
+		names[i] = c.Name
+	}
+	fmt.Fprintf(stderr, "note: %d companion files not written (%s): unpack -o DIR writes them beside the weights\n",
+		len(cs), strings.Join(names, ", "))
+}

@@ -68,6 +68,9 @@ complete or not at all.
 			if err != nil {
 				return err
 			}
+			if !toDir {
+				noteCompanionsLeftOut(cmd.ErrOrStderr(), a)
+			}
 			m := a.Manifest()
 			fmt.Fprintf(cmd.OutOrStdout(), "unpacked %s: %d tensors (%d ternary as scale × trit) as %s -> %s\n",
 				args[0], m.Totals.Tensors, m.Totals.TernaryTensors, dt, out)
