@@ -16,15 +16,20 @@ const (
 	CompanionChanged = "changed"
 )
 
+// MaxKeyDiff is the largest JSON companion whose changed keys are listed
+// (16 MiB): a larger one is reported changed with its sizes alone, not
+// read into memory twice and parsed.
+const MaxKeyDiff = 16 << 20
+
 // CompanionChange is a companion file that differs between the artifacts.
 type CompanionChange struct {
 	Name   string `json:"name"`
 	Change string `json:"change"` // added, removed or changed
 	BytesA int64  `json:"bytes_a"`
 	BytesB int64  `json:"bytes_b"`
-	// Keys are, for a changed JSON object file, the keys whose values
-	// differ, are added or removed, as dotted paths into nested objects,
-	// sorted; empty for other files.
+	// Keys are, for a changed JSON object file of at most MaxKeyDiff
+	// bytes, the keys whose values differ, are added or removed, as dotted
+	// paths into nested objects, sorted; empty for other files.
 	Keys []string `json:"keys,omitempty"`
 }
 
@@ -40,7 +45,7 @@ func compareCompanions(a, b *pack.Artifact) ([]CompanionChange, error) {
 			out = append(out, CompanionChange{Name: ca.Name, Change: CompanionRemoved, BytesA: ca.Section.Length})
 		case cb.Section.BLAKE3 != ca.Section.BLAKE3:
 			c := CompanionChange{Name: ca.Name, Change: CompanionChanged, BytesA: ca.Section.Length, BytesB: cb.Section.Length}
-			if strings.HasSuffix(ca.Name, ".json") {
+			if strings.HasSuffix(ca.Name, ".json") && ca.Section.Length <= MaxKeyDiff && cb.Section.Length <= MaxKeyDiff {
 				da, err := a.Companion(ca.Name)
 				if err != nil {
 					return nil, err

@@ -2,6 +2,9 @@ package modelconfig
 
 import (
 	"fmt"
+	"math"
+	"math/big"
+	"math/bits"
 	"regexp"
 	"strconv"
 )
@@ -70,22 +73,36 @@ func (c *Config) Check(tensors []Tensor) []Mismatch {
 		byKey[key] = len(out)
 		out = append(out, Mismatch{Key: key, Tensor: tensor, Config: config, Found: found})
 	}
-	dim := func(key string, want int64, t Tensor, axis int, what string) {
-		if want <= 0 || len(t.Shape) != 2 {
+	// a product is compared as a claim: one beyond int64 matches no tensor
+	type claim struct {
+		v    int64 // 0: not claimed; -1: beyond int64
+		text string
+	}
+	product := func(a, b int64) claim {
+		if hi, lo := bits.Mul64(uint64(a), uint64(b)); hi != 0 || lo > math.MaxInt64 {
+			return claim{-1, new(big.Int).Mul(big.NewInt(a), big.NewInt(b)).String()}
+		}
+		return claim{a * b, strconv.FormatInt(a*b, 10)}
+	}
+	dimClaim := func(key string, want claim, t Tensor, axis int, what string) {
+		if want.v == 0 || len(t.Shape) != 2 {
 			return
 		}
-		if got := t.Shape[axis]; got != want {
-			add(key, t.Name, strconv.FormatInt(want, 10), fmt.Sprintf("%d %s", got, what))
+		if got := t.Shape[axis]; got != want.v {
+			add(key, t.Name, want.text, fmt.Sprintf("%d %s", got, what))
 		}
 	}
-	q := c.NumAttentionHeads * c.HeadDim
-	kv := c.NumKeyValueHeads * c.HeadDim
+	dim := func(key string, want int64, t Tensor, axis int, what string) {
+		dimClaim(key, claim{want, strconv.FormatInt(want, 10)}, t, axis, what)
+	}
+	q := product(c.NumAttentionHeads, c.HeadDim)
+	kv := product(c.NumKeyValueHeads, c.HeadDim)
 	qKey, kvKey := "num_attention_heads × head_dim", "num_key_value_heads × head_dim"
 	if !c.Has("head_dim") {
 		qKey, kvKey = "num_attention_heads × (hidden_size / num_attention_heads)", "num_key_value_heads × (hidden_size / num_attention_heads)"
 	}
 	if !c.Has("num_key_value_heads") {
-		kv = 0 // the default, one KV head per head, is not a claim worth a warning
+		kv = claim{} // the default, one KV head per head, is not a claim worth a warning
 	}
 	highest, head := int64(-1), false
 	for _, t := range tensors {
@@ -108,14 +125,19 @@ func (c *Config) Check(tensors []Tensor) []Mismatch {
 		highest = max(highest, n)
 		switch m[3] + m[4] {
 		case "q":
-			dim(qKey, q, t, 0, "rows")
+			dimClaim(qKey, q, t, 0, "rows")
+			if h := c.NumAttentionHeads; h > 0 && !c.Has("head_dim") && len(t.Shape) == 2 && t.Shape[0]%h != 0 {
+				// no head_dim to derive (hidden_size is not a multiple of the
+				// heads, or absent): the query rows still split into heads
+				add("num_attention_heads", t.Name, strconv.FormatInt(h, 10), fmt.Sprintf("%d rows, not a multiple of it", t.Shape[0]))
+			}
 			dim("hidden_size", c.HiddenSize, t, 1, "columns")
 		case "k", "v":
-			dim(kvKey, kv, t, 0, "rows")
+			dimClaim(kvKey, kv, t, 0, "rows")
 			dim("hidden_size", c.HiddenSize, t, 1, "columns")
 		case "o":
 			dim("hidden_size", c.HiddenSize, t, 0, "rows")
-			dim(qKey, q, t, 1, "columns")
+			dimClaim(qKey, q, t, 1, "columns")
 		case "gate", "up":
 			dim("intermediate_size", c.IntermediateSize, t, 0, "rows")
 			dim("hidden_size", c.HiddenSize, t, 1, "columns")

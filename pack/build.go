@@ -74,6 +74,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if err := checkCompanions(opts.Companions); err != nil {
 		return nil, err
 	}
+	if err := checkDestination(src, dst, opts.Companions); err != nil {
+		return nil, err
+	}
 	actions := make(map[*convert.Tensor]convert.Action, len(src.Tensors))
 	for _, t := range src.Tensors {
 		a, _, err := policy.Decide(t)

@@ -141,6 +141,11 @@ func (w *atomicWriter) writeCompanion(c Companion) (manifest.Companion, error) {
 		return manifest.Companion{}, fmt.Errorf("%w: %v", ErrCompanion, err)
 	}
 	defer f.Close()
+	if st, err := f.Stat(); err != nil {
+		return manifest.Companion{}, fmt.Errorf("%w: %s: %v", ErrCompanion, c.Path, err)
+	} else if !st.Mode().IsRegular() {
+		return manifest.Companion{}, fmt.Errorf("%w: %s: not a regular file (%s)", ErrCompanion, c.Path, st.Mode().Type())
+	}
 	if err := w.pad(); err != nil {
 		return manifest.Companion{}, err
 	}
@@ -180,14 +185,19 @@ func (a *Artifact) Companions() []manifest.Companion { return a.m.Companions }
 // Companion returns the bytes of the named companion after checking them
 // against the BLAKE3 and piece hashes the manifest records. Errors:
 // ErrNoCompanion for a name the artifact does not carry, a *FormatError
-// wrapping ErrHash for bytes that differ. Memory holds the whole file:
-// Build writes none over MaxCompanionSize, but the format bounds a
-// companion only by the file, so a caller reading untrusted artifacts
-// checks the entry's Section.Length (Companions) before asking.
+// wrapping ErrHash for bytes that differ, ErrCompanion for a companion
+// over MaxCompanionSize. Memory holds the whole file: Build writes none
+// over MaxCompanionSize, and Companion refuses a larger one before
+// allocating (the format bounds a companion only by the file, which may be
+// sparse).
 func (a *Artifact) Companion(name string) ([]byte, error) {
 	c := a.m.Companion(name)
 	if c == nil {
 		return nil, fmt.Errorf("%w %q", ErrNoCompanion, name)
+	}
+	if c.Section.Length > MaxCompanionSize {
+		return nil, fmt.Errorf("%w: %s: companion %q is %d bytes, over the %d-byte limit for reading one into memory",
+			ErrCompanion, a.file, name, c.Section.Length, MaxCompanionSize)
 	}
 	return a.verifiedCompanion(c)
 }

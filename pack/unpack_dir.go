@@ -8,6 +8,7 @@ import (
 	"os"
 	"path/filepath"
 	"slices"
+	"strings"
 
 	"ternkit/convert"
 	"ternkit/internal/atomicfile"
@@ -55,12 +56,32 @@ func UnpackDir(a *Artifact, dir, dtype string, shardSize int64) error {
 		}
 	}
 	for _, c := range a.Companions() {
-		if weights[c.Name] {
+		// ASCII case ignored, as the companion name rules do: on a file
+		// system that ignores case the companion would replace the weights
+		lower := strings.ToLower(c.Name)
+		if weights[lower] {
 			return fmt.Errorf("%w: companion %q has the name of the unpacked weights", ErrCompanion, c.Name)
+		}
+		// a second weights file or index would make the directory
+		// ambiguous to a loader, which reads its one index or weights file
+		if strings.HasSuffix(lower, ".safetensors") || strings.HasSuffix(lower, ".safetensors.index.json") {
+			return fmt.Errorf("%w: companion %q would be read as weights in the unpacked directory (unpack -o FILE.safetensors writes the weights alone)", ErrCompanion, c.Name)
 		}
 	}
 	clean := filepath.Clean(dir)
-	tmp, err := os.MkdirTemp(filepath.Dir(clean), "."+filepath.Base(clean)+".tmp-")
+	// a new directory is built beside its place and renamed into it; an
+	// existing empty one (perhaps a mount point, a link, the working
+	// directory) is kept, and the files are built in a temporary directory
+	// inside it, then moved out of it
+	_, statErr := os.Stat(clean)
+	exists := statErr == nil
+	var tmp string
+	var err error
+	if exists {
+		tmp, err = os.MkdirTemp(clean, ".unpack.tmp-")
+	} else {
+		tmp, err = os.MkdirTemp(filepath.Dir(clean), "."+filepath.Base(clean)+".tmp-")
+	}
 	if err != nil {
 		return err
 	}
@@ -86,15 +107,62 @@ func UnpackDir(a *Artifact, dir, dtype string, shardSize int64) error {
 			return err
 		}
 	}
+	if exists {
+		if err := moveOut(tmp, clean, weights); err != nil {
+			return err
+		}
+		done = true
+		os.Remove(tmp)
+		return syncDir(clean)
+	}
 	if err := os.Chmod(tmp, 0o755); err != nil {
 		return err
 	}
-	// rename replaces an empty directory (POSIX rename); dir was checked empty
 	if err := os.Rename(tmp, clean); err != nil {
 		return err
 	}
 	done = true
 	return syncDir(filepath.Dir(clean))
+}
+
+// moveOut moves every file of tmp into dir, the weights last, so that the
+// weights appear when everything else is there. A name already taken in
+// dir (a file that appeared since dir was found empty) stops it; on error
+// the files moved so far are removed again.
+func moveOut(tmp, dir string, weights map[string]bool) error {
+	entries, err := os.ReadDir(tmp)
+	if err != nil {
+		return err
+	}
+	names := make([]string, 0, len(entries))
+	for _, e := range entries {
+		names = append(names, e.Name())
+	}
+	slices.SortStableFunc(names, func(a, b string) int {
+		switch {
+		case weights[a] == weights[b]:
+			return 0
+		case weights[a]:
+			return 1
+		}
+		return -1
+	})
+	var moved []string
+	for _, name := range names {
+		to := filepath.Join(dir, name)
+		err := fmt.Errorf("%w: %s appeared while unpacking", ErrDirNotEmpty, to)
+		if _, lerr := os.Lstat(to); errors.Is(lerr, fs.ErrNotExist) {
+			err = os.Rename(filepath.Join(tmp, name), to)
+		}
+		if err != nil {
+			for _, m := range moved {
+				os.Remove(m)
+			}
+			return err
+		}
+		moved = append(moved, to)
+	}
+	return nil
 }
 
 // planShards splits the tensors, in order, into runs of at most shardSize

@@ -21,8 +21,8 @@ func addCompanions(s *Summary, a *pack.Artifact) {
 	for _, c := range a.Companions() {
 		s.Companions = append(s.Companions, Companion{Name: c.Name, Bytes: c.Section.Length, BLAKE3: c.Section.BLAKE3})
 	}
-	if a.Manifest().Companion(configCompanion) == nil {
-		return
+	if c := a.Manifest().Companion(configCompanion); c == nil || c.Section.Length > modelconfig.MaxSize {
+		return // none, or too large to be a config (not read to learn that)
 	}
 	data, err := a.Companion(configCompanion)
 	if err != nil {

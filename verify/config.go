@@ -18,7 +18,14 @@ const ConfigCompanion = "config.json"
 // warning naming key, tensor and both values. Tensors of a layout the check
 // does not know are not checked, and a note says so once.
 func checkConfig(rep *Report, a *pack.Artifact) {
-	if a.Manifest().Companion(ConfigCompanion) == nil {
+	c := a.Manifest().Companion(ConfigCompanion)
+	if c == nil {
+		return
+	}
+	if n := c.Section.Length; n > modelconfig.MaxSize {
+		// known from the manifest: not read into memory to be refused
+		rep.Warnings = append(rep.Warnings, fmt.Sprintf("%s: config is %d bytes, above the %d-byte limit: not checked against the tensors",
+			ConfigCompanion, n, modelconfig.MaxSize))
 		return
 	}
 	data, err := a.Companion(ConfigCompanion)

@@ -2,7 +2,9 @@ package main
 
 import (
 	"fmt"
+	"io"
 	"path/filepath"
+	"slices"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -64,4 +66,30 @@ func (f *companionFlags) find(s *convert.Source) ([]pack.Companion, error) {
 		}
 	}
 	return out, nil
+}
+
+// warnUnmatched warns on stderr about each --companion pattern that
+// selects none of the companions cs (a typo, or a pattern matching only
+// the weights), as pack warns about a policy rule that matches no tensor.
+func (f *companionFlags) warnUnmatched(stderr io.Writer, s *convert.Source, cs []pack.Companion) {
+	for _, g := range f.extra {
+		if !slices.ContainsFunc(cs, func(c pack.Companion) bool { ok, _ := filepath.Match(g, c.Name); return ok }) {
+			fmt.Fprintf(stderr, "warning: --companion %q selects no companion file in %s\n", g, filepath.Dir(s.Path))
+		}
+	}
+}
+
+// noteCompanionsLeftOut tells on stderr that unpack -o FILE.safetensors
+// wrote the weights without the artifact's companions, and how to get them.
+func noteCompanionsLeftOut(stderr io.Writer, a *pack.Artifact) {
+	cs := a.Companions()
+	if len(cs) == 0 {
+		return
+	}
+	names := make([]string, len(cs))
+	for i, c := range cs {
+		names[i] = c.Name
+	}
+	fmt.Fprintf(stderr, "note: %d companion files not written (%s): unpack -o DIR writes them beside the weights\n",
+		len(cs), strings.Join(names, ", "))
 }

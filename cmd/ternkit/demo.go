@@ -59,6 +59,8 @@ comparison, and writes the artifact's HTML report beside it. Nothing is download
 				if dir, err = os.MkdirTemp("", "ternkit-demo-"); err != nil {
 					return err
 				}
+			} else if err := checkDemoCompanions(dir); err != nil {
+				return err
 			} else if err := os.MkdirAll(dir, 0o755); err != nil {
 				return err
 			}

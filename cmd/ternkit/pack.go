@@ -254,6 +254,7 @@ func packFile(src, out string, opts pack.Options, comp *companionFlags, userRule
 	if opts.Companions, err = comp.find(s); err != nil {
 		return nil, err
 	}
+	comp.warnUnmatched(w, s, opts.Companions)
 	warnConfig(w, opts.Companions, s.Tensors)
 	inputs := []string{src, s.Path}
 	for _, f := range s.Files {

@@ -76,9 +76,11 @@ model's quality.`,
 				if err := notArtifactOf(rep, art); err != nil {
 					return err
 				}
+				// failures still show under -q; with --print-message stdout
+				// is the message file: say it on stderr
 				out := cmd.OutOrStdout()
-				if quiet(cmd) {
-					out = cmd.ErrOrStderr() // failures still show
+				if quiet(cmd) || printMessage {
+					out = cmd.ErrOrStderr()
 				}
 				if err := printReport(out, rep, false, newWarnings(cmd)); err != nil {
 					return err

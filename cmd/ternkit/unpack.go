@@ -79,6 +79,9 @@ complete or not at all.`,
 			if err != nil {
 				return asCorrupt(err)
 			}
+			if !toDir {
+				noteCompanionsLeftOut(cmd.ErrOrStderr(), a)
+			}
 			m := a.Manifest()
 			as := dt
 			if dt == pack.SourceDType {
