@@ -71,10 +71,10 @@ func (f *companionFlags) find(s *convert.Source) ([]pack.Companion, error) {
 // warnUnmatched warns on stderr about each --companion pattern that
 // selects none of the companions cs (a typo, or a pattern matching only
 // the weights), as pack warns about a policy rule that matches no tensor.
-func (f *companionFlags) warnUnmatched(stderr io.Writer, s *convert.Source, cs []pack.Companion) {
+func (f *companionFlags) warnUnmatched(w *warnings, s *convert.Source, cs []pack.Companion) {
 	for _, g := range f.extra {
 		if !slices.ContainsFunc(cs, func(c pack.Companion) bool { ok, _ := filepath.Match(g, c.Name); return ok }) {
-			fmt.Fprintf(stderr, "warning: --companion %q selects no companion file in %s\n", g, filepath.Dir(s.Path))
+			w.add("--companion %q selects no companion file in %s", g, filepath.Dir(s.Path))
 		}
 	}
 }
