@@ -41,5 +41,5 @@ func TestDiffCompanions(t *testing.T) {
 	code, out, _ = ternkit("diff", first, second)
 	require.Equal(t, exitOK, code)
 	require.Contains(t, out, "companions (2):\n  + LICENSE, 35 bytes\n  ~ config.json, ")
-	require.Contains(t, out, "keys changed: max_position_embeddings, rope_scaling\n")
+	require.Contains(t, out, `keys changed: "max_position_embeddings", "rope_scaling"`+"\n")
 }

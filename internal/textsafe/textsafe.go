@@ -11,9 +11,11 @@ import (
 )
 
 // Escape returns s with every C0 control character (U+0000–U+001F), DEL
-// (U+007F), C1 control character (U+0080–U+009F) and byte that is not
-// UTF-8 written as a Go escape (\x1b, \r, \u0085, \xff); s itself when it
-// holds none, so ordinary names print unchanged.
+// (U+007F), C1 control character (U+0080–U+009F), bidirectional
+// formatting character (U+061C, U+200E, U+200F, U+202A–U+202E,
+// U+2066–U+2069: they reorder the text shown around them) and byte that is
+// not UTF-8 written as a Go escape (\x1b, \r, \u0085, \u202e, \xff); s
+// itself when it holds none, so ordinary names print unchanged.
 func Escape(s string) string {
 	return escape(s, false)
 }
@@ -48,7 +50,14 @@ func escape(s string, lines bool) string {
 }
 
 func isControl(r rune) bool {
-	return r < 0x20 || r == 0x7f || 0x80 <= r && r <= 0x9f
+	return r < 0x20 || r == 0x7f || 0x80 <= r && r <= 0x9f || isBidi(r)
+}
+
+// isBidi reports the Unicode bidirectional formatting characters (the
+// Unicode Standard, UAX #9, "Explicit Directional Embeddings, Overrides
+// and Isolates", and the implicit marks ALM, LRM, RLM).
+func isBidi(r rune) bool {
+	return r == 0x061c || r == 0x200e || r == 0x200f || 0x202a <= r && r <= 0x202e || 0x2066 <= r && r <= 0x2069
 }
 
 func needsEscape(s string) bool {

@@ -20,6 +20,13 @@ func TestEscape(t *testing.T) {
 		"bad\xffutf8":            `bad\xffutf8`,
 		"\x00":                   `\x00`,
 		"\u00a0nbsp stays":       "\u00a0nbsp stays",
+		// bidirectional overrides and isolates reorder what a terminal
+		// shows ("txt.exe" can read as "exe.txt"): UAX #9's formatting
+		// characters are escaped
+		"config\u202etxt.json": `config\u202etxt.json`,
+		"a\u2066b\u2069":       `a\u2066b\u2069`,
+		"rlm\u200f":            `rlm\u200f`,
+		"אבג.json":             "אבג.json",
 	}
 	for in, want := range cases {
 		require.Equal(t, want, Escape(in), strconv.Quote(in))
