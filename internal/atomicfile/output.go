@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"io/fs"
 	"os"
+
+	"ternkit/internal/inputfile"
 )
 
 // ErrNotRegular reports a destination that exists and is not a regular
@@ -27,7 +29,7 @@ func checkDestination(path string) (*fs.FileMode, error) {
 	case err != nil:
 		return nil, fmt.Errorf("write %s: %w", path, err)
 	case !fi.Mode().IsRegular():
-		return nil, fmt.Errorf("write %s: %w (%s)", path, ErrNotRegular, kind(fi.Mode()))
+		return nil, fmt.Errorf("write %s: %w (%s)", path, ErrNotRegular, inputfile.Kind(fi.Mode()))
 	}
 	mode := fi.Mode().Perm()
 	return &mode, nil
@@ -54,20 +56,4 @@ func CheckOutput(path string, inputs ...string) error {
 		}
 	}
 	return nil
-}
-
-func kind(m fs.FileMode) string {
-	switch {
-	case m.IsDir():
-		return "a directory"
-	case m&fs.ModeNamedPipe != 0:
-		return "a named pipe"
-	case m&fs.ModeSocket != 0:
-		return "a socket"
-	case m&fs.ModeCharDevice != 0:
-		return "a character device"
-	case m&fs.ModeDevice != 0:
-		return "a device"
-	}
-	return "not a regular file"
 }
