@@ -180,7 +180,7 @@ func ratio(a, b int64) float64 {
 
 // Layer is a group of tensors that belong to one layer of the model:
 // tensors whose names share the prefix up to their first numeric
-// component ("blocks.3.attn.q.weight" is in "blocks.3"), or, without a
+// component ("model.layers.3.self_attn.q_proj.weight" is in "model.layers.3"), or, without a
 // numeric component, their name less its last component ("lm_head.weight"
 // is "lm_head").
 type Layer struct {
