@@ -1,0 +1,123 @@
+package manifest
+
+import (
+	"math"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/convert"
+)
+
+// Each rule of pack/FORMAT.md, "Manifest", broken alone: the manifest is
+// rejected with ErrInvalid and a message naming the value. The inputs pass
+// every earlier rule, so each case reaches the rule it names.
+func TestValidateEachRule(t *testing.T) {
+	upper := strings.Repeat("AB", 32)         // 64 digits, uppercase
+	notHex := strings.Repeat("ab", 31) + "gh" // 64 characters, two not hex
+	cases := []struct {
+		name string
+		edit func(m *Manifest)
+		want string
+	}{
+		// a ternary tensor at tensor granularity needs a positive finite scale
+		{"scale zero", func(m *Manifest) { m.Tensors[0].Scale = 0 }, "scale 0 is not a positive"},
+		{"scale NaN", func(m *Manifest) { m.Tensors[0].Scale = float32(math.NaN()) }, "scale NaN is not a positive"},
+		{"scale +Inf", func(m *Manifest) { m.Tensors[0].Scale = float32(math.Inf(1)) }, "scale +Inf is not a positive"},
+		{"scale -Inf", func(m *Manifest) { m.Tensors[0].Scale = float32(math.Inf(-1)) }, "scale -Inf is not a positive"},
+		// hashes are 64 lowercase hex digits, wherever they are
+		{"uppercase section hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = upper }, "is not lowercase hex"},
+		{"non-hex section hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = notHex }, "is not lowercase hex"},
+		{"uppercase source hash", func(m *Manifest) { m.Tensors[1].SourceBLAKE3 = upper }, `source_blake3: hash "ABAB`},
+		{"uppercase scales hash", func(m *Manifest) { m.Tensors[2].Scales.BLAKE3 = upper }, `scales: hash "ABAB`},
+		{"uppercase file hash", func(m *Manifest) { m.Source.Files[0].BLAKE3 = upper }, `source file "m.safetensors": hash "ABAB`},
+		{"short hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = strings.Repeat("a", 63) }, "is not 64 hex digits"},
+		{"long hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = strings.Repeat("a", 65) }, "is not 64 hex digits"},
+		// sections
+		{"negative offset", func(m *Manifest) { m.Tensors[1].Section.Offset = -1 }, "offset -1 length 8"},
+		{"chunks on a short section", func(m *Manifest) {
+			m.Tensors[1].Section.Chunks = []string{m.Tensors[1].Section.BLAKE3}
+		}, "1 chunk hashes for 8 bytes (want 0)"},
+		{"bad chunk hash", func(m *Manifest) {
+			s := &m.Tensors[1].Section
+			s.Length = ChunkSize + 2
+			m.Tensors[1].Shape = []int64{(ChunkSize + 2) / 2}
+			s.Chunks = []string{s.BLAKE3, upper}
+		}, "chunk: hash"},
+		{"scales negative length", func(m *Manifest) { m.Tensors[2].Scales.Length = -8 }, "scales: offset 256 length -8"},
+		// kinds and their fields
+		{"ternary with dtype", func(m *Manifest) { m.Tensors[0].DType = "F32" }, `ternary tensor with dtype "F32"`},
+		{"no trit counts", func(m *Manifest) { m.Tensors[0].Trits = nil }, "trit counts <nil>"},
+		{"negative count", func(m *Manifest) { m.Tensors[0].Trits = &convert.TritCounts{Neg: -1, Zero: 9, Pos: 4} }, "do not sum to 12"},
+		{"unknown source dtype", func(m *Manifest) { m.Tensors[0].SourceDType = "F12" }, `unknown source dtype "F12"`},
+		{"int8 granularity", func(m *Manifest) { m.Tensors[3].Granularity = &convert.PerTensor }, "want row"},
+		{"int8 without granularity", func(m *Manifest) { m.Tensors[3].Granularity = nil }, "granularity <nil>"},
+		{"int8 dtype", func(m *Manifest) { m.Tensors[3].DType = "I8" }, "int8 tensor carries"},
+		{"int8 scale", func(m *Manifest) { m.Tensors[3].Scale = 1 }, "int8 tensor carries"},
+		{"int8 exact", func(m *Manifest) { m.Tensors[3].Exact = true }, "int8 tensor carries"},
+		{"int8 missing stats", func(m *Manifest) { m.Tensors[3].Stats = nil }, "missing stats"},
+		{"int8 1-D", func(m *Manifest) { m.Tensors[3].Shape, m.Tensors[3].Scales.Length = []int64{6}, 24 }, "2 or more dimensions"},
+		{"int8 without scales", func(m *Manifest) { m.Tensors[3].Scales = nil }, "without a scales section"},
+		{"kept codec", func(m *Manifest) { m.Tensors[1].Codec = CodecBase3 }, `kept tensor with codec "base3"`},
+		{"kept trits", func(m *Manifest) { m.Tensors[1].Trits = &convert.TritCounts{Zero: 4} }, "kept tensor carries"},
+		{"kept granularity", func(m *Manifest) { m.Tensors[1].Granularity = &convert.PerTensor }, "kept tensor carries"},
+		{"kept scales", func(m *Manifest) { m.Tensors[1].Scales = &Section{Offset: 0, Length: 4, BLAKE3: upper} }, "kept tensor carries"},
+		{"kept exact", func(m *Manifest) { m.Tensors[1].Exact = true }, "kept tensor carries"},
+		{"kept unknown dtype with bytes lost", func(m *Manifest) {
+			m.Tensors[1].SourceDType, m.Tensors[1].DType = "Q4_BLOCK", "Q4_BLOCK"
+			m.Tensors[1].Shape = []int64{0}
+		}, `section length 8 for 0 elements of dtype "Q4_BLOCK"`},
+		{"kept unknown dtype converted", func(m *Manifest) { m.Tensors[1].DType = "Q4_BLOCK" }, `unknown dtype "Q4_BLOCK"`},
+		{"group size too large", func(m *Manifest) {
+			m.Tensors[2].Granularity = &convert.Granularity{Kind: convert.GranGroup, Group: 24}
+		}, "24"},
+		{"totals bytes", func(m *Manifest) { m.Totals.KeptSectionBytes-- }, "totals"},
+		{"totals source", func(m *Manifest) { m.Totals.SourceBytes++ }, "totals"},
+		{"policy", func(m *Manifest) { m.Policy = []string{} }, "empty list"},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			m := validManifest()
+			c.edit(m)
+			if !strings.HasPrefix(c.name, "totals") {
+				m.ComputeTotals()
+			}
+			err := m.Validate()
+			require.ErrorIs(t, err, ErrInvalid)
+			require.Contains(t, err.Error(), c.want)
+		})
+	}
+}
+
+// The helpers the rules use, at their edges.
+func TestSectionHelpers(t *testing.T) {
+	require.Equal(t, 0, NumChunks(0))
+	require.Equal(t, 0, NumChunks(ChunkSize))
+	require.Equal(t, 2, NumChunks(ChunkSize+1))
+	require.Equal(t, 3, NumChunks(3*ChunkSize))
+
+	m := validManifest()
+	require.Equal(t, []Section{m.Tensors[0].Section}, m.Tensors[0].Sections())
+	require.Equal(t, []Section{m.Tensors[2].Section, *m.Tensors[2].Scales}, m.Tensors[2].Sections())
+	require.Equal(t, int64(3), m.Tensors[0].StoredBytes())
+	require.Equal(t, int64(3+8), m.Tensors[2].StoredBytes())
+	require.Equal(t, 1, m.Tensors[0].NumScales(), "tensor granularity")
+	require.Equal(t, 2, m.Tensors[2].NumScales())
+	require.Equal(t, 0, m.Tensors[1].NumScales(), "kept")
+	e := m.Tensors[2]
+	e.Shape = []int64{-1, 6}
+	require.Equal(t, 0, e.NumScales(), "negative shape")
+
+	for _, c := range []struct {
+		codec string
+		n, l  int64
+	}{{CodecBits2, 0, 0}, {CodecBits2, 1, 1}, {CodecBits2, 4, 1}, {CodecBits2, 5, 2},
+		{CodecBase3, 0, 0}, {CodecBase3, 5, 1}, {CodecBase3, 6, 2}} {
+		l, ok := TritPayloadLen(c.codec, c.n)
+		require.True(t, ok)
+		require.Equal(t, c.l, l, "%s %d", c.codec, c.n)
+	}
+	_, ok := TritPayloadLen(CodecEntropy, 5)
+	require.False(t, ok)
+}
