@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"fmt"
 	"math"
+	"slices"
 
 	"ternkit/convert"
 	"ternkit/manifest"
@@ -127,6 +128,16 @@ func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []b
 	name := CheckRequantize
 	if e.Kind == manifest.KindKept {
 		name = CheckKept
+	}
+	// equal bytes do not make the same tensor: the source also decides
+	// the shape and the dtype the manifest records
+	if !slices.Equal(e.Shape, st.Shape) {
+		add(name, false, "shape %v, the source tensor at %s byte %d has %v", e.Shape, st.File, st.Offset, st.Shape)
+		return v
+	}
+	if e.SourceDType != st.DType {
+		add(name, false, "source dtype %s, the source tensor at %s byte %d is %s", e.SourceDType, st.File, st.Offset, st.DType)
+		return v
 	}
 	detail := b.redo(a, t, r, st, raw, &v)
 	add(name, detail == "", "%s", detail)

@@ -229,8 +229,8 @@ func TestAgainstCatchesChangedSourceWeight(t *testing.T) {
 }
 
 // A source tensor relabelled to another dtype of the same size, its bytes
-// unchanged, is still decoded as recorded: re-quantizing passes, and only
-// the source file's hash differs.
+// unchanged, hashes as recorded but is not the tensor recorded: the dtype
+// comparison names it, and the source file's hash differs.
 func TestAgainstDecodesAsRecorded(t *testing.T) {
 	const name = "blocks.0.mlp.up.weight"
 	src, art, _ := bf16Fixture(t, t.TempDir(), pack.Base3)
@@ -254,14 +254,19 @@ func TestAgainstDecodesAsRecorded(t *testing.T) {
 	}
 	rep, err := Run(art, Options{Source: s})
 	require.NoError(t, err)
+	h, ok := rep.Find(CheckSourceHash, name)
+	require.True(t, ok)
+	require.True(t, h.OK, h.Detail)
 	c, ok := rep.Find(CheckRequantize, name)
 	require.True(t, ok)
-	require.True(t, c.OK, c.Detail)
+	require.False(t, c.OK)
+	require.True(t, strings.HasPrefix(c.Detail, "source dtype BF16, the source tensor at "+relabelled+" byte "), c.Detail)
+	require.True(t, strings.HasSuffix(c.Detail, " is F16"), c.Detail)
 	var failed []string
 	for _, f := range rep.Failures() {
 		failed = append(failed, f.Name)
 	}
-	require.Equal(t, []string{CheckSourceFile}, failed)
+	require.Equal(t, []string{CheckRequantize, CheckSourceFile}, failed)
 }
 
 // failingReaderAt fails every read that touches byte bad.

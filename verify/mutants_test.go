@@ -1,0 +1,235 @@
+package verify
+
+import (
+	"encoding/json"
+	"fmt"
+	"os"
+	"path/filepath"
+	"slices"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/convert"
+	"ternkit/manifest"
+	"ternkit/pack"
+)
+
+// editEntry rewrites the manifest entry of tensor name (hashes kept
+// consistent by rewriteManifest).
+func editEntry(t *testing.T, art, out, name string, edit func(x map[string]any)) {
+	t.Helper()
+	found := false
+	rewriteManifest(t, art, out, func(m map[string]any) {
+		for _, x := range tensorsOf(m) {
+			if x := x.(map[string]any); x["name"] == name {
+				edit(x)
+				found = true
+			}
+		}
+	})
+	require.True(t, found, name)
+}
+
+// failuresOf lists the report's failures as "check tensor: detail".
+func failuresOf(rep *Report) []string {
+	var out []string
+	for _, f := range rep.Failures() {
+		out = append(out, f.Name+" "+f.Tensor+": "+f.Detail)
+	}
+	return out
+}
+
+// Every field the manifest records about a tensor and that the source
+// decides is compared with the source by verify --against. Each case
+// changes one field of one tensor with every hash rewritten to match, so
+// that the artifact alone still verifies (apart from the decode check of
+// trit counts, which the payload decides): only the comparison with the
+// source can catch it, and it names the tensor and the value.
+func TestAgainstCatchesEachRecordedField(t *testing.T) {
+	const (
+		row   = "blocks.0.attn.q.weight"    // ternary, row scales
+		tern  = "blocks.0.mlp.up.weight"    // ternary, one scale
+		int8s = "blocks.0.mlp.down.weight"  // int8
+		conv  = "blocks.0.norm.weight"      // kept, BF16 converted to F16
+		kept  = "blocks.0.post_norm.weight" // kept as it is
+	)
+	dir := t.TempDir()
+	src, art, _ := bf16Fixture(t, dir, pack.Bits2)
+	rep := runAgainst(t, art, src)
+	require.True(t, rep.OK(), "%+v", rep.Failures())
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	m := a.Manifest()
+	entries := map[string]manifest.Tensor{}
+	for _, e := range m.Tensors {
+		entries[e.Name] = e
+	}
+	a.Close()
+	require.Equal(t, manifest.KindKept, entries[conv].Kind)
+	require.Equal(t, "F16", entries[conv].DType)
+	require.Equal(t, "BF16", entries[kept].DType)
+	require.Equal(t, convert.GranTensor, entries[tern].Granularity.Kind)
+	require.False(t, entries[tern].Exact)
+
+	stats := func(name string, field string, v float64) func(out string) {
+		return func(out string) {
+			editEntry(t, art, out, name, func(x map[string]any) {
+				x["stats"].(map[string]any)[field] = json.Number(fmt.Sprint(v))
+			})
+		}
+	}
+	cases := []struct {
+		name   string
+		make   func(out string)
+		alone  bool // the artifact alone still verifies
+		check  string
+		tensor string
+		want   string
+	}{
+		{"ternary cosine", stats(tern, "cosine", 0.5), true, CheckRequantize, tern, "statistics"},
+		{"ternary rel_rmse", stats(tern, "rel_rmse", entries[tern].Stats.RelRMSE*1.5), true, CheckRequantize, tern, "statistics"},
+		{"ternary zero_fraction", stats(row, "zero_fraction", 0.125), true, CheckRequantize, row, "statistics"},
+		{"int8 max_abs_err", stats(int8s, "max_abs_err", 1), true, CheckRequantize, int8s, "statistics"},
+		{"converted cosine", stats(conv, "cosine", 0.25), true, CheckKept, conv, "statistics"},
+		{"exact", func(out string) {
+			editEntry(t, art, out, tern, func(x map[string]any) { x["exact"] = true })
+		}, true, CheckRequantize, tern, "exact is true, re-quantizing the source gives false"},
+		{"trit counts", func(out string) {
+			editEntry(t, art, out, tern, func(x map[string]any) {
+				c := x["trits"].(map[string]any)
+				z, err := c["zero"].(json.Number).Int64()
+				require.NoError(t, err)
+				p, err := c["pos"].(json.Number).Int64()
+				require.NoError(t, err)
+				c["zero"], c["pos"] = json.Number(fmt.Sprint(z-1)), json.Number(fmt.Sprint(p+1))
+			})
+		}, false, CheckDecode, tern, "trit counts"},
+		{"scale", func(out string) {
+			editEntry(t, art, out, tern, func(x map[string]any) {
+				x["scale"] = json.Number(fmt.Sprint(entries[tern].Scale * 2))
+			})
+		}, true, CheckRequantize, tern, "scale 0 is "},
+		{"kept bytes", func(out string) {
+			rewriteSection(t, art, out, kept, false, func(p []byte) { p[4] ^= 0x01 })
+		}, true, CheckKept, kept, "kept section at artifact byte"},
+		{"converted bytes", func(out string) {
+			rewriteSection(t, art, out, conv, false, func(p []byte) { p[6] ^= 0x01 })
+		}, true, CheckKept, conv, fmt.Sprintf("F16 bytes at artifact byte %d differ", entries[conv].Section.Offset)},
+		{"shape of a ternary tensor", func(out string) {
+			// [9 37] as [37 9]: at tensor granularity the trits, the scale
+			// and the statistics are the same
+			editEntry(t, art, out, tern, func(x map[string]any) { x["shape"] = []any{37, 9} })
+		}, true, "", tern, "shape [37 9], the source tensor at "},
+		{"shape of a kept tensor", func(out string) {
+			editEntry(t, art, out, kept, func(x map[string]any) { x["shape"] = []any{1, 13} })
+		}, true, "", kept, "shape [1 13], the source tensor at "},
+		{"dtype of a kept tensor", func(out string) {
+			// BF16 bytes recorded as F16: the same bytes and hashes
+			editEntry(t, art, out, kept, func(x map[string]any) { x["source_dtype"], x["dtype"] = "F16", "F16" })
+		}, true, "", kept, "source dtype F16, the source tensor at "},
+		{"source dtype of a ternary tensor", func(out string) {
+			editEntry(t, art, out, tern, func(x map[string]any) { x["source_dtype"] = "F16" })
+		}, true, "", tern, "source dtype F16, the source tensor at "},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			out := filepath.Join(t.TempDir(), "t.tkart")
+			c.make(out)
+			alone, err := Run(out, Options{})
+			require.NoError(t, err)
+			require.Equal(t, c.alone, alone.OK(), "%v", failuresOf(alone))
+			rep := runAgainst(t, out, src)
+			require.False(t, rep.OK())
+			var found []string
+			for _, f := range rep.Failures() {
+				if f.Tensor == c.tensor && (c.check == "" || f.Name == c.check) {
+					found = append(found, f.Detail)
+				}
+			}
+			require.NotEmpty(t, found, "no failure of %s in %v", c.tensor, failuresOf(rep))
+			require.Contains(t, strings.Join(found, "\n"), c.want)
+			for _, f := range rep.Failures() {
+				if f.Name != CheckBound { // a report-wide check
+					require.Equal(t, c.tensor, f.Tensor, "only the edited tensor fails: %v", failuresOf(rep))
+				}
+			}
+		})
+	}
+}
+
+// A trit changed from +1 to −1, its section hash rewritten, breaks the
+// per-element bound (|w − s·t| ≤ s/2 where |w| ≤ 1.5 s): the bound check
+// fails and names the tensor and the element.
+func TestAgainstBoundBroken(t *testing.T) {
+	const name = "blocks.0.mlp.up.weight"
+	for _, codec := range []pack.Codec{pack.Bits2, pack.Base3} {
+		t.Run(string(codec), func(t *testing.T) {
+			src, art, _ := bf16Fixture(t, t.TempDir(), codec)
+			good := runAgainst(t, art, src)
+			c, ok := good.Find(CheckBound, "")
+			require.True(t, ok)
+			require.True(t, c.OK)
+			a, err := pack.Open(art)
+			require.NoError(t, err)
+			tensor, err := a.Tensor(name)
+			require.NoError(t, err)
+			trits := make([]int8, tensor.Len())
+			require.NoError(t, tensor.DecodeTrits(trits))
+			a.Close()
+			at := slices.Index(trits, 1)
+			require.GreaterOrEqual(t, at, 0)
+			trits[at] = -1
+			out := filepath.Join(t.TempDir(), "t.tkart")
+			rewriteSection(t, art, out, name, false, func(p []byte) { copy(p, codec.Encode(nil, trits)) })
+			rep := runAgainst(t, out, src)
+			c, ok = rep.Find(CheckBound, "")
+			require.True(t, ok, "%v", failuresOf(rep))
+			require.False(t, c.OK, c.Detail)
+			require.True(t, strings.HasPrefix(c.Detail, fmt.Sprintf("per-element bound broken; closest to it: tensor %q element %d, error minus bound = ", name, at)), c.Detail)
+		})
+	}
+}
+
+// Every test vector of pack/FORMAT.md gets the verdict its table gives:
+// the "ok" vectors verify, each "bad" one fails, with the class of check
+// the failure belongs to. bad-counts.tkart in particular is caught only by
+// counting the decoded trits.
+func TestVectorsVerdicts(t *testing.T) {
+	dir := filepath.Join("..", "testdata", "vectors")
+	b, err := os.ReadFile(filepath.Join(dir, "vectors.json"))
+	require.NoError(t, err)
+	var vectors []struct {
+		File   string `json:"file"`
+		Expect string `json:"expect"`
+	}
+	require.NoError(t, json.Unmarshal(b, &vectors))
+	require.GreaterOrEqual(t, len(vectors), 50)
+	checkOf := map[string][]string{
+		"counts":       {CheckDecode},
+		"payload":      {CheckDecode},
+		"section-hash": {CheckSection},
+	}
+	for _, v := range vectors {
+		t.Run(v.File, func(t *testing.T) {
+			rep, err := Run(filepath.Join(dir, v.File), Options{})
+			require.NoError(t, err)
+			if v.Expect == "ok" {
+				require.True(t, rep.OK(), "%v", failuresOf(rep))
+				return
+			}
+			require.False(t, rep.OK(), "expected %s", v.Expect)
+			want, ok := checkOf[v.Expect]
+			if !ok {
+				want = []string{CheckStructure, CheckPadding}
+			}
+			require.Contains(t, want, rep.Failures()[0].Name, "%s: %v", v.Expect, failuresOf(rep))
+		})
+	}
+	rep, err := Run(filepath.Join(dir, "bad-counts.tkart"), Options{})
+	require.NoError(t, err)
+	// its payload is "+-0+0+-00-+-0+" (testdata/vectors/README.md): four
+	// −1, five 0 and five +1; the manifest moves one 0 to +1
+	require.Equal(t, []string{CheckDecode + " layer.w: trit counts {Neg:4 Zero:5 Pos:5}, manifest records {Neg:4 Zero:4 Pos:6}"}, failuresOf(rep))
+}
