@@ -33,6 +33,7 @@ var update = flag.Bool("update", false, "rewrite the golden files in testdata/")
 //	    8 zeros of 16 = 50.0 %; base3: ceil(16/5) = 4 bytes, 2.0 bits/weight
 //	totals: 26 ternary weights in 6 bytes: 48/26 = 1.846 bits/weight; zeros 10/26 = 38.5 %
 //	weight memory: ternary form 6 + 24 + 8 = 38 B; at F16 2·26 + 24 + 8 = 84 B
+//	size: source 456 B and the artifact from its parts, in TestInspectVectorSizeLine
 //
 // The formulas are the absmean method's (Ma et al. 2024); the F16 and BF16
 // bytes are IEEE 754 binary16 and the upper half of binary32.
