@@ -121,3 +121,32 @@ func TestSectionHelpers(t *testing.T) {
 	_, ok := TritPayloadLen(CodecEntropy, 5)
 	require.False(t, ok)
 }
+
+// A ternary tensor may lack any one trit value: counts of 0 are valid.
+func TestValidateZeroCounts(t *testing.T) {
+	for _, c := range []convert.TritCounts{{Neg: 6, Pos: 6}, {Zero: 12}, {Neg: 12}, {Pos: 12}} {
+		m := validManifest()
+		m.Tensors[0].Trits = &c
+		require.NoError(t, m.Validate(), "%+v", c)
+	}
+}
+
+// JSON of the wrong shape where the manifest has a string, a number or a
+// list is rejected as invalid, never a panic, and keys are checked inside
+// maps too.
+func TestDecodeWrongShapes(t *testing.T) {
+	b, err := Encode(validManifest())
+	require.NoError(t, err)
+	for _, bad := range []string{
+		strings.Replace(string(b), `"tool":"ternkit test"`, `"tool":{"a":1}`, 1),
+		strings.Replace(string(b), `"tool":"ternkit test"`, `"tool":[{"a":1}]`, 1),
+		strings.Replace(string(b), `"shape":[3,4]`, `"shape":[{"a":{"b":1}}]`, 1),
+		strings.Replace(string(b), `"source":{`, `"source":{"metadata":{"k":{"x":1,"x":2}},`, 1),
+	} {
+		require.NotEqual(t, string(b), bad)
+		require.NotPanics(t, func() {
+			_, err := Decode([]byte(bad))
+			require.ErrorIs(t, err, ErrInvalid, bad)
+		}, bad)
+	}
+}
