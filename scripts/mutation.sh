@@ -14,10 +14,12 @@
 # package, and a summary line per package: killed, lived, timed out, not
 # covered and the efficacy (killed / (killed + lived)).
 #
-# Environment: GREMLINS_VERSION (v0.6.0), WORKERS (1), TEST_CPU (1),
-# TIMEOUT_COEFFICIENT (10: the time a mutant's test run may take is this
-# many times the package's unmutated run, build included; lower it only on
-# an idle machine).
+# Environment: GREMLINS_VERSION (v0.6.0), WORKERS (1), TIMEOUT_COEFFICIENT
+# (10: the time a mutant's test run may take is this many times the
+# package's unmutated run, build included; lower it only on an idle
+# machine). Do not pass gremlins' --test-cpu: v0.6.0 hands "-cpu N" to go
+# test as one argument, go test refuses it, and every mutant counts as
+# killed.
 set -euo pipefail
 cd "$(dirname "$0")/.."
 version=${GREMLINS_VERSION:-v0.6.0}
@@ -48,7 +50,7 @@ for p in "${pkgs[@]}"; do
 	# -count=1: the unmutated run that sets the timeouts must not come
 	# from the test cache, or every timeout is a fraction of a second
 	GOFLAGS=-count=1 nice -n 10 "$gobin/gremlins" unleash \
-		--workers "${WORKERS:-1}" --test-cpu "${TEST_CPU:-1}" \
+		--workers "${WORKERS:-1}" \
 		--timeout-coefficient "${TIMEOUT_COEFFICIENT:-10}" \
 		-o "$out/$p.json" "${excludes[@]}" "./$p" >"$out/$p.log" 2>&1 || true
 	grep -E 'LIVED|TIMED OUT' "$out/$p.log" >&2 || true

@@ -178,18 +178,61 @@ func TestAgainstBoundBroken(t *testing.T) {
 			trits := make([]int8, tensor.Len())
 			require.NoError(t, tensor.DecodeTrits(trits))
 			a.Close()
-			at := slices.Index(trits, 1)
-			require.GreaterOrEqual(t, at, 0)
-			trits[at] = -1
-			out := filepath.Join(t.TempDir(), "t.tkart")
-			rewriteSection(t, art, out, name, false, func(p []byte) { copy(p, codec.Encode(nil, trits)) })
-			rep := runAgainst(t, out, src)
-			c, ok = rep.Find(CheckBound, "")
-			require.True(t, ok, "%v", failuresOf(rep))
-			require.False(t, c.OK, c.Detail)
-			require.True(t, strings.HasPrefix(c.Detail, fmt.Sprintf("per-element bound broken; closest to it: tensor %q element %d, error minus bound = ", name, at)), c.Detail)
+			first := slices.Index(trits, 1)
+			require.Greater(t, first, 0)
+			// element 0 too: the first element is an element like the others
+			for _, at := range []int{first, 0} {
+				changed := slices.Clone(trits)
+				changed[at] = -changed[at]
+				if changed[at] == 0 {
+					changed[at] = 1 // |w| < s/2, so |w − s| > s/2
+				}
+				out := filepath.Join(t.TempDir(), "t.tkart")
+				rewriteSection(t, art, out, name, false, func(p []byte) { copy(p, codec.Encode(nil, changed)) })
+				rep := runAgainst(t, out, src)
+				c, ok = rep.Find(CheckBound, "")
+				require.True(t, ok, "%v", failuresOf(rep))
+				require.False(t, c.OK, c.Detail)
+				require.True(t, strings.HasPrefix(c.Detail, fmt.Sprintf("per-element bound broken; closest to it: tensor %q element %d, error minus bound = ", name, at)), c.Detail)
+			}
 		})
 	}
+}
+
+// Tensors that come equally close to the bound are reported by the first
+// in source order, so that the report is the same on every run: here two
+// exact tensors, each element's error 0, so each is −0.5 × its scale from
+// the bound at element 0.
+func TestAgainstBoundTieNamesFirst(t *testing.T) {
+	dir := t.TempDir()
+	exact := func(c float32) []byte {
+		v := make([]float32, 4*8)
+		for i := range v {
+			v[i] = c * float32(i%3-1)
+		}
+		b, err := convert.EncodeFloat32(nil, "F32", v)
+		require.NoError(t, err)
+		return b
+	}
+	src := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "a.weight", DType: "F32", Shape: []int64{4, 8}, Data: exact(0.5)},
+		{Name: "b.weight", DType: "F32", Shape: []int64{4, 8}, Data: exact(0.25)},
+	}, nil))
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	art := filepath.Join(dir, "a.tkart")
+	m, err := pack.Build(s, art, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe()})
+	s.Close()
+	require.NoError(t, err)
+	for _, e := range m.Tensors {
+		require.True(t, e.Exact, e.Name)
+	}
+	rep := runAgainst(t, art, src)
+	c, ok := rep.Find(CheckBound, "")
+	require.True(t, ok)
+	require.True(t, c.OK)
+	require.Equal(t, `per-element bound holds; closest to it: tensor "a.weight" element 0, error minus bound = -0.5 × its scale (tolerance 1e-06)`, c.Detail)
 }
 
 // Every test vector of pack/FORMAT.md gets the verdict its table gives:
