@@ -150,3 +150,32 @@ func TestDecodeWrongShapes(t *testing.T) {
 		}, bad)
 	}
 }
+
+// The totals of validManifest, worked by hand: w (ternary [3 4], 3 payload
+// bytes), b (kept BF16 [4], 8 bytes), r (ternary [2 6], 3 payload and 8
+// scale bytes), e (int8 [3 2], 6 code and 12 scale bytes), n (kept F16 [4],
+// 8 bytes); one source file of 100 bytes.
+func TestComputeTotalsWorkedByHand(t *testing.T) {
+	m := validManifest()
+	m.Totals = Totals{}
+	m.ComputeTotals()
+	require.Equal(t, Totals{
+		Tensors: 5, TernaryTensors: 2, Int8Tensors: 1, KeptTensors: 2,
+		TernaryParams: 12 + 12, Int8Params: 6, KeptParams: 4 + 4,
+		SourceBytes:         100,
+		TernarySectionBytes: 3 + 3 + 8, Int8SectionBytes: 6 + 12, KeptSectionBytes: 8 + 8,
+		BitsPerTernaryWeight: 8.0 * 14 / 24,
+	}, m.Totals)
+}
+
+// NumElements at the edges of int64: the largest product that fits is
+// kept, one more is an overflow.
+func TestNumElementsEdges(t *testing.T) {
+	require.Equal(t, int64(math.MaxInt64), NumElements([]int64{math.MaxInt64}))
+	require.Equal(t, int64(math.MaxInt64), NumElements([]int64{1, math.MaxInt64, 1}))
+	require.Equal(t, int64(-1), NumElements([]int64{2, 1 << 62}))
+	require.Equal(t, int64(1<<62), NumElements([]int64{2, 1 << 61}))
+	require.Equal(t, int64(1), NumElements(nil), "a scalar")
+	require.Equal(t, int64(0), NumElements([]int64{0, 5}))
+	require.Equal(t, int64(-1), NumElements([]int64{3, -1}))
+}
