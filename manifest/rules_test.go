@@ -59,6 +59,7 @@ func TestValidateEachRule(t *testing.T) {
 		{"int8 missing stats", func(m *Manifest) { m.Tensors[3].Stats = nil }, "missing stats"},
 		{"int8 1-D", func(m *Manifest) { m.Tensors[3].Shape, m.Tensors[3].Scales.Length = []int64{6}, 24 }, "2 or more dimensions"},
 		{"int8 without scales", func(m *Manifest) { m.Tensors[3].Scales = nil }, "without a scales section"},
+		{"kept length", func(m *Manifest) { m.Tensors[1].Section.Length = 6 }, "section length 6, 4 BF16 elements need 8"},
 		{"kept codec", func(m *Manifest) { m.Tensors[1].Codec = CodecBase3 }, `kept tensor with codec "base3"`},
 		{"kept trits", func(m *Manifest) { m.Tensors[1].Trits = &convert.TritCounts{Zero: 4} }, "kept tensor carries"},
 		{"kept granularity", func(m *Manifest) { m.Tensors[1].Granularity = &convert.PerTensor }, "kept tensor carries"},
@@ -165,6 +166,14 @@ func TestComputeTotalsWorkedByHand(t *testing.T) {
 		SourceBytes:         100,
 		TernarySectionBytes: 3 + 3 + 8, Int8SectionBytes: 6 + 12, KeptSectionBytes: 8 + 8,
 		BitsPerTernaryWeight: 8.0 * 14 / 24,
+	}, m.Totals)
+
+	// without ternary weights there are no bits per ternary weight
+	m.Tensors = []Tensor{m.Tensors[1], m.Tensors[3]}
+	m.ComputeTotals()
+	require.Equal(t, Totals{
+		Tensors: 2, Int8Tensors: 1, KeptTensors: 1, Int8Params: 6, KeptParams: 4,
+		SourceBytes: 100, Int8SectionBytes: 18, KeptSectionBytes: 8,
 	}, m.Totals)
 }
 
