@@ -188,3 +188,29 @@ func TestNumElementsEdges(t *testing.T) {
 	require.Equal(t, int64(0), NumElements([]int64{0, 5}))
 	require.Equal(t, int64(-1), NumElements([]int64{3, -1}))
 }
+
+// Every hex digit is a hash digit, and a section may start at byte 0 and
+// be empty as far as the manifest's own rules go (the reader places it).
+func TestValidateEdgesAccepted(t *testing.T) {
+	m := validManifest()
+	all := strings.Repeat("0123456789abcdef", 4)
+	m.Tensors[0].Section.BLAKE3 = all
+	m.Tensors[1].SourceBLAKE3 = all
+	m.Source.Files[0].BLAKE3 = all
+	m.Tensors[1].Section.Offset = 0
+	require.NoError(t, m.Validate())
+	m.Tensors[1].Shape, m.Tensors[1].Section.Length = []int64{0}, 0
+	m.ComputeTotals()
+	require.NoError(t, m.Validate())
+}
+
+// A repeated key is named with its path, list indexes included.
+func TestDecodeNamesRepeatedKeyPath(t *testing.T) {
+	b, err := Encode(validManifest())
+	require.NoError(t, err)
+	bad := strings.Replace(string(b), `"name":"e",`, `"name":"e","name":"e",`, 1)
+	require.NotEqual(t, string(b), bad)
+	_, err = Decode([]byte(bad))
+	require.ErrorIs(t, err, ErrInvalid)
+	require.Contains(t, err.Error(), `manifest.tensors[3]: key "name" appears twice`)
+}
