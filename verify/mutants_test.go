@@ -202,7 +202,7 @@ func TestAgainstBoundBroken(t *testing.T) {
 // Tensors that come equally close to the bound are reported by the first
 // in source order, so that the report is the same on every run: here two
 // exact tensors, each element's error 0, so each is −0.5 × its scale from
-// the bound at element 0.
+// the bound at element 0. A kept tensor is never named.
 func TestAgainstBoundTieNamesFirst(t *testing.T) {
 	dir := t.TempDir()
 	exact := func(c float32) []byte {
@@ -218,6 +218,8 @@ func TestAgainstBoundTieNamesFirst(t *testing.T) {
 	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
 		{Name: "a.weight", DType: "F32", Shape: []int64{4, 8}, Data: exact(0.5)},
 		{Name: "b.weight", DType: "F32", Shape: []int64{4, 8}, Data: exact(0.25)},
+		// kept as it is: no bound to come close to
+		{Name: "c.norm.weight", DType: "F32", Shape: []int64{8}, Data: exact(0.5)[:32]},
 	}, nil))
 	s, err := convert.Open(src)
 	require.NoError(t, err)
@@ -225,9 +227,10 @@ func TestAgainstBoundTieNamesFirst(t *testing.T) {
 	m, err := pack.Build(s, art, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe()})
 	s.Close()
 	require.NoError(t, err)
-	for _, e := range m.Tensors {
+	for _, e := range m.Tensors[:2] {
 		require.True(t, e.Exact, e.Name)
 	}
+	require.Equal(t, manifest.KindKept, m.Tensors[2].Kind)
 	rep := runAgainst(t, art, src)
 	c, ok := rep.Find(CheckBound, "")
 	require.True(t, ok)
@@ -275,4 +278,98 @@ func TestVectorsVerdicts(t *testing.T) {
 	// its payload is "+-0+0+-00-+-0+" (testdata/vectors/README.md): four
 	// −1, five 0 and five +1; the manifest moves one 0 to +1
 	require.Equal(t, []string{CheckDecode + " layer.w: trit counts {Neg:4 Zero:5 Pos:5}, manifest records {Neg:4 Zero:4 Pos:6}"}, failuresOf(rep))
+}
+
+// A limit equal to the statistic holds (≤ for the maxima, ≥ for the
+// cosine), a limit of 0 is valid, and the messages number budgets from 1.
+func TestBudgetEdges(t *testing.T) {
+	_, art := fixture(t, t.TempDir(), pack.Base3, nil)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	st := *a.Manifest().Tensors[0].Stats // blocks.0.attn.q.weight
+	a.Close()
+	value := map[string]float64{MaxRelRMSE: st.RelRMSE, MinCosine: st.Cosine, MaxClipped: st.ClippedFraction, MaxAbsError: st.MaxAbsErr}
+	for _, metric := range Metrics {
+		b := &Budget{Limits: []Limit{{Match: "blocks.0.attn.q.weight", Metric: metric, Value: value[metric]}}}
+		rep, err := Run(art, Options{Budget: b})
+		require.NoError(t, err)
+		c, ok := rep.Find(CheckBudget, "blocks.0.attn.q.weight")
+		require.True(t, ok)
+		require.True(t, c.OK, "%s: a limit equal to the value %v holds: %s", metric, value[metric], c.Detail)
+	}
+
+	l, err := ParseLimit(MaxClipped, "0")
+	require.NoError(t, err)
+	require.Equal(t, Limit{Match: "*", Metric: MaxClipped, Value: 0}, l)
+	_, err = ParseLimit(MaxClipped, "=0.5")
+	require.ErrorIs(t, err, ErrBudget)
+	require.Contains(t, err.Error(), "with an empty glob")
+
+	for _, c := range []struct{ text, want string }{
+		{"[[budget]]\nmax_rel_rmse = 1", "b.toml: budget 1: match must be"},
+		{"[[budget]]\nmatch = \"*\"\nmax_clipped = 0\n[[budget]]\nmatch = \"*\"\nmin_cosine = \"high\"", "b.toml: budget 2: min_cosine must be a number"},
+		{"[[budget]]\nmatch = \"*\"\nmin_cosine = -1", "b.toml: budget 1: "},
+		{"[[budget]]\nmatch = \"*\"", "b.toml: budget 1 (*) sets no limit"},
+		{"[[budget]]\nmatch = \"*\"\nmax_clipped = 0\n[[budget]]\nmatch = \"b*\"\nmax_rmse = 1", `b.toml: budget 2: unknown key "max_rmse"`},
+	} {
+		_, err := ParseBudget("b.toml", []byte(c.text))
+		require.ErrorIs(t, err, ErrBudget, c.text)
+		require.Contains(t, err.Error(), c.want, c.text)
+	}
+}
+
+// A large source tensor the artifact keeps as it is is read in pieces, the
+// progress advancing piece by piece; a tensor the artifact quantizes, or
+// one it keeps converted, is read whole, in one step.
+func TestAgainstProgressInPieces(t *testing.T) {
+	dir := t.TempDir()
+	big := make([]byte, 3<<20+5)
+	for i := range big {
+		big[i] = byte(i * 13)
+	}
+	w := make([]float32, 64*64)
+	for i := range w {
+		w[i] = float32(i%7) - 3
+	}
+	f32, err := convert.EncodeFloat32(nil, "F32", w)
+	require.NoError(t, err)
+	src := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "embed.tokens.weight", DType: "U8", Shape: []int64{int64(len(big))}, Data: big},
+		{Name: "blocks.0.attn.q.weight", DType: "F32", Shape: []int64{64, 64}, Data: f32},
+		{Name: "blocks.0.norm.weight", DType: "F32", Shape: []int64{64, 64}, Data: f32},
+	}, nil))
+	p := &convert.Policy{}
+	r, err := convert.ParseRule("*norm*=keep:f16")
+	require.NoError(t, err)
+	p.Rules = append(p.Rules, r)
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	art := filepath.Join(dir, "a.tkart")
+	_, err = pack.Build(s, art, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe(), Policy: p})
+	require.NoError(t, err)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	var sections int64
+	for _, e := range a.Tensors() {
+		sections += e.StoredBytes()
+	}
+	a.Close()
+
+	defer func(n int64) { keptPieceSize = n }(keptPieceSize)
+	keptPieceSize = 1 << 20
+	var steps []int64
+	last := int64(0)
+	rep, err := Run(art, Options{Source: s, Workers: 1, Progress: func(done, _ int64) {
+		if done > sections { // the source phase
+			steps = append(steps, done-max(last, sections))
+		}
+		last = done
+	}})
+	require.NoError(t, err)
+	require.True(t, rep.OK(), "%v", failuresOf(rep))
+	// three whole pieces and 5 bytes of the kept tensor, then the two
+	// others whole (4 × 64 × 64 bytes each)
+	require.Equal(t, []int64{1 << 20, 1 << 20, 1 << 20, 5, 4 * 64 * 64, 4 * 64 * 64}, steps)
 }
