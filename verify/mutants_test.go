@@ -373,3 +373,15 @@ func TestAgainstProgressInPieces(t *testing.T) {
 	// others whole (4 × 64 × 64 bytes each)
 	require.Equal(t, []int64{1 << 20, 1 << 20, 1 << 20, 5, 4 * 64 * 64, 4 * 64 * 64}, steps)
 }
+
+// A wrong hash for the first piece of a section, the section hash right,
+// is caught like any other piece's: the first piece is a piece job too.
+func TestVerifyNamesBadFirstChunk(t *testing.T) {
+	dir := t.TempDir()
+	art, sec := bigArtifact(t, dir)
+	forged := filepath.Join(dir, "forged.tkart")
+	forgePieceHash(t, art, forged, 0)
+	rep, err := Run(forged, Options{})
+	require.NoError(t, err)
+	require.Equal(t, []string{fmt.Sprintf("%s big: section at byte %d: chunk at byte %d does not match its recorded BLAKE3", CheckSection, sec.Offset, sec.Offset)}, failuresOf(rep))
+}
