@@ -3,6 +3,7 @@ package verify
 import (
 	"encoding/json"
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
 	"slices"
@@ -384,4 +385,20 @@ func TestVerifyNamesBadFirstChunk(t *testing.T) {
 	rep, err := Run(forged, Options{})
 	require.NoError(t, err)
 	require.Equal(t, []string{fmt.Sprintf("%s big: section at byte %d: chunk at byte %d does not match its recorded BLAKE3", CheckSection, sec.Offset, sec.Offset)}, failuresOf(rep))
+}
+
+// Ranges of a mapped artifact: any range inside the file, empty ones and
+// the one ending at its last byte included, is a slice of the map; one
+// reaching past either end is an error.
+func TestMappedRanges(t *testing.T) {
+	b := artifactBytes{mapped: []byte("0123456789")}
+	for _, r := range []struct{ off, n int64 }{{0, 0}, {0, 10}, {8, 2}, {10, 0}, {3, 4}} {
+		p, err := b.at(nil, r.off, r.n)
+		require.NoError(t, err, "%+v", r)
+		require.Equal(t, string(b.mapped[r.off:r.off+r.n]), string(p), "%+v", r)
+	}
+	for _, r := range []struct{ off, n int64 }{{-1, 1}, {0, -1}, {9, 2}, {11, 0}, {0, 11}} {
+		_, err := b.at(nil, r.off, r.n)
+		require.ErrorIs(t, err, io.ErrUnexpectedEOF, "%+v", r)
+	}
 }
