@@ -1,11 +1,13 @@
 package verify
 
 import (
+	"bytes"
 	"encoding/json"
 	"fmt"
 	"io"
 	"os"
 	"path/filepath"
+	"runtime"
 	"slices"
 	"strings"
 	"testing"
@@ -401,4 +403,87 @@ func TestMappedRanges(t *testing.T) {
 		_, err := b.at(nil, r.off, r.n)
 		require.ErrorIs(t, err, io.ErrUnexpectedEOF, "%+v", r)
 	}
+}
+
+// Scratch space is reused whenever it is large enough.
+func TestScratchReused(t *testing.T) {
+	s := make([]int8, 3, 5)
+	g := grow(&s, 5)
+	require.Len(t, g, 5)
+	require.Same(t, &s[0], &g[0], "capacity 5 holds 5")
+	g = grow(&s, 6)
+	require.Len(t, g, 6)
+	require.Equal(t, 6, cap(s))
+
+	b := artifactBytes{ra: strings.NewReader("0123456789")}
+	buf := make([]byte, 4)
+	p, err := b.at(buf, 2, 4)
+	require.NoError(t, err)
+	require.Equal(t, "2345", string(p))
+	require.Same(t, &buf[0], &p[0], "a buffer of 4 holds 4")
+	p, err = b.at(buf, 2, 5)
+	require.NoError(t, err)
+	require.Equal(t, "23456", string(p))
+}
+
+// A report passes only with at least one check and no failure, and counts
+// both.
+func TestReportCounts(t *testing.T) {
+	require.False(t, (&Report{}).OK(), "no check run is no pass")
+	rep := &Report{}
+	rep.add(CheckStructure, "", true, "")
+	require.True(t, rep.OK())
+	rep.add(CheckDecode, "w", false, "bad %d", 1)
+	rep.add(CheckDecode, "v", false, "")
+	require.Equal(t, 1, rep.Passed)
+	require.Equal(t, 2, rep.Failed)
+	require.False(t, rep.OK())
+	require.Equal(t, []Check{{Name: CheckDecode, Tensor: "w", Detail: "bad 1"}, {Name: CheckDecode, Tensor: "v"}}, rep.Failures())
+}
+
+// A regular file is mapped, whole; bytes read through another reader are
+// not.
+func TestMapArtifact(t *testing.T) {
+	_, art := fixture(t, t.TempDir(), pack.Base3, nil)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	defer a.Close()
+	m := mapArtifact(a)
+	defer unmapArtifact(m)
+	if runtime.GOOS != "linux" {
+		t.Skip("mapping is checked on Linux")
+	}
+	b, err := os.ReadFile(art)
+	require.NoError(t, err)
+	require.Equal(t, b, m)
+
+	r, err := pack.NewReader(bytes.NewReader(b), int64(len(b)))
+	require.NoError(t, err)
+	require.Nil(t, mapArtifact(r))
+}
+
+// Truncated while mapped, the failure names a byte past the cut and inside
+// the file as it was.
+func TestTruncatedWhileMappedNamesByte(t *testing.T) {
+	dir := t.TempDir()
+	art, sec := bigArtifact(t, dir)
+	if !mapped(t, art) {
+		t.Skip("the artifact is not mapped here")
+	}
+	st, err := os.Stat(art)
+	require.NoError(t, err)
+	cut := sec.Offset + 1<<22 + 100
+	rep, err := Run(art, Options{Progress: func(done, _ int64) {
+		if done == 0 {
+			require.NoError(t, os.Truncate(art, cut))
+		}
+	}})
+	require.NoError(t, err)
+	f := rep.Failures()[0]
+	var at, byteAt int64
+	_, err = fmt.Sscanf(f.Detail, "read section at byte %d: "+errArtifactChanged.Error()+": no data at byte %d (truncated?)", &at, &byteAt)
+	require.NoError(t, err, f.Detail)
+	require.Equal(t, sec.Offset+1<<22, at, "the piece holding the cut")
+	require.GreaterOrEqual(t, byteAt, cut, f.Detail)
+	require.Less(t, byteAt, st.Size(), f.Detail)
 }
