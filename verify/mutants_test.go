@@ -408,9 +408,10 @@ func TestMappedRanges(t *testing.T) {
 // Scratch space is reused whenever it is large enough.
 func TestScratchReused(t *testing.T) {
 	s := make([]int8, 3, 5)
+	orig := &s[:1][0]
 	g := grow(&s, 5)
 	require.Len(t, g, 5)
-	require.Same(t, &s[0], &g[0], "capacity 5 holds 5")
+	require.Same(t, orig, &g[0], "capacity 5 holds 5")
 	g = grow(&s, 6)
 	require.Len(t, g, 6)
 	require.Equal(t, 6, cap(s))
