@@ -488,3 +488,22 @@ func TestTruncatedWhileMappedNamesByte(t *testing.T) {
 	require.GreaterOrEqual(t, byteAt, cut, f.Detail)
 	require.Less(t, byteAt, st.Size(), f.Detail)
 }
+
+// A section is read into the scratch space, which is reused.
+func TestReadPayloadIntoScratch(t *testing.T) {
+	_, art, _ := bf16Fixture(t, t.TempDir(), pack.Bits2)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	defer a.Close()
+	tn, err := a.Tensor("blocks.0.mlp.up.weight")
+	require.NoError(t, err)
+	want, err := tn.VerifiedPayload()
+	require.NoError(t, err)
+	var b redoBuffers
+	b.payload = make([]byte, 0, len(want))
+	scratch := &b.payload[:1][0]
+	got, err := b.readPayload(a, tn)
+	require.NoError(t, err)
+	require.Equal(t, want, got)
+	require.Same(t, scratch, &got[0])
+}
