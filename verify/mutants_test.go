@@ -507,3 +507,31 @@ func TestReadPayloadIntoScratch(t *testing.T) {
 	require.Equal(t, want, got)
 	require.Same(t, scratch, &got[0])
 }
+
+// BF16 weights of a ternary tensor are re-quantized where they lie, never
+// decoded into the float32 scratch space; other kinds decode into it.
+func TestRedoReadsBF16InPlace(t *testing.T) {
+	src, art, data := bf16Fixture(t, t.TempDir(), pack.Bits2)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	defer a.Close()
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	for _, st := range s.Tensors {
+		tn, err := a.Tensor(st.Name)
+		require.NoError(t, err)
+		if tn.Entry.Kind == manifest.KindKept && tn.Entry.DType == tn.Entry.SourceDType {
+			continue // compared by hash alone
+		}
+		var b redoBuffers
+		v := tensorVerdict{at: -1}
+		require.Equal(t, "", b.redo(a, tn, a.Manifest().Recipe, st, data[st.Name], &v), st.Name)
+		if tn.Entry.Kind == manifest.KindTernary {
+			require.Nil(t, b.weights, "%s: read in place", st.Name)
+			require.GreaterOrEqual(t, v.at, 0, st.Name)
+		} else {
+			require.Len(t, b.weights, tn.Len(), "%s: decoded", st.Name)
+		}
+	}
+}
