@@ -535,3 +535,37 @@ func TestRedoReadsBF16InPlace(t *testing.T) {
 		}
 	}
 }
+
+// secondReadFails fails the second read that touches byte bad.
+type secondReadFails struct {
+	data  []byte
+	bad   int64
+	reads *int
+}
+
+func (f secondReadFails) ReadAt(p []byte, off int64) (int, error) {
+	if off <= f.bad && f.bad < off+int64(len(p)) {
+		*f.reads++
+		if *f.reads == 2 {
+			return 0, errDevice
+		}
+	}
+	return bytes.NewReader(f.data).ReadAt(p, off)
+}
+
+// A piece that cannot be read when its own hash is checked, though the
+// section's stream read it, fails the section naming the piece's offset.
+func TestVerifyNamesUnreadablePiece(t *testing.T) {
+	dir := t.TempDir()
+	art, sec := bigArtifact(t, dir)
+	b, err := os.ReadFile(art)
+	require.NoError(t, err)
+	reads := 0
+	// one worker takes the jobs longest first: the section's stream, then
+	// its pieces
+	r := secondReadFails{b, sec.Offset + 2*(1<<22) + 7, &reads}
+	rep, err := RunReaderAt("a.tkart", r, int64(len(b)), Options{Workers: 1})
+	require.NoError(t, err)
+	require.Equal(t, 2, reads)
+	require.Equal(t, []string{fmt.Sprintf("%s big: read section at byte %d: %v", CheckSection, sec.Offset+2*(1<<22), errDevice)}, failuresOf(rep))
+}
