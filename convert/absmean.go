@@ -243,19 +243,6 @@ func (q quantizer) scaled(w float32) float32 {
 	return w / q.div
 }
 
-// trit applies RoundClip(x, -1, 1). Rounding then clipping to [-1, 1]
-// leaves only one decision: whether |x| reaches 0.5 (exclusive for ties to
-// even, inclusive for ties away from zero).
-func (q quantizer) trit(x float32) int8 {
-	switch {
-	case x > 0.5 || (q.halfAway && x == 0.5):
-		return 1
-	case x < -0.5 || (q.halfAway && x == -0.5):
-		return -1
-	}
-	return 0
-}
-
 // exactScale returns c when every element of w is 0 or ±c for one c > 0,
 // and whether it is so. An all-zero group has no exact scale.
 func exactScale(w weights) (float32, bool) {
@@ -422,6 +409,7 @@ type groupTotals struct {
 
 // threshold is th such that t = +1 when x > th and −1 when x < −th: 0.5
 // for ties to even, the float32 just below 0.5 for ties away (x ≥ 0.5).
+// Rounding then clipping to [-1, 1] (RoundClip) leaves only this decision.
 func (q quantizer) threshold() float32 {
 	if q.halfAway {
 		return math.Nextafter32(0.5, 0)

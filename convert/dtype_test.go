@@ -238,13 +238,14 @@ func TestDecodeFloat32LengthMismatch(t *testing.T) {
 		name string
 		raw  int
 		dst  int
+		want string
 	}{
-		{"partial element", 5, 1},
-		{"dst too short", 8, 1},
-		{"dst too long", 8, 3},
+		{"partial element", 5, 1, "decode F32: 5 bytes do not hold 1 values of 4 bytes"},
+		{"dst too short", 8, 1, "decode F32: 8 bytes do not hold 1 values of 4 bytes"},
+		{"dst too long", 8, 3, "decode F32: 8 bytes do not hold 3 values of 4 bytes"},
 	}
 	for _, tc := range tests {
 		err := DecodeFloat32("F32", make([]byte, tc.raw), make([]float32, tc.dst))
-		assert.Error(t, err, tc.name)
+		assert.EqualError(t, err, tc.want, tc.name)
 	}
 }

@@ -43,7 +43,17 @@ func TestTernarizeAgreesWithNumpy(t *testing.T) {
 		rng.Shuffle(len(row), func(i, j int) { row[i], row[j] = row[j], row[i] })
 		copy(ties[r*8:], row)
 	}
+	// a sum whose pairing decides gamma in float32: lanes 0, 1 and 3 hold
+	// t0 = 2^53 + 2^29 (from w0 and w4), t1 = t3 = 1; the documented
+	// (t0 + t2) + (t1 + t3) is 2^53 + 2^29 + 2, while pairing t0 with t1
+	// first loses both ones (2^53 + 2^29 + 1 ties to even, downwards). Over
+	// 16 or 32 weights that is just above, or exactly on, the midpoint
+	// between two float32 values of gamma, which rounds up, or to even
+	// (down). Row 1 is zero, so the tensor sum is the same.
+	pairing := make([]float32, 2*16)
+	pairing[0], pairing[4], pairing[1], pairing[3] = 0x1p53, 0x1p29, 1, 1
 	tensors := []tensor{
+		{"pairing", 2, 16, pairing},
 		{"gaussian", 96, 256, gaussian(96, 256, 0.02)},
 		{"wide", 8, 4096, gaussian(8, 4096, 1)},
 		{"tiny", 4, 64, gaussian(4, 64, 1e-7)}, // gamma below epsilon

@@ -85,21 +85,36 @@ func TestOpenHandBuiltFixture(t *testing.T) {
 // object is a valid file with no tensors.
 func TestOpenMinimal(t *testing.T) {
 	tests := []struct {
-		name    string
-		file    []byte
-		tensors int
+		name   string
+		header string
+		data   []byte
+		want   []Tensor // File and Offset filled in below
 	}{
-		{"empty object", stFile(`{}`, nil), 0},
-		{"one scalar", stFile(`{"x":{"dtype":"I64","shape":[],"data_offsets":[0,8]}}`, make([]byte, 8)), 1},
-		{"whitespace in JSON", stFile("{ \"x\" :\n{\"shape\" : [ 1 ] , \"data_offsets\":[0 , 1],\"dtype\":\"BOOL\"} }", []byte{1}), 1},
+		{"empty object", `{}`, nil, nil},
+		{"one scalar", `{"x":{"dtype":"I64","shape":[],"data_offsets":[0,8]}}`, make([]byte, 8),
+			[]Tensor{{Name: "x", DType: "I64", Shape: []int64{}, Length: 8}}},
+		{"whitespace in JSON", "{ \"x\" :\n{\"shape\" : [ 1 ] , \"data_offsets\":[0 , 1],\"dtype\":\"BOOL\"} }", []byte{1},
+			[]Tensor{{Name: "x", DType: "BOOL", Shape: []int64{1}, Length: 1}}},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
-			s, err := Open(writeTemp(t, "m.safetensors", tc.file))
+			path := writeTemp(t, "m.safetensors", stFile(tc.header, tc.data))
+			s, err := Open(path)
 			require.NoError(t, err)
 			defer s.Close()
 			assert.Nil(t, s.Metadata)
-			assert.Len(t, s.Tensors, tc.tensors)
+			require.Len(t, s.Tensors, len(tc.want))
+			for i, w := range tc.want {
+				got := s.Tensors[i]
+				assert.Equal(t, w.Name, got.Name)
+				assert.Equal(t, w.DType, got.DType)
+				assert.Equal(t, w.Shape, append([]int64{}, got.Shape...))
+				assert.Equal(t, w.Length, got.Length)
+				assert.Equal(t, path, got.File)
+				// the data section starts after the 8 length bytes and the
+				// header stFile padded to a multiple of 8
+				assert.Equal(t, int64(len(stFile(tc.header, nil))), got.Offset)
+			}
 		})
 	}
 }

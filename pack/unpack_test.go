@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/binary"
 	"math"
+	"math/big"
 	"os"
 	"path/filepath"
 	"testing"
@@ -83,10 +84,12 @@ func TestUnpackReadByIndependentLibrary(t *testing.T) {
 	}
 }
 
-// checkFloats compares little-endian values of dtype with want, decoding
-// with independent conversions: math.Float32frombits (IEEE 754 binary32),
-// github.com/x448/float16 (binary16), and bfloat16 as the upper half of
-// binary32, within its 8 significant bits (common practice).
+// checkFloats compares little-endian values of dtype with want, bit for
+// bit, encoding with independent conversions: math.Float32bits (IEEE 754
+// binary32), github.com/x448/float16 (binary16), and bfloat16 as the upper
+// half of binary32 holding the value rounded to 8 significant bits, to
+// nearest with ties to even (common practice), done by math/big's
+// arbitrary-precision arithmetic.
 func checkFloats(t *testing.T, name, dtype string, data []byte, want []float32) {
 	t.Helper()
 	for i, w := range want {
@@ -96,8 +99,11 @@ func checkFloats(t *testing.T, name, dtype string, data []byte, want []float32) 
 		case "F16":
 			require.Equal(t, float16.Fromfloat32(w).Bits(), binary.LittleEndian.Uint16(data[2*i:]), "%s[%d]", name, i)
 		case "BF16":
-			g := math.Float32frombits(uint32(binary.LittleEndian.Uint16(data[2*i:])) << 16)
-			require.InDelta(t, w, g, math.Abs(float64(w))/256, "%s[%d]", name, i)
+			require.False(t, math.IsNaN(float64(w)), "%s[%d] is NaN", name, i)
+			r, _ := new(big.Float).SetPrec(8).SetMode(big.ToNearestEven).SetFloat64(float64(w)).Float32()
+			b := math.Float32bits(r)
+			require.Zero(t, b&0xffff, "%s[%d]: 8 significant bits fit the upper half", name, i)
+			require.Equal(t, uint16(b>>16), binary.LittleEndian.Uint16(data[2*i:]), "%s[%d]", name, i)
 		}
 	}
 }

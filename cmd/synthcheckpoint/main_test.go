@@ -53,6 +53,7 @@ func TestRunWritesReadableCheckpoints(t *testing.T) {
 	require.Len(t, s.Tensors, want)
 	require.Equal(t, 9*layers+3, want)
 	require.Equal(t, "fernmoss-scout-bulk", s.Metadata["model"])
+	requirePlanned(t, files, s)
 
 	single := filepath.Join(dir, "one.safetensors")
 	require.NoError(t, run(single, tiny, 1e4, 1, 1, filepath.Join(dir, "config.json")))
@@ -60,6 +61,8 @@ func TestRunWritesReadableCheckpoints(t *testing.T) {
 	require.NoError(t, err)
 	defer s1.Close()
 	require.Len(t, s1.Tensors, want)
+	single1, _ := plan(tiny, 1e4, 1)
+	requirePlanned(t, single1, s1)
 	entries, err := os.ReadDir(dir)
 	require.NoError(t, err)
 	require.Len(t, entries, 3, "the set, the file and its config")
@@ -74,4 +77,35 @@ func TestRunWritesReadableCheckpoints(t *testing.T) {
 	require.Equal(t, int64(layers), cfg.NumHiddenLayers)
 	require.Equal(t, cfg.NumAttentionHeads*cfg.HeadDim, cfg.HiddenSize)
 	require.Contains(t, s1.Tensors[0].Name, "model.embed_tokens", "the common decoder layout")
+}
+
+// requirePlanned checks every opened tensor against the plan, name by
+// name: dtype, shape, its bytes (2 per BF16 value), and that each shard
+// holds exactly the tensors planned for it.
+func requirePlanned(t *testing.T, files [][]tensorPlan, s *convert.Source) {
+	t.Helper()
+	type where struct {
+		p     tensorPlan
+		shard int
+	}
+	planned := map[string]where{}
+	for k, f := range files {
+		for _, p := range f {
+			planned[p.spec.Name] = where{p, k}
+		}
+	}
+	require.Len(t, planned, len(s.Tensors), "names are unique")
+	shardFile := map[int]string{}
+	for _, st := range s.Tensors {
+		w, ok := planned[st.Name]
+		require.True(t, ok, "%s was not planned", st.Name)
+		require.Equal(t, w.p.spec.DType, st.DType, st.Name)
+		require.Equal(t, w.p.spec.Shape, st.Shape, st.Name)
+		require.Equal(t, 2*w.p.elements(), st.Length, st.Name)
+		if f, ok := shardFile[w.shard]; ok {
+			require.Equal(t, f, st.File, "%s: shard %d", st.Name, w.shard)
+		}
+		shardFile[w.shard] = st.File
+	}
+	require.Len(t, shardFile, len(files), "one file per shard")
 }

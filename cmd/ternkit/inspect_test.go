@@ -37,6 +37,7 @@ var update = flag.Bool("update", false, "rewrite the golden files in testdata/")
 //	    and its one float32 scale, (2 + 4) + (4 + 4) = 14 B, and the kept
 //	    tensors as stored, 24 + 8: 46 B; against every float tensor at F16,
 //	    2 bytes × (6 + 10 + 4 + 16) values = 72 B
+//	size: source 456 B and the artifact from its parts, in TestInspectVectorSizeLine
 //
 // The formulas are the absmean method's (Ma et al. 2024); the F16 and BF16
 // bytes are IEEE 754 binary16 and the upper half of binary32.

@@ -185,6 +185,7 @@ func TestPackIndependentFixture(t *testing.T) {
 	}
 	require.NoError(t, json.Unmarshal([]byte(out), &rep))
 	require.True(t, rep.OK)
+	requireIndependentFixtureValues(t, art, f16)
 }
 
 // rawSafetensors builds a file from a header text and data bytes, the

@@ -23,21 +23,21 @@ func openPTY(t *testing.T) (master, slave *os.File) {
 	t.Helper()
 	m, err := os.OpenFile("/dev/ptmx", os.O_RDWR|unix.O_NOCTTY, 0)
 	if err != nil {
-		t.Skipf("no pseudo-terminal here (%v): the terminal case is not tested", err)
+		skipWithoutPTY(t, "no pseudo-terminal here (%v): the terminal case is not tested", err)
 	}
 	if err := unix.IoctlSetPointerInt(int(m.Fd()), unix.TIOCSPTLCK, 0); err != nil {
 		m.Close()
-		t.Skipf("unlock pseudo-terminal: %v", err)
+		skipWithoutPTY(t, "unlock pseudo-terminal: %v", err)
 	}
 	n, err := unix.IoctlGetInt(int(m.Fd()), unix.TIOCGPTN)
 	if err != nil {
 		m.Close()
-		t.Skipf("pseudo-terminal number: %v", err)
+		skipWithoutPTY(t, "pseudo-terminal number: %v", err)
 	}
 	s, err := os.OpenFile("/dev/pts/"+strconv.Itoa(n), os.O_RDWR|unix.O_NOCTTY, 0)
 	if err != nil {
 		m.Close()
-		t.Skipf("open pseudo-terminal slave: %v", err)
+		skipWithoutPTY(t, "open pseudo-terminal slave: %v", err)
 	}
 	return m, s
 }

@@ -62,7 +62,7 @@ func TestAbortLeavesNothing(t *testing.T) {
 	f.Abort()
 	f.Abort()
 	onlyEntries(t, dir)
-	require.Error(t, f.Commit(), "no commit after abort")
+	require.EqualError(t, f.Commit(), "write "+filepath.Join(dir, "out")+": already committed", "no commit after abort")
 }
 
 // A failed rename (the destination is a non-empty directory) removes the
@@ -93,8 +93,8 @@ func TestWriteAt(t *testing.T) {
 	_, err = f.Write([]byte("....body"))
 	require.NoError(t, err)
 	require.NoError(t, f.WriteAt([]byte("HEAD"), 0))
-	require.Error(t, f.WriteAt([]byte("xy"), 7), "past the end")
-	require.Error(t, f.WriteAt([]byte("x"), -1))
+	require.EqualError(t, f.WriteAt([]byte("xy"), 7), "write "+path+": 2 bytes at 7 lie outside the 8 written", "past the end")
+	require.EqualError(t, f.WriteAt([]byte("x"), -1), "write "+path+": 1 bytes at -1 lie outside the 8 written")
 	_, err = f.Write([]byte("!"))
 	require.NoError(t, err)
 	require.Equal(t, int64(9), f.Written())

@@ -1,0 +1,70 @@
+package verify
+
+import (
+	"bytes"
+	"encoding/binary"
+	"encoding/json"
+	"os"
+	"os/exec"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/pack"
+)
+
+// b3sumPath finds b3sum (Debian package b3sum, the BLAKE3 authors'
+// command-line tool): a skip without it, a failure under CI.
+func b3sumPath(t *testing.T) string {
+	t.Helper()
+	p, err := exec.LookPath("b3sum")
+	if err != nil {
+		if os.Getenv("CI") != "" {
+			t.Fatal("b3sum not found: CI must install it (.ci/run)")
+		}
+		t.Skip("b3sum not found; apt-get install b3sum")
+	}
+	return p
+}
+
+// The source hashes the manifest records are those b3sum computes: of each
+// source file, and of each tensor's bytes, located by the safetensors
+// header read here from the published format description (8-byte
+// little-endian header length, the JSON header, data_offsets relative to
+// the data section), not by ternkit's reader.
+func TestSourceHashesAgreeWithB3sum(t *testing.T) {
+	b3sum := b3sumPath(t)
+	run := func(args []string, stdin []byte) string {
+		cmd := exec.Command(b3sum, append([]string{"--no-names"}, args...)...)
+		cmd.Stdin = bytes.NewReader(stdin)
+		out, err := cmd.Output()
+		require.NoError(t, err)
+		return strings.TrimSpace(string(out))
+	}
+	src, art, _ := bf16Fixture(t, t.TempDir(), pack.Base3)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	m := a.Manifest()
+	a.Close()
+
+	require.Len(t, m.Source.Files, 1)
+	require.Equal(t, run([]string{src}, nil), m.Source.Files[0].BLAKE3, "the source file, read by b3sum itself")
+
+	raw, err := os.ReadFile(src)
+	require.NoError(t, err)
+	n := binary.LittleEndian.Uint64(raw)
+	var header map[string]json.RawMessage
+	require.NoError(t, json.Unmarshal(raw[8:8+n], &header))
+	data := raw[8+n:]
+	require.Len(t, m.Tensors, 5)
+	for _, e := range m.Tensors {
+		var entry struct {
+			DataOffsets [2]uint64 `json:"data_offsets"`
+		}
+		require.NoError(t, json.Unmarshal(header[e.Name], &entry), e.Name)
+		bytes := data[entry.DataOffsets[0]:entry.DataOffsets[1]]
+		require.NotEmpty(t, bytes, e.Name)
+		require.Equal(t, run(nil, bytes), e.SourceBLAKE3, e.Name)
+	}
+}
