@@ -692,7 +692,8 @@ static int jbool(jp *j, int *v)
 
 /* Object iteration: jobj_begin consumes '{' (1), or null (0: an absent
  * object); jobj_next gives the next key (1) or consumes '}' (0). */
-static int jobj_begin(jp *j, int *open)
+/* jopen consumes the delimiter that opens a container (1), or null (0). */
+static int jopen(jp *j, int *open, int delim, const char *expected)
 {
 	int r = jnull(j);
 	if (r < 0)
@@ -701,11 +702,16 @@ static int jobj_begin(jp *j, int *open)
 		*open = 0;
 		return 0;
 	}
-	if (peek(j) != '{')
-		return jbad(j, "expected an object");
+	if (peek(j) != delim)
+		return jbad(j, expected);
 	j->p++;
 	*open = 1;
 	return 0;
+}
+
+static int jobj_begin(jp *j, int *open)
+{
+	return jopen(j, open, '{', "expected an object");
 }
 
 static int jobj_next(jp *j, int *first, char *key, size_t cap, int *more)
@@ -728,18 +734,7 @@ static int jobj_next(jp *j, int *first, char *key, size_t cap, int *more)
 
 static int jarr_begin(jp *j, int *open)
 {
-	int r = jnull(j);
-	if (r < 0)
-		return j->a->err;
-	if (r) {
-		*open = 0;
-		return 0;
-	}
-	if (peek(j) != '[')
-		return jbad(j, "expected an array");
-	j->p++;
-	*open = 1;
-	return 0;
+	return jopen(j, open, '[', "expected an array");
 }
 
 static int jarr_next(jp *j, int *first, int *more)
