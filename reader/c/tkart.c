@@ -737,6 +737,24 @@ static int jarr_begin(jp *j, int *open)
 	return jopen(j, open, '[', "expected an array");
 }
 
+/* arena_append takes the next element of an array that grows in the arena
+ * as it is parsed: count elements of size bytes at base (NULL when count is
+ * 0), the new one right after them. NULL, with the error set, when the
+ * arena is full or something was taken from it in between. */
+static void *arena_append(jp *j, const void *base, size_t count, size_t size, const char *what)
+{
+	uint8_t *p = arena_lo(j->a, size);
+	if (!p) {
+		fail(j->a, TKART_E_ARENA, j->base, "arena too small for the manifest (see tkart_arena_size)");
+		return NULL;
+	}
+	if (count > 0 && p != (const uint8_t *)base + count * size) {
+		fail(j->a, TKART_E_ARENA, j->base, "arena: %s not contiguous", what);
+		return NULL;
+	}
+	return p;
+}
+
 static int jarr_next(jp *j, int *first, int *more)
 {
 	int c = peek(j);
@@ -872,13 +890,11 @@ static int parse_section(jp *j, tkart_section *s, int *present, const char *wher
 						return j->a->err;
 					if (!m2)
 						break;
-					h = arena_lo(j->a, 32);
+					h = arena_append(j, s->chunks, s->nchunks, 32, "chunk hashes");
 					if (!h)
-						return fail(j->a, TKART_E_ARENA, j->base, "arena too small for the manifest (see tkart_arena_size)");
+						return j->a->err;
 					if (s->nchunks == 0)
 						s->chunks = h;
-					else if (h != s->chunks + 32 * s->nchunks)
-						return fail(j->a, TKART_E_ARENA, j->base, "arena: chunk hashes not contiguous");
 					if (jhash(j, h, "chunk hash"))
 						return j->a->err;
 					s->nchunks++;
@@ -987,13 +1003,11 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 						return j->a->err;
 					if (!m2)
 						break;
-					d = arena_lo(j->a, sizeof *d);
+					d = arena_append(j, dims, t->ndim, sizeof *d, "shape");
 					if (!d)
-						return fail(j->a, TKART_E_ARENA, j->base, "arena too small for the manifest (see tkart_arena_size)");
+						return j->a->err;
 					if (!dims)
 						dims = d;
-					else if (d != dims + t->ndim)
-						return fail(j->a, TKART_E_ARENA, j->base, "arena: shape not contiguous");
 					if (jint(j, d))
 						return j->a->err;
 					if (t->ndim == 1 << 20)
