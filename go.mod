@@ -3,8 +3,8 @@ module ternkit
 go 1.26.8
 
 require (
-	github.com/klauspost/compress v1.20.4
 	github.com/BurntSushi/toml v1.6.0
+	github.com/klauspost/compress v1.20.4
 	github.com/nlpodyssey/safetensors v0.0.0-20250209183917-bfb01cc25f7c
 	github.com/schollz/progressbar/v3 v3.19.1
 	github.com/spf13/cobra v1.10.2
@@ -15,6 +15,7 @@ require (
 	golang.org/x/net v0.62.0
 	golang.org/x/sys v0.49.0
 	golang.org/x/term v0.47.0
+	lukechampine.com/blake3 v1.4.1
 )
 
 require (
