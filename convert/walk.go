@@ -1,55 +1,65 @@
 package convert
 
 import (
-	"errors"
 	"fmt"
-	"io"
+	"runtime"
+	"runtime/debug"
 	"sync"
 
-	"github.com/zeebo/blake3"
+	"ternkit/internal/treehash"
 )
 
 // WalkOptions bound a parallel walk.
 type WalkOptions struct {
-	// Workers run the work function; fewer than 1 means 1.
+	// Workers run the work function and hash the source; fewer than 1
+	// means 1.
 	Workers int
-	// Budget bounds the bytes of tensors read but not yet emitted; it is
-	// raised to the largest tensor handed over whole so that one always
-	// fits. 0 means DefaultWalkBudget.
+	// Budget bounds the bytes of tensors handed out but not yet emitted;
+	// it is raised to the largest tensor handed over whole so that one
+	// always fits. 0 means DefaultWalkBudget.
 	Budget int64
-	// InPieces, when set, chooses tensors to hand over in pieces of
-	// PieceSize bytes (the last one shorter) instead of whole, so that a
-	// tensor that needs no worker (one copied as it is) costs PieceSize of
-	// memory, not its length. Each piece goes to Piece on the caller's
-	// goroutine, in tensor order among the other tensors' emits, with the
-	// tensor's BLAKE3 given with the last piece (nil before). A piece
-	// belongs to the call.
+	// InPieces, when set, chooses tensors to hand over in pieces instead
+	// of whole, so that a tensor that needs no worker (one copied as it
+	// is) costs a piece of memory, not its length. The pieces are the
+	// tensor's segments: its bytes cut at the file offsets that are
+	// multiples of SpanSegment, so none is longer than SpanSegment. Each
+	// piece goes to Piece on the caller's goroutine, in tensor order among
+	// the other tensors' emits, with the tensor's SourceID given with the
+	// last piece (nil before). A tensor of no bytes comes as one empty
+	// piece. A piece belongs to the call and must not be modified.
 	InPieces func(t *Tensor) bool
-	Piece    func(t *Tensor, off int64, piece []byte, sum *[32]byte) error
-	// PieceSize is the size of those pieces; 0 means DefaultPieceSize.
-	PieceSize int64
+	Piece    func(t *Tensor, off int64, piece []byte, id *SourceID) error
 }
 
-// DefaultPieceSize is the size of the pieces a tensor chosen by
-// WalkOptions.InPieces is handed over in.
+// DefaultPieceSize is the size of the pieces callers choose to take large
+// kept tensors in: a tensor longer than it goes through
+// WalkOptions.InPieces.
 const DefaultPieceSize = 16 << 20
 
 // DefaultWalkBudget is the default bound on tensor bytes in flight.
 const DefaultWalkBudget = 128 << 20
 
-// WalkOrdered reads every tensor once, in Tensors order, as Walk does
-// (hashing each file whole as it goes), and hands each tensor to one of
-// opts.Workers goroutines: work(worker, t, raw, sum) runs concurrently, with
-// sum the BLAKE3 of raw and worker in [0, Workers) so that a worker can keep
-// scratch space of its own. raw belongs to the call, and to what it returns,
-// until emit has run; it must not be modified, since the file's hash is
-// taken from the same bytes concurrently. emit(t, result) runs on the
-// caller's goroutine in tensor order, so that what it writes is the same
-// for any worker count. The first error, in tensor order, stops the walk
-// and is returned.
+// WalkOrdered reads every tensor once, in Tensors order, and hands each
+// tensor to one of opts.Workers goroutines: work(worker, t, raw) runs
+// concurrently, with worker in [0, Workers) so that a worker can keep
+// scratch space of its own. Beside it the workers hash the source once:
+// each tensor's segments (pack/FORMAT.md, "source_span") become parts of
+// each file's BLAKE3 tree, joined in order into the file's hash
+// (Files[i].BLAKE3, what b3sum prints) and into the tensor's SourceID.
+//
+// raw is a slice of a read-only mapping of the file where the system
+// maps files (else a buffer read afresh): it belongs to the call, and to
+// what it returns, until emit has run, and must not be modified. A
+// goroutine of work's own that touches raw must call
+// debug.SetPanicOnFault and recover, since a file truncated while mapped
+// faults there. emit(t, id, result) runs on the caller's goroutine in
+// tensor order, so that what it writes is the same for any worker count.
+// The first error, in tensor order, stops the walk and is returned; a
+// file truncated during the walk is an *InputError wrapping ErrTruncated
+// naming file, tensor and offset.
 func WalkOrdered[R any](s *Source, opts WalkOptions,
-	work func(worker int, t *Tensor, raw []byte, sum [32]byte) (R, error),
-	emit func(t *Tensor, r R) error) error {
+	work func(worker int, t *Tensor, raw []byte) (R, error),
+	emit func(t *Tensor, id SourceID, r R) error) error {
 	if s.open == nil {
 		return &InputError{File: s.Path, Offset: -1, Err: errClosed}
 	}
@@ -59,103 +69,145 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		budget = DefaultWalkBudget
 	}
 	inPieces := func(t *Tensor) bool { return opts.InPieces != nil && opts.InPieces(t) }
-	pieceSize := opts.PieceSize
-	if pieceSize <= 0 {
-		pieceSize = DefaultPieceSize
-	}
-	budget = max(budget, pieceSize)
 	for _, t := range s.Tensors {
 		if !inPieces(t) {
 			budget = max(budget, t.Length)
 		}
 	}
+	views := make([]fileView, len(s.open))
+	for i, of := range s.open {
+		views[i] = openView(of.f, s.Files[i].Size)
+	}
+	defer func() {
+		for _, v := range views {
+			v.close()
+		}
+	}()
 
-	// A job is a whole tensor, or one piece of a tensor handed over in
-	// pieces (piece set, off its offset in the tensor, last on the last).
+	// A unit is what the sequencer takes in order: the start of a file
+	// (its header), a tensor handed over whole (its segments and its work),
+	// one piece of a tensor handed over in pieces, or the end of a file.
+	type unitKind int
+	const (
+		unitStart unitKind = iota
+		unitWhole
+		unitPiece
+		unitEnd
+	)
+	type unit struct {
+		kind   unitKind
+		index  int
+		file   int
+		t      *Tensor
+		segs   int    // segment results to wait for
+		raw    []byte // the whole tensor's or the piece's bytes
+		off    int64  // a piece's offset in its tensor
+		header []byte
+		last   bool  // the last piece of its tensor
+		err    error // found while handing out
+	}
+	// A job hashes one segment (seg >= 0) or runs work on a whole tensor.
 	type job struct {
-		index       int
-		t           *Tensor
-		raw         []byte
-		err         error
-		piece, last bool
-		off         int64
+		index, seg, file int
+		t                *Tensor
+		data             []byte
+		at               int64 // data's offset in its file
 	}
-	type done struct {
-		index       int
-		t           *Tensor
-		raw         []byte
-		result      R
-		err         error
-		piece, last bool
-		off         int64
+	type result struct {
+		index, seg int
+		hash       segmentHash
+		r          R
+		err        error
 	}
-	jobs := make(chan job, workers)
-	results := make(chan done, workers)
+	jobs := make(chan job, 4*workers)
+	results := make(chan result, 4*workers)
+	units := make(chan unit, 64)
 	stop := make(chan struct{})
-	pool := newBufferPool(budget)
+	bytesInFlight := newByteBudget(budget)
 	var wg sync.WaitGroup
 
-	// the reader: one goroutine reads the files in order; a second one
-	// hashes each file whole, in order, beside the workers
-	hashes := make(chan fileBytes, 2*workers+2)
-	wg.Add(2)
+	// the dispatcher: hands out units in order, and their jobs after them
+	wg.Add(1)
 	go func() {
 		defer wg.Done()
-		hashFiles(s, hashes, pool)
-	}()
-	go func() {
-		defer wg.Done()
+		defer close(units)
 		defer close(jobs)
-		defer close(hashes)
+		send := func(u unit) bool {
+			select {
+			case units <- u:
+				return u.err == nil
+			case <-stop:
+				return false
+			}
+		}
+		sendJob := func(j job) bool {
+			select {
+			case jobs <- j:
+				return true
+			case <-stop:
+				return false
+			}
+		}
 		index := 0
 		for i, of := range s.open {
 			path := s.Files[i].Path
-			for _, t := range of.tensors {
-				step, pieces := t.Length, false
-				if inPieces(t) {
-					step, pieces = pieceSize, true
-				}
-				for off := int64(0); ; off += step {
-					n := min(step, t.Length-off)
-					raw, ok := pool.get(n, stop)
-					if !ok {
-						return
-					}
-					j := job{index: index, t: t, raw: raw, piece: pieces, off: off, last: off+n == t.Length}
-					index++
-					if got, err := of.f.ReadAt(raw, t.Offset+off); got < len(raw) {
-						if err == nil || errors.Is(err, io.EOF) {
-							err = io.ErrUnexpectedEOF
-						}
-						j.err = &InputError{File: path, Tensor: t.Name, Offset: t.Offset + off + int64(got),
-							Err: fmt.Errorf("%w: read %d of %d bytes: %w", ErrTruncated, got, len(raw), err)}
-					} else if len(raw) > 0 {
-						pool.hold(raw) // until the file hasher is done with it
-						hashes <- fileBytes{file: i, raw: raw}
-					}
-					select {
-					case jobs <- j:
-					case <-stop:
-						return
-					}
-					if j.err != nil {
-						return
-					}
-					if j.last {
-						break
-					}
-				}
-			}
-			end := of.dataStart + of.dataLen
-			var probe [1]byte
-			if got, _ := of.f.ReadAt(probe[:], end); got > 0 {
-				select {
-				case jobs <- job{index: index, err: inputError(path, "", end, ErrOffsets, "trailing bytes after the last tensor (the file grew after it was opened)")}:
-				case <-stop:
-				}
+			header, err := readAt(of.f, 0, of.dataStart, path, "")
+			if !send(unit{kind: unitStart, index: index, file: i, header: header, err: err}) {
 				return
 			}
-			hashes <- fileBytes{file: i, end: true}
+			index++
+			for _, t := range of.tensors {
+				segs := segments(t.Offset, t.Offset+t.Length)
+				if inPieces(t) {
+					if len(segs) == 0 {
+						if !send(unit{kind: unitPiece, index: index, file: i, t: t, last: true}) {
+							return
+						}
+						index++
+					}
+					for k, g := range segs {
+						if !bytesInFlight.acquire(g.e-g.s, stop) {
+							return
+						}
+						raw, err := views[i].bytes(g.s, g.e, path, t.Name)
+						u := unit{kind: unitPiece, index: index, file: i, t: t, segs: 1, raw: raw,
+							off: g.s - t.Offset, last: k == len(segs)-1, err: err}
+						if !send(u) || !sendJob(job{index: index, file: i, t: t, data: raw, at: g.s}) {
+							return
+						}
+						index++
+					}
+					continue
+				}
+				if !bytesInFlight.acquire(t.Length, stop) {
+					return
+				}
+				raw, err := views[i].bytes(t.Offset, t.Offset+t.Length, path, t.Name)
+				if !send(unit{kind: unitWhole, index: index, file: i, t: t, segs: len(segs), raw: raw, err: err}) {
+					return
+				}
+				// the work first, so that it starts while others hash
+				if !sendJob(job{index: index, seg: -1, file: i, t: t, data: raw, at: t.Offset}) {
+					return
+				}
+				for k, g := range segs {
+					if !sendJob(job{index: index, seg: k, file: i, t: t, data: raw[g.s-t.Offset : g.e-t.Offset], at: g.s}) {
+						return
+					}
+				}
+				index++
+			}
+			end := of.dataStart + of.dataLen
+			var u unit
+			var probe [1]byte
+			if got, _ := of.f.ReadAt(probe[:], end); got > 0 {
+				u.err = inputError(path, "", end, ErrOffsets, "trailing bytes after the last tensor (the file grew after it was opened)")
+			}
+			u.kind, u.index, u.file = unitEnd, index, i
+			if !send(u) {
+				return
+			}
+			index++
 		}
 	}()
 
@@ -165,11 +217,18 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		workersDone.Add(1)
 		go func() {
 			defer workersDone.Done()
+			debug.SetPanicOnFault(true)
 			for j := range jobs {
-				d := done{index: j.index, t: j.t, raw: j.raw, err: j.err, piece: j.piece, last: j.last, off: j.off}
-				if d.err == nil && !j.piece {
-					d.result, d.err = work(w, j.t, j.raw, blake3.Sum256(j.raw))
-				}
+				d := result{index: j.index, seg: j.seg}
+				d.err = guardFault(views[j.file], s.Files[j.file].Path, j.t.Name, func() error {
+					if j.seg < 0 {
+						var err error
+						d.r, err = work(w, j.t, j.data)
+						return err
+					}
+					d.hash = hashSegment(j.data, j.at)
+					return nil
+				})
 				select {
 				case results <- d:
 				case <-stop:
@@ -183,178 +242,185 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		close(results)
 	}()
 
-	// the sequencer: emit in tensor order; a tensor in pieces is hashed
-	// here, piece by piece, as its pieces come in order
-	pending := map[int]done{}
-	next := 0
+	// the sequencer: takes the units in order, each once its results are
+	// in, and joins the hashes in file order
+	pending := map[[2]int]result{}
+	arrived := map[int]int{}
 	var firstErr error
-	var pieceHash *blake3.Hasher
-	emitPiece := func(r done) error {
-		if r.off == 0 {
-			pieceHash = blake3.New()
+	var fileHash *treehash.Hasher
+	var span spanHasher
+	for u := range units {
+		need := u.segs
+		if u.kind == unitWhole {
+			need++
 		}
-		pieceHash.Write(r.raw)
-		var sum *[32]byte
-		if r.last {
-			sum = new([32]byte)
-			pieceHash.Sum(sum[:0])
+		if u.err != nil {
+			firstErr = u.err
+			break
 		}
-		return opts.Piece(r.t, r.off, r.raw, sum)
-	}
-	for d := range results {
-		pending[d.index] = d
-		for firstErr == nil {
-			r, ok := pending[next]
+		for arrived[u.index] < need {
+			r, ok := <-results
 			if !ok {
 				break
 			}
-			delete(pending, next)
-			next++
-			if r.err != nil {
-				firstErr = r.err
+			pending[[2]int{r.index, r.seg}] = r
+			arrived[r.index]++
+		}
+		if arrived[u.index] < need {
+			break // stopped: cannot happen before the first error
+		}
+		delete(arrived, u.index)
+		take := func(seg int) result {
+			r := pending[[2]int{u.index, seg}]
+			delete(pending, [2]int{u.index, seg})
+			return r
+		}
+		switch u.kind {
+		case unitStart:
+			fileHash = treehash.New()
+			fileHash.Write(u.header)
+		case unitEnd:
+			s.Files[u.file].BLAKE3 = fileHash.Sum()
+		case unitWhole:
+			t := u.t
+			done := take(-1)
+			hashes := make([]result, u.segs)
+			for k := range hashes {
+				if hashes[k] = take(k); hashes[k].err != nil && firstErr == nil {
+					firstErr = hashes[k].err
+				}
+			}
+			if firstErr == nil {
+				firstErr = done.err
+			}
+			if firstErr != nil {
 				break
 			}
-			var err error
-			if r.piece {
-				err = emitPiece(r)
-			} else {
-				err = emit(r.t, r.result)
+			h := newSpanHasher(t.Offset, t.Offset+t.Length)
+			for k := range hashes {
+				hashes[k].hash.feed(fileHash)
+				h.add(&hashes[k].hash)
 			}
-			if err != nil {
-				firstErr = err
-				break
+			id := SourceID{Span: h.sum()}
+			firstErr = guardCaller(views[u.file], s.Files[u.file].Path, t.Name, func() error {
+				return emit(t, id, done.r)
+			})
+			views[u.file].release(t.Offset, t.Offset+t.Length)
+			bytesInFlight.release(t.Length)
+		case unitPiece:
+			t := u.t
+			if u.off == 0 {
+				span = newSpanHasher(t.Offset, t.Offset+t.Length)
 			}
-			pool.put(r.raw)
+			if u.segs > 0 {
+				r := take(0)
+				if firstErr = r.err; firstErr != nil {
+					break
+				}
+				r.hash.feed(fileHash)
+				span.add(&r.hash)
+			}
+			var id *SourceID
+			if u.last {
+				id = &SourceID{Span: span.sum()}
+			}
+			firstErr = guardCaller(views[u.file], s.Files[u.file].Path, t.Name, func() error {
+				return opts.Piece(t, u.off, u.raw, id)
+			})
+			views[u.file].release(t.Offset+u.off, t.Offset+u.off+int64(len(u.raw)))
+			bytesInFlight.release(int64(len(u.raw)))
 		}
 		if firstErr != nil {
 			break
 		}
 	}
 	close(stop)
-	pool.wake()
+	bytesInFlight.wake()
+	for range units { // let the dispatcher finish
+	}
 	for range results { // let the workers finish
 	}
 	wg.Wait()
 	return firstErr
 }
 
-// fileBytes is the next piece of a file for hashFiles: a tensor's bytes,
-// or the end of the file.
-type fileBytes struct {
-	file int
-	raw  []byte
-	end  bool
-}
-
-// hashFiles hashes each file of s whole from the pieces the reader sends in
-// file order (the header was hashed when the file was opened), records
-// each file's BLAKE3 at its end, and releases each piece to the pool.
-func hashFiles(s *Source, pieces <-chan fileBytes, pool *bufferPool) {
-	var h *blake3.Hasher
-	current := -1
-	for p := range pieces {
-		if p.file != current {
-			current, h = p.file, s.open[p.file].prefix.Clone()
-		}
-		if p.end {
-			copy(s.Files[p.file].BLAKE3[:], h.Sum(nil))
-			continue
-		}
-		h.Write(p.raw)
-		pool.put(p.raw)
-	}
-}
-
-// bufferPool hands out byte slices while the bytes in use stay within a
-// budget, reusing returned slices so that memory stays at the budget.
-type bufferPool struct {
-	mu     sync.Mutex
-	cond   *sync.Cond
-	free   [][]byte
-	inUse  int64
-	budget int64
-	// refs counts the holders of a slice handed out beyond the first, by
-	// the address of its first byte
-	refs map[*byte]int
-}
-
-func newBufferPool(budget int64) *bufferPool {
-	p := &bufferPool{budget: budget, refs: map[*byte]int{}}
-	p.cond = sync.NewCond(&p.mu)
-	return p
-}
-
-// get returns a slice of length n, waiting while the budget is spent; it
-// returns false when stop is closed.
-func (p *bufferPool) get(n int64, stop <-chan struct{}) ([]byte, bool) {
-	p.mu.Lock()
-	defer p.mu.Unlock()
-	for p.inUse > 0 && p.inUse+n > p.budget {
-		select {
-		case <-stop:
-			return nil, false
-		default:
-		}
-		p.cond.Wait()
-	}
-	select {
-	case <-stop:
-		return nil, false
-	default:
-	}
-	p.inUse += n
-	best := -1
-	for i, b := range p.free {
-		if int64(cap(b)) >= n && (best < 0 || cap(b) < cap(p.free[best])) {
-			best = i
-		}
-	}
-	if best >= 0 {
-		b := p.free[best]
-		p.free = append(p.free[:best], p.free[best+1:]...)
-		return b[:n], true
-	}
-	// drop free slices too small to serve, so that memory stays bounded
-	var kept int64
-	for _, b := range p.free {
-		kept += int64(cap(b))
-	}
-	if kept+p.inUse > p.budget {
-		p.free = nil
-	}
-	return make([]byte, n), true
-}
-
-// wake lets a get waiting for the budget see that the walk stopped.
-func (p *bufferPool) wake() {
-	p.mu.Lock()
-	p.cond.Broadcast()
-	p.mu.Unlock()
-}
-
-// hold adds a holder to b, a slice from get: it returns to the pool when
-// every holder has put it.
-func (p *bufferPool) hold(b []byte) {
-	p.mu.Lock()
-	p.refs[&b[0]]++
-	p.mu.Unlock()
-}
-
-func (p *bufferPool) put(b []byte) {
-	p.mu.Lock()
-	if len(b) > 0 {
-		if n := p.refs[&b[0]]; n > 0 {
-			if n == 1 {
-				delete(p.refs, &b[0])
-			} else {
-				p.refs[&b[0]] = n - 1
-			}
-			p.mu.Unlock()
+// guardFault runs fn, on a goroutine that has called
+// debug.SetPanicOnFault(true), and turns a fault in the view's mapping (a
+// file truncated while mapped) into an *InputError wrapping ErrTruncated
+// that names the file, the tensor and the offset. Any other panic goes on.
+func guardFault(v fileView, path, tensor string, fn func() error) (err error) {
+	defer func() {
+		r := recover()
+		if r == nil {
 			return
 		}
+		re, ok := r.(runtime.Error)
+		fault, hasAddr := r.(interface{ Addr() uintptr })
+		if !ok || !hasAddr {
+			panic(r)
+		}
+		off := v.offsetOf(fault.Addr())
+		if off < 0 {
+			panic(r) // not the source's mapping: a fault of its own
+		}
+		err = &InputError{File: path, Tensor: tensor, Offset: off,
+			Err: fmt.Errorf("%w: the file ended while it was read (truncated after it was opened): %v", ErrTruncated, re)}
+	}()
+	return fn()
+}
+
+// guardCaller is guardFault for the caller's goroutine: it sets the fault
+// mode for the call only.
+func guardCaller(v fileView, path, tensor string, fn func() error) error {
+	old := debug.SetPanicOnFault(true)
+	defer debug.SetPanicOnFault(old)
+	return guardFault(v, path, tensor, fn)
+}
+
+// byteBudget bounds the bytes handed out but not yet released.
+type byteBudget struct {
+	mu      sync.Mutex
+	cond    *sync.Cond
+	inUse   int64
+	budget  int64
+	stopped bool
+}
+
+func newByteBudget(budget int64) *byteBudget {
+	b := &byteBudget{budget: budget}
+	b.cond = sync.NewCond(&b.mu)
+	return b
+}
+
+// acquire waits until n more bytes fit (or nothing is in use); it returns
+// false when stop is closed.
+func (b *byteBudget) acquire(n int64, stop <-chan struct{}) bool {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	for {
+		select {
+		case <-stop:
+			return false
+		default:
+		}
+		if b.inUse == 0 || b.inUse+n <= b.budget {
+			b.inUse += n
+			return true
+		}
+		b.cond.Wait()
 	}
-	p.inUse -= int64(len(b))
-	p.free = append(p.free, b)
-	p.mu.Unlock()
-	p.cond.Broadcast()
+}
+
+func (b *byteBudget) release(n int64) {
+	b.mu.Lock()
+	b.inUse -= n
+	b.mu.Unlock()
+	b.cond.Broadcast()
+}
+
+// wake lets an acquire waiting for the budget see that the walk stopped.
+func (b *byteBudget) wake() {
+	b.mu.Lock()
+	b.cond.Broadcast()
+	b.mu.Unlock()
 }

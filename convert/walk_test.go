@@ -13,7 +13,7 @@ import (
 )
 
 // WalkOrdered hands every tensor of a sharded set to a worker once, with its
-// bytes and their BLAKE3, emits in tensor order for any worker count and
+// bytes and their source span identity, emits in tensor order for any worker count and
 // any budget (a budget below the largest tensor included), and records
 // each file's BLAKE3 (the zeebo/blake3 library over the whole file:
 // what b3sum prints, checked against b3sum in cmd/ternkit's tests).
@@ -36,17 +36,28 @@ func TestWalkOrdered(t *testing.T) {
 			var mu sync.Mutex
 			seen := map[string]int{}
 			var order []string
-			// "big" and "empty" come in pieces of 7,000 bytes (the last shorter)
+			files := map[string][]byte{}
+			for _, f := range s.Files {
+				b, err := os.ReadFile(f.Path)
+				require.NoError(t, err)
+				files[f.Path] = b
+			}
+			identity := func(tn *Tensor) [32]byte {
+				return SpanIdentity(files[tn.File], tn.Offset, tn.Offset+tn.Length)
+			}
+			// "big" and "empty" come in pieces, the segments of their bytes
 			var pieced []byte
-			opts := WalkOptions{Workers: workers, Budget: budget, PieceSize: 7000,
+			opts := WalkOptions{Workers: workers, Budget: budget,
 				InPieces: func(tn *Tensor) bool { return tn.Name == "big" || tn.Name == "empty" },
-				Piece: func(tn *Tensor, off int64, p []byte, sum *[32]byte) error {
+				Piece: func(tn *Tensor, off int64, p []byte, id *SourceID) error {
 					require.Equal(t, int64(len(pieced)), off, tn.Name)
-					require.True(t, len(p) == 7000 || sum != nil, "%s: a short piece is the last", tn.Name)
+					at := tn.Offset + off
+					require.LessOrEqual(t, at+int64(len(p)), at/SpanSegment*SpanSegment+SpanSegment, "%s: a piece stays within a segment", tn.Name)
 					pieced = append(pieced, p...)
-					if sum != nil {
+					if id != nil {
 						require.Equal(t, tn.Length, int64(len(pieced)), tn.Name)
-						require.Equal(t, blake3.Sum256(pieced), *sum, tn.Name)
+						require.True(t, bytes.Equal(files[tn.File][tn.Offset:tn.Offset+tn.Length], pieced), tn.Name)
+						require.Equal(t, identity(tn), id.Span, tn.Name)
 						mu.Lock()
 						seen[tn.Name]++
 						mu.Unlock()
@@ -56,17 +67,18 @@ func TestWalkOrdered(t *testing.T) {
 					return nil
 				}}
 			err = WalkOrdered(s, opts,
-				func(w int, tn *Tensor, raw []byte, sum [32]byte) (string, error) {
+				func(w int, tn *Tensor, raw []byte) (string, error) {
 					require.True(t, w >= 0 && w < workers)
 					require.NotContains(t, []string{"big", "empty"}, tn.Name, "in pieces, not whole")
-					require.Equal(t, blake3.Sum256(raw), sum, tn.Name)
+					require.Equal(t, files[tn.File][tn.Offset:tn.Offset+tn.Length], raw, tn.Name)
 					mu.Lock()
 					seen[tn.Name]++
 					mu.Unlock()
 					return fmt.Sprintf("%s:%d", tn.Name, len(raw)), nil
 				},
-				func(tn *Tensor, r string) error {
+				func(tn *Tensor, id SourceID, r string) error {
 					require.Equal(t, fmt.Sprintf("%s:%d", tn.Name, tn.Length), r)
+					require.Equal(t, identity(tn), id.Span, tn.Name)
 					order = append(order, tn.Name)
 					return nil
 				})
@@ -101,13 +113,13 @@ func TestWalkOrderedFirstError(t *testing.T) {
 	defer s.Close()
 	var emitted []string
 	err = WalkOrdered(s, WalkOptions{Workers: 4},
-		func(_ int, tn *Tensor, _ []byte, _ [32]byte) (int, error) {
+		func(_ int, tn *Tensor, _ []byte) (int, error) {
 			if tn.Name == "t07" || tn.Name == "t13" {
 				return 0, fmt.Errorf("bad %s", tn.Name)
 			}
 			return 0, nil
 		},
-		func(tn *Tensor, _ int) error {
+		func(tn *Tensor, _ SourceID, _ int) error {
 			emitted = append(emitted, tn.Name)
 			return nil
 		})
