@@ -81,7 +81,7 @@ const (
 	AspectTrits  = "trits"       // decoded trits differ (Options.Trits)
 	AspectStats  = "stats"       // rel_rmse, cosine or zero fraction
 	AspectBytes  = "bytes"
-	AspectSource = "source" // the source tensor's bytes (source_blake3)
+	AspectSource = "source" // the source tensor's bytes (source_blake3), or bytes or place (source_span)
 	AspectData   = "data"   // the section's bytes, when nothing above explains it
 )
 
@@ -142,9 +142,46 @@ type Totals struct {
 
 // Compared says what a report compared, in words and flags.
 type Compared struct {
-	Sections bool   `json:"sections"` // always: BLAKE3 of the section bytes as read
-	Trits    bool   `json:"trits"`    // trits decoded where sections differ
-	Summary  string `json:"summary"`
+	Sections bool `json:"sections"` // always: BLAKE3 of the section bytes as read
+	Trits    bool `json:"trits"`    // trits decoded where sections differ
+	// Source is how the source tensors were compared: SourceSpan or
+	// SourceBLAKE3 when both artifacts record that kind, SourceNone when
+	// they record different kinds and the sources are not compared.
+	Source  string `json:"source"`
+	Summary string `json:"summary"`
+}
+
+// How a report compared the source tensors (Compared.Source).
+const (
+	SourceSpan   = "source_span"   // span identities: bytes and place in the file (format 1.4)
+	SourceBLAKE3 = "source_blake3" // BLAKE3 of the bytes (formats 1.0 to 1.3)
+	SourceNone   = "none"          // the artifacts record different kinds
+)
+
+// sourceKind is the kind of source identity a manifest records.
+func sourceKind(m *manifest.Manifest) string {
+	for _, e := range m.Tensors {
+		if e.SourceSpan != "" {
+			return SourceSpan
+		}
+	}
+	return SourceBLAKE3
+}
+
+// sourceCompared fills how the source tensors of ma and mb are compared.
+func (c *Compared) sourceCompared(ma, mb *manifest.Manifest) {
+	ka, kb := sourceKind(ma), sourceKind(mb)
+	switch {
+	case ka != kb:
+		c.Source = SourceNone
+		c.Summary += fmt.Sprintf("; source tensors not compared: A records %s, B %s (different kinds of identity)", ka, kb)
+	case ka == SourceSpan:
+		c.Source = ka
+		c.Summary += "; source tensors by their span identity (their bytes and their place in the source file)"
+	default:
+		c.Source = ka
+		c.Summary += "; source tensors by the BLAKE3 of their bytes"
+	}
 }
 
 // Report is the comparison of artifact A (the older) with B.
@@ -180,7 +217,7 @@ func Compare(a, b *pack.Artifact, opts ...Options) (*Report, error) {
 	}
 	ma, mb := a.Manifest(), b.Manifest()
 	r := &Report{
-		Compared:   compared(o),
+		Compared:   compared(o, ma, mb),
 		Provenance: compareProvenance(ma, mb),
 		Added:      []Tensor{},
 		Removed:    []Tensor{},
@@ -235,12 +272,13 @@ func Compare(a, b *pack.Artifact, opts ...Options) (*Report, error) {
 	return r, nil
 }
 
-func compared(o Options) Compared {
+func compared(o Options, ma, mb *manifest.Manifest) Compared {
 	c := Compared{Sections: true, Trits: o.Trits,
 		Summary: "section bytes (BLAKE3 of each section as read from both files) and the manifests' records; trits not decoded"}
 	if o.Trits {
 		c.Summary = "section bytes (BLAKE3 of each section as read from both files), the manifests' records, and the trits of ternary tensors (decoded where their sections differ)"
 	}
+	c.sourceCompared(ma, mb)
 	return c
 }
 
@@ -351,7 +389,10 @@ func (r *Report) compareTensor(a, b *pack.Artifact, ea, eb manifest.Tensor, o Op
 		mark(*ea.Stats != *eb.Stats, AspectStats)
 	}
 	mark(c.BytesA != c.BytesB, AspectBytes)
-	mark(ea.SourceBLAKE3 != eb.SourceBLAKE3, AspectSource)
+	// identities of the same kind only: a span identity changes with the
+	// tensor's place in the file as well as its bytes
+	mark(ea.SourceBLAKE3 != eb.SourceBLAKE3 && ea.SourceSpan == "" && eb.SourceSpan == "", AspectSource)
+	mark(ea.SourceSpan != eb.SourceSpan && ea.SourceSpan != "" && eb.SourceSpan != "", AspectSource)
 	if sa.payloadSum != sb.payloadSum && !slices.ContainsFunc(c.Changed, func(s string) bool {
 		return s == AspectKind || s == AspectCodec || s == AspectStored || s == AspectGran || s == AspectTrits
 	}) {

@@ -122,9 +122,14 @@ type Tensor struct {
 	Scales *Section `json:"scales,omitempty"`
 	// Exact marks a ternary tensor whose source already was scale × trit:
 	// its reconstruction is lossless.
-	Exact        bool                `json:"exact,omitempty"`
-	Section      Section             `json:"section"`
-	SourceBLAKE3 string              `json:"source_blake3"`
+	Exact   bool    `json:"exact,omitempty"`
+	Section Section `json:"section"`
+	// SourceBLAKE3 is the BLAKE3 of the tensor's source bytes (formats
+	// 1.0 to 1.3); SourceSpan their source span identity, which also
+	// depends on their place in the file (format 1.4, pack/FORMAT.md).
+	// An entry has exactly one of them.
+	SourceBLAKE3 string              `json:"source_blake3,omitempty"`
+	SourceSpan   string              `json:"source_span,omitempty"`
 	Trits        *convert.TritCounts `json:"trits,omitempty"`
 	// Stats compares the source with the reconstruction, for every lossy
 	// tensor (ternary, int8, converted kept).
@@ -337,8 +342,17 @@ func (e *Tensor) validate() error {
 	if err := checkSection(e.Section); err != nil {
 		return fmt.Errorf("section: %v", err)
 	}
-	if err := checkHash(e.SourceBLAKE3); err != nil {
-		return fmt.Errorf("source_blake3: %v", err)
+	switch {
+	case e.SourceBLAKE3 != "" && e.SourceSpan != "":
+		return fmt.Errorf("both source_blake3 and source_span (an entry records one)")
+	case e.SourceSpan != "":
+		if err := checkHash(e.SourceSpan); err != nil {
+			return fmt.Errorf("source_span: %v", err)
+		}
+	default:
+		if err := checkHash(e.SourceBLAKE3); err != nil {
+			return fmt.Errorf("source_blake3: %v", err)
+		}
 	}
 	if !floatSource[e.SourceDType] && e.Kind != KindKept {
 		return fmt.Errorf("%s tensor from source dtype %q (only float dtypes are quantized)", e.Kind, e.SourceDType)

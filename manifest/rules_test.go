@@ -30,6 +30,9 @@ func TestValidateEachRule(t *testing.T) {
 		{"uppercase section hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = upper }, "is not lowercase hex"},
 		{"non-hex section hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = notHex }, "is not lowercase hex"},
 		{"uppercase source hash", func(m *Manifest) { m.Tensors[1].SourceBLAKE3 = upper }, `source_blake3: hash "ABAB`},
+		{"uppercase source span", func(m *Manifest) { m.Tensors[1].SourceBLAKE3, m.Tensors[1].SourceSpan = "", upper }, `source_span: hash "ABAB`},
+		{"no source hash", func(m *Manifest) { m.Tensors[1].SourceBLAKE3 = "" }, `source_blake3: hash "" is not 64`},
+		{"both source hashes", func(m *Manifest) { m.Tensors[1].SourceSpan = m.Tensors[1].SourceBLAKE3 }, "both source_blake3 and source_span"},
 		{"uppercase scales hash", func(m *Manifest) { m.Tensors[2].Scales.BLAKE3 = upper }, `scales: hash "ABAB`},
 		{"uppercase file hash", func(m *Manifest) { m.Source.Files[0].BLAKE3 = upper }, `source file "m.safetensors": hash "ABAB`},
 		{"short hash", func(m *Manifest) { m.Tensors[0].Section.BLAKE3 = strings.Repeat("a", 63) }, "is not 64 hex digits"},
@@ -197,6 +200,7 @@ func TestValidateEdgesAccepted(t *testing.T) {
 	all := strings.Repeat("0123456789abcdef", 4)
 	m.Tensors[0].Section.BLAKE3 = all
 	m.Tensors[1].SourceBLAKE3 = all
+	m.Tensors[2].SourceBLAKE3, m.Tensors[2].SourceSpan = "", all // format 1.4
 	m.Source.Files[0].BLAKE3 = all
 	m.Tensors[1].Section.Offset = 0
 	require.NoError(t, m.Validate())

@@ -128,10 +128,11 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	var piece struct {
 		entry  manifest.Tensor
 		chunks *chunkHasher
+		sum    *blake3.Hasher
 	}
-	walk := convert.WalkOptions{Workers: workers, Budget: opts.Budget, PieceSize: keptPieceSize,
+	walk := convert.WalkOptions{Workers: workers, Budget: opts.Budget,
 		InPieces: func(t *convert.Tensor) bool { return t.Length > keptPieceSize && keptAsIs(actions[t], t) },
-		Piece: func(t *convert.Tensor, off int64, p []byte, sum *[32]byte) error {
+		Piece: func(t *convert.Tensor, off int64, p []byte, id *convert.SourceID) error {
 			if off == 0 {
 				if err := w.pad(); err != nil {
 					return err
@@ -139,47 +140,44 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 				piece.entry = manifest.Tensor{Name: t.Name, Shape: t.Shape, SourceDType: t.DType,
 					Kind: manifest.KindKept, Codec: manifest.CodecRaw, DType: t.DType,
 					Section: manifest.Section{Offset: w.off, Length: t.Length}}
-				piece.chunks = &chunkHasher{}
+				piece.chunks, piece.sum = &chunkHasher{}, blake3.New()
 			}
 			if err := w.write(p); err != nil {
 				return err
 			}
 			piece.chunks.Write(p)
+			piece.sum.Write(p)
 			advance(int64(len(p)))
-			if sum != nil {
+			if id != nil {
 				e := piece.entry
-				e.SourceBLAKE3 = manifest.HexHash(*sum)
-				e.Section.BLAKE3 = e.SourceBLAKE3 // the source's bytes, hashed already
+				e.SourceSpan = manifest.HexHash(id.Span)
+				e.Section.BLAKE3 = manifest.HexHash([32]byte(piece.sum.Sum(nil)))
 				e.Section.Chunks = piece.chunks.finish(t.Length)
 				m.Tensors = append(m.Tensors, e)
 			}
 			return nil
 		}}
 	err = convert.WalkOrdered(src, walk,
-		func(worker int, t *convert.Tensor, raw []byte, sum [32]byte) (packed, error) {
+		func(worker int, t *convert.Tensor, raw []byte) (packed, error) {
 			e := manifest.Tensor{
-				Name:         t.Name,
-				Shape:        t.Shape,
-				SourceDType:  t.DType,
-				SourceBLAKE3: manifest.HexHash(sum),
+				Name:        t.Name,
+				Shape:       t.Shape,
+				SourceDType: t.DType,
 			}
 			out, err := bufs[worker].apply(&e, t, raw, actions[t], opts)
 			if err != nil {
 				return packed{}, err
 			}
-			if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
-				e.Section = hashSectionKnown(out.payload, sum) // the source's bytes, hashed already
-			} else {
-				e.Section = hashSection(out.payload)
-			}
+			e.Section = hashSection(out.payload)
 			if out.scales != nil {
 				s := hashSection(out.scales)
 				e.Scales = &s
 			}
 			return packed{e, out}, nil
 		},
-		func(t *convert.Tensor, p packed) error {
+		func(t *convert.Tensor, id convert.SourceID, p packed) error {
 			e := p.entry
+			e.SourceSpan = manifest.HexHash(id.Span)
 			var err error
 			if e.Section.Offset, err = w.place(p.out.payload); err != nil {
 				return err

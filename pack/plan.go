@@ -66,7 +66,7 @@ func manifestLowerBound(src *convert.Source, actions map[*convert.Tensor]convert
 	for _, t := range src.Tensors {
 		p := Plan(t, actions[t])
 		e := manifest.Tensor{Name: p.Name, Shape: p.Shape, SourceDType: p.SourceDType, Kind: p.Kind, DType: p.DType,
-			Granularity: p.Granularity, Codec: manifest.CodecRaw, SourceBLAKE3: placeholderHash,
+			Granularity: p.Granularity, Codec: manifest.CodecRaw, SourceSpan: placeholderHash,
 			Section: manifest.Section{BLAKE3: placeholderHash}}
 		b, err := json.Marshal(&e)
 		if err != nil {

@@ -22,6 +22,10 @@ const sumKeySince = 2
 // "companions" key and companion sections.
 const companionsSince = 3
 
+// sourceSpanSince is the minor version that records a tensor's source by
+// its source span identity ("source_span") instead of "source_blake3".
+const sourceSpanSince = 4
+
 // minorVersionFor is the lowest minor version whose features m uses.
 func minorVersionFor(m *manifest.Manifest) uint16 {
 	var v uint16
@@ -33,6 +37,9 @@ func minorVersionFor(m *manifest.Manifest) uint16 {
 	}
 	for _, e := range m.Tensors {
 		v = max(v, codecSince[e.Codec])
+		if e.SourceSpan != "" {
+			v = max(v, sourceSpanSince)
+		}
 	}
 	return v
 }
@@ -47,6 +54,14 @@ func checkMinorVersion(m *manifest.Manifest, minor uint16) error {
 	}
 	if m.Recipe.Sum != "" && minor < sumKeySince {
 		return fmt.Errorf("%w: the recipe's sum order is a key of format 1.%d, the preamble says 1.%d", ErrVersion, sumKeySince, minor)
+	}
+	for _, e := range m.Tensors {
+		if e.SourceSpan != "" && minor < sourceSpanSince {
+			return fmt.Errorf("%w: tensor %q records source_span, a key of format 1.%d, the preamble says 1.%d", ErrVersion, e.Name, sourceSpanSince, minor)
+		}
+		if e.SourceBLAKE3 != "" && minor >= sourceSpanSince {
+			return fmt.Errorf("%w: tensor %q records source_blake3, which format 1.%d replaces with source_span", ErrStructure, e.Name, minor)
+		}
 	}
 	if len(m.Companions) > 0 && minor < companionsSince {
 		return fmt.Errorf("%w: companion files are a feature of format 1.%d, the preamble says 1.%d", ErrVersion, companionsSince, minor)

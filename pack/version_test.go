@@ -5,6 +5,7 @@ import (
 	"encoding/binary"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -41,10 +42,11 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 		stored []string // per tensor
 		minor  int
 	}{
-		{Auto, []string{"base3", "entropy"}, 1},
-		{Base3, []string{"base3", "base3"}, 0},
-		{Bits2, []string{"bits2", "bits2"}, 0},
-		{Entropy, []string{"entropy", "entropy"}, 1},
+		// every new artifact records source_span, a key of format 1.4
+		{Auto, []string{"base3", "entropy"}, 4},
+		{Base3, []string{"base3", "base3"}, 4},
+		{Bits2, []string{"bits2", "bits2"}, 4},
+		{Entropy, []string{"entropy", "entropy"}, 4},
 	}
 	for _, c := range cases {
 		t.Run(string(c.codec), func(t *testing.T) {
@@ -74,7 +76,7 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 			// used, or higher than the features need.
 			b, err := os.ReadFile(dst)
 			require.NoError(t, err)
-			for _, other := range []uint16{0, 1, 2} {
+			for _, other := range []uint16{0, 1, 2, 3} {
 				if int(other) == c.minor {
 					continue
 				}
@@ -104,4 +106,10 @@ func TestMinorVersionFor(t *testing.T) {
 	require.ErrorIs(t, checkMinorVersion(m, 1), ErrVersion)
 	require.ErrorIs(t, checkMinorVersion(m, 3), ErrStructure)
 	require.NoError(t, checkMinorVersion(m, 2))
+	m.Tensors[0].SourceSpan = strings.Repeat("0", 64)
+	require.Equal(t, uint16(4), minorVersionFor(m))
+	require.ErrorIs(t, checkMinorVersion(m, 3), ErrVersion)
+	require.NoError(t, checkMinorVersion(m, 4))
+	m.Tensors[1].SourceBLAKE3 = strings.Repeat("0", 64) // replaced by source_span in 1.4
+	require.ErrorIs(t, checkMinorVersion(m, 4), ErrStructure)
 }

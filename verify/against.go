@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"math"
 
+	"github.com/zeebo/blake3"
+
 	"ternkit/convert"
 	"ternkit/manifest"
 	"ternkit/pack"
@@ -32,6 +34,7 @@ type tensorVerdict struct {
 	excess, tol float64
 	at          int // element of the largest bound excess, -1 for none
 	inArtifact  bool
+	span        string // the source span identity recorded, to check at emit
 }
 
 // checkAgainst re-reads the source, redoes each tensor's recorded action
@@ -52,27 +55,34 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 		}
 		worst.note(v.name, v.excess, v.tol, v.at)
 	}
-	// a large tensor the artifact keeps as it is is compared by its hash
+	// a large tensor the artifact keeps as it is is compared by its hashes
 	// alone: it comes in pieces, hashed as they come
-	walk := convert.WalkOptions{Workers: workers, PieceSize: keptPieceSize,
+	var pieceSum *blake3.Hasher
+	walk := convert.WalkOptions{Workers: workers,
 		InPieces: func(st *convert.Tensor) bool {
 			t, err := a.Tensor(st.Name)
 			return err == nil && st.Length > keptPieceSize && st.DType == t.Entry.SourceDType &&
 				t.Entry.Kind == manifest.KindKept && t.Entry.DType == t.Entry.SourceDType
 		},
-		Piece: func(st *convert.Tensor, _ int64, p []byte, sum *[32]byte) error {
+		Piece: func(st *convert.Tensor, off int64, p []byte, id *convert.SourceID) error {
+			if off == 0 {
+				pieceSum = blake3.New()
+			}
+			pieceSum.Write(p)
 			advance(int64(len(p)))
-			if sum != nil {
-				record(st, checkTensor(a, m.Recipe, st, nil, *sum, &redoBuffers{}, derivedBad[st.Name]))
+			if id != nil {
+				plain := [32]byte(pieceSum.Sum(nil))
+				v := checkTensor(a, m.Recipe, st, nil, &plain, &redoBuffers{}, derivedBad[st.Name])
+				record(st, settle(v, st, *id))
 			}
 			return nil
 		}}
 	err := convert.WalkOrdered(src, walk,
-		func(worker int, st *convert.Tensor, raw []byte, sum [32]byte) (tensorVerdict, error) {
-			return checkTensor(a, m.Recipe, st, raw, sum, &scratch[worker], derivedBad[st.Name]), nil
+		func(worker int, st *convert.Tensor, raw []byte) (tensorVerdict, error) {
+			return checkTensor(a, m.Recipe, st, raw, nil, &scratch[worker], derivedBad[st.Name]), nil
 		},
-		func(st *convert.Tensor, v tensorVerdict) error {
-			record(st, v)
+		func(st *convert.Tensor, id convert.SourceID, v tensorVerdict) error {
+			record(st, settle(v, st, id))
 			advance(st.Length)
 			return nil
 		})
@@ -102,10 +112,13 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 var keptPieceSize int64 = convert.DefaultPieceSize
 
 // checkTensor checks one source tensor against the artifact, with b the
-// worker's scratch space. A tensor whose manifest entry differs from the
-// source (skip) is not re-quantized: its entry's claims are not trusted to
-// size buffers.
-func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, sum [32]byte, b *redoBuffers, skip bool) tensorVerdict {
+// worker's scratch space; plain is the BLAKE3 of raw when it is known (nil
+// to have it computed where needed). A tensor whose manifest entry differs
+// from the source (skip) is not re-quantized: its entry's claims are not
+// trusted to size buffers. An entry that records the source by its span
+// identity (format 1.4) is checked against it by settle, once the walk
+// has joined it; older entries are checked by the BLAKE3 of the bytes.
+func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, plain *[32]byte, b *redoBuffers, skip bool) tensorVerdict {
 	v := tensorVerdict{name: st.Name, at: -1}
 	add := func(name string, ok bool, format string, args ...any) {
 		c := Check{Name: name, Tensor: st.Name, OK: ok}
@@ -121,12 +134,22 @@ func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []b
 	}
 	v.inArtifact = true
 	e := t.Entry
-	if got := manifest.HexHash(sum); got != e.SourceBLAKE3 {
+	sum := func() [32]byte {
+		if plain == nil {
+			plain = new([32]byte)
+			*plain = blake3.Sum256(raw)
+		}
+		return *plain
+	}
+	if e.SourceSpan != "" {
+		v.span = e.SourceSpan
+	} else if got := manifest.HexHash(sum()); got != e.SourceBLAKE3 {
 		add(CheckSourceHash, false, "source bytes at %s byte %d differ from those packed (BLAKE3 %s, manifest records %s)",
 			st.File, st.Offset, got, e.SourceBLAKE3)
 		return v
+	} else {
+		add(CheckSourceHash, true, "")
 	}
-	add(CheckSourceHash, true, "")
 	if skip {
 		return v
 	}
@@ -134,8 +157,38 @@ func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []b
 	if e.Kind == manifest.KindKept {
 		name = CheckKept
 	}
-	detail := b.redo(a, t, r, st, raw, &v)
+	var detail string
+	if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
+		// The section's bytes hash to its BLAKE3 (checked with the
+		// sections): equal hashes mean equal bytes, without reading the
+		// section again.
+		if got := manifest.HexHash(sum()); got != e.Section.BLAKE3 {
+			detail = fmt.Sprintf("kept section at artifact byte %d has BLAKE3 %s, the source tensor %s", e.Section.Offset, e.Section.BLAKE3, got)
+		}
+	} else {
+		detail = b.redo(a, t, r, st, raw, &v)
+	}
 	add(name, detail == "", "%s", detail)
+	return v
+}
+
+// settle checks the source span identity the walk joined for st against
+// the one its entry records (format 1.4): when they differ, the source is
+// not what was packed and what the redo found is left out.
+func settle(v tensorVerdict, st *convert.Tensor, id convert.SourceID) tensorVerdict {
+	if v.span == "" {
+		return v
+	}
+	check := Check{Name: CheckSourceHash, Tensor: st.Name, OK: true}
+	if got := manifest.HexHash(id.Span); got != v.span {
+		check.OK = false
+		check.Detail = fmt.Sprintf("source bytes or place at %s bytes %d to %d differ from those packed (source span %s, manifest records %s)",
+			st.File, st.Offset, st.Offset+st.Length, got, v.span)
+		v.checks = []Check{check}
+		v.excess, v.tol, v.at = 0, 0, -1
+		return v
+	}
+	v.checks = append([]Check{check}, v.checks...)
 	return v
 }
 
@@ -143,15 +196,6 @@ func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []b
 // differs, or "". It records the tensor's bound excess in v.
 func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, st *convert.Tensor, raw []byte, v *tensorVerdict) string {
 	e := t.Entry
-	if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
-		// The source bytes hash to source_blake3 (checked by the caller) and
-		// the section's bytes to its BLAKE3 (checked with the sections): equal
-		// hashes mean equal bytes, without reading the section again.
-		if e.Section.BLAKE3 != e.SourceBLAKE3 {
-			return fmt.Sprintf("kept section at artifact byte %d has BLAKE3 %s, the source tensor %s", e.Section.Offset, e.Section.BLAKE3, e.SourceBLAKE3)
-		}
-		return ""
-	}
 	n := t.Len()
 	var ws convert.Weights
 	var w []float32

@@ -211,7 +211,7 @@ func TestAgainstCatchesChangedSourceWeight(t *testing.T) {
 			rewriteManifest(t, art, out, func(m map[string]any) {
 				for _, x := range tensorsOf(m) {
 					if x := x.(map[string]any); x["name"] == name {
-						x["source_blake3"] = manifest.HexHash(blake3.Sum256(b))
+						x["source_span"] = manifest.HexHash(convert.SpanIdentity(raw, int64(at), int64(at+len(b))))
 					}
 				}
 			})

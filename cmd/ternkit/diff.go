@@ -186,7 +186,7 @@ func printDiff(w io.Writer, r *diff.Report) {
 	}
 	section("changed", len(r.Changed))
 	for _, c := range r.Changed {
-		fmt.Fprintf(w, "  %s: %s\n", textsafe.Escape(c.Name), strings.Join(changeParts(c, r.Compared.Trits), "; "))
+		fmt.Fprintf(w, "  %s: %s\n", textsafe.Escape(c.Name), strings.Join(changeParts(c, r.Compared.Trits, r.Compared.Source == diff.SourceSpan), "; "))
 	}
 	section("MISMATCH: sections that do not match their own manifest's BLAKE3 (corrupt: run ternkit verify)", len(r.Mismatches))
 	for _, m := range r.Mismatches {
@@ -220,7 +220,7 @@ func percent(f float64) string {
 }
 
 // changeParts describes each changed aspect of a tensor in words.
-func changeParts(c diff.TensorChange, tritsDecoded bool) []string {
+func changeParts(c diff.TensorChange, tritsDecoded, sourceSpan bool) []string {
 	var parts []string
 	for _, aspect := range c.Changed {
 		switch aspect {
@@ -245,7 +245,11 @@ func changeParts(c diff.TensorChange, tritsDecoded bool) []string {
 		case diff.AspectBytes:
 			parts = append(parts, fmt.Sprintf("bytes %d -> %d (%+d)", c.BytesA, c.BytesB, c.BytesB-c.BytesA))
 		case diff.AspectSource:
-			parts = append(parts, "source tensor changed")
+			if sourceSpan {
+				parts = append(parts, "source bytes or place differ")
+			} else {
+				parts = append(parts, "source tensor changed")
+			}
 		case diff.AspectData:
 			if c.KindA == manifest.KindTernary && c.KindB == manifest.KindTernary && !tritsDecoded {
 				parts = append(parts, "section bytes differ (trits not decoded: --trits counts them)")

@@ -1,0 +1,83 @@
+package verify
+
+import (
+	"encoding/binary"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+	"github.com/zeebo/blake3"
+
+	"ternkit/manifest"
+	"ternkit/pack"
+)
+
+// olderArtifact rewrites art as an artifact of formats 1.0 to 1.3 would
+// record it: each tensor's source by the BLAKE3 of its bytes
+// (source_blake3), the preamble's minor version the lowest the rest needs.
+func olderArtifact(t *testing.T, art string, data map[string][]byte) string {
+	t.Helper()
+	out := filepath.Join(t.TempDir(), "older.tkart")
+	minor := uint16(0)
+	rewriteManifest(t, art, out, func(m map[string]any) {
+		if _, ok := m["recipe"].(map[string]any)["sum"]; ok {
+			minor = 2
+		}
+		for _, x := range tensorsOf(m) {
+			x := x.(map[string]any)
+			delete(x, "source_span")
+			x["source_blake3"] = manifest.HexHash(blake3.Sum256(data[x["name"].(string)]))
+		}
+	})
+	b, err := os.ReadFile(out)
+	require.NoError(t, err)
+	binary.LittleEndian.PutUint16(b[10:], minor)
+	require.NoError(t, os.WriteFile(out, b, 0o644))
+	return out
+}
+
+// verify --against checks a format 1.4 artifact by the source span
+// identities and an older one by the BLAKE3 of each tensor's bytes; a
+// changed source byte fails the source check of its tensor alone, in the
+// words of the identity the artifact records.
+func TestAgainstSourceIdentityKinds(t *testing.T) {
+	dir := t.TempDir()
+	src, art, data := bf16Fixture(t, dir, pack.Base3)
+	older := olderArtifact(t, art, data)
+	a, err := pack.Open(older)
+	require.NoError(t, err)
+	_, minor := a.Version()
+	a.Close()
+	require.Less(t, minor, 4)
+
+	for _, path := range []string{art, older} {
+		rep := runAgainst(t, path, src)
+		require.True(t, rep.OK(), "%s: %v", path, failuresOf(rep))
+	}
+
+	name := "blocks.0.norm.weight" // kept as it is: its section is the source's bytes
+	raw, err := os.ReadFile(src)
+	require.NoError(t, err)
+	at := strings.Index(string(raw), string(data[name]))
+	require.GreaterOrEqual(t, at, 0)
+	raw[at+1] ^= 0x01
+	changed := filepath.Join(t.TempDir(), "changed.safetensors")
+	require.NoError(t, os.WriteFile(changed, raw, 0o644))
+	for path, words := range map[string]string{art: "source bytes or place at ", older: "source bytes at "} {
+		rep := runAgainst(t, path, changed)
+		require.False(t, rep.OK())
+		for _, c := range rep.Checks {
+			if c.Name != CheckSourceHash {
+				continue
+			}
+			if c.Tensor == name {
+				require.False(t, c.OK, path)
+				require.True(t, strings.HasPrefix(c.Detail, words), c.Detail)
+			} else {
+				require.True(t, c.OK, "%s: %s", path, c.Tensor)
+			}
+		}
+	}
+}
