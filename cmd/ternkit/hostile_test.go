@@ -84,7 +84,7 @@ func entropyClaims(count int, rows, cols int64, frame func(b int64) []byte) func
 			m.Tensors = append(m.Tensors, manifest.Tensor{
 				Name: fmt.Sprintf("blocks.%d.mlp.up.weight", i), Shape: []int64{rows, cols}, SourceDType: "F32",
 				Kind: manifest.KindTernary, Codec: manifest.CodecEntropy, Granularity: &tensorGran, Scale: 0.25,
-				SourceBLAKE3: strings.Repeat("ab", 32), Trits: &convert.TritCounts{Zero: n},
+				SourceSpan: strings.Repeat("ab", 32), Trits: &convert.TritCounts{Zero: n},
 				Stats: &convert.Stats{ZeroFraction: 1, RelRMSE: 1},
 			})
 			payloads = append(payloads, frame((n+4)/5))
