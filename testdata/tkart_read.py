@@ -37,12 +37,13 @@ ALIGN = 64
 PREAMBLE_LEN = 64
 TRAILER_LEN = 64
 MANIFEST_LIMIT = 256 << 20
-READER_MINOR = 3  # the highest minor version of format 1 this reader implements
+READER_MINOR = 4  # the highest minor version of format 1 this reader implements
 
 # Minor version that defines each codec ("Versioning").
 CODEC_SINCE = {"raw": 0, "bits2": 0, "base3": 0, "entropy": 1}
 SUM_KEY_SINCE = 2  # the recipe's "sum" key
 COMPANIONS_SINCE = 3  # the manifest's "companions" key
+SOURCE_SPAN_SINCE = 4  # the tensor's "source_span" key, in place of "source_blake3"
 TRIT_CODECS = ("bits2", "base3", "entropy")
 DTYPE_SIZE = {
     "F64": 8, "F32": 4, "F16": 2, "BF16": 2, "F8_E4M3": 1, "F8_E5M2": 1,
@@ -64,7 +65,7 @@ KEYS = {
     "source": {"files", "metadata"},
     "file": {"name", "bytes", "blake3"},
     "tensor": {"name", "shape", "source_dtype", "kind", "dtype", "codec", "granularity",
-               "scale", "scales", "exact", "section", "source_blake3", "trits", "stats"},
+               "scale", "scales", "exact", "section", "source_blake3", "source_span", "trits", "stats"},
     "section": {"offset", "length", "blake3", "chunks"},
     "trits": {"neg", "zero", "pos"},
     "stats": {"zero_fraction", "clipped_fraction", "rel_rmse", "max_abs_err", "cosine"},
@@ -81,7 +82,8 @@ REQUIRED = {
     "recipe": {"method", "scale_rule", "epsilon", "tie"},
     "source": {"files"},
     "file": {"name", "bytes", "blake3"},
-    "tensor": {"name", "shape", "source_dtype", "kind", "codec", "section", "source_blake3"},
+    # and one of source_blake3 (1.0 to 1.3) and source_span (1.4)
+    "tensor": {"name", "shape", "source_dtype", "kind", "codec", "section"},
     "section": {"offset", "length", "blake3"},
     "trits": KEYS["trits"],
     "stats": KEYS["stats"],
@@ -399,7 +401,13 @@ def parse_tensor(t, i):
     if exact is not None and not isinstance(exact, bool):
         raise bad("%s: exact %r is not a boolean" % (p, exact))
     exact = bool(exact)
-    hash_hex(t.get("source_blake3"), p + ".source_blake3")
+    span = t.get("source_span") is not None
+    if span and t.get("source_blake3") is not None:
+        raise bad("%s: both source_blake3 and source_span" % p)
+    if span:
+        hash_hex(t.get("source_span"), p + ".source_span")
+    else:
+        hash_hex(t.get("source_blake3"), p + ".source_blake3")
     scale = float32_of(t.get("scale"), p + ".scale")
     stats = t.get("stats")
     if stats is not None:
@@ -467,7 +475,7 @@ def parse_tensor(t, i):
     secs = [("payload", sec)] + ([("scales", scales)] if scales is not None else [])
     return {"name": name, "shape": shape, "n": n, "dtype": dtype, "kind": kind, "codec": codec,
             "granularity": gran, "exact": exact, "scale": scale, "group": size,
-            "sections": secs, "counts": counts}
+            "sections": secs, "counts": counts, "span": span}
 
 
 def payload_range(codec, n):
@@ -612,6 +620,10 @@ def read_artifact(data, with_trits):
         used = max(used, SUM_KEY_SINCE)
     if companions:
         used = max(used, COMPANIONS_SINCE)
+    if any(t["span"] for t in tensors):
+        used = max(used, SOURCE_SPAN_SINCE)
+    if minor >= SOURCE_SPAN_SINCE and not all(t["span"] for t in tensors):
+        raise Reject("structure", "source_blake3 in a file of 1.%d, which records source_span" % minor)
     if used > minor:
         raise Reject("version", "codecs or keys of format 1.%d in a file of 1.%d" % (used, minor))
     if minor != used:

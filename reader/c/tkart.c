@@ -938,7 +938,7 @@ static int is_float_dtype(const char *d)
 
 static const char *const TENSOR_KEYS[] = {"name", "shape", "source_dtype", "kind", "dtype", "codec",
                                           "granularity", "scale", "scales", "exact", "section",
-                                          "source_blake3", "trits", "stats", NULL};
+                                          "source_blake3", "trits", "stats", "source_span", NULL};
 static const char *const TRITS_KEYS[] = {"neg", "zero", "pos", NULL};
 static const char *const STATS_KEYS[] = {"zero_fraction", "clipped_fraction", "rel_rmse", "max_abs_err",
                                          "cosine", NULL};
@@ -1034,6 +1034,7 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 		case 9: if (jbool(j, &t->exact)) return j->a->err; break;
 		case 10: if (parse_section(j, &t->section, &has_section, where)) return j->a->err; break;
 		case 11: if (jhash(j, src_hash, "source_blake3")) return j->a->err; break;
+		case 14: if (jhash(j, src_hash, "source_span")) return j->a->err; break;
 		case 12: {
 			uint32_t s2 = 0;
 			int f3 = 1, m3, o3, i3;
@@ -1071,8 +1072,17 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 		}
 		}
 	}
-	if (need(j, TENSOR_KEYS, seen, 1u << 0 | 1u << 1 | 1u << 2 | 1u << 3 | 1u << 5 | 1u << 10 | 1u << 11, where))
+	if (need(j, TENSOR_KEYS, seen, 1u << 0 | 1u << 1 | 1u << 2 | 1u << 3 | 1u << 5 | 1u << 10, where))
 		return j->a->err;
+	/* one of source_blake3 (formats 1.0 to 1.3) and source_span (1.4) */
+	if ((seen >> 11 & 1) && (seen >> 14 & 1))
+		return jbad(j, "%s: both source_blake3 and source_span", where);
+	if (!(seen >> 11 & 1) && !(seen >> 14 & 1))
+		return jbad(j, "%s: required key \"source_span\" (\"source_blake3\" before format 1.4) is missing", where);
+	if (seen >> 14 & 1)
+		j->a->nspan++;
+	else
+		j->a->nblake3++;
 	if (!has_section || !(seen >> 10 & 1))
 		return jbad(j, "%s: no section", where);
 	if (t->name[0] == 0)
@@ -1782,6 +1792,14 @@ int tkart_open(tkart *a, const void *buf, uint64_t size, void *arena, size_t are
 		            a->minor);
 	if (a->ncompanions)
 		used = 3;
+	if (a->nspan && a->minor < 4)
+		return fail(a, TKART_E_VERSION, 10, "preamble: byte 10: source_span is a key of format 1.4, the preamble says 1.%u (FORMAT.md, Versioning)",
+		            a->minor);
+	if (a->nspan)
+		used = 4;
+	if (a->nblake3 && a->minor >= 4)
+		return fail(a, TKART_E_STRUCTURE, 10, "preamble: byte 10: source_blake3 in a file of format 1.%u, which records source_span (FORMAT.md, Versioning)",
+		            a->minor);
 	if (a->minor != used)
 		return fail(a, TKART_E_STRUCTURE, 10, "preamble: byte 10: preamble says format 1.%u, the manifest uses features of 1.%u only (FORMAT.md, Versioning)",
 		            a->minor, used);

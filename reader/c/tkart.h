@@ -27,7 +27,7 @@ extern "C" {
 #endif
 
 /* The highest minor version of format 1 this reader implements. */
-#define TKART_MINOR 3
+#define TKART_MINOR 4
 /* The largest manifest this reader accepts (FORMAT.md: a reader documents
  * its own limit). */
 #define TKART_MANIFEST_LIMIT ((uint64_t)256 << 20)
@@ -110,6 +110,7 @@ typedef struct tkart {
 	uint32_t *index;
 	size_t index_slots;
 	uint8_t *verified; /* per section (tensors' two, then companions'): 1 once its hashes were checked */
+	size_t nspan, nblake3; /* tensors recording source_span, source_blake3 */
 } tkart;
 
 /* An arena size that suffices for the artifact in buf (read from its
