@@ -211,7 +211,10 @@ func TestWalkTruncatedWhileMapped(t *testing.T) {
 		ts = append(ts, u8(fmt.Sprintf("t%d", i), b...))
 	}
 	require.NoError(t, WriteFile(path, ts, nil))
-	for _, pieces := range []bool{false, true} {
+	// whole tensors read by the worker, by a goroutine of work's own
+	// through CatchFault, and tensors in pieces
+	for _, mode := range []string{"whole", "goroutine", "pieces"} {
+		pieces := mode == "pieces"
 		require.NoError(t, WriteFile(path, ts, nil))
 		s, err := Open(path)
 		require.NoError(t, err)
@@ -237,14 +240,22 @@ func TestWalkTruncatedWhileMapped(t *testing.T) {
 		err = WalkOrdered(s, opts,
 			func(_ int, tn *Tensor, raw []byte) (int, error) {
 				n := 0
-				for _, b := range raw {
-					n += int(b)
+				sum := func() {
+					for _, b := range raw {
+						n += int(b)
+					}
 				}
-				return n, nil
+				if mode != "goroutine" {
+					sum()
+					return n, nil
+				}
+				done := make(chan error)
+				go func() { done <- CatchFault(sum) }()
+				return n, <-done
 			},
 			func(tn *Tensor, _ SourceID, _ int) error { return truncate(tn) })
 		var ie *InputError
-		require.ErrorAs(t, err, &ie, "pieces %v", pieces)
+		require.ErrorAs(t, err, &ie, mode)
 		require.True(t, errors.Is(err, ErrTruncated), "%v", err)
 		require.Equal(t, path, ie.File)
 		require.Equal(t, "t1", ie.Tensor)

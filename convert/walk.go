@@ -1,6 +1,7 @@
 package convert
 
 import (
+	"errors"
 	"fmt"
 	"runtime"
 	"runtime/debug"
@@ -50,9 +51,8 @@ const DefaultWalkBudget = 128 << 20
 // raw is a slice of a read-only mapping of the file where the system
 // maps files (else a buffer read afresh): it belongs to the call, and to
 // what it returns, until emit has run, and must not be modified. A
-// goroutine of work's own that touches raw must call
-// debug.SetPanicOnFault and recover, since a file truncated while mapped
-// faults there. emit(t, id, result) runs on the caller's goroutine in
+// goroutine of work's own that touches raw runs through CatchFault and
+// hands its error back, since a file truncated while mapped faults there. emit(t, id, result) runs on the caller's goroutine in
 // tensor order, so that what it writes is the same for any worker count.
 // The first error, in tensor order, stops the walk and is returned; a
 // file truncated during the walk is an *InputError wrapping ErrTruncated
@@ -344,6 +344,38 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 	return firstErr
 }
 
+// A MemoryFault is a fault reading memory that CatchFault caught: in a
+// walk, a mapped source file truncated while it was read.
+type MemoryFault struct {
+	Addr uintptr
+	Err  error // the runtime's error
+}
+
+func (f *MemoryFault) Error() string { return "memory fault: " + f.Err.Error() }
+
+// CatchFault runs fn with debug.SetPanicOnFault set on the calling
+// goroutine and returns a *MemoryFault for a fault reading memory (any
+// other panic goes on). A goroutine that a walk's work function starts on
+// the bytes it was given runs its body through CatchFault and returns the
+// error: the walk turns it into an *InputError naming file, tensor and
+// offset.
+func CatchFault(fn func()) (err error) {
+	old := debug.SetPanicOnFault(true)
+	defer debug.SetPanicOnFault(old)
+	defer func() {
+		if r := recover(); r != nil {
+			re, ok := r.(runtime.Error)
+			fault, hasAddr := r.(interface{ Addr() uintptr })
+			if !ok || !hasAddr {
+				panic(r)
+			}
+			err = &MemoryFault{Addr: fault.Addr(), Err: re}
+		}
+	}()
+	fn()
+	return nil
+}
+
 // guardFault runs fn, on a goroutine that has called
 // debug.SetPanicOnFault(true), and turns a fault in the view's mapping (a
 // file truncated while mapped) into an *InputError wrapping ErrTruncated
@@ -363,10 +395,21 @@ func guardFault(v fileView, path, tensor string, fn func() error) (err error) {
 		if off < 0 {
 			panic(r) // not the source's mapping: a fault of its own
 		}
-		err = &InputError{File: path, Tensor: tensor, Offset: off,
-			Err: fmt.Errorf("%w: the file ended while it was read (truncated after it was opened): %v", ErrTruncated, re)}
+		err = truncatedWhileMapped(path, tensor, off, re)
 	}()
-	return fn()
+	err = fn()
+	var mf *MemoryFault
+	if errors.As(err, &mf) {
+		if off := v.offsetOf(mf.Addr); off >= 0 {
+			err = truncatedWhileMapped(path, tensor, off, mf.Err)
+		}
+	}
+	return err
+}
+
+func truncatedWhileMapped(path, tensor string, off int64, fault error) error {
+	return &InputError{File: path, Tensor: tensor, Offset: off,
+		Err: fmt.Errorf("%w: the file ended while it was read (truncated after it was opened): %v", ErrTruncated, fault)}
 }
 
 // guardCaller is guardFault for the caller's goroutine: it sets the fault
