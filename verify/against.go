@@ -55,9 +55,11 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 		}
 		worst.note(v.name, v.excess, v.tol, v.at)
 	}
-	// a large tensor the artifact keeps as it is is compared by its hashes
-	// alone: it comes in pieces, hashed as they come
+	// a large tensor the artifact keeps as it is comes in pieces, compared
+	// with the section's bytes (format 1.4) or hashed (older) as they come
 	var pieceSum *blake3.Hasher
+	var pieceDetail string
+	var pieceBuf redoBuffers
 	walk := convert.WalkOptions{Workers: workers,
 		InPieces: func(st *convert.Tensor) bool {
 			t, err := a.Tensor(st.Name)
@@ -65,21 +67,29 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 				t.Entry.Kind == manifest.KindKept && t.Entry.DType == t.Entry.SourceDType
 		},
 		Piece: func(st *convert.Tensor, off int64, p []byte, id *convert.SourceID) error {
-			if off == 0 {
-				pieceSum = blake3.New()
+			t, err := a.Tensor(st.Name)
+			if err != nil {
+				return err
 			}
-			pieceSum.Write(p)
+			if off == 0 {
+				pieceSum, pieceDetail = blake3.New(), ""
+			}
+			if t.Entry.SourceSpan == "" {
+				pieceSum.Write(p)
+			} else if pieceDetail == "" {
+				pieceDetail = pieceBuf.compareKept(a, t, st, p, off)
+			}
 			advance(int64(len(p)))
 			if id != nil {
 				plain := [32]byte(pieceSum.Sum(nil))
-				v := checkTensor(a, m.Recipe, st, nil, &plain, &redoBuffers{}, derivedBad[st.Name])
+				v := checkTensor(a, m.Recipe, st, nil, &plain, &redoBuffers{}, derivedBad[st.Name], &pieceDetail)
 				record(st, settle(v, st, *id))
 			}
 			return nil
 		}}
 	err := convert.WalkOrdered(src, walk,
 		func(worker int, st *convert.Tensor, raw []byte) (tensorVerdict, error) {
-			return checkTensor(a, m.Recipe, st, raw, nil, &scratch[worker], derivedBad[st.Name]), nil
+			return checkTensor(a, m.Recipe, st, raw, nil, &scratch[worker], derivedBad[st.Name], nil), nil
 		},
 		func(st *convert.Tensor, id convert.SourceID, v tensorVerdict) error {
 			record(st, settle(v, st, id))
@@ -113,12 +123,14 @@ var keptPieceSize int64 = convert.DefaultPieceSize
 
 // checkTensor checks one source tensor against the artifact, with b the
 // worker's scratch space; plain is the BLAKE3 of raw when it is known (nil
-// to have it computed where needed). A tensor whose manifest entry differs
+// to have it computed where needed), and kept what comparing a tensor that
+// came in pieces with its kept section found ("" for equal; nil when it
+// came whole). A tensor whose manifest entry differs
 // from the source (skip) is not re-quantized: its entry's claims are not
 // trusted to size buffers. An entry that records the source by its span
 // identity (format 1.4) is checked against it by settle, once the walk
 // has joined it; older entries are checked by the BLAKE3 of the bytes.
-func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, plain *[32]byte, b *redoBuffers, skip bool) tensorVerdict {
+func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []byte, plain *[32]byte, b *redoBuffers, skip bool, kept *string) tensorVerdict {
 	v := tensorVerdict{name: st.Name, at: -1}
 	add := func(name string, ok bool, format string, args ...any) {
 		c := Check{Name: name, Tensor: st.Name, OK: ok}
@@ -158,18 +170,49 @@ func checkTensor(a *pack.Artifact, r convert.Recipe, st *convert.Tensor, raw []b
 		name = CheckKept
 	}
 	var detail string
-	if e.Kind == manifest.KindKept && e.DType == e.SourceDType {
+	switch {
+	case e.Kind == manifest.KindKept && e.DType == e.SourceDType && e.SourceSpan != "":
+		// format 1.4: the source bytes are compared with the section's
+		// (whose hashes the integrity checks hold)
+		if kept != nil {
+			detail = *kept
+		} else {
+			detail = b.compareKept(a, t, st, raw, 0)
+		}
+	case e.Kind == manifest.KindKept && e.DType == e.SourceDType:
 		// The section's bytes hash to its BLAKE3 (checked with the
 		// sections): equal hashes mean equal bytes, without reading the
 		// section again.
 		if got := manifest.HexHash(sum()); got != e.Section.BLAKE3 {
 			detail = fmt.Sprintf("kept section at artifact byte %d has BLAKE3 %s, the source tensor %s", e.Section.Offset, e.Section.BLAKE3, got)
 		}
-	} else {
+	default:
 		detail = b.redo(a, t, r, st, raw, &v)
 	}
 	add(name, detail == "", "%s", detail)
 	return v
+}
+
+// compareKept compares p, the source tensor st's bytes from offset off in
+// it, with the same bytes of t's kept section, and returns what differs,
+// or "".
+func (b *redoBuffers) compareKept(a *pack.Artifact, t *pack.Tensor, st *convert.Tensor, p []byte, off int64) string {
+	s := t.Entry.Section
+	if s.Length != st.Length {
+		return fmt.Sprintf("kept section at artifact byte %d holds %d bytes, the source tensor %d", s.Offset, s.Length, st.Length)
+	}
+	got := grow(&b.payload, len(p))
+	if _, err := a.ReaderAt().ReadAt(got, s.Offset+off); err != nil {
+		return fmt.Sprintf("kept section at artifact byte %d: %v", s.Offset+off, err)
+	}
+	if bytes.Equal(got, p) {
+		return ""
+	}
+	i := 0
+	for got[i] == p[i] {
+		i++
+	}
+	return fmt.Sprintf("kept section at artifact byte %d (its byte %d) is 0x%02x, the source's is 0x%02x", s.Offset+off+int64(i), off+int64(i), got[i], p[i])
 }
 
 // settle checks the source span identity the walk joined for st against
