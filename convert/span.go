@@ -22,6 +22,9 @@ const spanTag = "ternkit source span 1"
 // their place in the file.
 type SourceID struct {
 	Span [32]byte
+	// Plain is the BLAKE3 of the bytes alone, when WalkOptions.Plain
+	// asked for it; nil otherwise.
+	Plain *[32]byte
 }
 
 // segment is the file bytes [s, e) of one piece of a tensor, cut at the
@@ -49,7 +52,9 @@ type segmentHash struct {
 	nodes      []treehash.Node
 }
 
-// hashSegment hashes data, the file bytes from offset s on, one segment.
+// hashSegment hashes data, the file bytes from offset s on, one segment
+// (or, with s taken from a tensor's first byte, a piece of that tensor's
+// own tree).
 func hashSegment(data []byte, s int64) segmentHash {
 	const chunk = treehash.ChunkSize
 	e := s + int64(len(data))

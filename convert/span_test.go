@@ -263,3 +263,48 @@ func TestWalkTruncatedWhileMapped(t *testing.T) {
 		require.NoError(t, s.Close())
 	}
 }
+
+// The plain BLAKE3 of each tensor's bytes, asked for with Plain and joined
+// from the same segments, equals github.com/zeebo/blake3 over the bytes,
+// whole tensors and tensors in pieces alike.
+func TestWalkPlainMatchesReference(t *testing.T) {
+	path, file := writeSpanFile(t)
+	for _, workers := range []int{1, 3} {
+		for _, pieces := range []bool{false, true} {
+			s, err := Open(path)
+			require.NoError(t, err)
+			plains := map[string][32]byte{}
+			record := func(tn *Tensor, id *SourceID) {
+				require.NotNil(t, id.Plain, tn.Name)
+				plains[tn.Name] = *id.Plain
+			}
+			opts := WalkOptions{Workers: workers, Plain: func(tn *Tensor) bool { return tn.Name != "c" }}
+			if pieces {
+				opts.InPieces = func(tn *Tensor) bool { return tn.Name == "f" || tn.Name == "empty" || tn.Name == "d" }
+				opts.Piece = func(tn *Tensor, _ int64, _ []byte, id *SourceID) error {
+					if id != nil {
+						record(tn, id)
+					}
+					return nil
+				}
+			}
+			err = WalkOrdered(s, opts,
+				func(int, *Tensor, []byte) (struct{}, error) { return struct{}{}, nil },
+				func(tn *Tensor, id SourceID, _ struct{}) error {
+					if tn.Name == "c" {
+						require.Nil(t, id.Plain)
+						return nil
+					}
+					record(tn, &id)
+					return nil
+				})
+			require.NoError(t, err)
+			for _, tn := range s.Tensors {
+				if tn.Name != "c" {
+					require.Equal(t, blake3.Sum256(file[tn.Offset:tn.Offset+tn.Length]), plains[tn.Name], "%s workers %d pieces %v", tn.Name, workers, pieces)
+				}
+			}
+			require.NoError(t, s.Close())
+		}
+	}
+}

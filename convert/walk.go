@@ -30,6 +30,11 @@ type WalkOptions struct {
 	// piece. A piece belongs to the call and must not be modified.
 	InPieces func(t *Tensor) bool
 	Piece    func(t *Tensor, off int64, piece []byte, id *SourceID) error
+	// Plain, when set, chooses tensors whose SourceID also gives the
+	// BLAKE3 of their bytes as an input of their own (SourceID.Plain),
+	// hashed on the workers segment by segment: the section hash of a
+	// tensor kept as it is, or the source_blake3 of formats 1.0 to 1.3.
+	Plain func(t *Tensor) bool
 }
 
 // DefaultPieceSize is the size of the pieces callers choose to take large
@@ -69,6 +74,7 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		budget = DefaultWalkBudget
 	}
 	inPieces := func(t *Tensor) bool { return opts.InPieces != nil && opts.InPieces(t) }
+	wantPlain := func(t *Tensor) bool { return opts.Plain != nil && opts.Plain(t) }
 	for _, t := range s.Tensors {
 		if !inPieces(t) {
 			budget = max(budget, t.Length)
@@ -104,6 +110,7 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		off    int64  // a piece's offset in its tensor
 		header []byte
 		last   bool  // the last piece of its tensor
+		plain  bool  // the tensor's plain BLAKE3 is asked for
 		err    error // found while handing out
 	}
 	// A job hashes one segment (seg >= 0) or runs work on a whole tensor.
@@ -112,10 +119,12 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 		t                *Tensor
 		data             []byte
 		at               int64 // data's offset in its file
+		plain            bool  // hash the segment in the tensor's own tree too
 	}
 	type result struct {
 		index, seg int
 		hash       segmentHash
+		plain      segmentHash // in the tensor's own tree, from its first byte
 		r          R
 		err        error
 	}
@@ -158,9 +167,10 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 			index++
 			for _, t := range of.tensors {
 				segs := segments(t.Offset, t.Offset+t.Length)
+				plain := wantPlain(t)
 				if inPieces(t) {
 					if len(segs) == 0 {
-						if !send(unit{kind: unitPiece, index: index, file: i, t: t, last: true}) {
+						if !send(unit{kind: unitPiece, index: index, file: i, t: t, last: true, plain: plain}) {
 							return
 						}
 						index++
@@ -171,8 +181,8 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 						}
 						raw, err := views[i].bytes(g.s, g.e, path, t.Name)
 						u := unit{kind: unitPiece, index: index, file: i, t: t, segs: 1, raw: raw,
-							off: g.s - t.Offset, last: k == len(segs)-1, err: err}
-						if !send(u) || !sendJob(job{index: index, file: i, t: t, data: raw, at: g.s}) {
+							off: g.s - t.Offset, last: k == len(segs)-1, plain: plain, err: err}
+						if !send(u) || !sendJob(job{index: index, file: i, t: t, data: raw, at: g.s, plain: plain}) {
 							return
 						}
 						index++
@@ -183,7 +193,7 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 					return
 				}
 				raw, err := views[i].bytes(t.Offset, t.Offset+t.Length, path, t.Name)
-				if !send(unit{kind: unitWhole, index: index, file: i, t: t, segs: len(segs), raw: raw, err: err}) {
+				if !send(unit{kind: unitWhole, index: index, file: i, t: t, segs: len(segs), raw: raw, plain: plain, err: err}) {
 					return
 				}
 				// the work first, so that it starts while others hash
@@ -191,7 +201,7 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 					return
 				}
 				for k, g := range segs {
-					if !sendJob(job{index: index, seg: k, file: i, t: t, data: raw[g.s-t.Offset : g.e-t.Offset], at: g.s}) {
+					if !sendJob(job{index: index, seg: k, file: i, t: t, data: raw[g.s-t.Offset : g.e-t.Offset], at: g.s, plain: plain}) {
 						return
 					}
 				}
@@ -227,6 +237,9 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 						return err
 					}
 					d.hash = hashSegment(j.data, j.at)
+					if j.plain {
+						d.plain = hashSegment(j.data, j.at-j.t.Offset)
+					}
 					return nil
 				})
 				select {
@@ -249,6 +262,7 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 	var firstErr error
 	var fileHash *treehash.Hasher
 	var span spanHasher
+	var plain *treehash.Hasher // a tensor's own tree, for SourceID.Plain
 	for u := range units {
 		need := u.segs
 		if u.kind == unitWhole {
@@ -297,11 +311,21 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 				break
 			}
 			h := newSpanHasher(t.Offset, t.Offset+t.Length)
+			if u.plain {
+				plain = treehash.New()
+			}
 			for k := range hashes {
 				hashes[k].hash.feed(fileHash)
 				h.add(&hashes[k].hash)
+				if u.plain {
+					hashes[k].plain.feed(plain)
+				}
 			}
 			id := SourceID{Span: h.sum()}
+			if u.plain {
+				id.Plain = new([32]byte)
+				*id.Plain = plain.Sum()
+			}
 			firstErr = guardCaller(views[u.file], s.Files[u.file].Path, t.Name, func() error {
 				return emit(t, id, done.r)
 			})
@@ -311,6 +335,9 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 			t := u.t
 			if u.off == 0 {
 				span = newSpanHasher(t.Offset, t.Offset+t.Length)
+				if u.plain {
+					plain = treehash.New()
+				}
 			}
 			if u.segs > 0 {
 				r := take(0)
@@ -319,10 +346,17 @@ func WalkOrdered[R any](s *Source, opts WalkOptions,
 				}
 				r.hash.feed(fileHash)
 				span.add(&r.hash)
+				if u.plain {
+					r.plain.feed(plain)
+				}
 			}
 			var id *SourceID
 			if u.last {
 				id = &SourceID{Span: span.sum()}
+				if u.plain {
+					id.Plain = new([32]byte)
+					*id.Plain = plain.Sum()
+				}
 			}
 			firstErr = guardCaller(views[u.file], s.Files[u.file].Path, t.Name, func() error {
 				return opts.Piece(t, u.off, u.raw, id)
