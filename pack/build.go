@@ -128,10 +128,11 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	var piece struct {
 		entry  manifest.Tensor
 		chunks *chunkHasher
-		sum    *blake3.Hasher
 	}
+	inPieces := func(t *convert.Tensor) bool { return t.Length > keptPieceSize && keptAsIs(actions[t], t) }
 	walk := convert.WalkOptions{Workers: workers, Budget: opts.Budget,
-		InPieces: func(t *convert.Tensor) bool { return t.Length > keptPieceSize && keptAsIs(actions[t], t) },
+		InPieces: inPieces,
+		Plain:    inPieces, // the section's BLAKE3, hashed by the workers
 		Piece: func(t *convert.Tensor, off int64, p []byte, id *convert.SourceID) error {
 			if off == 0 {
 				if err := w.pad(); err != nil {
@@ -140,18 +141,17 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 				piece.entry = manifest.Tensor{Name: t.Name, Shape: t.Shape, SourceDType: t.DType,
 					Kind: manifest.KindKept, Codec: manifest.CodecRaw, DType: t.DType,
 					Section: manifest.Section{Offset: w.off, Length: t.Length}}
-				piece.chunks, piece.sum = &chunkHasher{}, blake3.New()
+				piece.chunks = &chunkHasher{}
 			}
 			if err := w.write(p); err != nil {
 				return err
 			}
 			piece.chunks.Write(p)
-			piece.sum.Write(p)
 			advance(int64(len(p)))
 			if id != nil {
 				e := piece.entry
 				e.SourceSpan = manifest.HexHash(id.Span)
-				e.Section.BLAKE3 = manifest.HexHash([32]byte(piece.sum.Sum(nil)))
+				e.Section.BLAKE3 = manifest.HexHash(*id.Plain) // the source's bytes
 				e.Section.Chunks = piece.chunks.finish(t.Length)
 				m.Tensors = append(m.Tensors, e)
 			}

@@ -57,14 +57,20 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 	}
 	// a large tensor the artifact keeps as it is comes in pieces, compared
 	// with the section's bytes (format 1.4) or hashed (older) as they come
-	var pieceSum *blake3.Hasher
 	var pieceDetail string
 	var pieceBuf redoBuffers
+	inPieces := func(st *convert.Tensor) bool {
+		t, err := a.Tensor(st.Name)
+		return err == nil && st.Length > keptPieceSize && st.DType == t.Entry.SourceDType &&
+			t.Entry.Kind == manifest.KindKept && t.Entry.DType == t.Entry.SourceDType
+	}
 	walk := convert.WalkOptions{Workers: workers,
-		InPieces: func(st *convert.Tensor) bool {
+		InPieces: inPieces,
+		// formats 1.0 to 1.3 record the BLAKE3 of the bytes: the workers
+		// hash those of a tensor in pieces
+		Plain: func(st *convert.Tensor) bool {
 			t, err := a.Tensor(st.Name)
-			return err == nil && st.Length > keptPieceSize && st.DType == t.Entry.SourceDType &&
-				t.Entry.Kind == manifest.KindKept && t.Entry.DType == t.Entry.SourceDType
+			return inPieces(st) && err == nil && t.Entry.SourceSpan == ""
 		},
 		Piece: func(st *convert.Tensor, off int64, p []byte, id *convert.SourceID) error {
 			t, err := a.Tensor(st.Name)
@@ -72,17 +78,14 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 				return err
 			}
 			if off == 0 {
-				pieceSum, pieceDetail = blake3.New(), ""
+				pieceDetail = ""
 			}
-			if t.Entry.SourceSpan == "" {
-				pieceSum.Write(p)
-			} else if pieceDetail == "" {
+			if t.Entry.SourceSpan != "" && pieceDetail == "" {
 				pieceDetail = pieceBuf.compareKept(a, t, st, p, off)
 			}
 			advance(int64(len(p)))
 			if id != nil {
-				plain := [32]byte(pieceSum.Sum(nil))
-				v := checkTensor(a, m.Recipe, st, nil, &plain, &redoBuffers{}, derivedBad[st.Name], &pieceDetail)
+				v := checkTensor(a, m.Recipe, st, nil, id.Plain, &redoBuffers{}, derivedBad[st.Name], &pieceDetail)
 				record(st, settle(v, st, *id))
 			}
 			return nil

@@ -46,6 +46,16 @@ func olderArtifact(t *testing.T, art string, data map[string][]byte) string {
 // changed source byte fails the source check of its tensor alone, in the
 // words of the identity the artifact records.
 func TestAgainstSourceIdentityKinds(t *testing.T) {
+	for _, piece := range []int64{keptPieceSize, 1} { // kept tensors whole, and in pieces
+		t.Run(fmt.Sprint(piece), func(t *testing.T) {
+			defer func(n int64) { keptPieceSize = n }(keptPieceSize)
+			keptPieceSize = piece
+			againstSourceIdentityKinds(t)
+		})
+	}
+}
+
+func againstSourceIdentityKinds(t *testing.T) {
 	dir := t.TempDir()
 	src, art, data := bf16Fixture(t, dir, pack.Base3)
 	older := olderArtifact(t, art, data)
