@@ -131,9 +131,9 @@ func (r *rangeEncoder) write(t []int8) error {
 func (r *rangeEncoder) put(t []int8) {
 	at := r.pos / r.e.per
 	if r.e.per == 4 {
-		encodeBits2(r.e.digits[at:at], t)
+		encodeDigitsTo(r.e.digits[at:], t, 4, 4)
 	} else {
-		encodeBase3(r.e.digits[at:at], t)
+		encodeDigitsTo(r.e.digits[at:], t, 5, 3)
 	}
 	r.pos += len(t)
 }
