@@ -197,7 +197,14 @@ func ternarizeSplit(all weights, cols int, g Granularity, r Recipe, s Split, tri
 	// the gamma pass: A and Σw² of each piece, then of each group, adding
 	// the pieces in order from +0 (for one piece, its own sums)
 	pieces := groups * p.per
-	psum, psq := make([]float64, pieces), make([]float64, pieces)
+	gammas := make([]float64, groups)
+	squares := make([]float64, groups)
+	// a group of one piece reads its sums from its own index only before
+	// writing its gamma and Σw² there: the arrays can be shared
+	psum, psq := gammas, squares
+	if p.per > 1 {
+		psum, psq = make([]float64, pieces), make([]float64, pieces)
+	}
 	run(nr, s.Workers, s.Gate, func(j int) {
 		for i := bounds[j]; i < bounds[j+1]; i++ {
 			_, lo, hi := p.piece(i)
@@ -205,8 +212,6 @@ func ternarizeSplit(all weights, cols int, g Granularity, r Recipe, s Split, tri
 		}
 	})
 	quants := make([]quantizer, groups)
-	gammas := make([]float64, groups)
-	squares := make([]float64, groups)
 	exact := true
 	for k := range quants {
 		var sum, sq float64
@@ -242,7 +247,8 @@ func ternarizeSplit(all weights, cols int, g Granularity, r Recipe, s Split, tri
 	}
 
 	// the quantize pass: Σ|w| over nonzero trits and the nonzero count of
-	// each piece (psum and the new pnz), the rest per range
+	// each piece (in psum, whose sums, and gammas, are no longer needed,
+	// and pnz), the rest per range
 	pabs, pnz := psum, make([]int64, pieces)
 	totals := make([]rangeTotals, nr)
 	lanes := order != SumSequential
