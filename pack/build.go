@@ -25,8 +25,9 @@ type Options struct {
 	Codec  Codec           // trit codec for ternary tensors
 	Recipe convert.Recipe  // ternarization recipe
 	Policy *convert.Policy // nil means convert.DefaultPolicy()
-	// Workers quantize tensors in parallel; 0 means one per CPU. The bytes
-	// written are the same for any count.
+	// Workers quantize tensors in parallel, and share the work of one
+	// tensor of at least convert.SplitMinElements weights; 0 means one per
+	// CPU. The bytes written are the same for any count.
 	Workers int
 	// Budget bounds the source bytes in flight (0: convert.DefaultWalkBudget).
 	Budget int64
