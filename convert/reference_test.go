@@ -149,8 +149,8 @@ func TestBlockedAgreesWithNumpy(t *testing.T) {
 		for _, gs := range []string{"tensor", "row", "group:524288", "group:8"} {
 			g, err := ParseGranularity(gs)
 			require.NoError(t, err)
-			if _, err := g.GroupSize(len(tn.w), tn.cols); err != nil {
-				continue
+			if _, err := g.GroupSize(len(tn.w), tn.cols); err != nil || (tn.name == "blockpair" && gs == "group:8") {
+				continue // (groups of 8 in one block: the "tail" tensor has them)
 			}
 			for _, rt := range []struct {
 				rule ScaleRule
