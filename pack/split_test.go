@@ -164,3 +164,39 @@ func checkBigTensor(t *testing.T, dst string, m *manifest.Manifest, floats []flo
 	require.Equal(t, want.Counts, *tn.Entry.Trits, name)
 	require.Equal(t, m.Recipe, r)
 }
+
+// Any trits cut into any ranges, each written in runs of any length, give
+// the payload EncodeTensor writes for all of them (data: a trit per byte;
+// cuts: range lengths, one per byte, 0 meaning 1).
+func FuzzSplitEncoder(f *testing.F) {
+	f.Add([]byte{0, 1, 2, 2, 1, 0, 0, 0, 1, 2, 2}, []byte{3, 1, 4}, uint8(2), uint8(1))
+	f.Add(make([]byte, 300), []byte{19, 21, 5, 0, 64}, uint8(7), uint8(0))
+	f.Fuzz(func(t *testing.T, data, cuts []byte, step, codec uint8) {
+		trits := make([]int8, len(data))
+		for i, b := range data {
+			trits[i] = int8(b%3) - 1
+		}
+		c := WriterCodecs[int(codec)%len(WriterCodecs)]
+		e, err := NewSplitEncoder(c, len(trits))
+		require.NoError(t, err)
+		for start, i := 0, 0; start < len(trits); i++ {
+			end := len(trits)
+			if i < len(cuts) {
+				end = min(end, start+max(1, int(cuts[i])))
+			}
+			write := e.Range(start, end)
+			for pos := start; pos < end; {
+				k := min(end-pos, 1+int(step))
+				require.NoError(t, write(trits[pos:pos+k]))
+				pos += k
+			}
+			start = end
+		}
+		var counts convert.TritCounts
+		counts.Count(trits)
+		got, gotCodec := e.Finish(counts)
+		want, wantCodec := c.EncodeTensor(nil, trits)
+		require.Equal(t, wantCodec, gotCodec)
+		require.True(t, bytes.Equal(want, got), "%d bytes, want %d", len(got), len(want))
+	})
+}
