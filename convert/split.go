@@ -300,3 +300,44 @@ func ternarizeSplit(all weights, cols int, g Granularity, r Recipe, s Split, tri
 	res.Stats = sums.stats(int64(n), exact)
 	return res, nil
 }
+
+// TernaryBoundExcessSplit is TernaryBoundExcessOf with the work shared by
+// s.Workers goroutines as TernarizeSplit shares it (s.Range is not used):
+// a group above SumBlock elements in blocks of SumBlock, whose largest
+// excesses (and first indices) are taken in order, then the groups in
+// order, so the result is the one-goroutine result for any count.
+func TernaryBoundExcessSplit(ws Weights, trits []int8, scales []float32, groupSize int, s Split) (float64, int) {
+	w := ws.w
+	n := w.len()
+	p := workPlan{n: n, groups: len(scales), size: groupSize, per: 1}
+	if groupSize > SumBlock {
+		p.per = (groupSize + SumBlock - 1) / SumBlock
+	}
+	bounds := p.ranges(s.Workers)
+	pieces := p.groups * p.per
+	best, at := make([]float64, pieces), make([]int, pieces)
+	run(len(bounds)-1, s.Workers, s.Gate, func(j int) {
+		for i := bounds[j]; i < bounds[j+1]; i++ {
+			k, lo, hi := p.piece(i)
+			lo, hi = min(lo, n), min(hi, n)
+			best[i], at[i] = math.Inf(-1), -1
+			if lo < hi {
+				best[i], at[i] = groupBoundExcess(w.slice(lo, hi), trits[lo:hi], scales[k])
+				if at[i] >= 0 {
+					at[i] += lo
+				}
+			}
+		}
+	})
+	var worst excessTracker
+	for k, sc := range scales {
+		b, a := math.Inf(-1), -1
+		for i := k * p.per; i < (k+1)*p.per; i++ {
+			if at[i] >= 0 && (a < 0 || best[i] > b) {
+				b, a = best[i], at[i]
+			}
+		}
+		worst.note(b, a, float64(sc))
+	}
+	return worst.result()
+}

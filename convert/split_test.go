@@ -147,3 +147,48 @@ func TestTernarizeSplitErrors(t *testing.T) {
 	require.ErrorAs(t, err, &nf)
 	require.Equal(t, 2*SumBlock+5, nf.Index)
 }
+
+// The bound check shared by goroutines finds the one-goroutine result: the
+// same largest excess and the first element attaining it, also when equal
+// maxima lie in different blocks of one group.
+func TestTernaryBoundExcessSplit(t *testing.T) {
+	old := SplitMinElements
+	SplitMinElements = 1 << 12
+	t.Cleanup(func() { SplitMinElements = old })
+	n := 3*SumBlock + 96 // 96 × 32769
+	w := make([]float32, n)
+	trits := make([]int8, n)
+	rng := rand.New(rand.NewPCG(45, 46))
+	for i := range w {
+		w[i] = float32(rng.NormFloat64() * 0.3)
+		trits[i] = int8(rng.IntN(3)) - 1
+	}
+	tied := slices.Clone(w)
+	tiedTrits := make([]int8, n)
+	for i := range tied {
+		tied[i] = 0
+	}
+	tied[2*SumBlock+7], tied[SumBlock+5] = 1.4, 1.4 // equal excesses, 0.9 of the scale
+	tied[9] = float32(math.NaN())                    // never counts
+	for _, c := range []struct {
+		name  string
+		w     []float32
+		trits []int8
+	}{{"gaussian", w, trits}, {"tied", tied, tiedTrits}} {
+		require.Zero(t, n%32769)
+		for _, groupSize := range []int{n, 32769, 96} {
+			scales := make([]float32, n/groupSize)
+			for k := range scales {
+				scales[k] = 1 + float32(k%3)/8
+			}
+			want, wantAt := TernaryBoundExcess(c.w, c.trits, scales, groupSize)
+			for _, workers := range []int{1, 2, 3, 7} {
+				got, at := TernaryBoundExcessSplit(Float32Weights(c.w), c.trits, scales, groupSize, Split{Workers: workers, Gate: NewGate(workers)})
+				require.Equal(t, wantAt, at, "%s group %d workers %d", c.name, groupSize, workers)
+				require.Equal(t, math.Float64bits(want), math.Float64bits(got), "%s group %d workers %d", c.name, groupSize, workers)
+			}
+		}
+	}
+	_, at := TernaryBoundExcessSplit(Float32Weights(tied), tiedTrits, []float32{1}, n, Split{Workers: 3})
+	require.Equal(t, SumBlock+5, at, "the first of equal excesses")
+}

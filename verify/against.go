@@ -189,7 +189,7 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 		if err != nil {
 			return err.Error()
 		}
-		v.excess, v.at = convert.TernaryBoundExcessOf(ws, packed, scales, t.GroupSize())
+		v.excess, v.at = convert.TernaryBoundExcessSplit(ws, packed, scales, t.GroupSize(), convert.Split{Workers: b.workers, Gate: b.gate})
 		v.tol = convert.TernaryBoundTolerance
 		if d := diffScales(scales, q.Scales); d != "" {
 			return d
