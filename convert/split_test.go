@@ -169,7 +169,7 @@ func TestTernaryBoundExcessSplit(t *testing.T) {
 		tied[i] = 0
 	}
 	tied[2*SumBlock+7], tied[SumBlock+5] = 1.4, 1.4 // equal excesses, 0.9 of the scale
-	tied[9] = float32(math.NaN())                    // never counts
+	tied[9] = float32(math.NaN())                   // never counts
 	for _, c := range []struct {
 		name  string
 		w     []float32
