@@ -192,3 +192,25 @@ func TestTernaryBoundExcessSplit(t *testing.T) {
 	_, at := TernaryBoundExcessSplit(Float32Weights(tied), tiedTrits, []float32{1}, n, Split{Workers: 3})
 	require.Equal(t, SumBlock+5, at, "the first of equal excesses")
 }
+
+// Absmean under blocked16, worked by hand: 2^53 and 2^29 in lanes 0 and 4
+// of the first block and ones in lanes 0 and 1 of the second sum to
+// B_0 = 2^53 + 2^29 and B_1 = 2, so A = 2^53 + 2^29 + 2 exactly, where one
+// set of sixteen lanes over the whole row (strided16) rounds both ones
+// away (2^53 + 1 and 2^53 + 2^29 + 1 tie to even, downwards).
+func TestAbsmeanBlockedWorked(t *testing.T) {
+	w := make([]float32, 2*SumBlock)
+	w[0], w[4], w[SumBlock], w[SumBlock+1] = 0x1p53, 0x1p29, 1, 1
+	m := float64(len(w)) // 2^21: the division is exact
+	got, err := Absmean(w, SumBlocked16)
+	require.NoError(t, err)
+	require.Equal(t, (0x1p53+0x1p29+2)/m, got)
+	got, err = Absmean(w, SumStrided16)
+	require.NoError(t, err)
+	require.Equal(t, (0x1p53+0x1p29)/m, got)
+	// the same gamma decides the scale of Ternarize (reciprocal form: the
+	// float32 of gamma, 2^32 + 2^8 + 2^-20, rounds up to 2^32 + 2^9)
+	q, err := Ternarize(w, len(w), PerTensor, DefaultRecipe(), make([]int8, len(w)))
+	require.NoError(t, err)
+	require.Equal(t, float32(0x1p32+0x1p9), q.Scales[0])
+}
