@@ -1,4 +1,4 @@
-/* tkart.h: a C99 reader of ternkit artifacts (.tkart), format 1.0 to 1.3,
+/* tkart.h: a C99 reader of ternkit artifacts (.tkart), format 1.0 to 1.4,
  * written from pack/FORMAT.md.
  *
  * The reader works over a buffer the caller provides (typically the whole
