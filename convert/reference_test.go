@@ -156,6 +156,9 @@ func TestBlockedAgreesWithNumpy(t *testing.T) {
 				rule ScaleRule
 				tie  TieRule
 			}{{ScaleReciprocal, TieHalfEven}, {ScaleQuotient, TieHalfAway}} {
+				if tn.name == "blockpair" && rt.rule != ScaleReciprocal {
+					continue // its sums decide only the reciprocal form's scale
+				}
 				scales := map[SumOrder][]float32{}
 				for _, order := range []SumOrder{SumBlocked16, SumStrided16} {
 					r := recipeWith(rt.rule, rt.tie)
@@ -183,7 +186,7 @@ func TestBlockedAgreesWithNumpy(t *testing.T) {
 				}
 				// (the quotient form adds epsilon to gamma before rounding,
 				// which lifts both off the midpoint)
-				if tn.name == "blockpair" && (gs == "tensor" || gs == "row") && rt.rule == ScaleReciprocal {
+				if tn.name == "blockpair" && (gs == "tensor" || gs == "row") {
 					require.NotEqual(t, scales[SumStrided16][0], scales[SumBlocked16][0], "%s/%s: the orders must differ here", tn.name, gs)
 				}
 			}
