@@ -25,8 +25,9 @@ type Options struct {
 	Codec  Codec           // trit codec for ternary tensors
 	Recipe convert.Recipe  // ternarization recipe
 	Policy *convert.Policy // nil means convert.DefaultPolicy()
-	// Workers quantize tensors in parallel; 0 means one per CPU. The bytes
-	// written are the same for any count.
+	// Workers quantize tensors in parallel, and share the work of one
+	// tensor of at least convert.SplitMinElements weights; 0 means one per
+	// CPU. The bytes written are the same for any count.
 	Workers int
 	// Budget bounds the source bytes in flight (0: convert.DefaultWalkBudget).
 	Budget int64
@@ -46,6 +47,10 @@ type Options struct {
 	// far and their total: once before the first tensor and after each one.
 	// It runs on Build's goroutine and must return quickly.
 	Progress func(done, total int64)
+
+	// gate bounds the goroutines quantizing at once to Workers: a tensor
+	// job holds a slot, and a large tensor's extra goroutines take more.
+	gate *convert.Gate
 }
 
 // Build reads every tensor of src once, quantizes or keeps it as the
@@ -117,6 +122,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
+	opts.Workers, opts.gate = workers, convert.NewGate(workers)
 	bufs := make([]quantizeBuffers, workers)
 	advance := progressFunc(opts.Progress, src.Tensors)
 	type packed struct {
@@ -163,7 +169,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 				SourceDType:  t.DType,
 				SourceBLAKE3: manifest.HexHash(sum),
 			}
+			opts.gate.Acquire()
 			out, err := bufs[worker].apply(&e, t, raw, actions[t], opts)
+			opts.gate.Release()
 			if err != nil {
 				return packed{}, err
 			}
@@ -298,13 +306,15 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 }
 
 // ternary quantizes w, encoding the trits as they come, and fills the
-// entry of a ternary tensor.
+// entry of a ternary tensor. A large tensor's work is shared by up to
+// opts.Workers goroutines (convert.TernarizeSplit): the same bytes.
 func ternary(e *manifest.Tensor, a convert.Action, w convert.Weights, cols int, opts Options) (sections, error) {
-	enc, err := NewTritEncoder(opts.Codec, w.Len())
+	enc, err := NewSplitEncoder(opts.Codec, w.Len())
 	if err != nil {
 		return sections{}, err
 	}
-	res, err := convert.TernarizeStream(w, cols, a.Granularity, opts.Recipe, enc.Write)
+	res, err := convert.TernarizeSplit(w, cols, a.Granularity, opts.Recipe,
+		convert.Split{Workers: opts.Workers, Gate: opts.gate, Range: enc.Range})
 	if err != nil {
 		return sections{}, err
 	}

@@ -18,7 +18,7 @@ func buildCompanions(t *testing.T, src, dst string, cs []Companion) error {
 	s, err := convert.Open(src)
 	require.NoError(t, err)
 	defer s.Close()
-	_, err = Build(s, dst, Options{Codec: Base3, Recipe: convert.DefaultRecipe(), Tool: "ternkit test", Companions: cs})
+	_, err = Build(s, dst, Options{Codec: Base3, Recipe: stridedRecipe(), Tool: "ternkit test", Companions: cs})
 	return err
 }
 

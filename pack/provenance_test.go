@@ -35,6 +35,21 @@ func sequentialRecipe() convert.Recipe {
 	return r
 }
 
+// stridedRecipe is the default recipe with the strided16 sum order (the
+// default of format 1.2 and 1.3 writers).
+func stridedRecipe() convert.Recipe {
+	r := convert.DefaultRecipe()
+	r.Sum = convert.SumStrided16
+	return r
+}
+
+// blockedRecipe is the default recipe with the blocked16 sum order.
+func blockedRecipe() convert.Recipe {
+	r := convert.DefaultRecipe()
+	r.Sum = convert.SumBlocked16
+	return r
+}
+
 func readFile(t *testing.T, path string) []byte {
 	t.Helper()
 	b, err := os.ReadFile(path)
@@ -93,8 +108,9 @@ func TestOpenRejectsMinorVersion(t *testing.T) {
 		bad    []uint16
 		wants  []error
 	}{
-		{sequentialRecipe(), 0, []uint16{1, 2, 3, 4}, []error{ErrStructure, ErrStructure, ErrStructure, ErrVersion}},
-		{convert.DefaultRecipe(), 2, []uint16{0, 1, 3, 4}, []error{ErrVersion, ErrVersion, ErrStructure, ErrVersion}},
+		{sequentialRecipe(), 0, []uint16{1, 2, 3, 4, 5}, []error{ErrStructure, ErrStructure, ErrStructure, ErrStructure, ErrVersion}},
+		{stridedRecipe(), 2, []uint16{0, 1, 3, 4, 5}, []error{ErrVersion, ErrVersion, ErrStructure, ErrStructure, ErrVersion}},
+		{blockedRecipe(), 4, []uint16{0, 1, 2, 3, 5}, []error{ErrVersion, ErrVersion, ErrVersion, ErrVersion, ErrVersion}},
 	} {
 		dst := filepath.Join(dir, "p"+Extension)
 		buildWith(t, src, dst, Options{Recipe: r.recipe, PolicyRules: testRules, Created: time.Unix(1_700_000_000, 0)})

@@ -525,7 +525,7 @@ func writeVectors(t *testing.T) {
 	add(vector{File: "ok-exact.tkart", Expect: "ok", Version: "1.0", Note: "tensors already c × {-1, 0, +1}: exact, scale 0.25 (tensor) and 3, recipe's, 0.5 (rows)", Tensors: wantExact}, okExact)
 
 	// gamma summed in 16 strided partial sums: the recipe's sum key, 1.2
-	str := &vectorSource{recipe: convert.DefaultRecipe()}
+	str := &vectorSource{recipe: stridedRecipe()}
 	str.float("strided.w", []int64{4, 10}, testweights.Gaussian(newTestRand(34), 40))
 	okStrided, wantStrided := str.build(t, Base3)
 	add(vector{File: "ok-strided16.tkart", Expect: "ok", Version: "1.2", Note: `recipe with "sum": "strided16" (gamma summed in 16 strided partial sums), so format 1.2`, Tensors: wantStrided}, okStrided)
@@ -533,7 +533,7 @@ func writeVectors(t *testing.T) {
 
 	// Companion files (format 1.3): a model config, a licence and an
 	// empty file, after the tensor's sections.
-	comp := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{
+	comp := &vectorSource{recipe: stridedRecipe(), companions: []vectorFile{
 		{"config.json", []byte(`{"hidden_size": 8, "num_hidden_layers": 1, "vocab_size": 12}` + "\n")},
 		{"LICENSE", []byte("Fernmoss Seed Vault scanner weights. Internal use only.\n")},
 		{"NOTICE", nil},
@@ -545,7 +545,7 @@ func writeVectors(t *testing.T) {
 
 	// A valid artifact whose config contradicts its tensors: readers accept
 	// it (companions are opaque to the format); ternkit verify warns.
-	mis := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{
+	mis := &vectorSource{recipe: stridedRecipe(), companions: []vectorFile{
 		{"config.json", []byte(`{"hidden_size": 8, "intermediate_size": 16, "num_hidden_layers": 1, "num_attention_heads": 2, "num_key_value_heads": 2, "head_dim": 4, "vocab_size": 16, "tie_word_embeddings": false}` + "\n")},
 	}}
 	mis.kept("model.embed_tokens.weight", "F16", []int64{12, 8}, make([]byte, 2*12*8))
@@ -560,7 +560,7 @@ func writeVectors(t *testing.T) {
 	for i := range bigData {
 		bigData[i] = byte(i * 7)
 	}
-	bigSrc := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{{"vocab.txt", bigData}}}
+	bigSrc := &vectorSource{recipe: stridedRecipe(), companions: []vectorFile{{"vocab.txt", bigData}}}
 	okBig, _ := bigSrc.build(t, Base3)
 	add(vector{File: "ok-chunks.tkart", Expect: "ok", Version: "1.3", Note: "a companion section of 4199304 bytes (2^22 + 5000): two piece hashes, the last piece 5000 bytes", Companions: bigSrc.wantCompanions()}, okBig)
 	bigPath := path("big", okBig)
@@ -790,6 +790,15 @@ func writeVectors(t *testing.T) {
 		setScale(d, 1, float32(math.Copysign(0, -1)))
 	})
 	vs[len(vs)-1].Version, vs[len(vs)-1].Tensors = "1.0", wantNegZero
+
+	// gamma summed in blocks of sixteen strided partial sums (format 1.4);
+	// a tensor of at most 2^20 elements has the trits of strided16
+	blk := &vectorSource{recipe: blockedRecipe()}
+	blk.float("blocked.w", []int64{4, 10}, testweights.Gaussian(newTestRand(35), 40))
+	okBlocked, wantBlocked := blk.build(t, Base3)
+	add(vector{File: "ok-blocked16.tkart", Expect: "ok", Version: "1.4", Note: `recipe with "sum": "blocked16" (gamma summed in blocks of 2^20 elements, each in 16 strided partial sums), so format 1.4`, Tensors: wantBlocked}, okBlocked)
+	blockedPath := path("blocked", okBlocked)
+	redo("bad-minor-for-blocked16.tkart", failVersion, `the recipe's "sum": "blocked16" (format 1.4) in a file that says version 1.3`, blockedPath, func(d *draft) { d.minor = 3 })
 
 	require.NoError(t, os.MkdirAll(vectorsDir, 0o755))
 	old, _ := filepath.Glob(filepath.Join(vectorsDir, "*.tkart"))

@@ -3,6 +3,7 @@ package pack
 import (
 	"fmt"
 
+	"ternkit/convert"
 	"ternkit/manifest"
 )
 
@@ -22,14 +23,21 @@ const sumKeySince = 2
 // "companions" key and companion sections.
 const companionsSince = 3
 
+// blockedSumSince is the minor version that defines the sum order
+// "blocked16".
+const blockedSumSince = 4
+
 // minorVersionFor is the lowest minor version whose features m uses.
 func minorVersionFor(m *manifest.Manifest) uint16 {
 	var v uint16
 	if m.Recipe.Sum != "" {
 		v = sumKeySince
 	}
+	if m.Recipe.Sum == convert.SumBlocked16 {
+		v = blockedSumSince
+	}
 	if len(m.Companions) > 0 {
-		v = companionsSince
+		v = max(v, companionsSince)
 	}
 	for _, e := range m.Tensors {
 		v = max(v, codecSince[e.Codec])
@@ -47,6 +55,9 @@ func checkMinorVersion(m *manifest.Manifest, minor uint16) error {
 	}
 	if m.Recipe.Sum != "" && minor < sumKeySince {
 		return fmt.Errorf("%w: the recipe's sum order is a key of format 1.%d, the preamble says 1.%d", ErrVersion, sumKeySince, minor)
+	}
+	if m.Recipe.Sum == convert.SumBlocked16 && minor < blockedSumSince {
+		return fmt.Errorf("%w: the recipe's sum order %s is a value of format 1.%d, the preamble says 1.%d", ErrVersion, m.Recipe.Sum, blockedSumSince, minor)
 	}
 	if len(m.Companions) > 0 && minor < companionsSince {
 		return fmt.Errorf("%w: companion files are a feature of format 1.%d, the preamble says 1.%d", ErrVersion, companionsSince, minor)

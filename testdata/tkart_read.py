@@ -37,12 +37,13 @@ ALIGN = 64
 PREAMBLE_LEN = 64
 TRAILER_LEN = 64
 MANIFEST_LIMIT = 256 << 20
-READER_MINOR = 3  # the highest minor version of format 1 this reader implements
+READER_MINOR = 4  # the highest minor version of format 1 this reader implements
 
 # Minor version that defines each codec ("Versioning").
 CODEC_SINCE = {"raw": 0, "bits2": 0, "base3": 0, "entropy": 1}
 SUM_KEY_SINCE = 2  # the recipe's "sum" key
 COMPANIONS_SINCE = 3  # the manifest's "companions" key
+BLOCKED_SUM_SINCE = 4  # the recipe's sum order "blocked16"
 TRIT_CODECS = ("bits2", "base3", "entropy")
 DTYPE_SIZE = {
     "F64": 8, "F32": 4, "F16": 2, "BF16": 2, "F8_E4M3": 1, "F8_E5M2": 1,
@@ -270,7 +271,7 @@ def parse_manifest(body):
     if (string(r.get("method"), "recipe.method") != "absmean"
             or string(r.get("scale_rule"), "recipe.scale_rule") not in ("reciprocal", "quotient")
             or string(r.get("tie"), "recipe.tie") not in ("half-even", "half-away")
-            or string(r.get("sum"), "recipe.sum") not in ("", "strided16", "sequential")
+            or string(r.get("sum"), "recipe.sum") not in ("", "blocked16", "strided16", "sequential")
             or not eps > 0 or math.isinf(eps) or eps32 == 0 or np.isinf(eps32)):
         raise bad("recipe %r" % r)
 
@@ -327,7 +328,7 @@ def parse_manifest(body):
         if integer(totals.get(k), "totals." + k) != v:
             raise bad("totals.%s is %r, the tensors give %d" % (k, totals.get(k), v))
     number(totals.get("bits_per_ternary_weight"), "totals.bits_per_ternary_weight")
-    return tensors, companions, bool(r.get("sum"))  # "" reads as absent, as any zero value
+    return tensors, companions, r.get("sum") or ""  # "" reads as absent, as any zero value
 
 
 def companion_name(name):
@@ -606,10 +607,12 @@ def read_artifact(data, with_trits):
     if blake3_hex(body) != tr[16:48].hex():
         raise Reject("manifest-hash", "manifest BLAKE3 differs from the trailer's")
 
-    tensors, companions, has_sum = parse_manifest(body)
+    tensors, companions, sum_order = parse_manifest(body)
     used = max([CODEC_SINCE[t["codec"]] for t in tensors], default=0)
-    if has_sum:
+    if sum_order:
         used = max(used, SUM_KEY_SINCE)
+    if sum_order == "blocked16":
+        used = max(used, BLOCKED_SUM_SINCE)
     if companions:
         used = max(used, COMPANIONS_SINCE)
     if used > minor:

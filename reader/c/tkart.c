@@ -1264,12 +1264,13 @@ static int parse_recipe(jp *j, mfacts *mf)
 		return jbad(j, "recipe: scale_rule \"%.40s\"", rule);
 	if (strcmp(tie, "half-even") && strcmp(tie, "half-away"))
 		return jbad(j, "recipe: tie \"%.40s\"", tie);
-	if (sum[0] && strcmp(sum, "strided16") && strcmp(sum, "sequential"))
-		return jbad(j, "recipe: sum \"%.40s\" (want strided16 or sequential)", sum);
+	if (sum[0] && strcmp(sum, "blocked16") && strcmp(sum, "strided16") && strcmp(sum, "sequential"))
+		return jbad(j, "recipe: sum \"%.40s\" (want blocked16, strided16 or sequential)", sum);
 	e32 = (float)eps;
 	if (!(eps > 0) || eps > 0.01 || e32 == 0)
 		return jbad(j, "recipe: epsilon %g (want a number in (0, 0.01] whose float32 is nonzero)", eps);
-	mf->has_sum = sum[0] != 0;
+	/* the minor version the sum order needs: the key is of 1.2, blocked16 of 1.4 */
+	mf->has_sum = !sum[0] ? 0 : strcmp(sum, "blocked16") ? 2 : 4;
 	return 0;
 }
 
@@ -1775,6 +1776,9 @@ int tkart_open(tkart *a, const void *buf, uint64_t size, void *arena, size_t are
 	if (mf.has_sum && a->minor < 2)
 		return fail(a, TKART_E_VERSION, 10, "preamble: byte 10: the recipe's sum is a key of format 1.2, the preamble says 1.%u (FORMAT.md, Versioning)",
 		            a->minor);
+	if (mf.has_sum && a->minor < (unsigned)mf.has_sum)
+		return fail(a, TKART_E_VERSION, 10, "preamble: byte 10: the recipe's sum order blocked16 is of format 1.4, the preamble says 1.%u (FORMAT.md, Versioning)",
+		            a->minor);
 	if (mf.has_sum)
 		used = 2;
 	if (a->ncompanions && a->minor < 3)
@@ -1782,6 +1786,8 @@ int tkart_open(tkart *a, const void *buf, uint64_t size, void *arena, size_t are
 		            a->minor);
 	if (a->ncompanions)
 		used = 3;
+	if (mf.has_sum > 3)
+		used = (unsigned)mf.has_sum;
 	if (a->minor != used)
 		return fail(a, TKART_E_STRUCTURE, 10, "preamble: byte 10: preamble says format 1.%u, the manifest uses features of 1.%u only (FORMAT.md, Versioning)",
 		            a->minor, used);

@@ -1,4 +1,4 @@
-/* tkart.h: a C99 reader of ternkit artifacts (.tkart), format 1.0 to 1.3,
+/* tkart.h: a C99 reader of ternkit artifacts (.tkart), format 1.0 to 1.4,
  * written from pack/FORMAT.md.
  *
  * The reader works over a buffer the caller provides (typically the whole
@@ -27,7 +27,7 @@ extern "C" {
 #endif
 
 /* The highest minor version of format 1 this reader implements. */
-#define TKART_MINOR 3
+#define TKART_MINOR 4
 /* The largest manifest this reader accepts (FORMAT.md: a reader documents
  * its own limit). */
 #define TKART_MANIFEST_LIMIT ((uint64_t)256 << 20)
