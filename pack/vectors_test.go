@@ -265,8 +265,13 @@ func (d *draft) encode(t *testing.T) []byte {
 	place := func(s *manifest.Section, p []byte, gap int) {
 		out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out))+int64(gap))...)
 		s.Offset, s.Length, s.BLAKE3 = int64(len(out)), int64(len(p)), manifest.HexHash(blake3.Sum256(p))
+		s.Chunks, s.PieceCVs = nil, nil
 		if manifest.NumChunks(s.Length) > 0 {
-			s.Chunks = hashSection(p).Chunks
+			if d.minor >= pieceCVsSince {
+				s.PieceCVs = hashSection(p).PieceCVs
+			} else {
+				s.Chunks = chunkHashes(p)
+			}
 		}
 		out = append(out, p...)
 	}
@@ -860,4 +865,14 @@ written from FORMAT.md alone), run from ` + "`go test ./cmd/ternkit`" + `.
 		fmt.Fprintf(&b, "| %s | %s | %s |\n", v.File, res, v.Note)
 	}
 	return b.String()
+}
+
+// chunkHashes are the piece records of formats 1.0 to 1.3: the BLAKE3 of
+// each manifest.ChunkSize piece as an input of its own.
+func chunkHashes(p []byte) []string {
+	var out []string
+	for o := 0; o < len(p); o += manifest.ChunkSize {
+		out = append(out, manifest.HexHash(blake3.Sum256(p[o:min(o+manifest.ChunkSize, len(p))])))
+	}
+	return out
 }
