@@ -54,9 +54,9 @@ var ErrInvalid = errors.New("invalid manifest")
 type Manifest struct {
 	Format  string `json:"format"`
 	Version int    `json:"version"`
-	// Minor repeats the preamble's minor version (format 1.4 on; 0, left
+	// Minor repeats the preamble's minor version (format 1.4 on; nil, left
 	// out, before), so that the manifest hash covers it.
-	Minor int    `json:"minor,omitempty"`
+	Minor *int   `json:"minor,omitempty"`
 	Tool  string `json:"tool"`
 	// Created is the build time as CreatedLayout, or "" (the usual case, so
 	// that rebuilding gives the same bytes).
@@ -245,6 +245,12 @@ func (m *Manifest) ComputeTotals() {
 	m.Totals = t
 }
 
+// MinorKey is the value of "minor" in new manifests.
+func MinorKey() *int {
+	v := MinorWritten
+	return &v
+}
+
 // Encode writes m as compact JSON.
 func Encode(m *Manifest) ([]byte, error) {
 	var buf bytes.Buffer
@@ -289,8 +295,8 @@ func (m *Manifest) Validate() error {
 	if m.Version != Version {
 		return bad("version %d (want %d)", m.Version, Version)
 	}
-	if m.Minor != 0 && m.Minor != MinorWritten {
-		return bad("minor %d (format 1.%d is the only one that records it)", m.Minor, MinorWritten)
+	if m.Minor != nil && *m.Minor != MinorWritten {
+		return bad("minor %d (format 1.%d is the only one that records it)", *m.Minor, MinorWritten)
 	}
 	if err := m.Recipe.Validate(); err != nil {
 		return bad("recipe: %v", err)

@@ -421,7 +421,7 @@ func (w *atomicWriter) finish(m *manifest.Manifest) error {
 		return err
 	}
 	t := trailer{manifestOffset: w.off}
-	m.Minor = manifest.MinorWritten // new artifacts are of the newest format
+	m.Minor = manifest.MinorKey() // new artifacts are of the newest format
 	h := blake3.New()
 	n, err := writeManifest(io.MultiWriter(writerFunc(w.write), h), m)
 	if err != nil {

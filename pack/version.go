@@ -31,8 +31,8 @@ const pieceCVsSince = manifest.MinorWritten
 // its "minor" key records (1.4 on), else the lowest one whose features it
 // uses (1.0 to 1.3).
 func minorVersionFor(m *manifest.Manifest) uint16 {
-	if m.Minor != 0 {
-		return uint16(m.Minor)
+	if m.Minor != nil {
+		return uint16(*m.Minor)
 	}
 	var v uint16
 	if m.Recipe.Sum != "" {
@@ -62,15 +62,15 @@ func checkMinorVersion(m *manifest.Manifest, minor uint16) error {
 		return fmt.Errorf("%w: companion files are a feature of format 1.%d, the preamble says 1.%d", ErrVersion, companionsSince, minor)
 	}
 	pieces, chunks := pieceRecords(m)
-	if m.Minor != 0 && minor < pieceCVsSince {
+	if m.Minor != nil && minor < pieceCVsSince {
 		return fmt.Errorf("%w: the manifest's minor key is a key of format 1.%d, the preamble says 1.%d", ErrVersion, pieceCVsSince, minor)
 	}
 	if pieces && minor < pieceCVsSince {
 		return fmt.Errorf("%w: piece chaining values (piece_cvs) are a key of format 1.%d, the preamble says 1.%d", ErrVersion, pieceCVsSince, minor)
 	}
 	if minor >= pieceCVsSince {
-		if m.Minor != int(minor) {
-			return fmt.Errorf("%w: the preamble says format 1.%d, the manifest's minor key is %d (required from 1.%d on, equal to the preamble's)", manifest.ErrInvalid, minor, m.Minor, pieceCVsSince)
+		if m.Minor == nil || *m.Minor != int(minor) {
+			return fmt.Errorf("%w: the preamble says format 1.%d, the manifest has no minor key equal to it (required from 1.%d on)", manifest.ErrInvalid, minor, pieceCVsSince)
 		}
 		if chunks {
 			return fmt.Errorf("%w: chunk hashes (chunks) in a file of format 1.%d, which records piece_cvs instead", manifest.ErrInvalid, minor)

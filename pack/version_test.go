@@ -106,7 +106,7 @@ func TestMinorVersionFor(t *testing.T) {
 // Format 1.4: the manifest's minor key fixes the preamble's minor version,
 // and sections record piece chaining values, not chunk hashes.
 func TestMinorVersion14(t *testing.T) {
-	m := &manifest.Manifest{Minor: 4}
+	m := &manifest.Manifest{Minor: manifest.MinorKey()}
 	require.Equal(t, uint16(4), minorVersionFor(m))
 	require.NoError(t, checkMinorVersion(m, 4))
 	require.ErrorIs(t, checkMinorVersion(m, 3), ErrVersion)
@@ -116,12 +116,16 @@ func TestMinorVersion14(t *testing.T) {
 	big := manifest.Section{Length: manifest.ChunkSize + 1, BLAKE3: hash, PieceCVs: []string{hash, hash}}
 	m.Tensors = []manifest.Tensor{{Codec: manifest.CodecRaw, Section: big}}
 	require.NoError(t, checkMinorVersion(m, 4))
-	m.Minor = 0 // piece_cvs without the minor key
+	m.Minor = nil // piece_cvs without the minor key
 	require.ErrorIs(t, checkMinorVersion(m, 4), manifest.ErrInvalid)
 	require.ErrorIs(t, checkMinorVersion(m, 3), ErrVersion)
-	m.Minor = 4
+	m.Minor = manifest.MinorKey()
 	m.Tensors[0].Section.PieceCVs, m.Tensors[0].Section.Chunks = nil, []string{hash, hash}
 	require.ErrorIs(t, checkMinorVersion(m, 4), manifest.ErrInvalid, "chunks in 1.4")
-	m.Minor = 0
+	m.Minor = nil
 	require.NoError(t, checkMinorVersion(m, 0), "chunks in 1.0")
+	zero := 0
+	m.Minor = &zero
+	m.Format, m.Version = manifest.FormatName, manifest.Version
+	require.ErrorContains(t, m.Validate(), "minor 0", `"minor": 0`)
 }
