@@ -13,6 +13,8 @@ import (
 	"github.com/stretchr/testify/require"
 	"github.com/zeebo/blake3"
 
+	"ternkit/convert"
+	"ternkit/internal/testweights"
 	"ternkit/manifest"
 )
 
@@ -116,4 +118,57 @@ func TestCheckSectionNamesBadPiece(t *testing.T) {
 	bad[2*manifest.ChunkSize] ^= 1
 	old.BLAKE3 = manifest.HexHash(blake3.Sum256(bad)) // only the chunk hash can catch it
 	require.ErrorContains(t, checkSectionBytes(bad, old, "section", 2, fail), "chunk 2 ")
+}
+
+// Artifacts are byte-identical for any worker count and byte budget: a
+// ternary payload over 4 MiB (its piece chaining values computed in
+// parallel), a large kept tensor (in pieces, or whole), an int8 tensor and
+// small ones; and every section over 4 MiB records chaining values whose
+// join is the section's plain BLAKE3 (github.com/zeebo/blake3).
+func TestBuildSameBytesAnyWorkers(t *testing.T) {
+	dir := t.TempDir()
+	rng := rand.New(rand.NewPCG(61, 62))
+	const rows, cols = 2100, 8200 // bits2: 4,305,000 bytes, two pieces
+	w := make([]float32, rows*cols)
+	for i := range w {
+		w[i] = float32(rng.NormFloat64())
+	}
+	big := randomBytes(63, 9<<20+77)
+	src := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{
+		{Name: "blocks.0.mlp.w", DType: "F32", Shape: []int64{rows, cols}, Data: testweights.F32Bytes(w)},
+		{Name: "embed.tokens.weight", DType: "U8", Shape: []int64{int64(len(big))}, Data: big},
+		{Name: "blocks.1.attn.q.weight", DType: "F32", Shape: []int64{8, 16}, Data: testweights.F32Bytes(testweights.Gaussian(rng, 128))},
+	}, nil))
+	build := func(name string, workers int, budget int64) []byte {
+		s, err := convert.Open(src)
+		require.NoError(t, err)
+		defer s.Close()
+		dst := filepath.Join(dir, name+Extension)
+		_, err = Build(s, dst, Options{Codec: Bits2, Recipe: convert.DefaultRecipe(), Tool: "ternkit test", Workers: workers, Budget: budget})
+		require.NoError(t, err)
+		return readFile(t, dst)
+	}
+	want := build("w1", 1, 0)
+	for _, c := range []struct {
+		workers int
+		budget  int64
+	}{{2, 0}, {3, 0}, {2, 1}, {4, 1}} {
+		require.True(t, bytes.Equal(want, build(fmt.Sprintf("w%d-b%d", c.workers, c.budget), c.workers, c.budget)), "%d workers, budget %d", c.workers, c.budget)
+	}
+	a, err := NewReader(bytes.NewReader(want), int64(len(want)))
+	require.NoError(t, err)
+	require.NoError(t, a.Check())
+	pieced := 0
+	for _, e := range a.Tensors() {
+		s := e.Section
+		if len(s.PieceCVs) == 0 {
+			continue
+		}
+		pieced++
+		require.Equal(t, manifest.HexHash(blake3.Sum256(want[s.Offset:s.Offset+s.Length])), s.BLAKE3, e.Name)
+	}
+	require.Equal(t, 2, pieced, "the ternary payload and the kept tensor are over 4 MiB")
+	require.Equal(t, manifest.KindTernary, a.Tensors()[0].Kind)
+	require.Len(t, a.Tensors()[0].Section.PieceCVs, 2)
 }

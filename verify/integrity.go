@@ -45,14 +45,17 @@ type pieceOutcome struct {
 
 // checkSections checks every section: its BLAKE3, the zero padding after
 // it, and its contents (trit payloads: codes, padding, counts; int8 codes;
-// scales), streamed piece by piece (manifest.ChunkSize); and, for a
-// section that records piece hashes, each piece's BLAKE3. A piece hash
-// cannot be derived from the section's (BLAKE3 numbers the chunks from
-// each input's start, so a piece hashed alone compresses differently from
-// the same bytes inside the section), so each is a job of its own: jobs run
-// on workers in parallel, longest first, each worker holding one piece,
-// and the checks are reported in file order, the same for any worker
-// count.
+// scales). A section of format 1.4 over manifest.ChunkSize records its
+// pieces' chaining values: each piece is a job that hashes it once into
+// its value and checks its contents where they split at pieces (pieces.go),
+// and the section's BLAKE3 is joined from the values. Any other section is
+// streamed piece by piece through one hash and its contents checker; one
+// of 1.0 to 1.3 over manifest.ChunkSize also records each piece's own
+// BLAKE3, which cannot be derived from the section's (a piece hashed alone
+// compresses differently from the same bytes inside the section), so each
+// is a job of its own. Jobs run on workers in parallel, longest first, each
+// worker holding one piece, and the checks are reported in file order, the
+// same for any worker count.
 func checkSections(rep *Report, a *pack.Artifact, src artifactBytes, workers int, advance func(n int64)) {
 	m := a.Manifest()
 	var all []placedSection
