@@ -133,7 +133,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	// its bytes cost a piece of memory, not their length
 	var piece struct {
 		entry  manifest.Tensor
-		chunks *chunkHasher
+		hashes *sectionHasher
 	}
 	walk := convert.WalkOptions{Workers: workers, Budget: opts.Budget, PieceSize: keptPieceSize,
 		InPieces: func(t *convert.Tensor) bool { return t.Length > keptPieceSize && keptAsIs(actions[t], t) },
@@ -145,18 +145,18 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 				piece.entry = manifest.Tensor{Name: t.Name, Shape: t.Shape, SourceDType: t.DType,
 					Kind: manifest.KindKept, Codec: manifest.CodecRaw, DType: t.DType,
 					Section: manifest.Section{Offset: w.off, Length: t.Length}}
-				piece.chunks = &chunkHasher{}
+				piece.hashes = newSectionHasher(workers)
 			}
 			if err := w.write(p); err != nil {
 				return err
 			}
-			piece.chunks.Write(p)
+			piece.hashes.Write(p)
 			advance(int64(len(p)))
 			if sum != nil {
 				e := piece.entry
 				e.SourceBLAKE3 = manifest.HexHash(*sum)
-				e.Section.BLAKE3 = e.SourceBLAKE3 // the source's bytes, hashed already
-				e.Section.Chunks = piece.chunks.finish(t.Length)
+				e.Section = piece.hashes.section()
+				e.Section.Offset = piece.entry.Section.Offset
 				m.Tensors = append(m.Tensors, e)
 			}
 			return nil
@@ -339,43 +339,6 @@ func keptAsIs(a convert.Action, t *convert.Tensor) bool {
 // variable for tests); a multiple of manifest.ChunkSize is quickest.
 var keptPieceSize int64 = convert.DefaultPieceSize
 
-// chunkHasher gathers the BLAKE3 of each manifest.ChunkSize piece of a
-// section from bytes written in runs of any length.
-type chunkHasher struct {
-	h      *blake3.Hasher
-	n      int64 // bytes in the current piece
-	chunks []string
-}
-
-func (c *chunkHasher) Write(p []byte) {
-	for len(p) > 0 {
-		if c.h == nil {
-			c.h = blake3.New()
-		}
-		k := min(int64(len(p)), manifest.ChunkSize-c.n)
-		c.h.Write(p[:k])
-		c.n += k
-		p = p[k:]
-		if c.n == manifest.ChunkSize {
-			c.chunks = append(c.chunks, manifest.HexHash([32]byte(c.h.Sum(nil))))
-			c.h, c.n = nil, 0
-		}
-	}
-}
-
-// finish returns the piece hashes of a section of length bytes, none for a
-// section of at most one piece (pack/FORMAT.md, "Hashing").
-func (c *chunkHasher) finish(length int64) []string {
-	if manifest.NumChunks(length) == 0 {
-		return nil
-	}
-	if c.n > 0 {
-		c.chunks = append(c.chunks, manifest.HexHash([32]byte(c.h.Sum(nil))))
-		c.h, c.n = nil, 0
-	}
-	return c.chunks
-}
-
 func appendFloat32s(dst []byte, v []float32) []byte {
 	for _, f := range v {
 		dst = binary.LittleEndian.AppendUint32(dst, math.Float32bits(f))
@@ -438,20 +401,20 @@ func (w *atomicWriter) pad() error {
 }
 
 // hashSection is the manifest entry of a section holding p, but for its
-// offset: its BLAKE3 and, past manifest.ChunkSize, the BLAKE3 of each piece.
+// offset: its BLAKE3 and, past manifest.ChunkSize, its piece chaining
+// values, each byte hashed once, pieces in parallel.
 func hashSection(p []byte) manifest.Section {
-	return hashSectionKnown(p, blake3.Sum256(p))
+	return sectionOf(p, runtime.GOMAXPROCS(0))
 }
 
-// hashSectionKnown is hashSection for bytes whose BLAKE3 is known.
+// hashSectionKnown is hashSection for bytes whose BLAKE3 is known: a
+// section of one piece takes it as it is; a longer one needs its pieces'
+// chaining values, which give its BLAKE3 as well.
 func hashSectionKnown(p []byte, sum [32]byte) manifest.Section {
-	s := manifest.Section{Length: int64(len(p)), BLAKE3: manifest.HexHash(sum)}
-	if manifest.NumChunks(s.Length) > 0 {
-		var c chunkHasher
-		c.Write(p)
-		s.Chunks = c.finish(s.Length)
+	if manifest.NumChunks(int64(len(p))) == 0 {
+		return manifest.Section{Length: int64(len(p)), BLAKE3: manifest.HexHash(sum)}
 	}
-	return s
+	return hashSection(p)
 }
 
 // place pads to the alignment, writes p and returns its offset.
@@ -468,6 +431,7 @@ func (w *atomicWriter) finish(m *manifest.Manifest) error {
 		return err
 	}
 	t := trailer{manifestOffset: w.off}
+	m.Minor = manifest.MinorKey() // new artifacts are of the newest format
 	h := blake3.New()
 	n, err := writeManifest(io.MultiWriter(writerFunc(w.write), h), m)
 	if err != nil {

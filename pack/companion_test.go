@@ -47,7 +47,7 @@ func TestCompanionsRoundTrip(t *testing.T) {
 	defer a.Close()
 	require.NoError(t, a.Check())
 	_, minor := a.Version()
-	require.Equal(t, 3, minor, "companions make format 1.3")
+	require.Equal(t, 4, minor, "new artifacts are format 1.4")
 	require.Len(t, a.Companions(), 3)
 	for name, want := range map[string][]byte{"config.json": config, "LICENSE": licence, "empty.txt": {}} {
 		got, err := a.Companion(name)
@@ -57,14 +57,14 @@ func TestCompanionsRoundTrip(t *testing.T) {
 	_, err = a.Companion("tokenizer.json")
 	require.ErrorIs(t, err, ErrNoCompanion)
 
-	// without companions the same source gives format 1.2
+	// without companions the same source gives format 1.4 too
 	plain := filepath.Join(dir, "plain"+Extension)
 	require.NoError(t, buildCompanions(t, src, plain, nil))
 	b, err := Open(plain)
 	require.NoError(t, err)
 	defer b.Close()
 	_, minor = b.Version()
-	require.Equal(t, 2, minor)
+	require.Equal(t, 4, minor)
 	require.Empty(t, b.Companions())
 
 	// a changed byte in a companion's section is a hash failure

@@ -79,7 +79,7 @@ func TestBuildRecordsProvenance(t *testing.T) {
 			dst := filepath.Join(dir, c.name+Extension)
 			buildWith(t, src, dst, c.opts)
 			b := readFile(t, dst)
-			require.Equal(t, uint16(0), binary.LittleEndian.Uint16(b[10:]), "created and policy are keys of format 1.0")
+			require.Equal(t, uint16(4), binary.LittleEndian.Uint16(b[10:]), "new artifacts are format 1.4")
 			a, err := Open(dst)
 			require.NoError(t, err)
 			defer a.Close()
@@ -108,9 +108,10 @@ func TestOpenRejectsMinorVersion(t *testing.T) {
 		bad    []uint16
 		wants  []error
 	}{
-		{sequentialRecipe(), 0, []uint16{1, 2, 3, 4, 5}, []error{ErrStructure, ErrStructure, ErrStructure, ErrStructure, ErrVersion}},
-		{stridedRecipe(), 2, []uint16{0, 1, 3, 4, 5}, []error{ErrVersion, ErrVersion, ErrStructure, ErrStructure, ErrVersion}},
-		{blockedRecipe(), 4, []uint16{0, 1, 2, 3, 5}, []error{ErrVersion, ErrVersion, ErrVersion, ErrVersion, ErrVersion}},
+		// new artifacts are 1.4 whatever their recipe: below it the
+		// manifest's minor key is too new, above it the version unknown
+		{sequentialRecipe(), 4, []uint16{0, 1, 2, 3, 5}, []error{ErrVersion, ErrVersion, ErrVersion, ErrVersion, ErrVersion}},
+		{convert.DefaultRecipe(), 4, []uint16{0, 1, 2, 3, 5}, []error{ErrVersion, ErrVersion, ErrVersion, ErrVersion, ErrVersion}},
 	} {
 		dst := filepath.Join(dir, "p"+Extension)
 		buildWith(t, src, dst, Options{Recipe: r.recipe, PolicyRules: testRules, Created: time.Unix(1_700_000_000, 0)})

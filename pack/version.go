@@ -27,8 +27,18 @@ const companionsSince = 3
 // "blocked16".
 const blockedSumSince = 4
 
-// minorVersionFor is the lowest minor version whose features m uses.
+// pieceCVsSince is the minor version that defines sections' "piece_cvs"
+// (in place of "chunks") and the manifest's "minor" key, which every file
+// of that version on records: writers always write it.
+const pieceCVsSince = manifest.MinorWritten
+
+// minorVersionFor is the minor version of a file with manifest m: the one
+// its "minor" key records (1.4 on), else the lowest one whose features it
+// uses (1.0 to 1.3).
 func minorVersionFor(m *manifest.Manifest) uint16 {
+	if m.Minor != nil {
+		return uint16(*m.Minor)
+	}
 	var v uint16
 	if m.Recipe.Sum != "" {
 		v = sumKeySince
@@ -62,8 +72,42 @@ func checkMinorVersion(m *manifest.Manifest, minor uint16) error {
 	if len(m.Companions) > 0 && minor < companionsSince {
 		return fmt.Errorf("%w: companion files are a feature of format 1.%d, the preamble says 1.%d", ErrVersion, companionsSince, minor)
 	}
+	pieces, chunks := pieceRecords(m)
+	if m.Minor != nil && minor < pieceCVsSince {
+		return fmt.Errorf("%w: the manifest's minor key is a key of format 1.%d, the preamble says 1.%d", ErrVersion, pieceCVsSince, minor)
+	}
+	if pieces && minor < pieceCVsSince {
+		return fmt.Errorf("%w: piece chaining values (piece_cvs) are a key of format 1.%d, the preamble says 1.%d", ErrVersion, pieceCVsSince, minor)
+	}
+	if minor >= pieceCVsSince {
+		if m.Minor == nil || *m.Minor != int(minor) {
+			return fmt.Errorf("%w: the preamble says format 1.%d, the manifest has no minor key equal to it (required from 1.%d on)", manifest.ErrInvalid, minor, pieceCVsSince)
+		}
+		if chunks {
+			return fmt.Errorf("%w: chunk hashes (chunks) in a file of format 1.%d, which records piece_cvs instead", manifest.ErrInvalid, minor)
+		}
+		return nil
+	}
 	if want := minorVersionFor(m); minor != want {
 		return fmt.Errorf("%w: preamble says format 1.%d, the manifest uses features of 1.%d only", ErrStructure, minor, want)
 	}
 	return nil
+}
+
+// pieceRecords reports whether any section of m records piece chaining
+// values, and whether any records chunk hashes.
+func pieceRecords(m *manifest.Manifest) (pieces, chunks bool) {
+	see := func(s manifest.Section) {
+		pieces = pieces || len(s.PieceCVs) > 0
+		chunks = chunks || len(s.Chunks) > 0
+	}
+	for i := range m.Tensors {
+		for _, s := range m.Tensors[i].Sections() {
+			see(s)
+		}
+	}
+	for _, c := range m.Companions {
+		see(c.Section)
+	}
+	return pieces, chunks
 }

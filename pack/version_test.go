@@ -41,10 +41,11 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 		stored []string // per tensor
 		minor  int
 	}{
-		{Auto, []string{"base3", "entropy"}, 1},
-		{Base3, []string{"base3", "base3"}, 0},
-		{Bits2, []string{"bits2", "bits2"}, 0},
-		{Entropy, []string{"entropy", "entropy"}, 1},
+		// new artifacts are 1.4 whatever they use (FORMAT.md, "Versioning")
+		{Auto, []string{"base3", "entropy"}, 4},
+		{Base3, []string{"base3", "base3"}, 4},
+		{Bits2, []string{"bits2", "bits2"}, 4},
+		{Entropy, []string{"entropy", "entropy"}, 4},
 	}
 	for _, c := range cases {
 		t.Run(string(c.codec), func(t *testing.T) {
@@ -70,11 +71,11 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 				require.NoError(t, tn.DecodeTrits(make([]int8, tn.Len())))
 			}
 
-			// Any other minor version is rejected: too low for the codecs
-			// used, or higher than the features need.
+			// Any other minor version is rejected: below 1.4 the manifest's
+			// minor key is too new, above it the version is unknown.
 			b, err := os.ReadFile(dst)
 			require.NoError(t, err)
-			for _, other := range []uint16{0, 1, 2} {
+			for _, other := range []uint16{0, 1, 2, 3, 5} {
 				if int(other) == c.minor {
 					continue
 				}
@@ -82,11 +83,7 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 				binary.LittleEndian.PutUint16(bad[10:], other)
 				_, err := NewReader(bytes.NewReader(bad), int64(len(bad)))
 				require.Error(t, err, "minor %d", other)
-				want := ErrStructure
-				if int(other) < c.minor || other > minorVersion {
-					want = ErrVersion
-				}
-				require.ErrorIs(t, err, want, "minor %d", other)
+				require.ErrorIs(t, err, ErrVersion, "minor %d", other)
 			}
 		})
 	}
@@ -104,4 +101,31 @@ func TestMinorVersionFor(t *testing.T) {
 	require.ErrorIs(t, checkMinorVersion(m, 1), ErrVersion)
 	require.ErrorIs(t, checkMinorVersion(m, 3), ErrStructure)
 	require.NoError(t, checkMinorVersion(m, 2))
+}
+
+// Format 1.4: the manifest's minor key fixes the preamble's minor version,
+// and sections record piece chaining values, not chunk hashes.
+func TestMinorVersion14(t *testing.T) {
+	m := &manifest.Manifest{Minor: manifest.MinorKey()}
+	require.Equal(t, uint16(4), minorVersionFor(m))
+	require.NoError(t, checkMinorVersion(m, 4))
+	require.ErrorIs(t, checkMinorVersion(m, 3), ErrVersion)
+	require.ErrorIs(t, checkMinorVersion(m, 0), ErrVersion)
+
+	hash := manifest.HexHash([32]byte{1})
+	big := manifest.Section{Length: manifest.ChunkSize + 1, BLAKE3: hash, PieceCVs: []string{hash, hash}}
+	m.Tensors = []manifest.Tensor{{Codec: manifest.CodecRaw, Section: big}}
+	require.NoError(t, checkMinorVersion(m, 4))
+	m.Minor = nil // piece_cvs without the minor key
+	require.ErrorIs(t, checkMinorVersion(m, 4), manifest.ErrInvalid)
+	require.ErrorIs(t, checkMinorVersion(m, 3), ErrVersion)
+	m.Minor = manifest.MinorKey()
+	m.Tensors[0].Section.PieceCVs, m.Tensors[0].Section.Chunks = nil, []string{hash, hash}
+	require.ErrorIs(t, checkMinorVersion(m, 4), manifest.ErrInvalid, "chunks in 1.4")
+	m.Minor = nil
+	require.NoError(t, checkMinorVersion(m, 0), "chunks in 1.0")
+	zero := 0
+	m.Minor = &zero
+	m.Format, m.Version = manifest.FormatName, manifest.Version
+	require.ErrorContains(t, m.Validate(), "minor 0", `"minor": 0`)
 }

@@ -308,7 +308,7 @@ func printPackResult(cmd *cobra.Command, out string, m *manifest.Manifest, took 
 	}
 	size := st.Size()
 	if asJSON {
-		d, err := filedigest.File(out)
+		d, err := filedigest.FileWorkers(out, 0) // only --json prints them
 		if err != nil {
 			return err
 		}
