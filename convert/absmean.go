@@ -49,7 +49,18 @@ const (
 	// SumSequential adds |w_i| into one float64 sum in index order. Recipes
 	// recorded without a sum order (the key is absent) use it.
 	SumSequential SumOrder = "sequential"
+	// SumBlocked16 (format 1.4) splits a group into blocks of SumBlock
+	// elements from its first element, sums each block as SumStrided16 does
+	// (its own sixteen partial sums from +0 and the same combination) into
+	// b_0 … b_(n−1), and adds those in order: A = (…((0 + b_0) + b_1) + …)
+	// + b_(n−1). Blocks can be summed in parallel and combined in a fixed
+	// order, so one large tensor can use every core and give the same bits.
+	// For a group of at most SumBlock elements it is SumStrided16.
+	SumBlocked16 SumOrder = "blocked16"
 )
+
+// SumBlock is the block of SumBlocked16, in elements (2^20).
+const SumBlock = 1 << 20
 
 // DefaultEpsilon is the floor on gamma (reciprocal form) or the addend to
 // gamma (quotient form).
@@ -73,14 +84,14 @@ type Recipe struct {
 }
 
 // DefaultRecipe is absmean, training-code form, eps 1e-5, ties to even,
-// gamma summed in 16 strided partial sums.
+// gamma summed in blocks of 16 strided partial sums (SumBlocked16).
 func DefaultRecipe() Recipe {
 	return Recipe{
 		Method:    "absmean",
 		ScaleRule: ScaleReciprocal,
 		Epsilon:   DefaultEpsilon,
 		Tie:       TieHalfEven,
-		Sum:       SumStrided16,
+		Sum:       SumBlocked16,
 	}
 }
 
@@ -104,8 +115,8 @@ func (r Recipe) Validate() error {
 		return fmt.Errorf("%w: scale rule %q (want %q or %q)", ErrRecipe, r.ScaleRule, ScaleReciprocal, ScaleQuotient)
 	case r.Tie != TieHalfEven && r.Tie != TieHalfAway:
 		return fmt.Errorf("%w: tie rule %q (want %q or %q)", ErrRecipe, r.Tie, TieHalfEven, TieHalfAway)
-	case r.sumOrder() != SumStrided16 && r.sumOrder() != SumSequential:
-		return fmt.Errorf("%w: sum order %q (want %q or %q)", ErrRecipe, r.Sum, SumStrided16, SumSequential)
+	case r.sumOrder() != SumBlocked16 && r.sumOrder() != SumStrided16 && r.sumOrder() != SumSequential:
+		return fmt.Errorf("%w: sum order %q (want %q, %q or %q)", ErrRecipe, r.Sum, SumBlocked16, SumStrided16, SumSequential)
 	case !(r.Epsilon > 0) || r.Epsilon > MaxEpsilon || float32(r.Epsilon) == 0:
 		return fmt.Errorf("%w: epsilon %v (want a float32-representable number in (0, %g])", ErrRecipe, r.Epsilon, MaxEpsilon)
 	}
@@ -181,18 +192,14 @@ func Absmean(w []float32, order SumOrder) (float64, error) {
 // a fixed order: statistics only, unlike gamma).
 func absmeanAndSquares(w weights, order SumOrder) (gamma, sumSq float64, err error) {
 	var sum float64
-	if order == SumStrided16 {
-		var s, q [16]float64
-		absLanes16(w, &s, &q)
-		sum, sumSq = combineLanes16(&s), combineLanes16(&q)
-	} else {
-		var sq [2]float64
-		for i := range w.len() {
-			a := float64(abs32(w.at(i)))
-			sum += a
-			sq[i&1] += float64(a * a) // the conversion forbids a fused multiply-add
+	if order == SumBlocked16 {
+		for lo := 0; lo < w.len(); lo += SumBlock {
+			b, q := pieceSums(w.slice(lo, min(lo+SumBlock, w.len())), order)
+			sum += b
+			sumSq += q
 		}
-		sumSq = sq[0] + sq[1]
+	} else {
+		sum, sumSq = pieceSums(w, order)
 	}
 	if math.IsNaN(sum) || math.IsInf(sum, 0) {
 		if err := firstNonFinite(w, 0); err != nil {
@@ -203,6 +210,23 @@ func absmeanAndSquares(w weights, order SumOrder) (gamma, sumSq float64, err err
 		return 0, 0, nil
 	}
 	return sum / float64(w.len()), sumSq, nil
+}
+
+// pieceSums is Σ|w| in the order's rule (for SumBlocked16, w is one block:
+// its b) and Σw² (statistics only).
+func pieceSums(w weights, order SumOrder) (sum, sumSq float64) {
+	if order != SumSequential {
+		var s, q [16]float64
+		absLanes16(w, &s, &q)
+		return combineLanes16(&s), combineLanes16(&q)
+	}
+	var sq [2]float64
+	for i := range w.len() {
+		a := float64(abs32(w.at(i)))
+		sum += a
+		sq[i&1] += float64(a * a) // the conversion forbids a fused multiply-add
+	}
+	return sum, sq[0] + sq[1]
 }
 
 // quantizer holds the float32 constants of a recipe applied to one gamma.
@@ -300,15 +324,7 @@ func (w Weights) Len() int { return w.w.len() }
 // cache and needs no buffer the size of the tensor. emit must not keep the
 // slice; an error from emit stops the work and is returned.
 func TernarizeStream(w Weights, cols int, g Granularity, r Recipe, emit func(trits []int8) error) (Ternary, error) {
-	o := &tritOut{buf: make([]int8, laneBlock), emit: emit}
-	res, err := ternarize(w.w, cols, g, r, o)
-	if err == nil {
-		err = o.err
-	}
-	if err != nil {
-		return Ternary{}, err
-	}
-	return res, nil
+	return TernarizeSplit(w, cols, g, r, Split{Range: func(int, int) func([]int8) error { return emit }})
 }
 
 // tritOut is where the quantize pass puts trits: the whole tensor's slice,
@@ -333,69 +349,6 @@ func (o *tritOut) done(t []int8) {
 	if o.emit != nil && o.err == nil {
 		o.err = o.emit(t)
 	}
-}
-
-func ternarize(all weights, cols int, g Granularity, r Recipe, out *tritOut) (Ternary, error) {
-	n := all.len()
-	if err := r.Validate(); err != nil {
-		return Ternary{}, err
-	}
-	size, err := g.GroupSize(n, cols)
-	if err != nil {
-		return Ternary{}, err
-	}
-	groups := 0
-	if size > 0 {
-		groups = n / size
-	}
-	if g.Kind == GranTensor {
-		groups, size = 1, n // one scale, even for an empty tensor
-	}
-	quants := make([]quantizer, groups)
-	gammas := make([]float64, groups)
-	squares := make([]float64, groups)
-	exact := true
-	for k := range quants {
-		part := all.slice(k*size, (k+1)*size)
-		gamma, sq, err := absmeanAndSquares(part, r.sumOrder())
-		if err != nil {
-			var nf *NonFiniteError
-			if errors.As(err, &nf) {
-				nf.Index += k * size
-			}
-			return Ternary{}, err
-		}
-		gammas[k], squares[k] = gamma, sq
-		quants[k] = newQuantizer(r, gamma)
-		if exact {
-			c, ok := exactScale(part)
-			exact = ok || gamma == 0
-			if ok {
-				quants[k] = exactQuantizer(c)
-			}
-		}
-	}
-	if !exact {
-		// The exact scales apply only when the whole tensor is exact.
-		for k := range quants {
-			quants[k] = newQuantizer(r, gammas[k])
-		}
-	}
-	res := Ternary{Scales: make([]float32, groups), Exact: exact}
-	var sums groupSums
-	for k, q := range quants {
-		res.Scales[k] = q.scale
-		part := all.slice(k*size, (k+1)*size)
-		g := q.quantizeGroup(part, out, k*size, r.sumOrder() == SumStrided16)
-		if out.err != nil {
-			return Ternary{}, out.err
-		}
-		g.sumSq = squares[k]
-		sums.add(g, q.scale)
-	}
-	res.Counts = sums.counts(int64(n))
-	res.Stats = sums.stats(int64(n), exact)
-	return res, nil
 }
 
 // groupTotals is what the passes over a group gather: the element count with

@@ -106,3 +106,98 @@ func TestTernarizeAgreesWithNumpy(t *testing.T) {
 		}
 	}
 }
+
+// The numpy reference agrees bit for bit under the blocked16 order too, on
+// groups above SumBlock (2^20) elements, with and without a tail block
+// shorter than the others, and below it. The "blockpair" tensor decides
+// gamma by the order: row 0 holds 2^53 and 2^29 in lanes 0 and 4 of its
+// first block and ones in lanes 0 and 1 of its second. Summed by blocks,
+// A = (2^53 + 2^29) + 2, exact; summed in sixteen lanes over the whole
+// row, lane 0 takes 2^53 + 1, which ties to even (down), and the final 1
+// is lost the same way, so A = 2^53 + 2^29. Over 2^21 (a row) or 2^22
+// weights (the tensor), the first gamma lies just above a midpoint between
+// two float32 values and rounds up, the second on it and rounds to even
+// (down): the two orders give different reciprocal-form scales, which the
+// test requires.
+func TestBlockedAgreesWithNumpy(t *testing.T) {
+	requireNumpy(t)
+	if testing.Short() {
+		t.Skip("writes tensors of 2^22 weights")
+	}
+	script, err := filepath.Abs("../testdata/reference/absmean.py")
+	require.NoError(t, err)
+	rng := rand.New(rand.NewPCG(23, 24))
+	pair := make([]float32, 2<<21)
+	pair[0], pair[4], pair[SumBlock], pair[SumBlock+1] = 0x1p53, 0x1p29, 1, 1
+	tail := make([]float32, 3*(SumBlock+1000))
+	for i := range tail {
+		tail[i] = float32(rng.NormFloat64() * 0.02)
+	}
+	type tensor struct {
+		name       string
+		rows, cols int
+		w          []float32
+	}
+	dir := t.TempDir()
+	for _, tn := range []tensor{{"blockpair", 2, 2 << 20, pair}, {"tail", 3, SumBlock + 1000, tail}} {
+		in := filepath.Join(dir, tn.name+".f32")
+		b := make([]byte, 4*len(tn.w))
+		for i, v := range tn.w {
+			binary.LittleEndian.PutUint32(b[4*i:], math.Float32bits(v))
+		}
+		require.NoError(t, os.WriteFile(in, b, 0o644))
+		for _, gs := range []string{"tensor", "row", "group:524288", "group:8"} {
+			g, err := ParseGranularity(gs)
+			require.NoError(t, err)
+			if _, err := g.GroupSize(len(tn.w), tn.cols); err != nil || (tn.name == "blockpair" && gs == "group:8") {
+				continue // (groups of 8 in one block: the "tail" tensor has them)
+			}
+			for _, rt := range []struct {
+				rule ScaleRule
+				tie  TieRule
+			}{{ScaleReciprocal, TieHalfEven}, {ScaleQuotient, TieHalfAway}} {
+				if tn.name == "blockpair" && rt.rule != ScaleReciprocal {
+					continue // its sums decide only the reciprocal form's scale
+				}
+				scales := map[SumOrder][]float32{}
+				for _, order := range []SumOrder{SumBlocked16, SumStrided16} {
+					r := recipeWith(rt.rule, rt.tie)
+					r.Sum = order
+					name := tn.name + "/" + gs + "/" + string(rt.rule) + "/" + string(order)
+					outT, outS := filepath.Join(dir, "t"), filepath.Join(dir, "s")
+					cmd := exec.Command(numpyPython, script, in, strconv.Itoa(tn.rows), strconv.Itoa(tn.cols), gs,
+						string(rt.rule), strconv.FormatFloat(r.Epsilon, 'g', -1, 64), string(rt.tie), string(order), outT, outS)
+					out, err := cmd.CombinedOutput()
+					require.NoError(t, err, "%s: %s", name, out)
+					refTrits, err := os.ReadFile(outT)
+					require.NoError(t, err)
+					refScales, err := os.ReadFile(outS)
+					require.NoError(t, err)
+					trits := make([]int8, len(tn.w))
+					q, err := Ternarize(tn.w, tn.cols, g, r, trits)
+					require.NoError(t, err, name)
+					require.Len(t, refScales, 4*len(q.Scales), name)
+					for k, s := range q.Scales {
+						ref := binary.LittleEndian.Uint32(refScales[4*k:])
+						require.Equal(t, ref, math.Float32bits(s), "%s: scale %d is %v, numpy %v", name, k, s, math.Float32frombits(ref))
+					}
+					require.Equal(t, refTrits, int8Bytes(trits), name)
+					scales[order] = q.Scales
+				}
+				// (the quotient form adds epsilon to gamma before rounding,
+				// which lifts both off the midpoint)
+				if tn.name == "blockpair" && (gs == "tensor" || gs == "row") {
+					require.NotEqual(t, scales[SumStrided16][0], scales[SumBlocked16][0], "%s/%s: the orders must differ here", tn.name, gs)
+				}
+			}
+		}
+	}
+}
+
+func int8Bytes(t []int8) []byte {
+	b := make([]byte, len(t))
+	for i, v := range t {
+		b[i] = byte(v)
+	}
+	return b
+}

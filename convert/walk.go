@@ -410,6 +410,39 @@ func CatchFault(fn func()) (err error) {
 	return nil
 }
 
+// A FaultRelay carries a memory fault from helper goroutines to the
+// goroutine that waits for them: each helper runs its body through Run,
+// and the waiting goroutine calls Raise after the helpers are done, so
+// that the fault reaches the walk (which names file, tensor and offset)
+// instead of ending the process. The zero value is ready.
+type FaultRelay struct {
+	mu    sync.Mutex
+	fault *MemoryFault
+}
+
+// Run runs fn through CatchFault and keeps the first fault.
+func (r *FaultRelay) Run(fn func()) {
+	var mf *MemoryFault
+	if err := CatchFault(fn); errors.As(err, &mf) {
+		r.mu.Lock()
+		if r.fault == nil {
+			r.fault = mf
+		}
+		r.mu.Unlock()
+	}
+}
+
+// Raise panics on the calling goroutine with the first fault kept, as
+// the runtime raised it.
+func (r *FaultRelay) Raise() {
+	r.mu.Lock()
+	f := r.fault
+	r.mu.Unlock()
+	if f != nil {
+		panic(f.Err)
+	}
+}
+
 // guardFault runs fn, on a goroutine that has called
 // debug.SetPanicOnFault(true), and turns a fault in the view's mapping (a
 // file truncated while mapped) into an *InputError wrapping ErrTruncated

@@ -18,9 +18,9 @@ import (
 	"ternkit/pack"
 )
 
-// asOlder rewrites the artifact at path as formats 1.0 to 1.3 record it:
-// source_blake3 (here a stand-in hash per tensor) instead of source_span,
-// and the preamble's minor version 2 (the recipe's sum key).
+// asOlder rewrites the artifact at path as a writer of source_blake3 (the
+// only kind of formats 1.0 to 1.3) records it: here a stand-in hash per
+// tensor instead of source_span.
 func asOlder(t *testing.T, path, out string) *pack.Artifact {
 	t.Helper()
 	b, err := os.ReadFile(path)
@@ -43,7 +43,6 @@ func asOlder(t *testing.T, path, out string) *pack.Artifact {
 	sum := blake3.Sum256(body)
 	copy(trailer[16:], sum[:])
 	head := bytes.Clone(b[:off])
-	binary.LittleEndian.PutUint16(head[10:], 2)
 	require.NoError(t, os.WriteFile(out, append(append(head, body...), trailer...), 0o644))
 	a, err := pack.Open(out)
 	require.NoError(t, err)

@@ -21,6 +21,9 @@ import (
 const (
 	FormatName = "ternkit-artifact"
 	Version    = 1
+	// MinorWritten is the minor version new artifacts have (pack/FORMAT.md,
+	// "Versioning"); their manifests record it as "minor".
+	MinorWritten = 4
 )
 
 // Tensor kinds.
@@ -51,7 +54,10 @@ var ErrInvalid = errors.New("invalid manifest")
 type Manifest struct {
 	Format  string `json:"format"`
 	Version int    `json:"version"`
-	Tool    string `json:"tool"`
+	// Minor repeats the preamble's minor version (format 1.4 on; nil, left
+	// out, before), so that the manifest hash covers it.
+	Minor *int   `json:"minor,omitempty"`
+	Tool  string `json:"tool"`
 	// Created is the build time as CreatedLayout, or "" (the usual case, so
 	// that rebuilding gives the same bytes).
 	Created string         `json:"created,omitempty"`
@@ -93,6 +99,11 @@ type Section struct {
 	// Chunks holds the BLAKE3 of each ChunkSize piece (the last may be
 	// shorter) of a section longer than ChunkSize, and is empty otherwise.
 	Chunks []string `json:"chunks,omitempty"`
+	// PieceCVs (format 1.4, in place of Chunks) holds the BLAKE3 chaining
+	// value of each ChunkSize piece's node in the section's own BLAKE3
+	// tree (pack/FORMAT.md, "Hashing"), for a section longer than
+	// ChunkSize, and is empty otherwise.
+	PieceCVs []string `json:"piece_cvs,omitempty"`
 }
 
 // NumChunks is how many chunk hashes a section of length n has.
@@ -239,6 +250,12 @@ func (m *Manifest) ComputeTotals() {
 	m.Totals = t
 }
 
+// MinorKey is the value of "minor" in new manifests.
+func MinorKey() *int {
+	v := MinorWritten
+	return &v
+}
+
 // Encode writes m as compact JSON.
 func Encode(m *Manifest) ([]byte, error) {
 	var buf bytes.Buffer
@@ -282,6 +299,9 @@ func (m *Manifest) Validate() error {
 	}
 	if m.Version != Version {
 		return bad("version %d (want %d)", m.Version, Version)
+	}
+	if m.Minor != nil && *m.Minor != MinorWritten {
+		return bad("minor %d (format 1.%d is the only one that records it)", *m.Minor, MinorWritten)
 	}
 	if err := m.Recipe.Validate(); err != nil {
 		return bad("recipe: %v", err)
@@ -495,12 +515,23 @@ func checkSection(s Section) error {
 	if s.Offset < 0 || s.Length < 0 {
 		return fmt.Errorf("offset %d length %d", s.Offset, s.Length)
 	}
-	if want := NumChunks(s.Length); len(s.Chunks) != want {
+	want := NumChunks(s.Length)
+	switch {
+	case len(s.Chunks) > 0 && len(s.PieceCVs) > 0:
+		return fmt.Errorf("both chunks and piece_cvs (a section records one of them)")
+	case len(s.PieceCVs) > 0 && len(s.PieceCVs) != want:
+		return fmt.Errorf("%d piece chaining values for %d bytes (want %d)", len(s.PieceCVs), s.Length, want)
+	case len(s.PieceCVs) == 0 && len(s.Chunks) != want:
 		return fmt.Errorf("%d chunk hashes for %d bytes (want %d)", len(s.Chunks), s.Length, want)
 	}
 	for _, h := range s.Chunks {
 		if err := checkHash(h); err != nil {
 			return fmt.Errorf("chunk: %v", err)
+		}
+	}
+	for _, h := range s.PieceCVs {
+		if err := checkHash(h); err != nil {
+			return fmt.Errorf("piece_cvs: %v", err)
 		}
 	}
 	return checkHash(s.BLAKE3)

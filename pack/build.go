@@ -25,8 +25,9 @@ type Options struct {
 	Codec  Codec           // trit codec for ternary tensors
 	Recipe convert.Recipe  // ternarization recipe
 	Policy *convert.Policy // nil means convert.DefaultPolicy()
-	// Workers quantize tensors in parallel; 0 means one per CPU. The bytes
-	// written are the same for any count.
+	// Workers quantize tensors in parallel, and share the work of one
+	// tensor of at least convert.SplitMinElements weights; 0 means one per
+	// CPU. The bytes written are the same for any count.
 	Workers int
 	// Budget bounds the source bytes in flight (0: convert.DefaultWalkBudget).
 	Budget int64
@@ -46,6 +47,10 @@ type Options struct {
 	// far and their total: once before the first tensor and after each one.
 	// It runs on Build's goroutine and must return quickly.
 	Progress func(done, total int64)
+
+	// gate bounds the goroutines quantizing at once to Workers: a tensor
+	// job holds a slot, and a large tensor's extra goroutines take more.
+	gate *convert.Gate
 }
 
 // Build reads every tensor of src once, quantizes or keeps it as the
@@ -117,6 +122,7 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
+	opts.Workers, opts.gate = workers, convert.NewGate(workers)
 	bufs := make([]quantizeBuffers, workers)
 	advance := progressFunc(opts.Progress, src.Tensors)
 	type packed struct {
@@ -127,12 +133,10 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 	// its bytes cost a piece of memory, not their length
 	var piece struct {
 		entry  manifest.Tensor
-		chunks *chunkHasher
+		hashes *sectionHasher
 	}
-	inPieces := func(t *convert.Tensor) bool { return t.Length > keptPieceSize && keptAsIs(actions[t], t) }
 	walk := convert.WalkOptions{Workers: workers, Budget: opts.Budget,
-		InPieces: inPieces,
-		Plain:    inPieces, // the section's BLAKE3, hashed by the workers
+		InPieces: func(t *convert.Tensor) bool { return t.Length > keptPieceSize && keptAsIs(actions[t], t) },
 		Piece: func(t *convert.Tensor, off int64, p []byte, id *convert.SourceID) error {
 			if off == 0 {
 				if err := w.pad(); err != nil {
@@ -141,18 +145,18 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 				piece.entry = manifest.Tensor{Name: t.Name, Shape: t.Shape, SourceDType: t.DType,
 					Kind: manifest.KindKept, Codec: manifest.CodecRaw, DType: t.DType,
 					Section: manifest.Section{Offset: w.off, Length: t.Length}}
-				piece.chunks = &chunkHasher{}
+				piece.hashes = newSectionHasher(workers)
 			}
 			if err := w.write(p); err != nil {
 				return err
 			}
-			piece.chunks.Write(p)
+			piece.hashes.Write(p)
 			advance(int64(len(p)))
 			if id != nil {
 				e := piece.entry
 				e.SourceSpan = manifest.HexHash(id.Span)
-				e.Section.BLAKE3 = manifest.HexHash(*id.Plain) // the source's bytes
-				e.Section.Chunks = piece.chunks.finish(t.Length)
+				e.Section = piece.hashes.section()
+				e.Section.Offset = piece.entry.Section.Offset
 				m.Tensors = append(m.Tensors, e)
 			}
 			return nil
@@ -164,7 +168,9 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 				Shape:       t.Shape,
 				SourceDType: t.DType,
 			}
+			opts.gate.Acquire()
 			out, err := bufs[worker].apply(&e, t, raw, actions[t], opts)
+			opts.gate.Release()
 			if err != nil {
 				return packed{}, err
 			}
@@ -296,13 +302,15 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 }
 
 // ternary quantizes w, encoding the trits as they come, and fills the
-// entry of a ternary tensor.
+// entry of a ternary tensor. A large tensor's work is shared by up to
+// opts.Workers goroutines (convert.TernarizeSplit): the same bytes.
 func ternary(e *manifest.Tensor, a convert.Action, w convert.Weights, cols int, opts Options) (sections, error) {
-	enc, err := NewTritEncoder(opts.Codec, w.Len())
+	enc, err := NewSplitEncoder(opts.Codec, w.Len())
 	if err != nil {
 		return sections{}, err
 	}
-	res, err := convert.TernarizeStream(w, cols, a.Granularity, opts.Recipe, enc.Write)
+	res, err := convert.TernarizeSplit(w, cols, a.Granularity, opts.Recipe,
+		convert.Split{Workers: opts.Workers, Gate: opts.gate, Range: enc.Range})
 	if err != nil {
 		return sections{}, err
 	}
@@ -326,43 +334,6 @@ func keptAsIs(a convert.Action, t *convert.Tensor) bool {
 // keptPieceSize is the piece a large tensor kept as it is comes in (a
 // variable for tests); a multiple of manifest.ChunkSize is quickest.
 var keptPieceSize int64 = convert.DefaultPieceSize
-
-// chunkHasher gathers the BLAKE3 of each manifest.ChunkSize piece of a
-// section from bytes written in runs of any length.
-type chunkHasher struct {
-	h      *blake3.Hasher
-	n      int64 // bytes in the current piece
-	chunks []string
-}
-
-func (c *chunkHasher) Write(p []byte) {
-	for len(p) > 0 {
-		if c.h == nil {
-			c.h = blake3.New()
-		}
-		k := min(int64(len(p)), manifest.ChunkSize-c.n)
-		c.h.Write(p[:k])
-		c.n += k
-		p = p[k:]
-		if c.n == manifest.ChunkSize {
-			c.chunks = append(c.chunks, manifest.HexHash([32]byte(c.h.Sum(nil))))
-			c.h, c.n = nil, 0
-		}
-	}
-}
-
-// finish returns the piece hashes of a section of length bytes, none for a
-// section of at most one piece (pack/FORMAT.md, "Hashing").
-func (c *chunkHasher) finish(length int64) []string {
-	if manifest.NumChunks(length) == 0 {
-		return nil
-	}
-	if c.n > 0 {
-		c.chunks = append(c.chunks, manifest.HexHash([32]byte(c.h.Sum(nil))))
-		c.h, c.n = nil, 0
-	}
-	return c.chunks
-}
 
 func appendFloat32s(dst []byte, v []float32) []byte {
 	for _, f := range v {
@@ -426,20 +397,20 @@ func (w *atomicWriter) pad() error {
 }
 
 // hashSection is the manifest entry of a section holding p, but for its
-// offset: its BLAKE3 and, past manifest.ChunkSize, the BLAKE3 of each piece.
+// offset: its BLAKE3 and, past manifest.ChunkSize, its piece chaining
+// values, each byte hashed once, pieces in parallel.
 func hashSection(p []byte) manifest.Section {
-	return hashSectionKnown(p, blake3.Sum256(p))
+	return sectionOf(p, runtime.GOMAXPROCS(0))
 }
 
-// hashSectionKnown is hashSection for bytes whose BLAKE3 is known.
+// hashSectionKnown is hashSection for bytes whose BLAKE3 is known: a
+// section of one piece takes it as it is; a longer one needs its pieces'
+// chaining values, which give its BLAKE3 as well.
 func hashSectionKnown(p []byte, sum [32]byte) manifest.Section {
-	s := manifest.Section{Length: int64(len(p)), BLAKE3: manifest.HexHash(sum)}
-	if manifest.NumChunks(s.Length) > 0 {
-		var c chunkHasher
-		c.Write(p)
-		s.Chunks = c.finish(s.Length)
+	if manifest.NumChunks(int64(len(p))) == 0 {
+		return manifest.Section{Length: int64(len(p)), BLAKE3: manifest.HexHash(sum)}
 	}
-	return s
+	return hashSection(p)
 }
 
 // place pads to the alignment, writes p and returns its offset.
@@ -456,6 +427,7 @@ func (w *atomicWriter) finish(m *manifest.Manifest) error {
 		return err
 	}
 	t := trailer{manifestOffset: w.off}
+	m.Minor = manifest.MinorKey() // new artifacts are of the newest format
 	h := blake3.New()
 	n, err := writeManifest(io.MultiWriter(writerFunc(w.write), h), m)
 	if err != nil {

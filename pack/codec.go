@@ -73,10 +73,16 @@ var codeTrit = [3]int8{0, 1, -1}
 // codes as digits in radix, least significant first; digits past the end
 // of trits are 0.
 func encodeDigits(dst []byte, trits []int8, per, radix int) []byte {
-	full := len(trits) / per
 	start := len(dst)
 	dst = append(dst, make([]byte, (len(trits)+per-1)/per)...)
-	out := dst[start:]
+	encodeDigitsTo(dst[start:], trits, per, radix)
+	return dst
+}
+
+// encodeDigitsTo is encodeDigits writing the ⌈len(trits)/per⌉ bytes to
+// out, whatever it held.
+func encodeDigitsTo(out []byte, trits []int8, per, radix int) {
+	full := len(trits) / per
 	in := unsafeInt8Bytes(trits)
 	// full groups without branches on the data, a 64-bit word of trits at
 	// a time: the code of a trit byte t is (t & 3) ^ ((t >> 1) & 1)
@@ -123,7 +129,6 @@ func encodeDigits(dst []byte, trits []int8, per, radix int) []byte {
 		}
 		out[full] = byte(b)
 	}
-	return dst
 }
 
 // encodeVector writes as many full bytes of out as the vector encoders

@@ -6,10 +6,9 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"runtime"
 	"slices"
 	"strings"
-
-	"github.com/zeebo/blake3"
 
 	"ternkit/internal/inputfile"
 	"ternkit/manifest"
@@ -150,8 +149,7 @@ func (w *atomicWriter) writeCompanion(c Companion) (manifest.Companion, error) {
 		return manifest.Companion{}, err
 	}
 	off := w.off
-	h := blake3.New()
-	var chunks chunkHasher
+	h := newSectionHasher(runtime.GOMAXPROCS(0))
 	buf := make([]byte, 1<<20)
 	var n int64
 	for {
@@ -165,7 +163,6 @@ func (w *atomicWriter) writeCompanion(c Companion) (manifest.Companion, error) {
 				return manifest.Companion{}, err
 			}
 			h.Write(buf[:k])
-			chunks.Write(buf[:k])
 		}
 		if err == io.EOF {
 			break
@@ -174,9 +171,9 @@ func (w *atomicWriter) writeCompanion(c Companion) (manifest.Companion, error) {
 			return manifest.Companion{}, fmt.Errorf("%w: %s: %v", ErrCompanion, c.Path, err)
 		}
 	}
-	return manifest.Companion{Name: c.Name, Section: manifest.Section{
-		Offset: off, Length: n, BLAKE3: manifest.HexHash([32]byte(h.Sum(nil))), Chunks: chunks.finish(n),
-	}}, nil
+	s := h.section()
+	s.Offset = off
+	return manifest.Companion{Name: c.Name, Section: s}, nil
 }
 
 // Companions lists the artifact's companion entries in file order.
@@ -211,14 +208,8 @@ func (a *Artifact) verifiedCompanion(c *manifest.Companion) ([]byte, error) {
 	if _, err := a.r.ReadAt(p, s.Offset); err != nil {
 		return nil, fail(s.Offset, err)
 	}
-	if got := manifest.HexHash(blake3.Sum256(p)); got != s.BLAKE3 {
-		return nil, fail(s.Offset, fmt.Errorf("%w: companion BLAKE3 %s, manifest records %s", ErrHash, got, s.BLAKE3))
-	}
-	for k, want := range s.Chunks {
-		o := int64(k) * manifest.ChunkSize
-		if got := manifest.HexHash(blake3.Sum256(p[o:min(o+manifest.ChunkSize, s.Length)])); got != want {
-			return nil, fail(s.Offset+o, fmt.Errorf("%w: chunk %d BLAKE3 %s, manifest records %s", ErrHash, k, got, want))
-		}
+	if err := checkSectionBytes(p, s, "companion", runtime.GOMAXPROCS(0), fail); err != nil {
+		return nil, err
 	}
 	return p, nil
 }

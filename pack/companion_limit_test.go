@@ -27,9 +27,9 @@ func hugeCompanionArtifact(t *testing.T, src, dst, name string, n int64) {
 	require.NotNil(t, c)
 	require.Equal(t, &m.Companions[len(m.Companions)-1], c, "the companion is the last section")
 	c.Section.Length = n
-	c.Section.Chunks = make([]string, manifest.NumChunks(n))
-	for i := range c.Section.Chunks {
-		c.Section.Chunks[i] = strings.Repeat("00", 32)
+	c.Section.PieceCVs = make([]string, manifest.NumChunks(n))
+	for i := range c.Section.PieceCVs {
+		c.Section.PieceCVs[i] = strings.Repeat("00", 32)
 	}
 	body, err := manifest.Encode(m)
 	require.NoError(t, err)

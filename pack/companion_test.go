@@ -18,7 +18,7 @@ func buildCompanions(t *testing.T, src, dst string, cs []Companion) error {
 	s, err := convert.Open(src)
 	require.NoError(t, err)
 	defer s.Close()
-	_, err = Build(s, dst, Options{Codec: Base3, Recipe: convert.DefaultRecipe(), Tool: "ternkit test", Companions: cs})
+	_, err = Build(s, dst, Options{Codec: Base3, Recipe: stridedRecipe(), Tool: "ternkit test", Companions: cs})
 	return err
 }
 
@@ -47,7 +47,7 @@ func TestCompanionsRoundTrip(t *testing.T) {
 	defer a.Close()
 	require.NoError(t, a.Check())
 	_, minor := a.Version()
-	require.Equal(t, 4, minor, "companions make format 1.3, source_span 1.4")
+	require.Equal(t, 4, minor, "new artifacts are format 1.4")
 	require.Len(t, a.Companions(), 3)
 	for name, want := range map[string][]byte{"config.json": config, "LICENSE": licence, "empty.txt": {}} {
 		got, err := a.Companion(name)
@@ -57,7 +57,7 @@ func TestCompanionsRoundTrip(t *testing.T) {
 	_, err = a.Companion("tokenizer.json")
 	require.ErrorIs(t, err, ErrNoCompanion)
 
-	// without companions the same source gives format 1.4 too (source_span)
+	// without companions the same source gives format 1.4 too
 	plain := filepath.Join(dir, "plain"+Extension)
 	require.NoError(t, buildCompanions(t, src, plain, nil))
 	b, err := Open(plain)

@@ -22,7 +22,7 @@ const (
 	DefaultMaxManifest = 256 << 20
 
 	majorVersion = 1
-	minorVersion = 4 // the highest minor version this package reads
+	minorVersion = 4 // the highest minor version this package reads (manifest.MinorWritten)
 )
 
 var (

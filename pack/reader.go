@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"runtime"
 
 	"github.com/zeebo/blake3"
 
@@ -197,14 +198,8 @@ func (t *Tensor) verifiedSection(s manifest.Section) ([]byte, error) {
 	if _, err := t.a.r.ReadAt(p, s.Offset); err != nil {
 		return nil, t.fail(s.Offset, err)
 	}
-	if got := manifest.HexHash(blake3.Sum256(p)); got != s.BLAKE3 {
-		return nil, t.fail(s.Offset, fmt.Errorf("%w: section BLAKE3 %s, manifest records %s", ErrHash, got, s.BLAKE3))
-	}
-	for k, want := range s.Chunks {
-		c := int64(k) * manifest.ChunkSize
-		if got := manifest.HexHash(blake3.Sum256(p[c:min(c+manifest.ChunkSize, s.Length)])); got != want {
-			return nil, t.fail(s.Offset+c, fmt.Errorf("%w: chunk %d BLAKE3 %s, manifest records %s", ErrHash, k, got, want))
-		}
+	if err := checkSectionBytes(p, s, "section", runtime.GOMAXPROCS(0), t.fail); err != nil {
+		return nil, err
 	}
 	return p, nil
 }

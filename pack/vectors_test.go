@@ -265,8 +265,13 @@ func (d *draft) encode(t *testing.T) []byte {
 	place := func(s *manifest.Section, p []byte, gap int) {
 		out = append(out, make([]byte, alignUp(int64(len(out)))-int64(len(out))+int64(gap))...)
 		s.Offset, s.Length, s.BLAKE3 = int64(len(out)), int64(len(p)), manifest.HexHash(blake3.Sum256(p))
+		s.Chunks, s.PieceCVs = nil, nil
 		if manifest.NumChunks(s.Length) > 0 {
-			s.Chunks = hashSection(p).Chunks
+			if d.minor >= pieceCVsSince {
+				s.PieceCVs = hashSection(p).PieceCVs
+			} else {
+				s.Chunks = chunkHashes(p)
+			}
 		}
 		out = append(out, p...)
 	}
@@ -525,7 +530,7 @@ func writeVectors(t *testing.T) {
 	add(vector{File: "ok-exact.tkart", Expect: "ok", Version: "1.0", Note: "tensors already c × {-1, 0, +1}: exact, scale 0.25 (tensor) and 3, recipe's, 0.5 (rows)", Tensors: wantExact}, okExact)
 
 	// gamma summed in 16 strided partial sums: the recipe's sum key, 1.2
-	str := &vectorSource{recipe: convert.DefaultRecipe()}
+	str := &vectorSource{recipe: stridedRecipe()}
 	str.float("strided.w", []int64{4, 10}, testweights.Gaussian(newTestRand(34), 40))
 	okStrided, wantStrided := str.build(t, Base3)
 	add(vector{File: "ok-strided16.tkart", Expect: "ok", Version: "1.2", Note: `recipe with "sum": "strided16" (gamma summed in 16 strided partial sums), so format 1.2`, Tensors: wantStrided}, okStrided)
@@ -533,7 +538,7 @@ func writeVectors(t *testing.T) {
 
 	// Companion files (format 1.3): a model config, a licence and an
 	// empty file, after the tensor's sections.
-	comp := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{
+	comp := &vectorSource{recipe: stridedRecipe(), companions: []vectorFile{
 		{"config.json", []byte(`{"hidden_size": 8, "num_hidden_layers": 1, "vocab_size": 12}` + "\n")},
 		{"LICENSE", []byte("Fernmoss Seed Vault scanner weights. Internal use only.\n")},
 		{"NOTICE", nil},
@@ -545,7 +550,7 @@ func writeVectors(t *testing.T) {
 
 	// A valid artifact whose config contradicts its tensors: readers accept
 	// it (companions are opaque to the format); ternkit verify warns.
-	mis := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{
+	mis := &vectorSource{recipe: stridedRecipe(), companions: []vectorFile{
 		{"config.json", []byte(`{"hidden_size": 8, "intermediate_size": 16, "num_hidden_layers": 1, "num_attention_heads": 2, "num_key_value_heads": 2, "head_dim": 4, "vocab_size": 16, "tie_word_embeddings": false}` + "\n")},
 	}}
 	mis.kept("model.embed_tokens.weight", "F16", []int64{12, 8}, make([]byte, 2*12*8))
@@ -560,7 +565,7 @@ func writeVectors(t *testing.T) {
 	for i := range bigData {
 		bigData[i] = byte(i * 7)
 	}
-	bigSrc := &vectorSource{recipe: convert.DefaultRecipe(), companions: []vectorFile{{"vocab.txt", bigData}}}
+	bigSrc := &vectorSource{recipe: stridedRecipe(), companions: []vectorFile{{"vocab.txt", bigData}}}
 	okBig, _ := bigSrc.build(t, Base3)
 	add(vector{File: "ok-chunks.tkart", Expect: "ok", Version: "1.3", Note: "a companion section of 4199304 bytes (2^22 + 5000): two piece hashes, the last piece 5000 bytes", Companions: bigSrc.wantCompanions()}, okBig)
 	bigPath := path("big", okBig)
@@ -860,4 +865,14 @@ written from FORMAT.md alone), run from ` + "`go test ./cmd/ternkit`" + `.
 		fmt.Fprintf(&b, "| %s | %s | %s |\n", v.File, res, v.Note)
 	}
 	return b.String()
+}
+
+// chunkHashes are the piece records of formats 1.0 to 1.3: the BLAKE3 of
+// each manifest.ChunkSize piece as an input of its own.
+func chunkHashes(p []byte) []string {
+	var out []string
+	for o := 0; o < len(p); o += manifest.ChunkSize {
+		out = append(out, manifest.HexHash(blake3.Sum256(p[o:min(o+manifest.ChunkSize, len(p))])))
+	}
+	return out
 }

@@ -42,7 +42,7 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 		stored []string // per tensor
 		minor  int
 	}{
-		// every new artifact records source_span, a key of format 1.4
+		// new artifacts are 1.4 whatever they use (FORMAT.md, "Versioning")
 		{Auto, []string{"base3", "entropy"}, 4},
 		{Base3, []string{"base3", "base3"}, 4},
 		{Bits2, []string{"bits2", "bits2"}, 4},
@@ -72,11 +72,11 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 				require.NoError(t, tn.DecodeTrits(make([]int8, tn.Len())))
 			}
 
-			// Any other minor version is rejected: too low for the codecs
-			// used, or higher than the features need.
+			// Any other minor version is rejected: below 1.4 the manifest's
+			// minor key is too new, above it the version is unknown.
 			b, err := os.ReadFile(dst)
 			require.NoError(t, err)
-			for _, other := range []uint16{0, 1, 2, 3} {
+			for _, other := range []uint16{0, 1, 2, 3, 5} {
 				if int(other) == c.minor {
 					continue
 				}
@@ -84,11 +84,7 @@ func TestBuildAutoAndMinorVersion(t *testing.T) {
 				binary.LittleEndian.PutUint16(bad[10:], other)
 				_, err := NewReader(bytes.NewReader(bad), int64(len(bad)))
 				require.Error(t, err, "minor %d", other)
-				want := ErrStructure
-				if int(other) < c.minor || other > minorVersion {
-					want = ErrVersion
-				}
-				require.ErrorIs(t, err, want, "minor %d", other)
+				require.ErrorIs(t, err, ErrVersion, "minor %d", other)
 			}
 		})
 	}
@@ -109,7 +105,37 @@ func TestMinorVersionFor(t *testing.T) {
 	m.Tensors[0].SourceSpan = strings.Repeat("0", 64)
 	require.Equal(t, uint16(4), minorVersionFor(m))
 	require.ErrorIs(t, checkMinorVersion(m, 3), ErrVersion)
+	m.Minor = manifest.MinorKey()
 	require.NoError(t, checkMinorVersion(m, 4))
-	m.Tensors[1].SourceBLAKE3 = strings.Repeat("0", 64) // replaced by source_span in 1.4
-	require.ErrorIs(t, checkMinorVersion(m, 4), ErrStructure)
+	m.Tensors[1].SourceBLAKE3 = strings.Repeat("0", 64) // one kind for all tensors
+	require.ErrorIs(t, checkMinorVersion(m, 4), manifest.ErrInvalid)
+	m.Tensors[0].SourceSpan, m.Tensors[0].SourceBLAKE3 = "", strings.Repeat("0", 64)
+	require.NoError(t, checkMinorVersion(m, 4), "1.4 files of source_blake3 stay valid")
+}
+
+// Format 1.4: the manifest's minor key fixes the preamble's minor version,
+// and sections record piece chaining values, not chunk hashes.
+func TestMinorVersion14(t *testing.T) {
+	m := &manifest.Manifest{Minor: manifest.MinorKey()}
+	require.Equal(t, uint16(4), minorVersionFor(m))
+	require.NoError(t, checkMinorVersion(m, 4))
+	require.ErrorIs(t, checkMinorVersion(m, 3), ErrVersion)
+	require.ErrorIs(t, checkMinorVersion(m, 0), ErrVersion)
+
+	hash := manifest.HexHash([32]byte{1})
+	big := manifest.Section{Length: manifest.ChunkSize + 1, BLAKE3: hash, PieceCVs: []string{hash, hash}}
+	m.Tensors = []manifest.Tensor{{Codec: manifest.CodecRaw, Section: big}}
+	require.NoError(t, checkMinorVersion(m, 4))
+	m.Minor = nil // piece_cvs without the minor key
+	require.ErrorIs(t, checkMinorVersion(m, 4), manifest.ErrInvalid)
+	require.ErrorIs(t, checkMinorVersion(m, 3), ErrVersion)
+	m.Minor = manifest.MinorKey()
+	m.Tensors[0].Section.PieceCVs, m.Tensors[0].Section.Chunks = nil, []string{hash, hash}
+	require.ErrorIs(t, checkMinorVersion(m, 4), manifest.ErrInvalid, "chunks in 1.4")
+	m.Minor = nil
+	require.NoError(t, checkMinorVersion(m, 0), "chunks in 1.0")
+	zero := 0
+	m.Minor = &zero
+	m.Format, m.Version = manifest.FormatName, manifest.Version
+	require.ErrorContains(t, m.Validate(), "minor 0", `"minor": 0`)
 }

@@ -333,7 +333,7 @@ func TestWritePage(t *testing.T) {
 	for _, rule := range s.Policy {
 		require.Contains(t, page, "<li><code>"+template.HTMLEscapeString(rule)+"</code></li>")
 	}
-	require.Contains(t, page, "<dt>sum</dt><dd>strided16")
+	require.Contains(t, page, "<dt>sum</dt><dd>blocked16: gamma's float64 sum in blocks of 2^20 weights")
 	require.Contains(t, page, "created 2026-12-02T00:00:00Z")
 	require.Contains(t, page, `<span class="verdict-fail">FAILED</span>: 40 checks passed, 1 failed`)
 	require.Contains(t, page, "budget blocks.0.attn.q.weight: rel_rmse 0.5123 above 0.5")

@@ -3,9 +3,16 @@
 
 It shares no code with the Go reader: the layout, the manifest rules and the
 codecs are implemented here with numpy, BLAKE3 comes from the b3sum tool
-and zstd frames are decoded by the zstd tool (both Debian packages).
+and zstd frames are decoded by the zstd tool (both Debian packages). The
+piece chaining values of format 1.4, which b3sum does not print, come from
+a BLAKE3 compression function written here with numpy from the BLAKE3
+specification.
 
     tkart_read.py [--trits] FILE...
+    tkart_read.py --blake3 FILE...
+
+The second form prints, per file, its BLAKE3 and (over 2^22 bytes) its
+piece chaining values, both computed by the numpy BLAKE3 of this file.
 
 prints a JSON array with one object per file: "result" is "ok" or the
 failure class of FORMAT.md ("What a reader must reject"), "detail" says why,
@@ -37,6 +44,7 @@ ALIGN = 64
 PREAMBLE_LEN = 64
 TRAILER_LEN = 64
 MANIFEST_LIMIT = 256 << 20
+MANIFEST_MINOR = None  # the manifest's "minor" key, set by parse_manifest
 READER_MINOR = 4  # the highest minor version of format 1 this reader implements
 
 # Minor version that defines each codec ("Versioning").
@@ -44,6 +52,8 @@ CODEC_SINCE = {"raw": 0, "bits2": 0, "base3": 0, "entropy": 1}
 SUM_KEY_SINCE = 2  # the recipe's "sum" key
 COMPANIONS_SINCE = 3  # the manifest's "companions" key
 SOURCE_SPAN_SINCE = 4  # the tensor's "source_span" key, in place of "source_blake3"
+BLOCKED_SUM_SINCE = 4  # the recipe's sum order "blocked16"
+MINOR_KEY_SINCE = 4  # the manifest's "minor" key and sections' "piece_cvs"
 TRIT_CODECS = ("bits2", "base3", "entropy")
 DTYPE_SIZE = {
     "F64": 8, "F32": 4, "F16": 2, "BF16": 2, "F8_E4M3": 1, "F8_E5M2": 1,
@@ -58,7 +68,7 @@ CHUNK = 1 << 22
 # The keys of every manifest object ("Manifest"); a new minor version that
 # adds keys adds them here.
 KEYS = {
-    "manifest": {"format", "version", "tool", "created", "recipe", "source", "policy",
+    "manifest": {"format", "version", "minor", "tool", "created", "recipe", "source", "policy",
                  "tensors", "companions", "totals"},
     "companion": {"name", "section"},
     "recipe": {"method", "scale_rule", "epsilon", "tie", "sum"},
@@ -66,7 +76,7 @@ KEYS = {
     "file": {"name", "bytes", "blake3"},
     "tensor": {"name", "shape", "source_dtype", "kind", "dtype", "codec", "granularity",
                "scale", "scales", "exact", "section", "source_blake3", "source_span", "trits", "stats"},
-    "section": {"offset", "length", "blake3", "chunks"},
+    "section": {"offset", "length", "blake3", "chunks", "piece_cvs"},
     "trits": {"neg", "zero", "pos"},
     "stats": {"zero_fraction", "clipped_fraction", "rel_rmse", "max_abs_err", "cosine"},
     "totals": {"tensors", "ternary_tensors", "int8_tensors", "kept_tensors", "ternary_params",
@@ -103,6 +113,154 @@ class Reject(Exception):
 def blake3_hex(data):
     out = subprocess.run(["b3sum", "--no-names"], input=bytes(data), capture_output=True, check=True)
     return out.stdout.split()[0].decode()
+
+
+# ---- BLAKE3 from its specification --------------------------------------
+#
+# The compression function, vectorized with numpy over many chunks (or
+# parents) at once: each word is an array with one element per node. It
+# gives the chaining values of chunks at any chunk counter, which format
+# 1.4's piece records are ("Hashing"), and root hashes, which the tests
+# compare with b3sum.
+
+B3_IV = np.array([0x6A09E667, 0xBB67AE85, 0x3C6EF372, 0xA54FF53A,
+                  0x510E527F, 0x9B05688C, 0x1F83D9AB, 0x5BE0CD19], dtype=np.uint32)
+B3_PERM = (2, 6, 3, 10, 7, 0, 4, 13, 1, 11, 12, 5, 9, 14, 15, 8)
+CHUNK_START, CHUNK_END, PARENT, ROOT = 1, 2, 4, 8
+B3_CHUNK = 1024  # bytes per chunk
+PIECE_CHUNKS = CHUNK // B3_CHUNK
+
+
+def _rotr(x, n):
+    return (x >> np.uint32(n)) | (x << np.uint32(32 - n))
+
+
+def b3_compress(cv, m, counter, block_len, flags):
+    """Compress 64-byte blocks: cv is 8 word arrays, m 16, counter an
+    integer array (64 bits), block_len and flags integers or arrays.
+    Returns the 16 output word arrays."""
+    n = len(counter)
+    counter = np.asarray(counter, dtype=np.uint64)
+    v = [np.array(w, dtype=np.uint32) for w in cv] + [np.full(n, B3_IV[i], dtype=np.uint32) for i in range(4)] + [
+        (counter & np.uint64(0xFFFFFFFF)).astype(np.uint32), (counter >> np.uint64(32)).astype(np.uint32),
+        np.broadcast_to(np.asarray(block_len, dtype=np.uint32), (n,)).copy(),
+        np.broadcast_to(np.asarray(flags, dtype=np.uint32), (n,)).copy()]
+    m = list(m)
+
+    def g(a, b, c, d, x, y):
+        v[a] = v[a] + v[b] + x
+        v[d] = _rotr(v[d] ^ v[a], 16)
+        v[c] = v[c] + v[d]
+        v[b] = _rotr(v[b] ^ v[c], 12)
+        v[a] = v[a] + v[b] + y
+        v[d] = _rotr(v[d] ^ v[a], 8)
+        v[c] = v[c] + v[d]
+        v[b] = _rotr(v[b] ^ v[c], 7)
+
+    for r in range(7):
+        g(0, 4, 8, 12, m[0], m[1])
+        g(1, 5, 9, 13, m[2], m[3])
+        g(2, 6, 10, 14, m[4], m[5])
+        g(3, 7, 11, 15, m[6], m[7])
+        g(0, 5, 10, 15, m[8], m[9])
+        g(1, 6, 11, 12, m[10], m[11])
+        g(2, 7, 8, 13, m[12], m[13])
+        g(3, 4, 9, 14, m[14], m[15])
+        if r < 6:
+            m = [m[B3_PERM[i]] for i in range(16)]
+    return [v[i] ^ v[i + 8] for i in range(8)] + [v[i + 8] ^ np.asarray(cv[i], dtype=np.uint32) for i in range(8)]
+
+
+def _chunk_words(data, nblocks):
+    """data (at most nblocks·64 bytes) as nblocks blocks of 16 words, zero
+    padded: an array [nblocks][16] of uint32."""
+    buf = np.zeros(nblocks * 64, dtype=np.uint8)
+    buf[:len(data)] = np.frombuffer(data, dtype=np.uint8)
+    return buf.view("<u4").reshape(nblocks, 16)
+
+
+def b3_chunks(data, counter0, root=False):
+    """The chaining values (8 word arrays) of the chunks of data, numbered
+    from counter0; with root, data is one chunk and the root output of it
+    is returned instead (16 words)."""
+    full = len(data) // B3_CHUNK if len(data) % B3_CHUNK else len(data) // B3_CHUNK - 1
+    full = max(full, 0)
+    cvs = [np.zeros(0, dtype=np.uint32) for _ in range(8)]
+    if full and not root:
+        words = np.frombuffer(data[:full * B3_CHUNK], dtype="<u4").reshape(full, 16, 16)
+        cv = [np.full(full, B3_IV[i], dtype=np.uint32) for i in range(8)]
+        counters = np.arange(counter0, counter0 + full, dtype=np.uint64)
+        for b in range(16):
+            m = [words[:, b, w].copy() for w in range(16)]
+            flags = (CHUNK_START if b == 0 else 0) | (CHUNK_END if b == 15 else 0)
+            cv = b3_compress(cv, m, counters, 64, flags)[:8]
+        cvs = cv
+    # the last chunk (1 to 1024 bytes, or 0 for empty data), alone
+    last = data[full * B3_CHUNK:]
+    nblocks = max(1, (len(last) + 63) // 64)
+    words = _chunk_words(last, nblocks)
+    cv = [np.array([B3_IV[i]], dtype=np.uint32) for i in range(8)]
+    for b in range(nblocks):
+        flags = (CHUNK_START if b == 0 else 0) | (CHUNK_END if b == nblocks - 1 else 0)
+        blen = 64 if b < nblocks - 1 else len(last) - 64 * b
+        if root and b == nblocks - 1:
+            flags |= ROOT
+        out = b3_compress(cv, [words[b:b + 1, w] for w in range(16)], [counter0 + full], blen, flags)
+        cv = out[:8]
+    if root:
+        return out
+    return [np.concatenate([cvs[i], cv[i]]) for i in range(8)]
+
+
+def b3_parents(left, right, flags=PARENT):
+    """The outputs of parents over pairs of chaining values (arrays)."""
+    n = len(left[0])
+    return b3_compress([np.full(n, B3_IV[i], dtype=np.uint32) for i in range(8)], list(left) + list(right),
+                       np.zeros(n, dtype=np.uint64), 64, flags)
+
+
+def b3_node(cvs, root=False):
+    """The chaining value (8 words; with root, the root output, 16 words) of
+    the node over chaining values cvs (8 arrays of n ≥ 2, or n = 1 without
+    root), split as BLAKE3 splits: the left child the largest power of two
+    below n."""
+    n = len(cvs[0])
+    if n == 1:
+        return [w[:1] for w in cvs]
+    left = 1
+    while left * 2 < n:
+        left *= 2
+    lc = [w[:left] for w in cvs]
+    while len(lc[0]) > 1:  # a complete subtree, level by level
+        lc = b3_parents([w[0::2] for w in lc], [w[1::2] for w in lc])[:8]
+    rc = b3_node([w[left:] for w in cvs])
+    out = b3_parents(lc, rc, PARENT | (ROOT if root else 0))
+    return out if root else out[:8]
+
+
+def words_hex(words):
+    return b"".join(struct.pack("<I", int(w[0])) for w in words[:8]).hex()
+
+
+def b3_hash(data):
+    """BLAKE3 of data, from the specification (the tests compare it with b3sum)."""
+    if len(data) <= B3_CHUNK:
+        return words_hex(b3_chunks(data, 0, root=True))
+    return words_hex(b3_node(b3_chunks(data, 0), root=True))
+
+
+def b3_piece_cv(piece, k):
+    """The chaining value of piece k of a section ("Hashing", format 1.4):
+    the node of its chunks, numbered from k·4096, in the section's tree."""
+    return b3_node(b3_chunks(piece, k * PIECE_CHUNKS))
+
+
+def b3_section_pieces(section):
+    """The chaining values of a section's pieces and the section's BLAKE3
+    joined from them (more than one piece)."""
+    cvs = [b3_piece_cv(section[k * CHUNK:(k + 1) * CHUNK], k) for k in range((len(section) + CHUNK - 1) // CHUNK)]
+    joined = b3_node([np.concatenate([c[i] for c in cvs]) for i in range(8)], root=True)
+    return [words_hex(c) for c in cvs], words_hex(joined)
 
 
 # ---- manifest -----------------------------------------------------------
@@ -248,6 +406,12 @@ def parse_manifest(body):
         raise bad("format %r" % m.get("format"))
     if integer(m.get("version"), "version") != 1:
         raise bad("version %r" % m.get("version"))
+    global MANIFEST_MINOR
+    MANIFEST_MINOR = None
+    if "minor" in m:
+        MANIFEST_MINOR = integer(m.get("minor"), "minor")
+        if MANIFEST_MINOR != MINOR_KEY_SINCE:
+            raise bad("minor %r (4 is the only value of this version)" % MANIFEST_MINOR)
     string(m.get("tool"), "tool")
     created = string(m.get("created"), "created")
     if created:
@@ -272,7 +436,7 @@ def parse_manifest(body):
     if (string(r.get("method"), "recipe.method") != "absmean"
             or string(r.get("scale_rule"), "recipe.scale_rule") not in ("reciprocal", "quotient")
             or string(r.get("tie"), "recipe.tie") not in ("half-even", "half-away")
-            or string(r.get("sum"), "recipe.sum") not in ("", "strided16", "sequential")
+            or string(r.get("sum"), "recipe.sum") not in ("", "blocked16", "strided16", "sequential")
             or not eps > 0 or math.isinf(eps) or eps32 == 0 or np.isinf(eps32)):
         raise bad("recipe %r" % r)
 
@@ -329,7 +493,7 @@ def parse_manifest(body):
         if integer(totals.get(k), "totals." + k) != v:
             raise bad("totals.%s is %r, the tensors give %d" % (k, totals.get(k), v))
     number(totals.get("bits_per_ternary_weight"), "totals.bits_per_ternary_weight")
-    return tensors, companions, bool(r.get("sum"))  # "" reads as absent, as any zero value
+    return tensors, companions, r.get("sum") or ""  # "" reads as absent, as any zero value
 
 
 def companion_name(name):
@@ -345,12 +509,16 @@ def parse_section(v, path):
     r = {"offset": integer(sec.get("offset"), path + ".offset"),
          "length": integer(sec.get("length"), path + ".length"),
          "blake3": hash_hex(sec.get("blake3"), path + ".blake3"),
-         "chunks": [hash_hex(h, path + ".chunks") for h in arr(sec.get("chunks"), path + ".chunks")]}
+         "chunks": [hash_hex(h, path + ".chunks") for h in arr(sec.get("chunks"), path + ".chunks")],
+         "piece_cvs": [hash_hex(h, path + ".piece_cvs") for h in arr(sec.get("piece_cvs"), path + ".piece_cvs")]}
     if r["offset"] < 0 or r["length"] < 0:
         raise bad("%s: offset %d length %d" % (path, r["offset"], r["length"]))
     want = (r["length"] + CHUNK - 1) // CHUNK if r["length"] > CHUNK else 0
-    if len(r["chunks"]) != want:
-        raise bad("%s: %d chunk hashes for %d bytes, want %d" % (path, len(r["chunks"]), r["length"], want))
+    if r["chunks"] and r["piece_cvs"]:
+        raise bad("%s: both chunks and piece_cvs" % path)
+    records = r["piece_cvs"] or r["chunks"]
+    if len(records) != want:
+        raise bad("%s: %d piece records for %d bytes, want %d" % (path, len(records), r["length"], want))
     return r
 
 
@@ -614,19 +782,29 @@ def read_artifact(data, with_trits):
     if blake3_hex(body) != tr[16:48].hex():
         raise Reject("manifest-hash", "manifest BLAKE3 differs from the trailer's")
 
-    tensors, companions, has_sum = parse_manifest(body)
+    tensors, companions, sum_order = parse_manifest(body)
     used = max([CODEC_SINCE[t["codec"]] for t in tensors], default=0)
-    if has_sum:
+    if sum_order:
         used = max(used, SUM_KEY_SINCE)
+    if sum_order == "blocked16":
+        used = max(used, BLOCKED_SUM_SINCE)
     if companions:
         used = max(used, COMPANIONS_SINCE)
     if any(t["span"] for t in tensors):
         used = max(used, SOURCE_SPAN_SINCE)
-    if minor >= SOURCE_SPAN_SINCE and not all(t["span"] for t in tensors):
-        raise Reject("structure", "source_blake3 in a file of 1.%d, which records source_span" % minor)
+    all_secs = [s for _, _, s in sections(tensors)] + [c["section"] for c in companions]
+    if MANIFEST_MINOR is not None or any(s["piece_cvs"] for s in all_secs):
+        used = max(used, MINOR_KEY_SINCE)
     if used > minor:
         raise Reject("version", "codecs or keys of format 1.%d in a file of 1.%d" % (used, minor))
-    if minor != used:
+    if minor >= MINOR_KEY_SINCE:
+        if MANIFEST_MINOR != minor:
+            raise Reject("manifest", "file says 1.%d, its manifest's minor key is %r" % (minor, MANIFEST_MINOR))
+        if any(s["chunks"] for s in all_secs):
+            raise Reject("manifest", "chunk hashes in a file of 1.%d" % minor)
+        if any(t["span"] for t in tensors) and not all(t["span"] for t in tensors):
+            raise Reject("manifest", "some tensors record source_span, others source_blake3 (one kind for all)")
+    elif minor != used:
         raise Reject("structure", "file says 1.%d, its manifest uses 1.%d" % (minor, used))
 
     secs = sections(tensors)
@@ -648,7 +826,15 @@ def read_artifact(data, with_trits):
         if any(data[end:pad_to]):
             raise Reject("structure", "nonzero padding after tensor %r's %s" % (t["name"], role))
         section = data[s["offset"]:end]
-        if blake3_hex(section) != s["blake3"]:
+        if s["piece_cvs"]:
+            cvs, joined = b3_section_pieces(section)
+            for k, want in enumerate(s["piece_cvs"]):
+                if cvs[k] != want:
+                    raise Reject("section-hash", "tensor %r: %s piece %d (bytes %d..%d) chaining value differs"
+                                 % (t["name"], role, k, k * CHUNK, min((k + 1) * CHUNK, len(section))))
+            if joined != s["blake3"]:
+                raise Reject("section-hash", "tensor %r: %s section BLAKE3 differs" % (t["name"], role))
+        elif blake3_hex(section) != s["blake3"]:
             raise Reject("section-hash", "tensor %r: %s section BLAKE3 differs" % (t["name"], role))
         for k, want in enumerate(s["chunks"]):
             if blake3_hex(section[k * CHUNK:(k + 1) * CHUNK]) != want:
@@ -771,6 +957,18 @@ def describe_tensor(t, parts, with_trits):
 
 
 def main(argv):
+    if argv[:1] == ["--blake3"]:
+        out = []
+        for path in argv[1:]:
+            with open(path, "rb") as f:
+                data = f.read()
+            r = {"file": path, "blake3": b3_hash(data)}
+            if len(data) > CHUNK:
+                r["piece_cvs"], r["joined"] = b3_section_pieces(data)
+            out.append(r)
+        json.dump(out, sys.stdout, indent=1)
+        print()
+        return 0
     with_trits = "--trits" in argv
     files = [a for a in argv if a != "--trits"]
     if not files or any(a.startswith("-") for a in files):

@@ -46,6 +46,10 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 	seen := make(map[string]bool, len(m.Tensors))
 	var worst worstBound
 	scratch := make([]redoBuffers, max(1, workers))
+	gate := convert.NewGate(workers)
+	for i := range scratch {
+		scratch[i].workers, scratch[i].gate = workers, gate
+	}
 	record := func(st *convert.Tensor, v tensorVerdict) {
 		for _, c := range v.checks {
 			rep.add(c.Name, c.Tensor, c.OK, "%s", c.Detail)
@@ -92,6 +96,8 @@ func checkAgainst(rep *Report, a *pack.Artifact, src *convert.Source, workers in
 		}}
 	err := convert.WalkOrdered(src, walk,
 		func(worker int, st *convert.Tensor, raw []byte) (tensorVerdict, error) {
+			gate.Acquire()
+			defer gate.Release()
 			return checkTensor(a, m.Recipe, st, raw, nil, &scratch[worker], derivedBad[st.Name], nil), nil
 		},
 		func(st *convert.Tensor, id convert.SourceID, v tensorVerdict) error {
@@ -273,7 +279,7 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 		if err != nil {
 			return err.Error()
 		}
-		v.excess, v.at = convert.TernaryBoundExcessOf(ws, packed, scales, t.GroupSize())
+		v.excess, v.at = convert.TernaryBoundExcessSplit(ws, packed, scales, t.GroupSize(), convert.Split{Workers: b.workers, Gate: b.gate})
 		v.tol = convert.TernaryBoundTolerance
 		if d := diffScales(scales, q.Scales); d != "" {
 			return d

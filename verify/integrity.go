@@ -14,6 +14,7 @@ import (
 
 	"github.com/zeebo/blake3"
 
+	"ternkit/internal/treehash"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
@@ -34,20 +35,27 @@ type sectionJob struct {
 
 // pieceOutcome is what a piece job found.
 type pieceOutcome struct {
-	bad     bool  // the piece's BLAKE3 differs from the recorded one
+	bad     bool  // the piece's hash differs from the recorded one
 	readErr error // the piece could not be read
+	// format 1.4: the piece's chaining value, and what its contents check
+	// found when the section's contents are checked piece by piece
+	cv       treehash.CV
+	contents pieceContents
 }
 
 // checkSections checks every section: its BLAKE3, the zero padding after
 // it, and its contents (trit payloads: codes, padding, counts; int8 codes;
-// scales), streamed piece by piece (manifest.ChunkSize); and, for a
-// section that records piece hashes, each piece's BLAKE3. A piece hash
-// cannot be derived from the section's (BLAKE3 numbers the chunks from
-// each input's start, so a piece hashed alone compresses differently from
-// the same bytes inside the section), so each is a job of its own: jobs run
-// on workers in parallel, longest first, each worker holding one piece,
-// and the checks are reported in file order, the same for any worker
-// count.
+// scales). A section of format 1.4 over manifest.ChunkSize records its
+// pieces' chaining values: each piece is a job that hashes it once into
+// its value and checks its contents where they split at pieces (pieces.go),
+// and the section's BLAKE3 is joined from the values. Any other section is
+// streamed piece by piece through one hash and its contents checker; one
+// of 1.0 to 1.3 over manifest.ChunkSize also records each piece's own
+// BLAKE3, which cannot be derived from the section's (a piece hashed alone
+// compresses differently from the same bytes inside the section), so each
+// is a job of its own. Jobs run on workers in parallel, longest first, each
+// worker holding one piece, and the checks are reported in file order, the
+// same for any worker count.
 func checkSections(rep *Report, a *pack.Artifact, src artifactBytes, workers int, advance func(n int64)) {
 	m := a.Manifest()
 	var all []placedSection
@@ -63,14 +71,18 @@ func checkSections(rep *Report, a *pack.Artifact, src artifactBytes, workers int
 	pieces := make([][]pieceOutcome, len(all))
 	for i, p := range all {
 		jobs = append(jobs, sectionJob{i, -1})
-		pieces[i] = make([]pieceOutcome, len(p.s.Chunks))
-		for k := range p.s.Chunks {
+		n := max(len(p.s.Chunks), len(p.s.PieceCVs))
+		pieces[i] = make([]pieceOutcome, n)
+		for k := range n {
 			jobs = append(jobs, sectionJob{i, k})
 		}
 	}
 	cost := func(j sectionJob) int64 {
 		s := all[j.section].s
 		if j.piece < 0 {
+			if len(s.PieceCVs) > 0 {
+				return 0 // the pieces hash it: a stream checks padding, at most contents
+			}
 			return s.Length
 		}
 		return min(manifest.ChunkSize, s.Length-int64(j.piece)*manifest.ChunkSize)
@@ -91,6 +103,10 @@ func checkSections(rep *Report, a *pack.Artifact, src artifactBytes, workers int
 		}
 		j := jobs[i]
 		p := all[j.section]
+		if j.piece >= 0 && len(p.s.PieceCVs) > 0 {
+			pieces[j.section][j.piece] = checkPieceCV(src, p, j.piece, bufs[worker])
+			return struct{}{}
+		}
 		if j.piece >= 0 {
 			pieces[j.section][j.piece] = checkPiece(src, p.s, j.piece, bufs[worker])
 			return struct{}{}
@@ -137,7 +153,27 @@ func streamSection(src artifactBytes, p placedSection, next int64, buf []byte) s
 	sink, contents := contentsChecker(p)
 	out.contents = contents
 	at, end := s.Offset, s.Offset+s.Length
+	if len(s.PieceCVs) > 0 {
+		// the piece jobs hash the section (and check contents that split
+		// into pieces); what is left is contents that do not
+		if splitsIntoPieces(p) {
+			sink, out.contents = nil, nil
+			at = end
+		}
+		end = s.Offset + s.Length
+	}
 	err := src.guard(func() {
+		if len(s.PieceCVs) > 0 {
+			for ; at < end && sink != nil; at += manifest.ChunkSize {
+				piece, err := src.at(buf, at, min(manifest.ChunkSize, end-at))
+				if err != nil {
+					out.readErr, out.readAt = err, at
+					return
+				}
+				sink.Write(piece)
+			}
+			return
+		}
 		h := blake3.New()
 		var sinkErr error
 		for ; at < end; at += manifest.ChunkSize {
@@ -237,6 +273,9 @@ func contentsChecker(p placedSection) (io.Writer, func() Check) {
 // padding after it, and, when the hash holds, its contents.
 func sectionChecks(p placedSection, st streamOutcome, pieces []pieceOutcome) []Check {
 	s, name := p.s, p.owner.Name
+	if len(s.PieceCVs) > 0 {
+		return pieceSectionChecks(p, st, pieces)
+	}
 	hash := Check{Name: CheckSection, Tensor: name, OK: true}
 	badChunk := int64(-1)
 	for k, o := range pieces {

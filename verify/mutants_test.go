@@ -386,7 +386,8 @@ func TestVerifyNamesBadFirstChunk(t *testing.T) {
 	forgePieceHash(t, art, forged, 0)
 	rep, err := Run(forged, Options{})
 	require.NoError(t, err)
-	require.Equal(t, []string{fmt.Sprintf("%s big: section at byte %d: chunk at byte %d does not match its recorded BLAKE3", CheckSection, sec.Offset, sec.Offset)}, failuresOf(rep))
+	require.Equal(t, []string{fmt.Sprintf("%s big: section at byte %d (%d bytes): piece 0 (its bytes 0..%d, file bytes %d..%d) does not match its recorded chaining value",
+		CheckSection, sec.Offset, sec.Length, 1<<22, sec.Offset, sec.Offset+1<<22)}, failuresOf(rep))
 }
 
 // Ranges of a mapped artifact: any range inside the file, empty ones and
@@ -536,36 +537,35 @@ func TestRedoReadsBF16InPlace(t *testing.T) {
 	}
 }
 
-// secondReadFails fails the second read that touches byte bad.
-type secondReadFails struct {
+// firstReadFails fails the first read that touches byte bad.
+type firstReadFails struct {
 	data  []byte
 	bad   int64
 	reads *int
 }
 
-func (f secondReadFails) ReadAt(p []byte, off int64) (int, error) {
+func (f firstReadFails) ReadAt(p []byte, off int64) (int, error) {
 	if off <= f.bad && f.bad < off+int64(len(p)) {
 		*f.reads++
-		if *f.reads == 2 {
+		if *f.reads == 1 {
 			return 0, errDevice
 		}
 	}
 	return bytes.NewReader(f.data).ReadAt(p, off)
 }
 
-// A piece that cannot be read when its own hash is checked, though the
-// section's stream read it, fails the section naming the piece's offset.
+// A piece that cannot be read when its chaining value is computed (the one
+// read of its bytes: a section of format 1.4 is not streamed apart) fails
+// the section naming the piece's offset.
 func TestVerifyNamesUnreadablePiece(t *testing.T) {
 	dir := t.TempDir()
 	art, sec := bigArtifact(t, dir)
 	b, err := os.ReadFile(art)
 	require.NoError(t, err)
 	reads := 0
-	// one worker takes the jobs longest first: the section's stream, then
-	// its pieces
-	r := secondReadFails{b, sec.Offset + 2*(1<<22) + 7, &reads}
+	r := firstReadFails{b, sec.Offset + 2*(1<<22) + 7, &reads}
 	rep, err := RunReaderAt("a.tkart", r, int64(len(b)), Options{Workers: 1})
 	require.NoError(t, err)
-	require.Equal(t, 2, reads)
+	require.Equal(t, 1, reads, "each byte of the section is read once")
 	require.Equal(t, []string{fmt.Sprintf("%s big: read section at byte %d: %v", CheckSection, sec.Offset+2*(1<<22), errDevice)}, failuresOf(rep))
 }

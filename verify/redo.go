@@ -15,6 +15,10 @@ type redoBuffers struct {
 	stored  []int8    // codes decoded from the artifact
 	payload []byte    // the artifact section's bytes
 	encoded []byte    // fresh codes or weights, encoded as stored
+	// workers may share a large tensor's quantization, each goroutine
+	// but the caller's taking a slot of gate (convert.TernarizeSplit)
+	workers int
+	gate    *convert.Gate
 }
 
 // grow returns (*s)[:n], reallocating when the capacity is short.
@@ -25,22 +29,31 @@ func grow[T any](s *[]T, n int) []T {
 	return (*s)[:n]
 }
 
-// requantize quantizes the source weights again with the recorded recipe
-// and returns the fresh trits; for the fixed-length codecs it encodes them
-// into b.encoded as they come, while they are in cache.
+// requantize quantizes the source weights again with the recorded recipe,
+// as pack does (a large tensor shared by the workers), and returns the
+// fresh trits; for the fixed-length codecs it encodes them into b.encoded
+// as they come, while they are in cache.
 func (b *redoBuffers) requantize(w convert.Weights, cols int, g convert.Granularity, r convert.Recipe, c pack.Codec) ([]int8, convert.Ternary, error) {
-	fresh := grow(&b.fresh, w.Len())[:0]
-	var enc *pack.TritEncoder
+	fresh := grow(&b.fresh, w.Len())
+	var enc *pack.SplitEncoder
 	if c == pack.Bits2 || c == pack.Base3 {
-		enc, _ = pack.NewTritEncoder(c, w.Len()) // a known codec: no error
+		enc, _ = pack.NewSplitEncoder(c, w.Len()) // a known codec: no error
 	}
-	q, err := convert.TernarizeStream(w, cols, g, r, func(t []int8) error {
-		fresh = append(fresh, t...)
-		if enc != nil {
-			enc.Write(t)
-		}
-		return nil
-	})
+	q, err := convert.TernarizeSplit(w, cols, g, r, convert.Split{Workers: b.workers, Gate: b.gate,
+		Range: func(start, end int) func([]int8) error {
+			pos := start
+			var write func([]int8) error
+			if enc != nil {
+				write = enc.Range(start, end)
+			}
+			return func(t []int8) error {
+				pos += copy(fresh[pos:end], t)
+				if write != nil {
+					return write(t)
+				}
+				return nil
+			}
+		}})
 	b.encoded = nil
 	if enc != nil && err == nil {
 		b.encoded, _ = enc.Finish(q.Counts) // a fixed-length codec: the counts do not matter

@@ -40,19 +40,23 @@ func checkSignature(rep *Report, hash [32]byte, opt *Signature) {
 	}
 }
 
-// digests fills rep's SHA256 and BLAKE3 of the whole artifact in one pass
-// over its bytes: the mapping when there is one, else the open file.
-func digests(rep *Report, a *pack.Artifact, mapped []byte) error {
-	both := filedigest.New()
+// digests fills rep's SHA256 and BLAKE3 of the whole artifact: from the
+// mapping when there is one (BLAKE3 by the tree on up to workers
+// goroutines, SHA-256 beside it), else in one pass over the open file.
+func digests(rep *Report, a *pack.Artifact, mapped []byte, workers int) error {
+	var d filedigest.Digests
 	if mapped != nil {
-		err := artifactBytes{a.ReaderAt(), mapped}.guard(func() { both.Write(mapped) })
+		err := artifactBytes{a.ReaderAt(), mapped}.guard(func() { d = filedigest.Bytes(mapped, workers) })
 		if err != nil {
 			return err
 		}
-	} else if _, err := io.Copy(both, io.NewSectionReader(a.ReaderAt(), 0, a.Size())); err != nil {
-		return err
+	} else {
+		both := filedigest.New()
+		if _, err := io.Copy(both, io.NewSectionReader(a.ReaderAt(), 0, a.Size())); err != nil {
+			return err
+		}
+		d = both.Digests()
 	}
-	d := both.Digests()
 	rep.SHA256, rep.BLAKE3 = d.SHA256, d.BLAKE3
 	return nil
 }

@@ -5,10 +5,10 @@ import (
 	"encoding/binary"
 	"encoding/hex"
 	"encoding/json"
+	"fmt"
 	"os"
 	"os/exec"
 	"path/filepath"
-	"strconv"
 	"strings"
 	"testing"
 
@@ -128,8 +128,8 @@ func TestVerifyCatchesTampering(t *testing.T) {
 	}
 }
 
-// A section longer than manifest.ChunkSize is hashed in pieces: verify
-// names the first bad piece's offset.
+// A section longer than manifest.ChunkSize records its pieces' chaining
+// values (format 1.4): verify names the first bad piece and its bytes.
 func TestVerifyNamesBadChunk(t *testing.T) {
 	dir := t.TempDir()
 	art, sec := bigArtifact(t, dir)
@@ -144,7 +144,7 @@ func TestVerifyNamesBadChunk(t *testing.T) {
 	require.False(t, rep.OK())
 	f := rep.Failures()[0]
 	require.Equal(t, CheckSection, f.Name)
-	require.Contains(t, f.Detail, "first bad chunk at byte "+strconv.FormatInt(sec.Offset+2*(1<<22), 10))
+	require.Contains(t, f.Detail, fmt.Sprintf("piece 2 (its bytes %d..%d, file bytes %d..%d) does not match", 2<<22, 3<<22, sec.Offset+2<<22, sec.Offset+3<<22))
 
 	// a manifest whose piece hash is wrong, though the section hash is
 	// right, is caught as well (pack/FORMAT.md: a reader checks both)
@@ -155,15 +155,15 @@ func TestVerifyNamesBadChunk(t *testing.T) {
 	require.False(t, rep.OK())
 	f = rep.Failures()[0]
 	require.Equal(t, CheckSection, f.Name)
-	require.Contains(t, f.Detail, "chunk at byte "+strconv.FormatInt(sec.Offset+(1<<22), 10)+" does not match")
+	require.Contains(t, f.Detail, fmt.Sprintf("piece 1 (its bytes %d..%d, file bytes %d..%d) does not match", 1<<22, 2<<22, sec.Offset+1<<22, sec.Offset+2<<22))
 }
 
 // forgePieceHash writes a copy of art whose first tensor records a wrong
 // hash for piece k.
 func forgePieceHash(t *testing.T, art, out string, k int) {
 	rewriteManifest(t, art, out, func(m map[string]any) {
-		chunks := entry(m, 0)["section"].(map[string]any)["chunks"].([]any)
-		chunks[k] = strings.Repeat("0", 64)
+		cvs := entry(m, 0)["section"].(map[string]any)["piece_cvs"].([]any)
+		cvs[k] = strings.Repeat("0", 64)
 	})
 }
 
@@ -185,7 +185,7 @@ func bigArtifact(t *testing.T, dir string) (string, manifest.Section) {
 	m, err := pack.Build(s, art, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe()})
 	require.NoError(t, err)
 	sec := m.Tensors[0].Section
-	require.Len(t, sec.Chunks, 4)
+	require.Len(t, sec.PieceCVs, 4)
 	return art, sec
 }
 

@@ -200,11 +200,12 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	if workers <= 0 {
 		workers = runtime.NumCPU()
 	}
-	// the whole file's digests are one sequential pass beside the section
-	// checks, which leave CPUs idle while their last jobs finish
+	// the whole file's digests, only when asked for (the JSON report
+	// prints them), beside the section checks: SHA-256 is one sequential
+	// pass, which runs while the section jobs share the other CPUs
 	digestErr := make(chan error, 1)
 	if opts.Digests {
-		go func() { digestErr <- digests(rep, a, mapped) }()
+		go func() { digestErr <- digests(rep, a, mapped, workers) }()
 	} else {
 		digestErr <- nil
 	}

@@ -42,7 +42,7 @@ func TestPackCompanions(t *testing.T) {
 	require.Empty(t, companionNames(t, none))
 	b, err := os.ReadFile(none)
 	require.NoError(t, err)
-	require.Equal(t, byte(4), b[10], "no companions: format 1.4 still (source_span)")
+	require.Equal(t, byte(4), b[10], "new artifacts are format 1.4, companions or not")
 
 	code, _, stderr = ternkit("pack", src, "-o", none, "--companion", "sub/*.txt")
 	require.Equal(t, exitInput, code)

@@ -39,9 +39,9 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 	cmd.Flags().StringVar(&f.scaleRule, "scale-rule", string(d.ScaleRule), "reciprocal (w × 1/max(gamma, eps), training-code form) or quotient (w / (gamma + eps), paper form)")
 	cmd.Flags().Float64Var(&f.epsilon, "epsilon", d.Epsilon, "epsilon of the scale rule, in (0, 1e-2]")
 	cmd.Flags().StringVar(&f.tie, "tie", string(d.Tie), "rounding of exact halves: half-even or half-away")
-	cmd.Flags().StringVar(&f.sum, "sum", string(d.Sum), "order of gamma's float64 sum: strided16 (16 partial sums, vector speed) or sequential (index order, the order of artifacts that record none)")
+	cmd.Flags().StringVar(&f.sum, "sum", string(d.Sum), "order of gamma's float64 sum: blocked16 (blocks of 2^20 weights in 16 partial sums each, one large tensor on every worker; format 1.4), strided16 (16 partial sums over the whole group, format 1.2) or sequential (index order, the order of artifacts that record none)")
 	f.companions.register(cmd)
-	cmd.Flags().IntVar(&f.workers, "workers", runtime.NumCPU(), "tensors quantized in parallel (the bytes written are the same for any count)")
+	cmd.Flags().IntVar(&f.workers, "workers", runtime.NumCPU(), "tensors quantized in parallel, a large one shared among them (the bytes written are the same for any count)")
 	cmd.Flags().StringVar(&f.policyFile, "policy", "", "policy file (TOML [[rule]] tables) replacing the default policy")
 	cmd.Flags().StringArrayVar(&f.rules, "rule", nil, "rule GLOB=ACTION placed before the policy's rules (repeatable); actions: ternary, ternary:row, ternary:group:N, keep, keep:f16, keep:bf16, keep:f32, int8")
 	_ = cmd.RegisterFlagCompletionFunc("codec", fixedCompletions(codecNames()...))
@@ -53,7 +53,7 @@ func (f *recipeFlags) register(cmd *cobra.Command) {
 var (
 	scaleRules = []string{string(convert.ScaleReciprocal), string(convert.ScaleQuotient)}
 	tieRules   = []string{string(convert.TieHalfEven), string(convert.TieHalfAway)}
-	sumOrders  = []string{string(convert.SumStrided16), string(convert.SumSequential)}
+	sumOrders  = []string{string(convert.SumBlocked16), string(convert.SumStrided16), string(convert.SumSequential)}
 )
 
 func codecNames() []string {
@@ -308,7 +308,7 @@ func printPackResult(cmd *cobra.Command, out string, m *manifest.Manifest, took 
 	}
 	size := st.Size()
 	if asJSON {
-		d, err := filedigest.File(out)
+		d, err := filedigest.FileWorkers(out, 0) // only --json prints them
 		if err != nil {
 			return err
 		}

@@ -12,6 +12,7 @@ import (
 	"os"
 	"os/exec"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -309,10 +310,11 @@ func TestSecondReaderDemo(t *testing.T) {
 	}
 }
 
-// A section over 4 MiB carries chunk hashes: both readers accept the
-// artifact, and both report a section-hash failure when one chunk hash in
-// the manifest is replaced (manifest and trailer hash kept consistent).
-func TestSecondReaderChunks(t *testing.T) {
+// A section over 4 MiB carries its pieces' chaining values (format 1.4):
+// both readers accept the artifact, and both report a section-hash
+// failure naming the piece when one record in the manifest is replaced
+// (manifest and trailer hash kept consistent).
+func TestSecondReaderPieceCVs(t *testing.T) {
 	py := requirePythonReader(t)
 	dir := t.TempDir()
 	data := make([]byte, manifest.ChunkSize+5000) // two chunks, the last one short
@@ -327,17 +329,17 @@ func TestSecondReaderChunks(t *testing.T) {
 	good := filepath.Join(dir, "good"+pack.Extension)
 	m, err := pack.Build(s, good, pack.Options{Codec: pack.Base3, Recipe: convert.DefaultRecipe()})
 	require.NoError(t, err)
-	require.Len(t, m.Tensors[0].Section.Chunks, 2)
+	require.Len(t, m.Tensors[0].Section.PieceCVs, 2)
 
 	b, err := os.ReadFile(good)
 	require.NoError(t, err)
 	tr := len(b) - pack.TrailerLen
 	off := int(binary.LittleEndian.Uint64(b[tr:]))
 	body := b[off:tr]
-	last := m.Tensors[0].Section.Chunks[1]
+	last := m.Tensors[0].Section.PieceCVs[1]
 	i := bytes.Index(body, []byte(last))
 	require.Positive(t, i)
-	copy(body[i:], m.Tensors[0].Section.Chunks[0]) // the first chunk's hash in the second's place
+	copy(body[i:], m.Tensors[0].Section.PieceCVs[0]) // the first piece's value in the second's place
 	sum := blake3.Sum256(body)
 	copy(b[tr+16:], sum[:])
 	bad := filepath.Join(dir, "bad-chunk"+pack.Extension)
@@ -346,5 +348,53 @@ func TestSecondReaderChunks(t *testing.T) {
 	res := compareReaders(t, py, false, []string{good, bad})
 	require.Equal(t, "ok", res[0].Result, res[0].Detail)
 	require.Equal(t, "section-hash", res[1].Result, res[1].Detail)
-	require.Contains(t, res[1].Detail, "chunk 1")
+	require.Contains(t, res[1].Detail, "piece 1")
+}
+
+// The second reader's own BLAKE3 (the compression function written with
+// numpy): its root hashes equal b3sum's (Debian's b3sum) across block,
+// chunk, tree and piece boundaries, and its piece chaining values equal
+// the Go writer's, joining into the same hash.
+func TestSecondReaderBLAKE3(t *testing.T) {
+	py := requirePythonReader(t)
+	dir := t.TempDir()
+	lengths := []int{0, 1, 63, 64, 65, 1023, 1024, 1025, 2048, 3 * 1024, 5*1024 + 7, 65536 + 5,
+		manifest.ChunkSize, manifest.ChunkSize + 1, 2*manifest.ChunkSize + 5000}
+	var files []string
+	for i, n := range lengths {
+		data := make([]byte, n)
+		for j := range data {
+			data[j] = byte(j*31 + j>>11 + i)
+		}
+		f := filepath.Join(dir, fmt.Sprint(n))
+		require.NoError(t, os.WriteFile(f, data, 0o644))
+		files = append(files, f)
+	}
+	out, err := exec.Command(py, append([]string{pythonReader, "--blake3"}, files...)...).Output()
+	require.NoError(t, err)
+	var got []struct {
+		File     string   `json:"file"`
+		BLAKE3   string   `json:"blake3"`
+		PieceCVs []string `json:"piece_cvs"`
+		Joined   string   `json:"joined"`
+	}
+	require.NoError(t, json.Unmarshal(out, &got))
+	require.Len(t, got, len(files))
+	for i, f := range files {
+		b3, err := exec.Command("b3sum", "--no-names", f).Output()
+		require.NoError(t, err)
+		require.Equal(t, strings.TrimSpace(string(b3)), got[i].BLAKE3, "%d bytes", lengths[i])
+		data, err := os.ReadFile(f)
+		require.NoError(t, err)
+		if len(data) <= manifest.ChunkSize {
+			require.Empty(t, got[i].PieceCVs)
+			continue
+		}
+		var want []string
+		for _, cv := range pack.PieceCVs(data, 1) {
+			want = append(want, manifest.HexHash(cv))
+		}
+		require.Equal(t, want, got[i].PieceCVs, "%d bytes", lengths[i])
+		require.Equal(t, got[i].BLAKE3, got[i].Joined, "%d bytes", lengths[i])
+	}
 }

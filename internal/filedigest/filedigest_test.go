@@ -23,7 +23,7 @@ func TestFileAgainstSHA256Sum(t *testing.T) {
 		t.Skip("sha256sum not found (coreutils)")
 	}
 	dir := t.TempDir()
-	for _, n := range []int{0, 1, 63, 64, 65, 1 << 20} {
+	for _, n := range []int{0, 1, 63, 64, 65, 1 << 20, 3<<20 + 5} {
 		data := bytes.Repeat([]byte("fernmoss seed vault "), n/20+1)[:n]
 		path := filepath.Join(dir, "f")
 		require.NoError(t, os.WriteFile(path, data, 0o644))
@@ -35,6 +35,13 @@ func TestFileAgainstSHA256Sum(t *testing.T) {
 		require.Equal(t, want, d.SHA256, "%d bytes", n)
 		b3 := blake3.Sum256(data)
 		require.Equal(t, b3[:], mustHex(t, d.BLAKE3))
+		// the parallel path: the same digests, mapped or in memory
+		for _, workers := range []int{1, 2, 3} {
+			require.Equal(t, d, Bytes(data, workers), "%d bytes, %d workers", n, workers)
+			pd, err := FileWorkers(path, workers)
+			require.NoError(t, err)
+			require.Equal(t, d, pd, "%d bytes, %d workers", n, workers)
+		}
 	}
 	_, err = File(filepath.Join(dir, "missing"))
 	require.ErrorIs(t, err, os.ErrNotExist)

@@ -197,38 +197,76 @@ static void b3_parent(const uint32_t l[8], const uint32_t r[8], uint32_t flags, 
 	b3_compress(B3_IV, w, 0, 64, B3_PARENT | flags, out);
 }
 
-void tkart_blake3(const void *data, size_t len, uint8_t out[32])
+/* The node that len bytes (at least 1, or 0 for the empty input with root)
+ * form when their first chunk is number counter0, a multiple of a power of
+ * two at least as large as their chunk count: its chaining value, or with
+ * root set (counter0 = 0) the hash. A piece of a section (format 1.4,
+ * FORMAT.md "Hashing") is such a node. */
+static void b3_tree(const uint8_t *p, size_t len, uint64_t counter0, int root, uint32_t cv[8])
 {
-	const uint8_t *p = data;
-	uint32_t stack[54][8], cv[8];
+	uint32_t stack[54][8];
 	int depth = 0, i;
 	uint64_t chunk = 0;
 	size_t off = 0;
 	if (len <= 1024) {
-		b3_chunk(p, len, 0, 1, cv);
+		b3_chunk(p, len, counter0, root, cv);
 	} else {
 		/* Every chunk but the last is merged into the stack as soon as the
 		 * number of chunks so far allows (section 5.1.2): after chunk k
 		 * (counting from 1), one merge per trailing zero bit of k. */
 		while (len - off > 1024) {
 			uint64_t total;
-			b3_chunk(p + off, 1024, chunk, 0, cv);
+			b3_chunk(p + off, 1024, counter0 + chunk, 0, cv);
 			off += 1024;
 			chunk++;
 			for (total = chunk; (total & 1) == 0; total >>= 1)
 				b3_parent(stack[--depth], cv, 0, cv);
 			memcpy(stack[depth++], cv, 32);
 		}
-		b3_chunk(p + off, len - off, chunk, 0, cv);
+		b3_chunk(p + off, len - off, counter0 + chunk, 0, cv);
 		for (i = depth - 1; i >= 0; i--)
-			b3_parent(stack[i], cv, i == 0 ? B3_ROOT : 0, cv);
+			b3_parent(stack[i], cv, i == 0 && root ? B3_ROOT : 0, cv);
 	}
+}
+
+static void b3_bytes(const uint32_t cv[8], uint8_t out[32])
+{
+	int i;
 	for (i = 0; i < 8; i++) {
 		out[4 * i] = (uint8_t)cv[i];
 		out[4 * i + 1] = (uint8_t)(cv[i] >> 8);
 		out[4 * i + 2] = (uint8_t)(cv[i] >> 16);
 		out[4 * i + 3] = (uint8_t)(cv[i] >> 24);
 	}
+}
+
+void tkart_blake3(const void *data, size_t len, uint8_t out[32])
+{
+	uint32_t cv[8];
+	b3_tree(data, len, 0, 1, cv);
+	b3_bytes(cv, out);
+}
+
+/* The section BLAKE3 from the chaining values of its n >= 2 pieces of
+ * 2^22 bytes (FORMAT.md, "Hashing", format 1.4), 32 bytes each: the pieces
+ * join as chunks do, the last merge with the ROOT flag. */
+static void b3_join(const uint8_t *cvs, uint64_t n, uint8_t out[32])
+{
+	uint32_t stack[54][8], cv[8];
+	uint64_t k, total;
+	int depth = 0, i, w;
+	for (k = 0; k < n; k++) {
+		for (w = 0; w < 8; w++)
+			cv[w] = le32(cvs + 32 * k + 4 * w);
+		if (k + 1 == n)
+			break;
+		for (total = k + 1; (total & 1) == 0; total >>= 1)
+			b3_parent(stack[--depth], cv, 0, cv);
+		memcpy(stack[depth++], cv, 32);
+	}
+	for (i = depth - 1; i >= 0; i--)
+		b3_parent(stack[i], cv, i == 0 ? B3_ROOT : 0, cv);
+	b3_bytes(cv, out);
 }
 
 /* ---- arena --------------------------------------------------------------- */
@@ -847,12 +885,14 @@ static int jhash(jp *j, uint8_t out[32], const char *what)
 
 typedef struct {
 	int has_sum;
+	int has_minor;     /* the manifest's "minor" key (format 1.4) */
+	int64_t minor_key; /* its value */
 	uint64_t source_bytes;
 } mfacts;
 
 static int parse_section(jp *j, tkart_section *s, int *present, const char *where);
 
-static const char *const SECTION_KEYS[] = {"offset", "length", "blake3", "chunks", NULL};
+static const char *const SECTION_KEYS[] = {"offset", "length", "blake3", "chunks", "piece_cvs", NULL};
 
 static int parse_section(jp *j, tkart_section *s, int *present, const char *where)
 {
@@ -879,10 +919,14 @@ static int parse_section(jp *j, tkart_section *s, int *present, const char *wher
 		case 1: if (jint(j, &len)) return j->a->err; break;
 		case 2: if (jhash(j, s->blake3, "section blake3")) return j->a->err; break;
 		case 3:
+		case 4: {
+			/* chunks (1.0 to 1.3) or piece_cvs (1.4): 32 bytes a piece */
+			const uint8_t **list = idx == 3 ? &s->chunks : &s->piece_cvs;
+			uint64_t *count = idx == 3 ? &s->nchunks : &s->npiece_cvs;
 			if (jarr_begin(j, &o2))
 				return j->a->err;
 			f2 = 1;
-			s->nchunks = 0;
+			*count = 0;
 			if (o2)
 				for (;;) {
 					uint8_t *h;
@@ -890,16 +934,17 @@ static int parse_section(jp *j, tkart_section *s, int *present, const char *wher
 						return j->a->err;
 					if (!m2)
 						break;
-					h = arena_append(j, s->chunks, s->nchunks, 32, "chunk hashes");
+					h = arena_append(j, *list, *count, 32, idx == 3 ? "chunk hashes" : "piece chaining values");
 					if (!h)
 						return j->a->err;
-					if (s->nchunks == 0)
-						s->chunks = h;
-					if (jhash(j, h, "chunk hash"))
+					if (*count == 0)
+						*list = h;
+					if (jhash(j, h, idx == 3 ? "chunk hash" : "piece chaining value"))
 						return j->a->err;
-					s->nchunks++;
+					(*count)++;
 				}
 			break;
+		}
 		}
 	}
 	if (need(j, SECTION_KEYS, seen, 0x7, where))
@@ -910,9 +955,12 @@ static int parse_section(jp *j, tkart_section *s, int *present, const char *wher
 	s->length = (uint64_t)len;
 	{
 		uint64_t want = s->length > CHUNK ? (s->length + CHUNK - 1) / CHUNK : 0;
-		if (s->nchunks != want)
-			return jbad(j, "%s: %llu chunk hashes for %llu bytes (want %llu)", where,
-			            (unsigned long long)s->nchunks, (unsigned long long)s->length,
+		uint64_t have = s->npiece_cvs ? s->npiece_cvs : s->nchunks;
+		if (s->nchunks && s->npiece_cvs)
+			return jbad(j, "%s: both chunks and piece_cvs (a section records one of them)", where);
+		if (have != want)
+			return jbad(j, "%s: %llu piece records for %llu bytes (want %llu)", where,
+			            (unsigned long long)have, (unsigned long long)s->length,
 			            (unsigned long long)want);
 	}
 	return 0;
@@ -1230,7 +1278,7 @@ static int parse_tensor(jp *j, tkart_tensor *t, int idx)
 }
 
 static const char *const MANIFEST_KEYS[] = {"format", "version", "tool", "created", "recipe", "source",
-                                            "policy", "tensors", "totals", "companions", NULL};
+                                            "policy", "tensors", "totals", "companions", "minor", NULL};
 static const char *const RECIPE_KEYS[] = {"method", "scale_rule", "epsilon", "tie", "sum", NULL};
 static const char *const SOURCE_KEYS[] = {"files", "metadata", NULL};
 static const char *const FILE_KEYS[] = {"name", "bytes", "blake3", NULL};
@@ -1274,12 +1322,13 @@ static int parse_recipe(jp *j, mfacts *mf)
 		return jbad(j, "recipe: scale_rule \"%.40s\"", rule);
 	if (strcmp(tie, "half-even") && strcmp(tie, "half-away"))
 		return jbad(j, "recipe: tie \"%.40s\"", tie);
-	if (sum[0] && strcmp(sum, "strided16") && strcmp(sum, "sequential"))
-		return jbad(j, "recipe: sum \"%.40s\" (want strided16 or sequential)", sum);
+	if (sum[0] && strcmp(sum, "blocked16") && strcmp(sum, "strided16") && strcmp(sum, "sequential"))
+		return jbad(j, "recipe: sum \"%.40s\" (want blocked16, strided16 or sequential)", sum);
 	e32 = (float)eps;
 	if (!(eps > 0) || eps > 0.01 || e32 == 0)
 		return jbad(j, "recipe: epsilon %g (want a number in (0, 0.01] whose float32 is nonzero)", eps);
-	mf->has_sum = sum[0] != 0;
+	/* the minor version the sum order needs: the key is of 1.2, blocked16 of 1.4 */
+	mf->has_sum = !sum[0] ? 0 : strcmp(sum, "blocked16") ? 2 : 4;
 	return 0;
 }
 
@@ -1601,6 +1650,13 @@ static int parse_manifest(tkart *a, const uint8_t *body, uint64_t len, mfacts *m
 			}
 			break;
 		case 9: if (parse_companions(j)) return a->err; break;
+		case 10:
+			if (jint(j, &mf->minor_key))
+				return a->err;
+			if (mf->minor_key != TKART_MINOR)
+				return jbad(j, "minor %lld (4 is the only value this version defines)", (long long)mf->minor_key);
+			mf->has_minor = 1;
+			break;
 		case 8: {
 			int o3, f3 = 1, m3, i3;
 			uint32_t s3 = 0;
@@ -1785,6 +1841,9 @@ int tkart_open(tkart *a, const void *buf, uint64_t size, void *arena, size_t are
 	if (mf.has_sum && a->minor < 2)
 		return fail(a, TKART_E_VERSION, 10, "preamble: byte 10: the recipe's sum is a key of format 1.2, the preamble says 1.%u (FORMAT.md, Versioning)",
 		            a->minor);
+	if (mf.has_sum && a->minor < (unsigned)mf.has_sum)
+		return fail(a, TKART_E_VERSION, 10, "preamble: byte 10: the recipe's sum order blocked16 is of format 1.4, the preamble says 1.%u (FORMAT.md, Versioning)",
+		            a->minor);
 	if (mf.has_sum)
 		used = 2;
 	if (a->ncompanions && a->minor < 3)
@@ -1795,11 +1854,38 @@ int tkart_open(tkart *a, const void *buf, uint64_t size, void *arena, size_t are
 	if (a->nspan && a->minor < 4)
 		return fail(a, TKART_E_VERSION, 10, "preamble: byte 10: source_span is a key of format 1.4, the preamble says 1.%u (FORMAT.md, Versioning)",
 		            a->minor);
-	if (a->nspan)
-		used = 4;
-	if (a->nblake3 && a->minor >= 4)
-		return fail(a, TKART_E_STRUCTURE, 10, "preamble: byte 10: source_blake3 in a file of format 1.%u, which records source_span (FORMAT.md, Versioning)",
-		            a->minor);
+	if (mf.has_sum > 3)
+		used = (unsigned)mf.has_sum;
+	{
+		/* format 1.4: the minor key and piece chaining values; chunk
+		 * hashes are of 1.0 to 1.3 */
+		int pieces = 0, chunks = 0, s;
+		for (i = 0; i < a->ntensors; i++)
+			for (s = 0; s < 1 + a->tensors[i].has_scales; s++) {
+				const tkart_section *sec = s ? &a->tensors[i].scales : &a->tensors[i].section;
+				pieces |= sec->npiece_cvs > 0;
+				chunks |= sec->nchunks > 0;
+			}
+		for (i = 0; i < a->ncompanions; i++) {
+			pieces |= a->companions[i].section.npiece_cvs > 0;
+			chunks |= a->companions[i].section.nchunks > 0;
+		}
+		if ((mf.has_minor || pieces) && a->minor < 4)
+			return fail(a, TKART_E_VERSION, 10, "preamble: byte 10: the manifest's minor key or piece_cvs are of format 1.4, the preamble says 1.%u (FORMAT.md, Versioning)",
+			            a->minor);
+		if (a->minor >= 4) {
+			if (!mf.has_minor || mf.minor_key != (int64_t)a->minor)
+				return fail(a, TKART_E_MANIFEST, m, "manifest: the preamble says format 1.%u, the manifest has no minor key equal to it (FORMAT.md, Versioning)",
+				            a->minor);
+			if (chunks)
+				return fail(a, TKART_E_MANIFEST, m, "manifest: chunk hashes in a file of format 1.%u, which records piece_cvs (FORMAT.md, Hashing)",
+				            a->minor);
+			if (a->nspan && a->nblake3)
+				return fail(a, TKART_E_MANIFEST, m, "manifest: %zu tensors record source_span, the others source_blake3 (one kind for all; FORMAT.md, Source span identity)",
+				            a->nspan);
+			used = a->minor;
+		}
+	}
 	if (a->minor != used)
 		return fail(a, TKART_E_STRUCTURE, 10, "preamble: byte 10: preamble says format 1.%u, the manifest uses features of 1.%u only (FORMAT.md, Versioning)",
 		            a->minor, used);
@@ -1870,6 +1956,28 @@ static int verify_hashes(tkart *a, const tkart_section *s, size_t flag, const ch
 	uint64_t k;
 	if (a->verified[flag])
 		return TKART_OK;
+	if (s->npiece_cvs) {
+		/* each piece's chaining value, compared with the record, then the
+		 * records (now known to be the pieces') joined into the section's
+		 * BLAKE3: each byte hashed once */
+		uint8_t one[32];
+		for (k = 0; k < s->npiece_cvs; k++) {
+			uint64_t off = k * CHUNK, n = s->length - off < CHUNK ? s->length - off : CHUNK;
+			uint32_t cv[8];
+			b3_tree(p + off, (size_t)n, k * (CHUNK / 1024), 0, cv);
+			b3_bytes(cv, one);
+			if (memcmp(one, s->piece_cvs + 32 * k, 32) != 0)
+				return fail(a, TKART_E_SECTION_HASH, s->offset + off, "%s \"%.60s\": byte %llu: %s piece %llu (bytes %llu..%llu of the section) chaining value differs from the manifest (FORMAT.md, Hashing)",
+				            what, name, (unsigned long long)(s->offset + off), role, (unsigned long long)k,
+				            (unsigned long long)off, (unsigned long long)(off + n));
+		}
+		b3_join(s->piece_cvs, s->npiece_cvs, h);
+		if (memcmp(h, s->blake3, 32) != 0)
+			return fail(a, TKART_E_SECTION_HASH, s->offset, "%s \"%.60s\": byte %llu: %s section BLAKE3 differs from the manifest (FORMAT.md, Hashing)",
+			            what, name, (unsigned long long)s->offset, role);
+		a->verified[flag] = 1;
+		return TKART_OK;
+	}
 	tkart_blake3(p, (size_t)s->length, h);
 	if (memcmp(h, s->blake3, 32) != 0)
 		return fail(a, TKART_E_SECTION_HASH, s->offset, "%s \"%.60s\": byte %llu: %s section BLAKE3 differs from the manifest (FORMAT.md, Hashing)",

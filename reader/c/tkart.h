@@ -1,4 +1,4 @@
-/* tkart.h: a C99 reader of ternkit artifacts (.tkart), format 1.0 to 1.3,
+/* tkart.h: a C99 reader of ternkit artifacts (.tkart), format 1.0 to 1.4,
  * written from pack/FORMAT.md.
  *
  * The reader works over a buffer the caller provides (typically the whole
@@ -58,8 +58,10 @@ enum { TKART_GRAN_NONE = 0, TKART_GRAN_TENSOR = 1, TKART_GRAN_ROW = 2, TKART_GRA
 typedef struct tkart_section {
 	uint64_t offset, length;
 	uint8_t blake3[32];
-	uint64_t nchunks;      /* BLAKE3 of each 2^22-byte piece, 0 for short sections */
+	uint64_t nchunks;      /* BLAKE3 of each 2^22-byte piece (format 1.0 to 1.3), 0 for short sections */
 	const uint8_t *chunks; /* nchunks × 32 bytes, in the arena */
+	uint64_t npiece_cvs;      /* chaining value of each 2^22-byte piece (format 1.4), 0 for short sections */
+	const uint8_t *piece_cvs; /* npiece_cvs × 32 bytes, in the arena */
 } tkart_section;
 
 typedef struct tkart_tensor {

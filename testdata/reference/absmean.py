@@ -6,12 +6,22 @@ usage: absmean.py IN ROWS COLS GRANULARITY SCALE_RULE EPSILON TIE SUM OUT_TRITS 
 
 IN holds ROWS*COLS little-endian float32 values in C order. GRANULARITY is
 tensor, row or group:N; SCALE_RULE reciprocal or quotient; TIE half-even or
-half-away; SUM strided16 or sequential (the order of gamma's sum). OUT_TRITS receives int8 trits, OUT_SCALES little-endian float32
+half-away; SUM blocked16, strided16 or sequential (the order of gamma's sum). OUT_TRITS receives int8 trits, OUT_SCALES little-endian float32
 scales, one per group in C order.
 """
 import sys
 
 import numpy as np
+
+
+def strided16(a):
+    """The strided16 sum of each row of a (float64): element i to partial
+    sum i mod 16 (zero padding adds nothing), combined as FORMAT.md says."""
+    n = a.shape[1]
+    padded = np.pad(a, ((0, 0), (0, -n % 16)))
+    p = np.add.accumulate(padded.reshape(len(a), -1, 16), axis=1)[:, -1, :]
+    t = [(p[:, k] + p[:, k + 4]) + (p[:, k + 8] + p[:, k + 12]) for k in range(4)]
+    return (t[0] + t[2]) + (t[1] + t[3])
 
 
 def main():
@@ -35,11 +45,13 @@ def main():
     if order == "sequential":
         total = np.add.accumulate(a, axis=1)[:, -1]
     elif order == "strided16":
-        # element i to partial sum i mod 16 (zero padding adds nothing)
-        padded = np.pad(a, ((0, 0), (0, -n % 16)))
-        p = np.add.accumulate(padded.reshape(len(a), -1, 16), axis=1)[:, -1, :]
-        t = [(p[:, k] + p[:, k + 4]) + (p[:, k + 8] + p[:, k + 12]) for k in range(4)]
-        total = (t[0] + t[2]) + (t[1] + t[3])
+        total = strided16(a)
+    elif order == "blocked16":
+        # blocks of 2^20 elements from the group's first, each summed as
+        # strided16, then added in order from 0
+        total = np.zeros(len(a))
+        for lo in range(0, n, 1 << 20):
+            total = total + strided16(a[:, lo:lo + (1 << 20)])
     else:
         sys.exit("unknown sum order " + order)
     gamma = total / n
