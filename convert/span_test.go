@@ -9,6 +9,7 @@ import (
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"sync"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -213,7 +214,8 @@ func TestWalkTruncatedWhileMapped(t *testing.T) {
 	require.NoError(t, WriteFile(path, ts, nil))
 	// whole tensors read by the worker, by a goroutine of work's own
 	// through CatchFault, and tensors in pieces
-	for _, mode := range []string{"whole", "goroutine", "pieces"} {
+	// (or through a FaultRelay, as the shared ternarization's helpers do)
+	for _, mode := range []string{"whole", "goroutine", "relay", "pieces"} {
 		pieces := mode == "pieces"
 		require.NoError(t, WriteFile(path, ts, nil))
 		s, err := Open(path)
@@ -244,6 +246,18 @@ func TestWalkTruncatedWhileMapped(t *testing.T) {
 					for _, b := range raw {
 						n += int(b)
 					}
+				}
+				if mode == "relay" {
+					var relay FaultRelay
+					var wg sync.WaitGroup
+					wg.Add(1)
+					go func() {
+						defer wg.Done()
+						relay.Run(sum)
+					}()
+					wg.Wait()
+					relay.Raise()
+					return n, nil
 				}
 				if mode != "goroutine" {
 					sum()
