@@ -106,7 +106,12 @@ func writeVectors14(t *testing.T) {
 		d.m.Minor = nil
 	})
 
-	// merge into the published list, the older entries untouched
+	publishVectors(t, vs, files)
+}
+
+// publishVectors writes files into testdata/vectors and puts vs in the
+// published list in place of their earlier entries, the others untouched.
+func publishVectors(t *testing.T, vs []vector, files map[string][]byte) {
 	b, err := os.ReadFile(filepath.Join(vectorsDir, "vectors.json"))
 	require.NoError(t, err)
 	var all []vector

@@ -2,11 +2,9 @@ package pack
 
 import (
 	"bytes"
-	"encoding/json"
 	"flag"
 	"os"
 	"path/filepath"
-	"slices"
 	"testing"
 
 	"github.com/stretchr/testify/require"
@@ -46,19 +44,7 @@ func writeVectorsSpan(t *testing.T) {
 	d.minor, d.m.Minor = 3, nil
 	add(vector{File: "bad-source-span-before-14.tkart", Expect: failVersion, Note: `"source_span" (format 1.4) in a file that says version 1.3, without the "minor" key`}, d.encode(t))
 
-	b, err := os.ReadFile(filepath.Join(vectorsDir, "vectors.json"))
-	require.NoError(t, err)
-	var all []vector
-	require.NoError(t, json.Unmarshal(b, &all))
-	all = slices.DeleteFunc(all, func(v vector) bool { _, ok := files[v.File]; return ok })
-	all = append(all, vs...)
-	for name, b := range files {
-		require.NoError(t, os.WriteFile(filepath.Join(vectorsDir, name), b, 0o644))
-	}
-	js, err := json.MarshalIndent(all, "", "  ")
-	require.NoError(t, err)
-	require.NoError(t, os.WriteFile(filepath.Join(vectorsDir, "vectors.json"), append(js, '\n'), 0o644))
-	require.NoError(t, os.WriteFile(filepath.Join(vectorsDir, "README.md"), []byte(vectorsReadme(all)), 0o644))
+	publishVectors(t, vs, files)
 }
 
 // The source span vectors: the good one's entries record source_span and
