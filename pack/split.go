@@ -70,16 +70,7 @@ func (e *SplitEncoder) Finish(counts convert.TritCounts) ([]byte, Codec) {
 		r.edges = nil
 	}
 	e.ranges = nil
-	switch e.codec {
-	case Entropy:
-		return appendEntropyFrame(nil, e.digits), Entropy
-	case Auto:
-		if frame, ok := autoEntropy(e.digits, counts); ok {
-			return frame, Entropy
-		}
-		return e.digits, Base3
-	}
-	return e.digits, e.codec
+	return finishDigits(e.codec, e.digits, counts)
 }
 
 // rangeEncoder writes one range's trits: the digit bytes the range holds

@@ -61,14 +61,22 @@ func (e *TritEncoder) Finish(counts convert.TritCounts) ([]byte, Codec) {
 		e.digits = e.encode(e.digits, e.pending[:e.np])
 		e.np = 0
 	}
-	switch e.codec {
+	return finishDigits(e.codec, e.digits, counts)
+}
+
+// finishDigits is the payload of a tensor whose trits are encoded as
+// digits (bits2 bytes, or base3 digits for entropy and auto) and the codec
+// stored: for Auto, counts decide as EncodeTensor does whether the entropy
+// codec is worth trying.
+func finishDigits(codec Codec, digits []byte, counts convert.TritCounts) ([]byte, Codec) {
+	switch codec {
 	case Entropy:
-		return appendEntropyFrame(nil, e.digits), Entropy
+		return appendEntropyFrame(nil, digits), Entropy
 	case Auto:
-		if frame, ok := autoEntropy(e.digits, counts); ok {
+		if frame, ok := autoEntropy(digits, counts); ok {
 			return frame, Entropy
 		}
-		return e.digits, Base3
+		return digits, Base3
 	}
-	return e.digits, e.codec
+	return digits, codec
 }
