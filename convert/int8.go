@@ -15,28 +15,71 @@ func QuantizeInt8Rows(w []float32, cols int, q []int8) ([]float32, Stats, error)
 	if len(q) != len(w) {
 		return nil, Stats{}, fmt.Errorf("int8: %d codes for %d weights", len(q), len(w))
 	}
-	size, err := Granularity{Kind: GranRow}.GroupSize(len(w), cols)
+	r, err := NewInt8Rows(len(w), cols)
 	if err != nil {
 		return nil, Stats{}, err
 	}
-	if err := nonFiniteIn(w); err != nil {
+	if err := r.Add(w, q); err != nil {
 		return nil, Stats{}, err
+	}
+	scales, stats := r.Result()
+	return scales, stats, nil
+}
+
+// Int8Rows quantizes a tensor as QuantizeInt8Rows does, a run of whole
+// rows at a time, so that the float32 copy of a large tensor can be taken
+// in pieces: the codes, scales and statistics are those of one call over
+// the whole tensor (the statistics are summed in element order either way).
+type Int8Rows struct {
+	size, n, done int
+	scales        []float32
+	acc           statsAccumulator
+	zeros         int64
+}
+
+// NewInt8Rows prepares the quantization of n weights in rows of cols.
+func NewInt8Rows(n, cols int) (*Int8Rows, error) {
+	size, err := Granularity{Kind: GranRow}.GroupSize(n, cols)
+	if err != nil {
+		return nil, err
 	}
 	rows := 0
 	if size > 0 {
-		rows = len(w) / size
+		rows = n / size
 	}
-	scales := make([]float32, rows)
-	var acc statsAccumulator
-	var zeros int64
-	for r := range scales {
-		row := w[r*size : (r+1)*size]
+	return &Int8Rows{size: size, n: n, scales: make([]float32, 0, rows)}, nil
+}
+
+// RowSize returns the elements of one row (0 for a tensor of no columns).
+func (r *Int8Rows) RowSize() int { return r.size }
+
+// Add quantizes the next whole rows w into q (len(w) codes). A NaN or an
+// infinity is refused, with its index counted from the tensor's start.
+func (r *Int8Rows) Add(w []float32, q []int8) error {
+	if len(q) != len(w) {
+		return fmt.Errorf("int8: %d codes for %d weights", len(q), len(w))
+	}
+	if r.size == 0 || len(w)%r.size != 0 || r.done+len(w) > r.n {
+		if len(w) == 0 {
+			return nil
+		}
+		return fmt.Errorf("int8: %d weights are not whole rows of %d after %d of %d", len(w), r.size, r.done, r.n)
+	}
+	if err := nonFiniteIn(w); err != nil {
+		var nf *NonFiniteError
+		if errors.As(err, &nf) {
+			nf.Index += r.done
+		}
+		return err
+	}
+	for k := 0; k < len(w); k += r.size {
+		row := w[k : k+r.size]
 		var absmax float32
 		for _, v := range row {
 			absmax = max(absmax, float32(math.Abs(float64(v))))
 		}
 		s := absmax / 127
-		scales[r] = s
+		r.scales = append(r.scales, s)
 		for i, v := range row {
 			var c float64
 			if s > 0 {
@@ -44,15 +87,20 @@ func QuantizeInt8Rows(w []float32, cols int, q []int8) ([]float32, Stats, error)
 			}
 			clipped := c > 127 || c < -127
 			c = max(-127, min(127, c))
-			q[r*size+i] = int8(c)
+			q[k+i] = int8(c)
 			if c == 0 {
-				zeros++
+				r.zeros++
 			}
-			acc.add(v, s*float32(c), clipped)
+			r.acc.add(v, s*float32(c), clipped)
 		}
 	}
-	return scales, acc.stats(zeros), nil
+	r.done += len(w)
+	return nil
 }
+
+// Result returns the scales (one per row) and the statistics of the rows
+// added.
+func (r *Int8Rows) Result() ([]float32, Stats) { return r.scales, r.acc.stats(r.zeros) }
 
 // nonFiniteIn returns a *NonFiniteError for the first NaN or ±Inf in w.
 func nonFiniteIn(w []float32) error {

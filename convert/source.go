@@ -58,6 +58,13 @@ func (t *Tensor) Ternarizable() bool { return isDecodableDType(t.DType) }
 // ErrNonFinite at the first NaN or infinity, including an F64 value too
 // large for float32, which the message reports as an overflow.
 func (t *Tensor) DecodeWeights(raw []byte, dst []float32) error {
+	return t.DecodeWeightsAt(raw, 0, dst)
+}
+
+// DecodeWeightsAt is DecodeWeights for a piece of the tensor whose first
+// element is element first: errors name the element and byte offset in
+// the whole tensor.
+func (t *Tensor) DecodeWeightsAt(raw []byte, first int, dst []float32) error {
 	if !t.Ternarizable() {
 		why := "integer and BOOL tensors are always kept, never ternarized"
 		if !t.KnownDType() {
@@ -91,13 +98,13 @@ func (t *Tensor) DecodeWeights(raw []byte, dst []float32) error {
 			continue
 		}
 		size := int64(dtypeSizes[t.DType])
-		at := t.Offset + int64(i)*size
+		at := t.Offset + int64(first+i)*size
 		if t.DType == "F64" {
 			if src := math.Float64frombits(binary.LittleEndian.Uint64(raw[8*i:])); !math.IsNaN(src) && !math.IsInf(src, 0) {
-				return inputError(t.File, t.Name, at, ErrNonFinite, "element %d: F64 value %g overflows float32 to %v", i, src, v)
+				return inputError(t.File, t.Name, at, ErrNonFinite, "element %d: F64 value %g overflows float32 to %v", first+i, src, v)
 			}
 		}
-		return inputError(t.File, t.Name, at, ErrNonFinite, "element %d is %v", i, v)
+		return inputError(t.File, t.Name, at, ErrNonFinite, "element %d is %v", first+i, v)
 	}
 	return nil
 }

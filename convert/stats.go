@@ -56,10 +56,21 @@ func (a *statsAccumulator) stats(zeros int64) Stats {
 // CompareFloat32 gives the statistics of a lossless-or-rounded copy h of w
 // (a kept tensor converted to another float dtype), with no zero codes.
 func CompareFloat32(w, h []float32) Stats {
-	var a statsAccumulator
-	for i := range w {
-		a.add(w[i], h[i], false)
-	}
-	s := a.stats(0)
-	return s
+	var c Comparison
+	c.Add(w, h)
+	return c.Stats()
 }
+
+// Comparison is CompareFloat32 over a tensor given in pieces, in order:
+// the statistics are those of one call over the whole.
+type Comparison struct{ acc statsAccumulator }
+
+// Add records the next elements w and their copies h.
+func (c *Comparison) Add(w, h []float32) {
+	for i := range w {
+		c.acc.add(w[i], h[i], false)
+	}
+}
+
+// Stats returns the statistics of the elements added.
+func (c *Comparison) Stats() Stats { return c.acc.stats(0) }

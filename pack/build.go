@@ -224,7 +224,6 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 // after the worker has moved on.
 type quantizeBuffers struct {
 	floats []float32
-	codes  []int8
 }
 
 // sections is what one tensor writes: its payload and, for row, group and
@@ -261,44 +260,23 @@ func (q *quantizeBuffers) apply(e *manifest.Tensor, t *convert.Tensor, raw []byt
 		}
 		return out, nil
 	}
-	q.floats = grow(q.floats, n)
-	if a.Kind == convert.ActTernary || a.Kind == convert.ActInt8 {
+	switch a.Kind {
+	case convert.ActTernary:
 		// weights to quantize: F8 decoded too, NaN, Inf and F64 overflow refused
+		q.floats = grow(q.floats, n)
 		if err := t.DecodeWeights(raw, q.floats); err != nil {
 			return sections{}, err
 		}
-	} else if err := convert.DecodeFloat32(t.DType, raw, q.floats); err != nil {
-		return sections{}, fail(err)
-	}
-	switch a.Kind {
-	case convert.ActTernary:
 		out, err := ternary(e, a, convert.Float32Weights(q.floats), cols, opts)
 		if err != nil {
 			return sections{}, fail(err)
 		}
 		return out, nil
 	case convert.ActInt8:
-		q.codes = grow(q.codes, n)
-		scales, stats, err := convert.QuantizeInt8Rows(q.floats, cols, q.codes)
-		if err != nil {
-			return sections{}, fail(err)
-		}
-		row := convert.Granularity{Kind: convert.GranRow}
-		e.Kind, e.Codec, e.Granularity, e.Stats = manifest.KindInt8, manifest.CodecRaw, &row, &stats
-		return sections{payload: append([]byte(nil), int8Bytes(q.codes)...), scales: appendFloat32s([]byte{}, scales)}, nil
+		return q.int8Rows(e, t, raw, cols, fail)
 	}
 	// keep:f16, keep:bf16, keep:f32 with a dtype change
-	out, err := convert.EncodeFloat32(nil, target, q.floats)
-	if err != nil {
-		return sections{}, fail(err)
-	}
-	back := make([]float32, n)
-	if err := convert.DecodeFloat32(target, out, back); err != nil {
-		return sections{}, fail(err)
-	}
-	stats := convert.CompareFloat32(q.floats, back)
-	e.Kind, e.Codec, e.DType, e.Stats = manifest.KindKept, manifest.CodecRaw, target, &stats
-	return sections{payload: out}, nil
+	return q.convertDType(e, t, raw, target, fail)
 }
 
 // ternary quantizes w, encoding the trits as they come, and fills the

@@ -258,3 +258,8 @@ func (c Codec) Decode(dst []int8, payload []byte) error {
 func unsafeInt8Bytes(s []int8) []byte {
 	return unsafe.Slice((*byte)(unsafe.Pointer(unsafe.SliceData(s))), len(s))
 }
+
+// unsafeBytesInt8 views a byte slice as int8 codes, for coding in place.
+func unsafeBytesInt8(b []byte) []int8 {
+	return unsafe.Slice((*int8)(unsafe.Pointer(unsafe.SliceData(b))), len(b))
+}
