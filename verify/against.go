@@ -249,9 +249,15 @@ func settle(v tensorVerdict, st *convert.Tensor, id convert.SourceID) tensorVerd
 func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, st *convert.Tensor, raw []byte, v *tensorVerdict) string {
 	e := t.Entry
 	n := t.Len()
+	switch e.Kind {
+	case manifest.KindInt8:
+		return b.redoInt8(a, t, raw, v)
+	case manifest.KindKept:
+		return b.redoDType(a, t, raw)
+	}
 	var ws convert.Weights
 	var w []float32
-	if e.Kind == manifest.KindTernary && e.SourceDType == "BF16" && st.DType == "BF16" && len(raw) == 2*n {
+	if e.SourceDType == "BF16" && st.DType == "BF16" && len(raw) == 2*n {
 		ws = convert.BF16Weights(raw) // read in place by the kernels
 	} else {
 		w = grow(&b.weights, n)
@@ -265,73 +271,32 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 	if err != nil {
 		return err.Error()
 	}
-	switch e.Kind {
-	case manifest.KindTernary:
-		fresh, q, err := b.requantize(ws, cols, *e.Granularity, r, pack.Codec(e.Codec))
-		if err != nil {
-			return fmt.Sprintf("re-quantize: %v", err)
-		}
-		packed, same, err := b.storedTrits(pack.Codec(e.Codec), payload, fresh)
-		if err != nil {
-			return fmt.Sprintf("section at byte %d: %v", e.Section.Offset, err)
-		}
-		scales, err := t.Scales()
-		if err != nil {
-			return err.Error()
-		}
-		v.excess, v.at = convert.TernaryBoundExcessSplit(ws, packed, scales, t.GroupSize(), convert.Split{Workers: b.workers, Gate: b.gate})
-		v.tol = convert.TernaryBoundTolerance
-		if d := diffScales(scales, q.Scales); d != "" {
-			return d
-		}
-		if !same { // equal payload bytes: the trits are fresh itself
-			if d := diffCodes("trit", packed, fresh); d != "" {
-				return d
-			}
-		}
-		if q.Exact != e.Exact {
-			return fmt.Sprintf("exact is %v, re-quantizing the source gives %v", e.Exact, q.Exact)
-		}
-		return diffStats(*e.Stats, q.Stats)
-	case manifest.KindInt8:
-		fresh := grow(&b.fresh, n)
-		scales, stats, err := convert.QuantizeInt8Rows(w, cols, fresh)
-		if err != nil {
-			return fmt.Sprintf("re-quantize: %v", err)
-		}
-		packed := grow(&b.stored, n)
-		clear(packed)
-		for i, c := range payload[:min(len(payload), n)] {
-			packed[i] = int8(c)
-		}
-		stored, err := t.Scales()
-		if err != nil {
-			return err.Error()
-		}
-		v.excess, v.at = convert.Int8BoundExcess(w, packed, stored, cols)
-		v.tol = convert.Int8BoundTolerance
-		if d := diffScales(stored, scales); d != "" {
-			return d
-		}
-		if d := diffCodes("int8 code", packed, fresh); d != "" {
-			return d
-		}
-		return diffStats(*e.Stats, stats)
+	fresh, q, err := b.requantize(ws, cols, *e.Granularity, r, pack.Codec(e.Codec))
+	if err != nil {
+		return fmt.Sprintf("re-quantize: %v", err)
 	}
-	// kept, converted to another float dtype
-	want, err := convert.EncodeFloat32(b.encoded[:0], e.DType, w)
+	packed, same, err := b.storedTrits(pack.Codec(e.Codec), payload, fresh)
+	if err != nil {
+		return fmt.Sprintf("section at byte %d: %v", e.Section.Offset, err)
+	}
+	scales, err := t.Scales()
 	if err != nil {
 		return err.Error()
 	}
-	b.encoded = want
-	if !bytes.Equal(payload, want) {
-		return fmt.Sprintf("%s bytes at artifact byte %d differ from the converted source", e.DType, e.Section.Offset)
+	v.excess, v.at = convert.TernaryBoundExcessSplit(ws, packed, scales, t.GroupSize(), convert.Split{Workers: b.workers, Gate: b.gate})
+	v.tol = convert.TernaryBoundTolerance
+	if d := diffScales(scales, q.Scales); d != "" {
+		return d
 	}
-	back := make([]float32, n)
-	if err := convert.DecodeFloat32(e.DType, want, back); err != nil {
-		return err.Error()
+	if !same { // equal payload bytes: the trits are fresh itself
+		if d := diffCodes("trit", packed, fresh); d != "" {
+			return d
+		}
 	}
-	return diffStats(*e.Stats, convert.CompareFloat32(w, back))
+	if q.Exact != e.Exact {
+		return fmt.Sprintf("exact is %v, re-quantizing the source gives %v", e.Exact, q.Exact)
+	}
+	return diffStats(*e.Stats, q.Stats)
 }
 
 func diffScales(stored, fresh []float32) string {

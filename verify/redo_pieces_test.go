@@ -1,0 +1,42 @@
+package verify
+
+import (
+	"fmt"
+	"path/filepath"
+	"testing"
+
+	"github.com/stretchr/testify/require"
+
+	"ternkit/pack"
+)
+
+// Int8 and dtype-changed tensors are checked a piece at a time; the report
+// (every check, the bound's closest element included) is the same for any
+// piece size, and a changed code is named by its index in the tensor.
+func TestAgainstInPieces(t *testing.T) {
+	dir := t.TempDir()
+	src, art, _ := bf16Fixture(t, dir, pack.Bits2)
+	out := filepath.Join(dir, "code.tkart")
+	var was int8
+	rewriteSection(t, art, out, "blocks.0.mlp.down.weight", false, func(p []byte) {
+		was = int8(p[52]) // row 7 of 7 columns
+		p[52] = byte(was/2 + 3)
+	})
+	norm := filepath.Join(dir, "norm.tkart")
+	rewriteSection(t, art, norm, "blocks.0.norm.weight", false, func(p []byte) { p[33] ^= 0x01 }) // element 16, an F16 byte
+
+	whole := runAgainst(t, art, src)
+	require.True(t, whole.OK(), "%+v", whole.Failures())
+	defer func(n int) { pieceElements = n }(pieceElements)
+	for _, piece := range []int{1, 7, 8, 15} {
+		pieceElements = piece
+		rep := runAgainst(t, art, src)
+		require.Equal(t, whole, rep, "piece of %d elements", piece)
+		require.Equal(t, fmt.Sprintf("int8 code 52 is %d, re-quantizing the source gives %d", was/2+3, was),
+			requantizeDetail(t, out, src, "blocks.0.mlp.down.weight"), "piece of %d elements", piece)
+		c, ok := runAgainst(t, norm, src).Find(CheckKept, "blocks.0.norm.weight")
+		require.True(t, ok)
+		require.False(t, c.OK, "piece of %d elements", piece)
+		require.Contains(t, c.Detail, "F16 bytes at artifact byte", "piece of %d elements", piece)
+	}
+}
