@@ -25,3 +25,16 @@ func BenchmarkRotate(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkColdPieces: pieces of 4 MiB of 256 MiB, in order, mostly not
+// in cache (as a file's bytes first read are).
+func BenchmarkColdPieces(b *testing.B) {
+	const piece = 4 << 20
+	data := input(256 << 20)
+	b.SetBytes(int64(len(data)))
+	for b.Loop() {
+		for o := 0; o < len(data); o += piece {
+			Subtree(data[o:o+piece], uint64(o/ChunkSize))
+		}
+	}
+}
