@@ -8,3 +8,5 @@ import "ternkit/pack"
 func mapArtifact(*pack.Artifact) []byte { return nil }
 
 func unmapArtifact([]byte) {}
+
+func dropPages([]byte, int64, int64) {}
