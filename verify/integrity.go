@@ -103,12 +103,6 @@ func checkSections(rep *Report, a *pack.Artifact, src artifactBytes, workers int
 		}
 		j := jobs[i]
 		p := all[j.section]
-		if j.piece >= 0 {
-			off := int64(j.piece) * manifest.ChunkSize
-			defer src.done(p.s.Offset+off, min(manifest.ChunkSize, p.s.Length-off))
-		} else if len(p.s.PieceCVs) == 0 {
-			defer src.done(p.s.Offset, p.s.Length)
-		}
 		if j.piece >= 0 && len(p.s.PieceCVs) > 0 {
 			pieces[j.section][j.piece] = checkPieceCV(src, p, j.piece, bufs[worker])
 			return struct{}{}

@@ -18,20 +18,6 @@ var errArtifactChanged = errors.New("artifact file changed while being read")
 type artifactBytes struct {
 	ra     io.ReaderAt
 	mapped []byte // the whole file, or nil
-	// drop: each range checked is let go of at once (done), as nothing
-	// reads it again
-	drop bool
-}
-
-// dropMin is the least span worth a system call to let go of.
-const dropMin = 256 << 10
-
-// done tells that the n bytes at off will not be read again: with drop,
-// their pages leave the map (dropPages), in parallel on the workers.
-func (b artifactBytes) done(off, n int64) {
-	if b.drop && b.mapped != nil {
-		dropPages(b.mapped, off, n)
-	}
 }
 
 // at returns the n bytes at off, in buf (grown if too small) unless the

@@ -8,5 +8,3 @@ import "ternkit/pack"
 func mapArtifact(*pack.Artifact) []byte { return nil }
 
 func unmapArtifact([]byte) {}
-
-func dropPages([]byte, int64, int64) {}

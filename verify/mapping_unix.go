@@ -41,16 +41,3 @@ func unmapArtifact(data []byte) {
 		_ = syscall.Munmap(data)
 	}
 }
-
-// dropPages releases the page table entries of the whole pages in
-// data[off:off+n] (madvise MADV_DONTNEED on a read-only shared map: the
-// file's bytes stay in the page cache, and a later touch maps them again),
-// so that unmapping at the end, one serial call, has less left to do.
-func dropPages(data []byte, off, n int64) {
-	page := int64(os.Getpagesize())
-	from, to := (off+page-1)/page*page, (off+n)/page*page
-	if data == nil || from < 0 || to > int64(len(data)) || to-from < dropMin {
-		return
-	}
-	_ = syscall.Madvise(data[from:to], syscall.MADV_DONTNEED)
-}

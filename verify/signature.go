@@ -46,7 +46,7 @@ func checkSignature(rep *Report, hash [32]byte, opt *Signature) {
 func digests(rep *Report, a *pack.Artifact, mapped []byte, workers int) error {
 	var d filedigest.Digests
 	if mapped != nil {
-		err := artifactBytes{ra: a.ReaderAt(), mapped: mapped}.guard(func() { d = filedigest.Bytes(mapped, workers) })
+		err := artifactBytes{a.ReaderAt(), mapped}.guard(func() { d = filedigest.Bytes(mapped, workers) })
 		if err != nil {
 			return err
 		}

@@ -209,9 +209,7 @@ func run(name string, a *pack.Artifact, openErr error, opts Options) (*Report, e
 	} else {
 		digestErr <- nil
 	}
-	// the digests read the whole map too: only without them are checked
-	// ranges let go of at once
-	checkSections(rep, a, artifactBytes{ra: a.ReaderAt(), mapped: mapped, drop: !opts.Digests}, workers, advance)
+	checkSections(rep, a, artifactBytes{a.ReaderAt(), mapped}, workers, advance)
 	if err := <-digestErr; err != nil {
 		// like a section that cannot be read: the file changed under us
 		rep.add(CheckStructure, "", false, "reading the whole file for its digests: %v", err)
