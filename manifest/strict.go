@@ -58,7 +58,7 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string, depth int) error {
 	case json.Delim('{'):
 		var fields map[string]reflect.Type
 		if t != nil && t.Kind() == reflect.Struct {
-			fields = jsonFields(t)
+			fields = keysOf(t).fields
 		}
 		seen := map[string]bool{}
 		for dec.More() {
@@ -90,7 +90,7 @@ func walkJSON(dec *json.Decoder, t reflect.Type, path string, depth int) error {
 			return err
 		}
 		if t != nil && t.Kind() == reflect.Struct {
-			for _, key := range requiredKeys(t) {
+			for _, key := range keysOf(t).required {
 				if !seen[key] {
 					return fmt.Errorf("%w: %s: required key %q is missing", ErrInvalid, path, key)
 				}

@@ -84,11 +84,18 @@ const bits2Low = 0x5555555555555555
 // code marks +1 (code 1), the high bit −1 (code 2), both (code 3) an
 // invalid code. Two 64-bit words at a time, it gathers the low bits of
 // both into one word and the high bits into another and counts each with
-// one population count: 64 trits' counts in two. It returns the index of
-// the first invalid byte, or -1.
+// one population count: 64 trits' counts in two. Where the CPU counts
+// the bits of 512-bit registers, whole blocks of 64 bytes are counted so
+// first (count_amd64.s), unless one holds code 3, and the loops below find
+// it. It returns the index of the first invalid byte, or -1.
 func countBits2(p []byte) (convert.TritCounts, int) {
 	var pos, neg int
 	j := 0
+	if haveWideCount && len(p) >= 64 {
+		if ps, ng, ok := countBits2Wide(p[:len(p)&^63]); ok {
+			pos, neg, j = int(ps), int(ng), len(p)&^63
+		}
+	}
 	for ; j+16 <= len(p); j += 16 {
 		w := p[j : j+16]
 		x0, x1 := binary.LittleEndian.Uint64(w), binary.LittleEndian.Uint64(w[8:])

@@ -174,22 +174,19 @@ func streamSection(src artifactBytes, p placedSection, next int64, buf []byte) s
 			}
 			return
 		}
-		h := blake3.New()
-		var sinkErr error
+		// each block is checked right after it is hashed, while in cache
+		h := treehash.New()
 		for ; at < end; at += manifest.ChunkSize {
 			piece, err := src.at(buf, at, min(manifest.ChunkSize, end-at))
 			if err != nil {
 				out.readErr, out.readAt = err, at
 				return
 			}
-			h.Write(piece)
-			if sink != nil && sinkErr == nil {
-				_, sinkErr = sink.Write(piece)
+			if hashChecking(h, piece, uint64(at-s.Offset)/treehash.ChunkSize, sink) != nil {
+				sink = nil // the checker has its verdict
 			}
 		}
-		var sum [32]byte
-		h.Sum(sum[:0])
-		out.sum = manifest.HexHash(sum)
+		out.sum = manifest.HexHash(h.Sum())
 	})
 	if err != nil {
 		out.readErr, out.readAt = err, at

@@ -2,6 +2,7 @@ package verify
 
 import (
 	"fmt"
+	"io"
 
 	"ternkit/convert"
 	"ternkit/internal/treehash"
@@ -38,7 +39,8 @@ func splitsIntoPieces(p placedSection) bool {
 
 // checkPieceCV computes the chaining value of piece k of section p,
 // compares it with the record and, when the contents split into pieces,
-// checks the piece's contents.
+// checks the piece's contents, each block right after hashing it, while
+// it is in cache (fused.go).
 func checkPieceCV(src artifactBytes, p placedSection, k int, buf []byte) pieceOutcome {
 	s := p.s
 	off := int64(k) * manifest.ChunkSize
@@ -49,11 +51,17 @@ func checkPieceCV(src artifactBytes, p placedSection, k int, buf []byte) pieceOu
 			out.readErr = err
 			return
 		}
-		out.cv = pack.PieceCV(piece, k)
-		out.bad = manifest.HexHash(out.cv) != s.PieceCVs[k]
 		if splitsIntoPieces(p) {
-			out.contents = checkPieceContents(p, off, piece)
+			sink, contents := pieceChecker(p, off, int64(len(piece)))
+			at := uint64(off / treehash.ChunkSize)
+			h := treehash.NewAt(at)
+			hashChecking(h, piece, at, sink)
+			out.cv = h.CV()
+			out.contents = contents()
+		} else {
+			out.cv = pack.PieceCV(piece, k)
 		}
+		out.bad = manifest.HexHash(out.cv) != s.PieceCVs[k]
 	})
 	if err != nil {
 		out.readErr = err
@@ -63,37 +71,61 @@ func checkPieceCV(src artifactBytes, p placedSection, k int, buf []byte) pieceOu
 
 // checkPieceContents checks the bytes of section p from offset off in it.
 func checkPieceContents(p placedSection, off int64, piece []byte) pieceContents {
+	sink, contents := pieceChecker(p, off, int64(len(piece)))
+	sink.Write(piece)
+	return contents()
+}
+
+// pieceChecker returns the writer that checks the length bytes of section
+// p from offset off in it as they stream by, and the function giving what
+// it found.
+func pieceChecker(p placedSection, off, length int64) (io.Writer, func() pieceContents) {
 	e := p.owner
-	var out pieceContents
 	switch {
 	case p.scales:
 		c := &scaleChecker{ternary: e.Kind == manifest.KindTernary, bad: -1, n: int(off / 4)}
-		c.Write(piece)
-		if c.bad >= 0 {
-			out.detail = fmt.Sprintf("scales at byte %d: scale %d is %v", p.s.Offset, c.bad, c.badValue)
+		return c, func() pieceContents {
+			var out pieceContents
+			if c.bad >= 0 {
+				out.detail = fmt.Sprintf("scales at byte %d: scale %d is %v", p.s.Offset, c.bad, c.badValue)
+			}
+			return out
 		}
 	case e.Kind == manifest.KindInt8:
 		c := &int8Checker{n: off, bad: -1}
-		c.Write(piece)
-		if c.bad >= 0 {
-			out.detail = fmt.Sprintf("int8 payload byte %d is -128 (codes are -127..127)", c.bad)
+		return c, func() pieceContents {
+			var out pieceContents
+			if c.bad >= 0 {
+				out.detail = fmt.Sprintf("int8 payload byte %d is -128 (codes are -127..127)", c.bad)
+			}
+			return out
 		}
-	default: // bits2 or base3: whole bytes of trits
-		perByte := int64(4)
-		if e.Codec == manifest.CodecBase3 {
-			perByte = 5
-		}
-		n := min(int64(len(piece))*perByte, max(0, manifest.NumElements(e.Shape)-off*perByte))
-		counter, err := pack.NewTritCounter(pack.Codec(e.Codec), n)
+	}
+	// bits2 or base3: whole bytes of trits
+	perByte := int64(4)
+	if e.Codec == manifest.CodecBase3 {
+		perByte = 5
+	}
+	n := min(length*perByte, max(0, manifest.NumElements(e.Shape)-off*perByte))
+	counter, err := pack.NewTritCounter(pack.Codec(e.Codec), n)
+	return writerOrDiscard(counter, err), func() pieceContents {
+		var out pieceContents
 		if err == nil {
-			counter.Write(piece)
 			out.counts, err = counter.Close()
 		}
 		if err != nil {
 			out.detail = fmt.Sprintf("section at byte %d, piece at byte %d: %v", p.s.Offset, p.s.Offset+off, err)
 		}
+		return out
 	}
-	return out
+}
+
+// writerOrDiscard is c, or io.Discard when it could not be made.
+func writerOrDiscard(c *pack.TritCounter, err error) io.Writer {
+	if err != nil {
+		return io.Discard
+	}
+	return c
 }
 
 // pieceSectionChecks is sectionChecks for a section that records piece

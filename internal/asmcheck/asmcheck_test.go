@@ -10,7 +10,7 @@ import (
 
 // The project's assembly uses VEX moves only.
 func TestProjectAssembly(t *testing.T) {
-	for _, dir := range []string{"../../convert", "../../pack"} {
+	for _, dir := range []string{"../../convert", "../../pack", "../treehash"} {
 		found, err := LegacySSEMoves(dir)
 		require.NoError(t, err)
 		require.Empty(t, found, "legacy SSE moves in AVX code: use VMOVD/VMOVQ")

@@ -81,7 +81,11 @@ func subtree(data []byte, counter uint64) guts.Node {
 	}
 	// groups of 8 chunks, then their parents level by level (a parent
 	// costs one compression against 16 per chunk)
-	cvs := make([][8]uint32, 0, chunks)
+	var small [64][8]uint32 // a subtree of up to 64 chunks needs no heap
+	cvs := small[:0]
+	if chunks > len(small) {
+		cvs = make([][8]uint32, 0, chunks)
+	}
 	for i := 0; i < chunks; i += 8 {
 		eight := eightCVs((*[8 * ChunkSize]byte)(data[i*ChunkSize:]), counter+uint64(i))
 		cvs = append(cvs, eight[:]...)
