@@ -267,7 +267,15 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 	}
 	switch e.Kind {
 	case manifest.KindTernary:
+		// the bound of the stored scales is checked on the fresh trits as
+		// they come; it holds for the stored trits when those are fresh
+		b.bound = nil
+		if scales, err := t.Scales(); err == nil {
+			b.bound = convert.NewBoundTracker(ws, scales, t.GroupSize())
+		}
 		fresh, q, err := b.requantize(ws, cols, *e.Granularity, r, pack.Codec(e.Codec))
+		bound := b.bound
+		b.bound = nil
 		if err != nil {
 			return fmt.Sprintf("re-quantize: %v", err)
 		}
@@ -279,7 +287,13 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 		if err != nil {
 			return err.Error()
 		}
-		v.excess, v.at = convert.TernaryBoundExcessSplit(ws, packed, scales, t.GroupSize(), convert.Split{Workers: b.workers, Gate: b.gate})
+		ok := false
+		if same && bound != nil {
+			v.excess, v.at, ok = bound.Result(fresh)
+		}
+		if !ok {
+			v.excess, v.at = convert.TernaryBoundExcessSplit(ws, packed, scales, t.GroupSize(), convert.Split{Workers: b.workers, Gate: b.gate})
+		}
 		v.tol = convert.TernaryBoundTolerance
 		if d := diffScales(scales, q.Scales); d != "" {
 			return d

@@ -19,6 +19,9 @@ type redoBuffers struct {
 	// but the caller's taking a slot of gate (convert.TernarizeSplit)
 	workers int
 	gate    *convert.Gate
+	// when set, requantize hands it the fresh trits as they come, so the
+	// bound is checked while the weights are in cache
+	bound *convert.BoundTracker
 }
 
 // grow returns (*s)[:n], reallocating when the capacity is short.
@@ -46,8 +49,15 @@ func (b *redoBuffers) requantize(w convert.Weights, cols int, g convert.Granular
 			if enc != nil {
 				write = enc.Range(start, end)
 			}
+			var bound func([]int8)
+			if b.bound != nil {
+				bound = b.bound.Range(start, end)
+			}
 			return func(t []int8) error {
 				pos += copy(fresh[pos:end], t)
+				if bound != nil {
+					bound(t)
+				}
 				if write != nil {
 					return write(t)
 				}
