@@ -34,11 +34,13 @@ type boundRange struct {
 }
 
 // boundBest is a group's first block attaining the largest maximum met so
-// far, [block, end), or block −1 when no element had an excess above −Inf.
+// far, [block, end), with its trits, or block −1 when no element had an
+// excess above −Inf.
 type boundBest struct {
 	k          int
 	best       float64
 	block, end int
+	trits      [boundBlock]int8
 }
 
 // NewBoundTracker returns a tracker of the bound of the weights ws against
@@ -78,6 +80,7 @@ func (t *BoundTracker) Range(start, end int) func(trits []int8) {
 				if m > g.best {
 					g.best, g.block = m, r.pos+j*boundBlock
 					g.end = min(g.block+boundBlock, r.pos+n)
+					copy(g.trits[:], trits[j*boundBlock:g.end-r.pos])
 				}
 			}
 			r.pos += n
@@ -88,9 +91,10 @@ func (t *BoundTracker) Range(start, end int) func(trits []int8) {
 
 // Result is the largest excess relative to the scale and its index, as
 // TernaryBoundExcessSplit(ws, trits, scales, groupSize) returns them, where
-// trits are those handed to the ranges, kept in place; ok is false when
-// the runs did not cover the tensor, each element once.
-func (t *BoundTracker) Result(trits []int8) (excess float64, at int, ok bool) {
+// trits are those handed to the ranges (which need not be kept: the
+// tracker keeps those of the blocks it scans again); ok is false when the
+// runs did not cover the tensor, each element once.
+func (t *BoundTracker) Result() (excess float64, at int, ok bool) {
 	sort.Slice(t.ranges, func(i, j int) bool { return t.ranges[i].start < t.ranges[j].start })
 	pos := 0
 	best := make([]boundBest, len(t.scales))
@@ -108,16 +112,16 @@ func (t *BoundTracker) Result(trits []int8) (excess float64, at int, ok bool) {
 			}
 		}
 	}
-	if pos != t.w.len() || len(trits) != pos {
+	if pos != t.w.len() {
 		return 0, -1, false
 	}
 	var worst excessTracker
 	for k, sc := range t.scales {
-		b := best[k]
+		b := &best[k]
 		e, a := math.Inf(-1), -1
 		if b.block >= 0 {
 			c := newBoundConsts(sc)
-			e, a = boundScan(t.w.slice(b.block, b.end), trits[b.block:b.end], &c)
+			e, a = boundScan(t.w.slice(b.block, b.end), b.trits[:b.end-b.block], &c)
 			if a >= 0 {
 				a += b.block
 			}
