@@ -391,6 +391,9 @@ func createAtomic(dst string) (*atomicWriter, error) {
 	if err != nil {
 		return nil, err
 	}
+	// an artifact is written once and read later, if at all, by another
+	// process: its bytes need not pass through this one's page cache
+	f.Direct()
 	return &atomicWriter{f: f}, nil
 }
 
