@@ -189,6 +189,10 @@ func (f *File) Abort() {
 		return
 	}
 	f.done = true
+	if f.direct != nil {
+		f.direct.stop()
+		f.direct = nil
+	}
 	f.tmp.Close()
 	os.Remove(f.tmp.Name())
 }

@@ -75,3 +75,16 @@ func TestDirectOnlyAtTheStart(t *testing.T) {
 	f.Direct()
 	require.Nil(t, f.direct)
 }
+
+// Abort in direct mode stops the writer and leaves nothing behind.
+func TestDirectAbort(t *testing.T) {
+	dir := t.TempDir()
+	f, err := Create(filepath.Join(dir, "out"), 0o644)
+	require.NoError(t, err)
+	f.Direct()
+	_, err = f.Write(make([]byte, 2*directStep+10))
+	require.NoError(t, err)
+	f.Abort()
+	require.Nil(t, f.direct)
+	onlyEntries(t, dir)
+}
