@@ -2,6 +2,7 @@ package atomicfile
 
 import (
 	"fmt"
+	"os"
 	"sync"
 	"unsafe"
 )
@@ -31,6 +32,9 @@ type direct struct {
 	mu  sync.Mutex
 	err error // the writer's first error
 }
+
+// writeAt is (*os.File).WriteAt (a variable for tests).
+var writeAt = (*os.File).WriteAt
 
 type directRun struct {
 	b   []byte
@@ -86,9 +90,9 @@ func (f *File) writeRun(b []byte, off int64) error {
 	if len(b) == 0 {
 		return nil
 	}
-	_, err := f.tmp.WriteAt(b, off)
+	_, err := writeAt(f.tmp, b, off)
 	if err != nil && setDirect(f.tmp, false) {
-		_, err = f.tmp.WriteAt(b, off)
+		_, err = writeAt(f.tmp, b, off)
 	}
 	if err != nil {
 		return fmt.Errorf("write %s: %w", f.path, err)
