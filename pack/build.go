@@ -147,10 +147,20 @@ func Build(src *convert.Source, dst string, opts Options) (*manifest.Manifest, e
 					Section: manifest.Section{Offset: w.off, Length: t.Length}}
 				piece.hashes = newSectionHasher(workers)
 			}
-			if err := w.write(p); err != nil {
+			// the piece is hashed while the sequencer writes it: the write
+			// (a copy into the page cache) is the longer of the two
+			var faults convert.FaultRelay // p is the mapped source
+			hashed := make(chan struct{})
+			go func() {
+				defer close(hashed)
+				faults.Run(func() { piece.hashes.Write(p) })
+			}()
+			err := w.write(p)
+			<-hashed
+			faults.Raise()
+			if err != nil {
 				return err
 			}
-			piece.hashes.Write(p)
 			advance(int64(len(p)))
 			if id != nil {
 				e := piece.entry
@@ -359,6 +369,9 @@ func createAtomic(dst string) (*atomicWriter, error) {
 	if err != nil {
 		return nil, err
 	}
+	// an artifact is written once and read later, if at all, by another
+	// process: its bytes need not pass through this one's page cache
+	f.Direct()
 	return &atomicWriter{f: f}, nil
 }
 

@@ -271,11 +271,28 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 	if err != nil {
 		return err.Error()
 	}
-	fresh, q, err := b.requantize(ws, cols, *e.Granularity, r, pack.Codec(e.Codec))
+	// the bound of the stored scales is checked on the fresh trits as
+	// they come; it holds for the stored trits when those are fresh.
+	// The fresh trits themselves are kept only when the payload may
+	// differ from them: the entropy codec, or bytes that differ (then
+	// the source is quantized again, keeping them, to name the trit)
+	codec := pack.Codec(e.Codec)
+	b.bound = nil
+	if scales, err := t.Scales(); err == nil {
+		b.bound = convert.NewBoundTracker(ws, scales, t.GroupSize())
+	}
+	b.dropFresh = b.bound != nil && (codec == pack.Bits2 || codec == pack.Base3)
+	fresh, q, err := b.requantize(ws, cols, *e.Granularity, r, codec)
+	bound := b.bound
+	b.bound, b.dropFresh = nil, false
+	if err == nil && fresh == nil && !b.sameEncoded(codec, payload) {
+		bound = nil
+		fresh, q, err = b.requantize(ws, cols, *e.Granularity, r, codec)
+	}
 	if err != nil {
 		return fmt.Sprintf("re-quantize: %v", err)
 	}
-	packed, same, err := b.storedTrits(pack.Codec(e.Codec), payload, fresh)
+	packed, same, err := b.storedTrits(codec, payload, fresh)
 	if err != nil {
 		return fmt.Sprintf("section at byte %d: %v", e.Section.Offset, err)
 	}
@@ -283,7 +300,20 @@ func (b *redoBuffers) redo(a *pack.Artifact, t *pack.Tensor, r convert.Recipe, s
 	if err != nil {
 		return err.Error()
 	}
-	v.excess, v.at = convert.TernaryBoundExcessSplit(ws, packed, scales, t.GroupSize(), convert.Split{Workers: b.workers, Gate: b.gate})
+	ok := false
+	if same && bound != nil {
+		v.excess, v.at, ok = bound.Result()
+	}
+	if !ok && packed == nil { // the tracker missed some: quantize again, keeping the trits
+		fresh, q, err = b.requantize(ws, cols, *e.Granularity, r, codec)
+		if err != nil {
+			return fmt.Sprintf("re-quantize: %v", err)
+		}
+		packed = fresh
+	}
+	if !ok {
+		v.excess, v.at = convert.TernaryBoundExcessSplit(ws, packed, scales, t.GroupSize(), convert.Split{Workers: b.workers, Gate: b.gate})
+	}
 	v.tol = convert.TernaryBoundTolerance
 	if d := diffScales(scales, q.Scales); d != "" {
 		return d

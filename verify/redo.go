@@ -19,6 +19,12 @@ type redoBuffers struct {
 	// but the caller's taking a slot of gate (convert.TernarizeSplit)
 	workers int
 	gate    *convert.Gate
+	// when set, requantize hands it the fresh trits as they come, so the
+	// bound is checked while the weights are in cache
+	bound *convert.BoundTracker
+	// when set, requantize does not keep the fresh trits (it returns nil):
+	// the encoded bytes and the bound tracker hold what is compared
+	dropFresh bool
 }
 
 // grow returns (*s)[:n], reallocating when the capacity is short.
@@ -34,7 +40,10 @@ func grow[T any](s *[]T, n int) []T {
 // fresh trits; for the fixed-length codecs it encodes them into b.encoded
 // as they come, while they are in cache.
 func (b *redoBuffers) requantize(w convert.Weights, cols int, g convert.Granularity, r convert.Recipe, c pack.Codec) ([]int8, convert.Ternary, error) {
-	fresh := grow(&b.fresh, w.Len())
+	var fresh []int8
+	if !b.dropFresh {
+		fresh = grow(&b.fresh, w.Len())
+	}
 	var enc *pack.SplitEncoder
 	if c == pack.Bits2 || c == pack.Base3 {
 		enc, _ = pack.NewSplitEncoder(c, w.Len()) // a known codec: no error
@@ -46,8 +55,17 @@ func (b *redoBuffers) requantize(w convert.Weights, cols int, g convert.Granular
 			if enc != nil {
 				write = enc.Range(start, end)
 			}
+			var bound func([]int8)
+			if b.bound != nil {
+				bound = b.bound.Range(start, end)
+			}
 			return func(t []int8) error {
-				pos += copy(fresh[pos:end], t)
+				if fresh != nil {
+					pos += copy(fresh[pos:end], t)
+				}
+				if bound != nil {
+					bound(t)
+				}
 				if write != nil {
 					return write(t)
 				}
@@ -84,7 +102,7 @@ func (b *redoBuffers) readPayload(a *pack.Artifact, t *pack.Tensor) ([]byte, err
 // versions), it decodes the payload, so that a difference is named trit by
 // trit.
 func (b *redoBuffers) storedTrits(c pack.Codec, payload []byte, fresh []int8) (trits []int8, same bool, err error) {
-	if (c == pack.Bits2 || c == pack.Base3) && b.encoded != nil && bytes.Equal(b.encoded, payload) {
+	if b.sameEncoded(c, payload) {
 		return fresh, true, nil
 	}
 	stored := grow(&b.stored, len(fresh))
@@ -92,4 +110,10 @@ func (b *redoBuffers) storedTrits(c pack.Codec, payload []byte, fresh []int8) (t
 		return nil, false, err
 	}
 	return stored, false, nil
+}
+
+// sameEncoded reports whether the payload holds exactly the fresh trits'
+// bytes of a fixed-length codec (b.encoded, from requantize).
+func (b *redoBuffers) sameEncoded(c pack.Codec, payload []byte) bool {
+	return (c == pack.Bits2 || c == pack.Base3) && b.encoded != nil && bytes.Equal(b.encoded, payload)
 }

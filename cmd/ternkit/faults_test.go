@@ -71,7 +71,9 @@ func TestPackKilledLeavesNothing(t *testing.T) {
 	require.NoError(t, os.Mkdir(outDir, 0o755))
 	dst := filepath.Join(outDir, "big.tkart")
 
-	cmd := exec.Command(bin, "pack", src, "-o", dst, "--quiet", "--codec", "bits2") // bits2: a size that does not depend on the data
+	// every tensor kept: 128 MiB to write, more than the runs the artifact
+	// is staged in, so that the temporary file grows while pack runs
+	cmd := exec.Command(bin, "pack", src, "-o", dst, "--quiet", "--rule", "*=keep")
 	require.NoError(t, cmd.Start())
 	// Kill once the temporary file holds data: mid-write, before the rename.
 	deadline := time.Now().Add(15 * time.Second)

@@ -29,7 +29,11 @@ func setMemoryLimit() {
 func registerProfileFlag(root *cobra.Command) {
 	root.PersistentFlags().String(cpuProfileFlag, "", "write a CPU profile of the command to `FILE` (go tool pprof)")
 	_ = root.PersistentFlags().MarkHidden(cpuProfileFlag)
+	registerTraceFlag(root)
 	root.PersistentPreRunE = func(cmd *cobra.Command, _ []string) error {
+		if err := startTrace(cmd); err != nil {
+			return err
+		}
 		path, _ := cmd.Flags().GetString(cpuProfileFlag)
 		if path == "" {
 			return nil

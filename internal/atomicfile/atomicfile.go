@@ -34,6 +34,8 @@ type File struct {
 	done bool
 	// kicked is the end of the bytes whose writeback has been started
 	kicked int64
+	// direct is the staging space in direct mode (Direct), or nil
+	direct *direct
 }
 
 // writebackStep is how many bytes handed to the kernel start their
@@ -85,6 +87,9 @@ func createTemp(dir, prefix string, perm fs.FileMode) (*os.File, error) {
 // steps, each one's writeback started as it is handed over, so that the
 // disk works while the rest is copied.
 func (f *File) Write(p []byte) (int, error) {
+	if f.direct != nil {
+		return f.writeDirect(p)
+	}
 	written := 0
 	for len(p) > 0 {
 		step := p[:min(len(p), writebackStep)]
@@ -110,7 +115,10 @@ func (f *File) WriteAt(p []byte, off int64) error {
 	if off < 0 || off+int64(len(p)) > f.n {
 		return fmt.Errorf("write %s: %d bytes at %d lie outside the %d written", f.path, len(p), off, f.n)
 	}
-	err := f.bw.Flush()
+	err := f.endDirect()
+	if err == nil {
+		err = f.bw.Flush()
+	}
 	if err == nil {
 		_, err = f.tmp.WriteAt(p, off)
 	}
@@ -143,7 +151,10 @@ func (f *File) commit(place func(tmp string) error) error {
 	if f.done {
 		return fmt.Errorf("write %s: %w", f.path, errors.New("already committed"))
 	}
-	err := f.bw.Flush()
+	err := f.endDirect()
+	if err == nil {
+		err = f.bw.Flush()
+	}
 	if err == nil && f.keep != nil {
 		err = f.tmp.Chmod(*f.keep)
 	}
@@ -178,6 +189,10 @@ func (f *File) Abort() {
 		return
 	}
 	f.done = true
+	if f.direct != nil {
+		f.direct.stop()
+		f.direct = nil
+	}
 	f.tmp.Close()
 	os.Remove(f.tmp.Name())
 }
