@@ -15,6 +15,7 @@ import (
 	"github.com/stretchr/testify/require"
 	"github.com/zeebo/blake3"
 
+	"ternkit/internal/outsidetool"
 	"ternkit/internal/treehash"
 )
 
@@ -150,13 +151,7 @@ func TestWalkHashesMatchReference(t *testing.T) {
 // b3sum (Debian's b3sum, the BLAKE3 team's command-line tool) prints the
 // file hash the walk records.
 func TestWalkFileHashMatchesB3sum(t *testing.T) {
-	b3sum, err := exec.LookPath("b3sum")
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatal("b3sum is required in CI (Debian package b3sum)")
-		}
-		t.Skip("b3sum not installed (Debian package b3sum)")
-	}
+	b3sum := outsidetool.Require(t, "b3sum", "b3sum")
 	path, _ := writeSpanFile(t)
 	_, sum := walkIDs(t, path, 2, 0, true)
 	out, err := exec.Command(b3sum, "--no-names", path).Output()

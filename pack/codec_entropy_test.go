@@ -14,22 +14,9 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/outsidetool"
 	"ternkit/manifest"
 )
-
-// requireTool returns the path of an outside tool, skipping the test when
-// it is missing, or failing it when the CI environment variable is set.
-func requireTool(t *testing.T, name, pkg string) string {
-	t.Helper()
-	p, err := exec.LookPath(name)
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatalf("%s not found: CI must install it (.ci/run)", name)
-		}
-		t.Skipf("%s not found; install it to run this check (apt-get install %s)", name, pkg)
-	}
-	return p
-}
 
 func TestEntropyRoundTripBlocks(t *testing.T) {
 	// 5 × 128 KiB trits fill one block exactly; one more starts a second.
@@ -130,7 +117,7 @@ func TestEntropyClaimCheckedBeforeAllocating(t *testing.T) {
 // RFC 8878) decodes our frames to the base3 payload, and our decoder reads
 // a frame the CLI wrote.
 func TestEntropyZstdCLI(t *testing.T) {
-	zstdBin := requireTool(t, "zstd", "zstd")
+	zstdBin := outsidetool.Require(t, "zstd", "zstd")
 	dir := t.TempDir()
 	trits := sparseTrits(4, 1<<20, 0.6) // 1.6 blocks of base3 bytes
 	content := Base3.Encode(nil, trits)

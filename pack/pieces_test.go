@@ -14,6 +14,7 @@ import (
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/outsidetool"
 	"ternkit/internal/testweights"
 	"ternkit/manifest"
 )
@@ -66,13 +67,7 @@ func TestSectionPiecesJoinToBLAKE3(t *testing.T) {
 // byte range in an artifact-like file: what FORMAT.md promises a user can
 // reproduce.
 func TestSectionHashAgainstB3sum(t *testing.T) {
-	b3sum, err := exec.LookPath("b3sum")
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatal("b3sum not found: CI must install it")
-		}
-		t.Skip("b3sum not found")
-	}
+	b3sum := outsidetool.Require(t, "b3sum", "b3sum")
 	dir := t.TempDir()
 	for _, n := range []int{manifest.ChunkSize + 1, 2*manifest.ChunkSize + 12345} {
 		p := randomBytes(uint64(n)+1, n)

@@ -14,21 +14,9 @@ import (
 
 	"github.com/stretchr/testify/require"
 	"github.com/zeebo/blake3"
-)
 
-// outsideTool finds a tool from the package registry; it skips when
-// absent, but fails under CI, which must install it (.ci/run).
-func outsideTool(t *testing.T, name, pkg string) string {
-	t.Helper()
-	p, err := exec.LookPath(name)
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatalf("%s not found: CI must install it (.ci/run: apt-get install %s)", name, pkg)
-		}
-		t.Skipf("%s not found; install it to run this check (apt-get install %s)", name, pkg)
-	}
-	return p
-}
+	"ternkit/internal/outsidetool"
+)
 
 func runTool(t *testing.T, stdin []byte, name string, args ...string) []byte {
 	t.Helper()
@@ -48,7 +36,7 @@ func runToolErr(stdin []byte, name string, args ...string) ([]byte, error) {
 // one pair; openssl's own ed25519 signature over ternkit's message equals
 // ternkit's (ed25519 is deterministic, RFC 8032 section 5.1.6).
 func TestOpenSSLKeys(t *testing.T) {
-	openssl := outsideTool(t, "openssl", "openssl")
+	openssl := outsidetool.Require(t, "openssl", "openssl")
 	dir := t.TempDir()
 	priv, pub := filepath.Join(dir, "vault.pem"), filepath.Join(dir, "vault.pub.pem")
 	runTool(t, nil, openssl, "genpkey", "-algorithm", "ed25519", "-out", priv)
@@ -109,7 +97,7 @@ func TestOpenSSLKeys(t *testing.T) {
 // makes the same signature over the same 52 bytes, and ternkit reads the
 // key back from that PEM unchanged.
 func TestRFC8032KeySignsPrefixedMessage(t *testing.T) {
-	openssl := outsideTool(t, "openssl", "openssl")
+	openssl := outsidetool.Require(t, "openssl", "openssl")
 	dir := t.TempDir()
 	seed := mustHex(t, "9d61b19deffd5a60ba844af492ec2cc44449c5697b326919703bac031cae7f60")
 	k := &PrivateKey{key: ed25519.NewKeyFromSeed(seed)}
@@ -137,7 +125,7 @@ func TestRFC8032KeySignsPrefixedMessage(t *testing.T) {
 // Keys written by ssh-keygen (Debian's openssh-client): the unencrypted
 // private key file and the public key line read as one pair.
 func TestSSHKeygenKeys(t *testing.T) {
-	sshKeygen := outsideTool(t, "ssh-keygen", "openssh-client")
+	sshKeygen := outsidetool.Require(t, "ssh-keygen", "openssh-client")
 	dir := t.TempDir()
 	priv := filepath.Join(dir, "vault")
 	runTool(t, nil, sshKeygen, "-q", "-t", "ed25519", "-N", "", "-C", "fernmoss release", "-f", priv)
@@ -184,7 +172,7 @@ func readAll(t *testing.T, path string) []byte {
 // ternkit; ternkit's SignSSH verifies with ssh-keygen -Y verify; another
 // namespace or a changed message fails both.
 func TestSSHSignatureInterop(t *testing.T) {
-	sshKeygen := outsideTool(t, "ssh-keygen", "openssh-client")
+	sshKeygen := outsidetool.Require(t, "ssh-keygen", "openssh-client")
 	dir := t.TempDir()
 	priv := filepath.Join(dir, "vault")
 	runTool(t, nil, sshKeygen, "-q", "-t", "ed25519", "-N", "", "-C", "fernmoss release", "-f", priv)

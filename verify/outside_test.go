@@ -12,23 +12,10 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/outsidetool"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
-
-// b3sumPath finds b3sum (Debian package b3sum, the BLAKE3 authors'
-// command-line tool): a skip without it, a failure under CI.
-func b3sumPath(t *testing.T) string {
-	t.Helper()
-	p, err := exec.LookPath("b3sum")
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatal("b3sum not found: CI must install it (.ci/run)")
-		}
-		t.Skip("b3sum not found; apt-get install b3sum")
-	}
-	return p
-}
 
 // The source hashes the manifest records: each source file's is what
 // b3sum computes; each tensor's source span identity (format 1.4) is that
@@ -37,7 +24,7 @@ func b3sumPath(t *testing.T) string {
 // JSON header, data_offsets relative to the data section), not by
 // ternkit's reader.
 func TestSourceHashesAgreeWithB3sum(t *testing.T) {
-	b3sum := b3sumPath(t)
+	b3sum := outsidetool.Require(t, "b3sum", "b3sum")
 	run := func(args []string, stdin []byte) string {
 		cmd := exec.Command(b3sum, append([]string{"--no-names"}, args...)...)
 		cmd.Stdin = bytes.NewReader(stdin)

@@ -16,6 +16,7 @@ import (
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/outsidetool"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
@@ -193,13 +194,7 @@ func bigArtifact(t *testing.T, dir string) (string, manifest.Section) {
 // hashes the whole file and each section's byte range to the values the
 // artifact records.
 func TestHashesAgreeWithB3sum(t *testing.T) {
-	b3sum, err := exec.LookPath("b3sum")
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatal("b3sum not found: CI must install it (.ci/run)")
-		}
-		t.Skip("b3sum not found; apt-get install b3sum")
-	}
+	b3sum := outsidetool.Require(t, "b3sum", "b3sum")
 	_, art := fixtureWith(t, t.TempDir(), pack.Bits2, mixedPolicy(t), nil)
 	b, err := os.ReadFile(art)
 	require.NoError(t, err)

@@ -18,6 +18,7 @@ import (
 	"github.com/stretchr/testify/require"
 	"golang.org/x/net/html"
 
+	"ternkit/internal/outsidetool"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
@@ -49,7 +50,7 @@ func runChromium(t *testing.T, chromium, page string, extra ...string) string {
 // chromium): the DOM the browser builds holds both charts and one row per
 // tensor, and the screenshot is a page drawn in the report's colours.
 func TestReportInBrowser(t *testing.T) {
-	chromium := requireTool(t, "chromium")
+	chromium := outsidetool.Require(t, "chromium", "chromium")
 	dir := t.TempDir()
 	src, art := demoArtifact(t, dir)
 	page := filepath.Join(dir, demoModel+".html") // written by the demo, with its verify --against
@@ -174,7 +175,7 @@ func TestReportInBrowser(t *testing.T) {
 // bars), the budget line, names that wrap at their separators. To look at
 // it: TERNKIT_KEEP_SCREENSHOT24=/tmp/report24.png go test ./cmd/ternkit -run Browser24
 func TestReportInBrowser24(t *testing.T) {
-	chromium := requireTool(t, "chromium")
+	chromium := outsidetool.Require(t, "chromium", "chromium")
 	dir := t.TempDir()
 	src := writeDecoder(t, dir, 24, 64, 192, 512)
 	art, page := filepath.Join(dir, "deep.tkart"), filepath.Join(dir, "deep.html")

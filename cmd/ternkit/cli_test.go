@@ -10,6 +10,8 @@ import (
 
 	"github.com/spf13/cobra"
 	"github.com/stretchr/testify/require"
+
+	"ternkit/internal/outsidetool"
 )
 
 // TestMain lets the test binary stand in for the ternkit binary, for the
@@ -153,7 +155,7 @@ func TestCompletion(t *testing.T) {
 // bash itself, with the bash-completion package (Debian), completes a
 // command line through the generated script and this binary.
 func TestCompletionInBash(t *testing.T) {
-	bash := requireTool(t, "bash")
+	bash := outsidetool.Require(t, "bash", "bash")
 	const framework = "/usr/share/bash-completion/bash_completion"
 	if _, err := os.Stat(framework); err != nil {
 		if os.Getenv("CI") != "" {

@@ -16,6 +16,7 @@ import (
 	"github.com/stretchr/testify/require"
 
 	"ternkit/convert"
+	"ternkit/internal/outsidetool"
 )
 
 // ternkit runs the command line in-process and returns exit code, stdout
@@ -128,24 +129,10 @@ func TestInspectJSON(t *testing.T) {
 
 	// b3sum (Debian package b3sum, the BLAKE3 team's command-line tool) over
 	// the whole artifact gives the same hash.
-	b3sum := requireTool(t, "b3sum")
+	b3sum := outsidetool.Require(t, "b3sum", "b3sum")
 	sum, err := exec.Command(b3sum, "--no-names", art).Output()
 	require.NoError(t, err)
 	require.Equal(t, strings.TrimSpace(string(sum)), rep.FileBLAKE3)
-}
-
-// requireTool finds an outside tool; it skips when absent, but fails under
-// CI, which must install it.
-func requireTool(t *testing.T, name string) string {
-	t.Helper()
-	p, err := exec.LookPath(name)
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatalf("%s not found: CI must install it (.ci/run)", name)
-		}
-		t.Skipf("%s not found; install it to run this check (apt-get install %s)", name, name)
-	}
-	return p
 }
 
 // A checkpoint written by an independent safetensors implementation

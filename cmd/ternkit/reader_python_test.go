@@ -19,6 +19,7 @@ import (
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/outsidetool"
 	"ternkit/manifest"
 	"ternkit/pack"
 )
@@ -79,8 +80,8 @@ func requirePythonReader(t *testing.T) string {
 		}
 		t.Skipf("%s with numpy not found; install it to run this check (apt-get install python3-numpy)", py)
 	}
-	requireTool(t, "b3sum")
-	requireTool(t, "zstd")
+	outsidetool.Require(t, "b3sum", "b3sum")
+	outsidetool.Require(t, "zstd", "zstd")
 	return py
 }
 

@@ -11,6 +11,8 @@ import (
 	"testing"
 
 	"github.com/stretchr/testify/require"
+
+	"ternkit/internal/outsidetool"
 )
 
 // tool runs an outside tool and returns its stdout; it fails the test
@@ -57,8 +59,8 @@ func flipped(t *testing.T, art string) string {
 // (Debian: openssh-client) sign artifacts that verify with their public
 // halves; a flipped artifact byte fails, with the verdict first.
 func TestSignWithOutsideKeys(t *testing.T) {
-	openssl := requireTool(t, "openssl")
-	sshKeygen := requireTool(t, "ssh-keygen")
+	openssl := outsidetool.Require(t, "openssl", "openssl")
+	sshKeygen := outsidetool.Require(t, "ssh-keygen", "openssh-client")
 	dir := t.TempDir()
 	_, art := demoArtifact(t, dir)
 	bad := flipped(t, art)
@@ -120,7 +122,7 @@ func TestSignWithOutsideKeys(t *testing.T) {
 // with ssh-keygen -Y verify; a changed artifact or another namespace fails
 // both.
 func TestSSHSignaturesBothWays(t *testing.T) {
-	sshKeygen := requireTool(t, "ssh-keygen")
+	sshKeygen := outsidetool.Require(t, "ssh-keygen", "openssh-client")
 	dir := t.TempDir()
 	_, art := demoArtifact(t, dir)
 	key := filepath.Join(dir, "release_ed25519")
@@ -189,8 +191,8 @@ func TestSSHSignaturesBothWays(t *testing.T) {
 // sha256sum (GNU coreutils) prints for the artifact, and verify's BLAKE3
 // is what b3sum (the BLAKE3 reference CLI) prints.
 func TestDigestsAgainstSHA256Sum(t *testing.T) {
-	sha256sum := requireTool(t, "sha256sum")
-	b3sum := requireTool(t, "b3sum")
+	sha256sum := outsidetool.Require(t, "sha256sum", "coreutils")
+	b3sum := outsidetool.Require(t, "b3sum", "b3sum")
 	dir := t.TempDir()
 	src, art := demoArtifact(t, dir)
 	field := func(out []byte) string { f, _, _ := strings.Cut(string(out), " "); return f }

@@ -10,18 +10,14 @@ import (
 
 	"github.com/stretchr/testify/require"
 	"github.com/zeebo/blake3"
+
+	"ternkit/internal/outsidetool"
 )
 
 // The SHA-256 is sha256sum's (GNU coreutils, always on Debian), the BLAKE3
 // the library's one-shot sum.
 func TestFileAgainstSHA256Sum(t *testing.T) {
-	sha256sum, err := exec.LookPath("sha256sum")
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatal("sha256sum not found: CI must have coreutils")
-		}
-		t.Skip("sha256sum not found (coreutils)")
-	}
+	sha256sum := outsidetool.Require(t, "sha256sum", "coreutils")
 	dir := t.TempDir()
 	for _, n := range []int{0, 1, 63, 64, 65, 1 << 20, 3<<20 + 5} {
 		data := bytes.Repeat([]byte("fernmoss seed vault "), n/20+1)[:n]
@@ -43,7 +39,7 @@ func TestFileAgainstSHA256Sum(t *testing.T) {
 			require.Equal(t, d, pd, "%d bytes, %d workers", n, workers)
 		}
 	}
-	_, err = File(filepath.Join(dir, "missing"))
+	_, err := File(filepath.Join(dir, "missing"))
 	require.ErrorIs(t, err, os.ErrNotExist)
 }
 

@@ -11,6 +11,8 @@ import (
 
 	"github.com/stretchr/testify/require"
 	"github.com/zeebo/blake3"
+
+	"ternkit/internal/outsidetool"
 )
 
 // BLAKE3's published test input: byte i is i mod 251 (the BLAKE3 test
@@ -139,13 +141,7 @@ func TestSpans(t *testing.T) {
 // b3sum (Debian package b3sum), the BLAKE3 team's command-line tool, on a
 // file the parallel path hashes.
 func TestSum256AgainstB3sum(t *testing.T) {
-	path, err := exec.LookPath("b3sum")
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatal("b3sum not found (apt-get install b3sum)")
-		}
-		t.Skip("b3sum not found (apt-get install b3sum)")
-	}
+	path := outsidetool.Require(t, "b3sum", "b3sum")
 	data := input(7<<20 + 999)
 	file := t.TempDir() + "/in"
 	require.NoError(t, os.WriteFile(file, data, 0o644))

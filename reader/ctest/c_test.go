@@ -29,6 +29,7 @@ import (
 	"github.com/zeebo/blake3"
 
 	"ternkit/convert"
+	"ternkit/internal/outsidetool"
 	"ternkit/internal/testweights"
 	"ternkit/manifest"
 	"ternkit/pack"
@@ -50,20 +51,6 @@ var strictFlags = []string{"-std=c99", "-Wall", "-Wextra", "-Werror"}
 var sanitize = []string{"-O1", "-g", "-fno-omit-frame-pointer", "-fsanitize=address,undefined", "-fno-sanitize-recover=all"}
 
 var withZstd = []string{"-DTKART_WITH_ZSTD"}
-
-// requireTool finds an outside tool: the test skips without it, but fails
-// when CI is set.
-func requireTool(t testing.TB, name, pkg string) string {
-	t.Helper()
-	p, err := exec.LookPath(name)
-	if err != nil {
-		if os.Getenv("CI") != "" {
-			t.Fatalf("%s not found: CI must install %s (.ci/run)", name, pkg)
-		}
-		t.Skipf("%s not found; install it to run this check (apt-get install %s)", name, pkg)
-	}
-	return p
-}
 
 var (
 	buildMu  sync.Mutex
@@ -88,7 +75,7 @@ func TestMain(m *testing.M) {
 // (Debian libzstd-dev), whose absence skips the test outside CI.
 func build(t testing.TB, cc string, flags ...string) string {
 	t.Helper()
-	path := requireTool(t, cc, cc)
+	path := outsidetool.Require(t, cc, cc)
 	args := append(append(append([]string{}, strictFlags...), flags...), filepath.Join(cDir, "tkart.c"), filepath.Join(cDir, "tkart_check.c"))
 	zstd := strings.Contains(strings.Join(flags, " "), "TKART_WITH_ZSTD")
 	if zstd {
@@ -475,7 +462,7 @@ func TestDemoAndMalformed(t *testing.T) {
 	code, _, _ = strings.Cut(code, "```")
 	example := filepath.Join(dir, "example")
 	require.NoError(t, os.WriteFile(example+".c", []byte(code), 0o644))
-	gcc := requireTool(t, "gcc", "gcc")
+	gcc := outsidetool.Require(t, "gcc", "gcc")
 	out, err := exec.Command(gcc, append(append([]string{}, strictFlags...), "-D_POSIX_C_SOURCE=200809L", "-DTKART_WITH_ZSTD", "-I", cDir,
 		"-o", example, example+".c", filepath.Join(cDir, "tkart.c"), "-lzstd")...).CombinedOutput()
 	require.NoError(t, err, "%s", out)
@@ -551,7 +538,7 @@ func TestMutationsUnderSanitizers(t *testing.T) {
 // (Debian b3sum, the BLAKE3 team's CLI); three values of the BLAKE3 test
 // vectors are checked as published.
 func TestBLAKE3(t *testing.T) {
-	b3sum := requireTool(t, "b3sum", "b3sum")
+	b3sum := outsidetool.Require(t, "b3sum", "b3sum")
 	bin := sanitized(t)
 	dir := t.TempDir()
 	// The published test vectors (test_vectors.json in the BLAKE3
