@@ -25,32 +25,54 @@ var addVectors14 = flag.Bool("add-vectors-14", false, "add the format 1.4 vector
 
 const pieceVectorNote = "a companion section of 8393608 bytes (2^23 + 5000): three piece chaining values, the last piece 5000 bytes"
 
+// vectorSet gathers vectors written beside the published ones.
+type vectorSet struct {
+	t     *testing.T
+	dir   string
+	vs    []vector
+	files map[string][]byte
+}
+
+func newVectorSet(t *testing.T) *vectorSet {
+	return &vectorSet{t: t, dir: t.TempDir(), files: map[string][]byte{}}
+}
+
+// add records vector v, whose file holds b.
+func (s *vectorSet) add(v vector, b []byte) {
+	s.vs = append(s.vs, v)
+	s.files[v.File] = b
+}
+
+// path writes b to a scratch file and returns its path.
+func (s *vectorSet) path(name string, b []byte) string {
+	p := filepath.Join(s.dir, name)
+	require.NoError(s.t, os.WriteFile(p, b, 0o644))
+	return p
+}
+
+// redo adds a vector made by f from the artifact at from.
+func (s *vectorSet) redo(file, expect, note, from string, f func(d *draft)) {
+	d := readDraft(s.t, from)
+	f(d)
+	s.add(vector{File: file, Expect: expect, Note: note}, d.encode(s.t))
+}
+
+// inject adds a vector whose manifest has old replaced by new.
+func (s *vectorSet) inject(file, expect, note, from, old, new string) {
+	s.redo(file, expect, note, from, func(d *draft) {
+		d.json = func(b []byte) []byte {
+			require.True(s.t, bytes.Contains(b, []byte(old)), "%s: %s not in the manifest", file, old)
+			return bytes.Replace(b, []byte(old), []byte(new), 1)
+		}
+	})
+}
+
+// publish writes the set's files and entries (publishVectors).
+func (s *vectorSet) publish() { publishVectors(s.t, s.vs, s.files) }
+
 func writeVectors14(t *testing.T) {
-	dir := t.TempDir()
-	var vs []vector
-	files := map[string][]byte{}
-	add := func(v vector, b []byte) {
-		vs = append(vs, v)
-		files[v.File] = b
-	}
-	path := func(name string, b []byte) string {
-		p := filepath.Join(dir, name)
-		require.NoError(t, os.WriteFile(p, b, 0o644))
-		return p
-	}
-	redo := func(file, expect, note, from string, f func(d *draft)) {
-		d := readDraft(t, from)
-		f(d)
-		add(vector{File: file, Expect: expect, Note: note}, d.encode(t))
-	}
-	inject := func(file, expect, note, from, old, new string) {
-		redo(file, expect, note, from, func(d *draft) {
-			d.json = func(b []byte) []byte {
-				require.True(t, bytes.Contains(b, []byte(old)), "%s: %s not in the manifest", file, old)
-				return bytes.Replace(b, []byte(old), []byte(new), 1)
-			}
-		})
-	}
+	set := newVectorSet(t)
+	add, path, redo, inject := set.add, set.path, set.redo, set.inject
 
 	// A small artifact as every writer of 1.4 writes it.
 	small := &vectorSource{}
@@ -106,7 +128,7 @@ func writeVectors14(t *testing.T) {
 		d.m.Minor = nil
 	})
 
-	publishVectors(t, vs, files)
+	set.publish()
 }
 
 // publishVectors writes files into testdata/vectors and puts vs in the

@@ -3,7 +3,6 @@ package pack
 import (
 	"bytes"
 	"flag"
-	"os"
 	"path/filepath"
 	"testing"
 
@@ -17,21 +16,15 @@ import (
 var addVectorsSpan = flag.Bool("add-vectors-span", false, "add the source_span vectors to testdata/vectors")
 
 func writeVectorsSpan(t *testing.T) {
-	dir := t.TempDir()
-	var vs []vector
-	files := map[string][]byte{}
-	add := func(v vector, b []byte) {
-		vs = append(vs, v)
-		files[v.File] = b
-	}
+	set := newVectorSet(t)
+	add := set.add
 	src := &vectorSource{}
 	src.float("layer.w", []int64{2, 7}, []float32{0.9, -1.1, 0.05, 0.6, -0.2, 1.7, -0.8, 0.3, 0.0, -0.45, 1.2, -1.6, 0.1, 0.55})
 	src.kept("layer.b", "F16", []int64{3}, []byte{0x00, 0x3c, 0x00, 0xc0, 0xff, 0x7b})
 	ok, want := src.build(t, Base3)
 	require.True(t, bytes.Contains(ok, []byte(`"source_span":"`)))
 	add(vector{File: "ok-source-span.tkart", Expect: "ok", Version: "1.4", Note: `tensors recorded by their source span identity ("source_span", format 1.4) in place of "source_blake3"`, Tensors: want}, ok)
-	p := filepath.Join(dir, "ok")
-	require.NoError(t, os.WriteFile(p, ok, 0o644))
+	p := set.path("ok", ok)
 	d := readDraft(t, p)
 	span := d.m.Tensors[1].SourceSpan
 	d.json = func(b []byte) []byte {
@@ -44,7 +37,7 @@ func writeVectorsSpan(t *testing.T) {
 	d.minor, d.m.Minor = 3, nil
 	add(vector{File: "bad-source-span-before-14.tkart", Expect: failVersion, Note: `"source_span" (format 1.4) in a file that says version 1.3, without the "minor" key`}, d.encode(t))
 
-	publishVectors(t, vs, files)
+	set.publish()
 }
 
 // The source span vectors: the good one's entries record source_span and
