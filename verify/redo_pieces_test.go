@@ -7,6 +7,7 @@ import (
 
 	"github.com/stretchr/testify/require"
 
+	"ternkit/convert"
 	"ternkit/pack"
 )
 
@@ -38,5 +39,41 @@ func TestAgainstInPieces(t *testing.T) {
 		require.True(t, ok)
 		require.False(t, c.OK, "piece of %d elements", piece)
 		require.Contains(t, c.Detail, "F16 bytes at artifact byte", "piece of %d elements", piece)
+	}
+}
+
+// The int8 bound's largest excess and its element, found a piece at a
+// time, are those of one pass over the whole tensor.
+func TestInt8BoundInPieces(t *testing.T) {
+	dir := t.TempDir()
+	_, art, data := bf16Fixture(t, dir, pack.Bits2)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	defer a.Close()
+	const name = "blocks.0.mlp.down.weight" // 10 rows of 7, int8
+	tensor, err := a.Tensor(name)
+	require.NoError(t, err)
+	raw := data[name]
+	w := make([]float32, tensor.Len())
+	require.NoError(t, convert.DecodeFloat32("BF16", raw, w))
+	payload, err := tensor.Payload()
+	require.NoError(t, err)
+	codes := make([]int8, len(payload))
+	for i, c := range payload {
+		codes[i] = int8(c)
+	}
+	scales, err := tensor.Scales()
+	require.NoError(t, err)
+	wantExcess, wantAt := convert.Int8BoundExcess(w, codes, scales, 7)
+	require.Greater(t, wantAt, 6, "the largest excess lies past the first row, so pieces matter")
+
+	defer func(n int) { pieceElements = n }(pieceElements)
+	for _, piece := range []int{1, 7, 14, 1 << 20} {
+		pieceElements = piece
+		var b redoBuffers
+		var v tensorVerdict
+		require.Empty(t, b.redoInt8(a, tensor, raw, &v), "piece of %d elements", piece)
+		require.Equal(t, wantExcess, v.excess, "piece of %d elements", piece)
+		require.Equal(t, wantAt, v.at, "piece of %d elements", piece)
 	}
 }
