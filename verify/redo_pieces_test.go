@@ -77,3 +77,37 @@ func TestInt8BoundInPieces(t *testing.T) {
 		require.Equal(t, wantAt, v.at, "piece of %d elements", piece)
 	}
 }
+
+// Equal rows tie on their largest excess: the first row's element is
+// named, whether the rows come in one piece or two.
+func TestInt8BoundTieInPieces(t *testing.T) {
+	dir := t.TempDir()
+	row := []float32{0.31, -0.77, 0.052, 1.9, -0.4}
+	w := append(append([]float32{}, row...), row...)
+	raw, err := convert.EncodeFloat32(nil, "F32", w)
+	require.NoError(t, err)
+	src := filepath.Join(dir, "src.safetensors")
+	require.NoError(t, convert.WriteFile(src, []convert.WriteTensor{{Name: "embed", DType: "F32", Shape: []int64{2, 5}, Data: raw}}, nil))
+	r, err := convert.ParseRule("embed=int8")
+	require.NoError(t, err)
+	s, err := convert.Open(src)
+	require.NoError(t, err)
+	defer s.Close()
+	art := filepath.Join(dir, "a.tkart")
+	_, err = pack.Build(s, art, pack.Options{Codec: pack.Bits2, Recipe: convert.DefaultRecipe(), Policy: &convert.Policy{Rules: []convert.Rule{r}}})
+	require.NoError(t, err)
+	a, err := pack.Open(art)
+	require.NoError(t, err)
+	defer a.Close()
+	tensor, err := a.Tensor("embed")
+	require.NoError(t, err)
+	defer func(n int) { pieceElements = n }(pieceElements)
+	for _, piece := range []int{5, 10} {
+		pieceElements = piece
+		var b redoBuffers
+		var v tensorVerdict
+		require.Empty(t, b.redoInt8(a, tensor, raw, &v))
+		require.GreaterOrEqual(t, v.at, 0)
+		require.Less(t, v.at, 5, "piece of %d elements: the first of the tied rows", piece)
+	}
+}
